@@ -1,0 +1,56 @@
+"""What flows from the inputs into the pipeline, and from the pipeline to the outputs."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any, Protocol
+
+from estimators.samples import Sample
+
+
+@dataclass(frozen=True, slots=True)
+class RawLine:
+    """One framed line exactly as received (TAG block included, no line ending).
+
+    ``t_s`` is the data time given to it (TAG ``c:``, GNSS time, or the receive
+    time when live); ``recv_utc`` is when it arrived (equal to ``t_s`` in replay
+    of a file without receive times).
+    """
+
+    source: str
+    t_s: float
+    recv_utc: float
+    text: str
+
+
+@dataclass(frozen=True, slots=True)
+class Reading:
+    """One plausible measurement from one source, stamped with data time in ``sample.t_s``."""
+
+    source: str
+    sample: Sample
+    recv_utc: float
+    sentence: str = ""  # the NMEA sentence type it came from, e.g. "RMC"
+
+
+@dataclass(frozen=True, slots=True)
+class Message:
+    """One publication as it leaves: full topic, payload with ``time`` first."""
+
+    t_s: float
+    topic: str
+    payload: Mapping[str, Any]
+    retain: bool
+    qos: int = 0
+    kind: str = "state"  # "state", "event", "alert" or "status"
+
+
+class Sink(Protocol):
+    """An output: the JSONL writer, the MQTT publisher, the recorder."""
+
+    def raw(self, line: RawLine) -> None: ...
+
+    def message(self, msg: Message) -> None: ...
+
+    def close(self) -> None: ...

@@ -1,0 +1,99 @@
+"""What an estimator is to the pipeline, and what it hands back.
+
+An estimator is a plug-in: it names the sample kinds it wants, is stepped with
+each one in time order, and returns publications (a topic's new state, or an
+event) and conditions (the raw truth of an alert's condition at that moment).
+The daemon turns conditions into alerts with their lifecycle; estimators only
+say whether the condition holds, with text and values.
+
+"Now" inside an estimator is the newest time it was given (a sample's ``t_s``
+or a ``tick``); it never reads a clock.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any, Protocol, runtime_checkable
+
+from estimators.history import SampleHistory
+from estimators.samples import Sample
+
+ALARM, WARNING, CAUTION = "alarm", "warning", "caution"
+PRIORITIES = (ALARM, WARNING, CAUTION)
+
+# Appended to every alert text: what offwatch can and cannot promise.
+ADVISORY = "Advisory only, not for navigation: check official forecasts, charts and your own seamanship."
+
+
+@dataclass(frozen=True, slots=True)
+class Publication:
+    """A new state for ``topic`` (relative to the prefix: ``current``, ``events``...)."""
+
+    t_s: float
+    topic: str
+    payload: Mapping[str, Any]
+    retain: bool = True
+
+
+@dataclass(frozen=True, slots=True)
+class Condition:
+    """Whether alert ``alert_id``'s condition holds at ``t_s``.
+
+    ``text`` says what was seen and what to check, never what to do at the helm;
+    the daemon appends ``ADVISORY``. ``values`` are the numbers that raised it.
+    """
+
+    t_s: float
+    alert_id: str
+    priority: str
+    active: bool
+    text: str = ""
+    values: Mapping[str, Any] = field(default_factory=dict)
+
+
+Output = Publication | Condition
+
+
+class Context(Protocol):
+    """What the pipeline lets an estimator see besides its own samples."""
+
+    @property
+    def history(self) -> SampleHistory: ...
+
+    def latest(self, topic: str) -> Publication | None:
+        """The newest publication on ``topic`` by any estimator, or None."""
+        ...
+
+
+@runtime_checkable
+class Estimator(Protocol):
+    name: str
+    accepts: tuple[type, ...]
+
+    def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
+        """Take one sample (of a kind in ``accepts``), return what changed."""
+        ...
+
+    def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
+        """Data time has reached ``t_s`` (about once a second), for timeouts."""
+        ...
+
+
+class EstimatorBase:
+    """Defaults for the optional parts of the protocol."""
+
+    name = "unnamed"
+    accepts: tuple[type, ...] = ()
+
+    def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
+        return ()
+
+
+def iso_utc(t_s: float) -> str:
+    """ISO 8601 UTC with milliseconds and a Z, as every payload's ``time``."""
+    ms = int(round(t_s * 1000.0))
+    sec, milli = divmod(ms, 1000)
+    stamp = datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S")
+    return f"{stamp}.{milli:03d}Z"
