@@ -1,0 +1,5 @@
+import sys
+
+from daemon.cli import main
+
+sys.exit(main())
