@@ -1,0 +1,29 @@
+# Set-up is part of every target: a fresh machine needs only Python 3.11+
+# (and Mosquitto for the broker tests).
+PY ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test bench clean
+
+$(STAMP): pyproject.toml
+	$(PY) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade pip
+	$(BIN)/python -m pip install -q -e '.[demo,test,report]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/offwatch demo
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -q
+
+bench: $(STAMP)
+	$(BIN)/python -m daemon.bench_current
+	$(BIN)/python -m daemon.bench_fronts_pressure
+	$(BIN)/python -m daemon.bench_recording
+	$(BIN)/python -m daemon.bench_replay
+
+clean:
+	rm -rf $(VENV) demo-out
