@@ -1,0 +1,91 @@
+"""``offwatch replay``: recorded files through the very same pipeline as ``run``."""
+
+from __future__ import annotations
+
+import logging
+import sys
+import time
+from collections.abc import Sequence
+from pathlib import Path
+
+from daemon.assembly import build
+from daemon.config import Config, load_config
+from daemon.errors import InputError
+from daemon.jsonl import JsonlSink
+from daemon.readings import Sink
+from daemon.replayfiles import ProgressBar, iter_replay
+from daemon.summary import SummarySink
+
+log = logging.getLogger(__name__)
+
+
+def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url: str | None,
+                 pipeline_hooks: dict) -> list[Sink]:
+    """The sinks a replay asked for; MQTT only when a broker is configured or given."""
+    sinks: list[Sink] = []
+    if jsonl:
+        sinks.append(JsonlSink(jsonl))
+    if record:
+        from daemon.recorder import Recorder
+        rec = Recorder.open_file(record)
+        rec.record_config(cfg.effective())
+        sinks.append(rec)
+    url = mqtt_url or cfg.mqtt.url
+    if url:
+        from daemon.mqtt import MqttSink
+        sinks.append(MqttSink.from_config(cfg.mqtt, url=url, state_dir=None,
+                                          on_ack=lambda i: pipeline_hooks["ack"](i),
+                                          on_connected=lambda: pipeline_hooks["status"]()))
+    return sinks
+
+
+def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, record: str | None = None,
+               mqtt_url: str | None = None, speed: float | None = None, progress: bool = True) -> SummarySink:
+    for p in paths:
+        if not Path(p).is_file():
+            raise InputError(f"replay file {p} not found")
+    hooks: dict = {}
+    summary = SummarySink()
+    sinks = [summary, *open_outputs(cfg, jsonl=jsonl, record=record, mqtt_url=mqtt_url, pipeline_hooks=hooks)]
+    parts = build(cfg, sinks, live=False)
+    pipe = parts.pipeline
+    hooks["ack"], hooks["status"] = pipe.acknowledge, pipe.request_status
+    bar = ProgressBar() if progress and sys.stderr.isatty() else None
+    pacer = _Pacer(speed) if speed else None
+    try:
+        for item in iter_replay(list(paths), parts.make_ingest, progress=bar.update if bar else None):
+            if pacer is not None:
+                pacer.wait_for(item.t_s if hasattr(item, "text") else item.sample.t_s)
+            pipe.feed(item)
+    finally:
+        if bar is not None:
+            bar.close()
+        pipe.close()
+    return summary
+
+
+class _Pacer:
+    """Sleeps so data time passes ``speed`` times faster than the wall clock."""
+
+    def __init__(self, speed: float) -> None:
+        self.speed = speed
+        self.t0_data: float | None = None
+        self.t0_wall = time.monotonic()
+
+    def wait_for(self, t_s: float) -> None:
+        if self.t0_data is None:
+            self.t0_data = t_s
+            return
+        due = self.t0_wall + (t_s - self.t0_data) / self.speed
+        delay = due - time.monotonic()
+        if delay > 0:
+            time.sleep(min(delay, 1.0))
+
+
+def replay_command(args) -> int:
+    cfg = load_config(args.config)
+    summary = run_replay(args.files, cfg, jsonl=args.jsonl, record=args.record, mqtt_url=args.mqtt,
+                         speed=args.speed)
+    if not args.quiet:
+        print("\n".join(summary.lines()))
+    return 0

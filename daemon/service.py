@@ -1,0 +1,149 @@
+"""``offwatch run``: the always-on service under systemd.
+
+One reading loop: chunks from every live source (one supervisor thread each)
+arrive on one bounded queue; each source's Ingest frames and parses them; the
+pipeline steps the estimators; MQTT and the recorder only ever enqueue, so a
+dead broker or a slow SD card never delays an input. The loop also ticks the
+pipeline with the wall clock once a second (a silent feed is noticed even when
+nothing at all arrives), pings the systemd watchdog only while the loop and
+the MQTT thread are alive, and saves the learnt calibration and the alert
+states in the state directory.
+"""
+
+from __future__ import annotations
+
+import logging
+import queue
+import signal
+import threading
+import time
+from pathlib import Path
+
+from daemon import sdnotify
+from daemon.assembly import build
+from daemon.calibration_store import load_calibration, save_calibration
+from daemon.config import Config, load_config
+from daemon.errors import ConfigError
+from daemon.statefiles import read_json, write_json_atomic
+
+log = logging.getLogger(__name__)
+
+CALIBRATION_SAVE_EVERY_S = 600.0
+ALERTS_FILE = "alerts.json"
+QUEUE_SIZE = 10000
+
+
+class Service:
+    def __init__(self, cfg: Config, mqtt_url: str | None = None) -> None:
+        self.cfg = cfg
+        self.stop = threading.Event()
+        self.state_dir = cfg.state_dir()
+        self.state_dir.mkdir(parents=True, exist_ok=True)
+        self.chunks: queue.Queue = queue.Queue(maxsize=QUEUE_SIZE)
+        self.notifier = sdnotify.Notifier()
+        self.mqtt = None
+        self.recorder = None
+        self._open_outputs(mqtt_url or cfg.mqtt.url)
+        sinks = [s for s in (self.recorder, self.mqtt) if s is not None]
+        self.parts = build(cfg, sinks, live=True, calibration=load_calibration(self.state_dir),
+                           alert_snapshot=read_json(self.state_dir / ALERTS_FILE),
+                           extra_status=self._health)
+        self.ingests = {name: self.parts.make_ingest(name) for name in cfg.inputs}
+        self.source_threads: list = []
+
+    def _open_outputs(self, url: str) -> None:
+        from daemon.recorder import Recorder
+        self.recorder = Recorder.open_passage(self.cfg.section("recording"), self.state_dir / "recordings")
+        self.recorder.record_config(self.cfg.effective())
+        if url:
+            from daemon.mqtt import MqttSink
+            self.mqtt = MqttSink.from_config(self.cfg.mqtt, url=url, state_dir=self.state_dir,
+                                             on_ack=lambda i: self.parts.pipeline.acknowledge(i),
+                                             on_connected=lambda: self.parts.pipeline.request_status())
+
+    def _health(self) -> dict:
+        out = {"sources": {h.name: h.snapshot() for h in getattr(self, "health", [])}}
+        if self.mqtt is not None:
+            out["mqtt"] = self.mqtt.snapshot()
+        return out
+
+    def run(self) -> int:
+        from daemon.sources import start_sources, specs_from_config
+        self.source_threads, self.health = start_sources(specs_from_config(self.cfg.inputs), self.chunks, self.stop)
+        self.notifier.ready()
+        log.info("offwatch running: %d inputs, state in %s", len(self.cfg.inputs), self.state_dir)
+        pipe = self.parts.pipeline
+        next_tick = time.monotonic()
+        next_save = time.monotonic() + CALIBRATION_SAVE_EVERY_S
+        try:
+            while not self.stop.is_set():
+                self._drain(timeout=0.2)
+                now = time.monotonic()
+                if now >= next_tick:
+                    pipe.tick(time.time())
+                    self._watchdog()
+                    next_tick = now + 1.0
+                if now >= next_save:
+                    self._save_state()
+                    next_save = now + CALIBRATION_SAVE_EVERY_S
+        finally:
+            self.notifier.stopping()
+            self.stop.set()
+            for ingest_name, ingest in self.ingests.items():
+                pipe.feed_all(ingest.flush())
+            self._save_state()
+            pipe.close()
+            log.info("offwatch stopped cleanly")
+        return 0
+
+    def _drain(self, timeout: float) -> None:
+        try:
+            chunk = self.chunks.get(timeout=timeout)
+        except queue.Empty:
+            return
+        pipe = self.parts.pipeline
+        while True:
+            ingest = self.ingests.get(chunk.source)
+            if ingest is not None:
+                pipe.feed_all(ingest.feed(chunk.data, chunk.recv_utc))
+            try:
+                chunk = self.chunks.get_nowait()
+            except queue.Empty:
+                return
+
+    def _watchdog(self) -> None:
+        """Ping only while everything that must run does: a hung part gets us restarted."""
+        if self.mqtt is not None and not self.mqtt.healthy():
+            log.error("MQTT network thread is not healthy; withholding the watchdog ping")
+            return
+        self.notifier.watchdog()
+        cur = self.parts.pipeline.ctx.latest("current")
+        text = "running"
+        if cur is not None:
+            text = f"current {cur.payload.get('drift_kn', 0):.1f} kn toward {cur.payload.get('set_deg', 0):.0f}°, {cur.payload.get('quality')}"
+        self.notifier.status(text)
+
+    def _save_state(self) -> None:
+        try:
+            save_calibration(self.state_dir, self.parts.current.calibration())
+            write_json_atomic(self.state_dir / ALERTS_FILE, self.parts.pipeline.alerts.snapshot())
+        except OSError as e:
+            log.error("cannot save state in %s: %s", self.state_dir, e)
+
+
+def run_command(args) -> int:
+    cfg = load_config(args.config)
+    if not cfg.inputs:
+        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" device = \"/dev/ttyUSB0\"")
+    service = Service(cfg, mqtt_url=args.mqtt)
+
+    def on_signal(signum, frame):
+        log.info("signal %d: stopping", signum)
+        service.stop.set()
+
+    signal.signal(signal.SIGTERM, on_signal)
+    signal.signal(signal.SIGINT, on_signal)
+    return service.run()
+
+
+__all__ = ["Service", "run_command", "Path"]
