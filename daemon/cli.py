@@ -54,6 +54,17 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--mqtt", metavar="URL", help="broker to use (default: 127.0.0.1:1883, or an embedded one)")
     demo.add_argument("--out", metavar="DIR", default="demo-out", help="where the JSONL and recording go")
 
+    exp = sub.add_parser("export", help="the track and the estimates as CSV, GPX or GeoJSON")
+    exp.add_argument("source", metavar="SOURCE", help="a recording or any replayable file")
+    exp.add_argument("--format", choices=("csv", "gpx", "geojson"), required=True)
+    exp.add_argument("--out", metavar="FILE", required=True)
+    exp.add_argument("--config", metavar="FILE")
+
+    watch = sub.add_parser("watch", help="a live terminal view of what the service publishes")
+    watch.add_argument("--mqtt", metavar="URL", default="mqtt://127.0.0.1:1883")
+    watch.add_argument("--prefix", default="offwatch")
+    watch.add_argument("--once", action="store_true", help="print one view after a few seconds and exit")
+
     return p
 
 
@@ -72,6 +83,12 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "run":
             from daemon.service import run_command
             return run_command(args)
+        if args.command == "export":
+            from daemon.export import export_command
+            return export_command(args)
+        if args.command == "watch":
+            from daemon.watch import watch_command
+            return watch_command(args)
         if args.command == "demo":
             from daemon.demo import demo_command
             return demo_command(args)

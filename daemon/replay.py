@@ -40,13 +40,14 @@ def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url
 
 
 def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, record: str | None = None,
-               mqtt_url: str | None = None, speed: float | None = None, progress: bool = True) -> SummarySink:
+               mqtt_url: str | None = None, speed: float | None = None, progress: bool = True,
+               extra_sinks: Sequence[Sink] = ()) -> SummarySink:
     for p in paths:
         if not Path(p).is_file():
             raise InputError(f"replay file {p} not found")
     hooks: dict = {}
     summary = SummarySink()
-    sinks = [summary, *open_outputs(cfg, jsonl=jsonl, record=record, mqtt_url=mqtt_url, pipeline_hooks=hooks)]
+    sinks = [summary, *extra_sinks, *open_outputs(cfg, jsonl=jsonl, record=record, mqtt_url=mqtt_url, pipeline_hooks=hooks)]
     parts = build(cfg, sinks, live=False)
     pipe = parts.pipeline
     hooks["ack"], hooks["status"] = pipe.acknowledge, pipe.request_status
