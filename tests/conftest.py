@@ -1,0 +1,97 @@
+"""Shared fixtures: a Mosquitto broker of the test's own on a free loopback port."""
+
+from __future__ import annotations
+
+import shutil
+import socket
+import subprocess
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+from daemon.broker import broker_answers
+
+MOSQUITTO = shutil.which("mosquitto") or "/usr/sbin/mosquitto"
+
+
+def free_port() -> int:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+class Mosquitto:
+    """A Mosquitto process on 127.0.0.1:<port> with a config in a temp directory.
+
+    Unpacks as ``host, port = mosquitto``; ``restart()`` comes back on the same
+    port. Persistence is on (in the temp directory), so persistent sessions and
+    their queued QoS-1 messages survive a restart, as on a real boat.
+    """
+
+    def __init__(self, workdir: Path) -> None:
+        self.host = "127.0.0.1"
+        self.port = free_port()
+        self.workdir = workdir
+        self.conf = workdir / "mosquitto.conf"
+        self.log = workdir / "mosquitto.log"
+        self.conf.write_text(
+            f"listener {self.port} {self.host}\n"
+            "allow_anonymous true\n"
+            "persistence true\n"
+            f"persistence_location {workdir}/\n"
+            f"log_dest file {self.log}\n"
+            "log_type all\n")
+        self.proc: subprocess.Popen | None = None
+
+    def __iter__(self):
+        return iter((self.host, self.port))
+
+    def start(self, timeout_s: float = 10.0) -> None:
+        self.proc = subprocess.Popen([MOSQUITTO, "-c", str(self.conf)],
+                                     stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+        deadline = time.monotonic() + timeout_s
+        while not broker_answers(self.host, self.port, timeout=0.5):
+            if self.proc.poll() is not None:
+                err = self.proc.stderr.read().decode(errors="replace") if self.proc.stderr else ""
+                raise RuntimeError(f"mosquitto exited with {self.proc.returncode}: {err}")
+            if time.monotonic() > deadline:
+                raise RuntimeError(f"mosquitto did not answer on port {self.port}")
+            time.sleep(0.05)
+
+    def stop(self) -> None:
+        if self.proc is not None and self.proc.poll() is None:
+            self.proc.terminate()  # SIGTERM: mosquitto saves its persistence file on the way out
+            try:
+                self.proc.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait()
+        self.proc = None
+
+    def restart(self) -> None:
+        self.stop()
+        self.start()
+
+    @property
+    def running(self) -> bool:
+        return self.proc is not None and self.proc.poll() is None
+
+
+@pytest.fixture
+def mosquitto_broker(tmp_path: Path) -> Iterator[Mosquitto]:
+    if not Path(MOSQUITTO).exists():
+        pytest.skip("mosquitto is not installed (apt install mosquitto)")
+    workdir = tmp_path / "mosquitto"
+    workdir.mkdir()
+    broker = Mosquitto(workdir)
+    broker.start()
+    yield broker
+    broker.stop()
+
+
+@pytest.fixture
+def mosquitto(mosquitto_broker: Mosquitto) -> Iterator[Mosquitto]:
+    """The broker; unpack as ``host, port = mosquitto``, or call ``mosquitto.restart()``."""
+    yield mosquitto_broker
