@@ -1,0 +1,68 @@
+"""A small seeded sensor model for the current-estimator tests (no tests here).
+
+The boat follows legs of constant true heading at a constant true speed through
+the water; the current walks (or holds); the compass reads the true heading
+minus the offset plus white noise; the log reads true STW / scale plus noise;
+the GNSS gives ground velocity (true water velocity + current) plus white
+noise per axis. One heading, one log and one fix sample per second.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from estimators.angles import from_east_north, to_east_north, wrap_360
+from estimators.samples import Fix, Heading, WaterSpeed
+
+T0 = 1_780_000_000.0  # an arbitrary data time (2026)
+
+
+@dataclass
+class Synth:
+    samples: list = field(default_factory=list)
+    t: list = field(default_factory=list)            # truth times (fix times)
+    current: list = field(default_factory=list)      # truth (east, north) kn at each fix
+    k: float = 1.0
+    offset_deg: float = 0.0
+
+
+def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *, stw_kn: float = 6.0,
+                  current_en: tuple[float, float] = (0.8, -0.5), walk_kn_per_sqrt_h: float = 0.0,
+                  k: float = 1.06, offset_deg: float = 3.0, gnss_sigma: float = 0.1, log_sigma: float = 0.1,
+                  heading_sigma_deg: float = 1.5, turn_rate_deg_s: float = 10.0,
+                  fix_gap: tuple[float, float] | None = None, log_override=None) -> Synth:
+    """``legs``: (start time s from T0, true heading deg), sorted. ``log_override(t_rel, reading) -> reading``."""
+    rng = np.random.default_rng(seed)
+    out = Synth(k=k, offset_deg=offset_deg)
+    ce, cn = current_en
+    q = walk_kn_per_sqrt_h / math.sqrt(3600.0)
+    hdg = legs[0][1]
+    for i in range(1, duration_s + 1):
+        target = [h for (ts, h) in legs if ts <= i][-1]
+        diff = (target - hdg + 180.0) % 360.0 - 180.0
+        hdg = wrap_360(hdg + max(-turn_rate_deg_s, min(turn_rate_deg_s, diff)))
+        ce += q * rng.standard_normal()
+        cn += q * rng.standard_normal()
+        t = T0 + i
+        reading = stw_kn / k + log_sigma * rng.standard_normal()
+        if log_override is not None:
+            reading = log_override(i, reading)
+        out.samples.append(Heading(t - 0.4, wrap_360(hdg - offset_deg + heading_sigma_deg * rng.standard_normal())))
+        out.samples.append(WaterSpeed(t - 0.3, max(0.0, reading)))
+        we, wn = to_east_north(stw_kn, hdg)
+        ge = we + ce + gnss_sigma * rng.standard_normal()
+        gn = wn + cn + gnss_sigma * rng.standard_normal()
+        sog, cog = from_east_north(ge, gn)
+        out.t.append(t)
+        out.current.append((ce, cn))
+        if fix_gap is not None and fix_gap[0] <= i < fix_gap[1]:
+            continue
+        out.samples.append(Fix(t, 50.0, -4.0, sog, cog))
+    return out
+
+
+def tacking_legs(duration_s: int, leg_s: int = 300, a: float = 40.0, b: float = 130.0) -> list[tuple[float, float]]:
+    return [(float(t), a if (t // leg_s) % 2 == 0 else b) for t in range(0, duration_s + 1, leg_s)]
