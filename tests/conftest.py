@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import shutil
+import signal
 import socket
 import subprocess
 import time
@@ -40,6 +41,7 @@ class Mosquitto:
             f"listener {self.port} {self.host}\n"
             "allow_anonymous true\n"
             "persistence true\n"
+            "autosave_interval 1\n"
             f"persistence_location {workdir}/\n"
             f"log_dest file {self.log}\n"
             "log_type all\n")
@@ -69,6 +71,18 @@ class Mosquitto:
                 self.proc.kill()
                 self.proc.wait()
         self.proc = None
+
+    def kill(self) -> None:
+        """SIGKILL: gone without saving, like a power cut (what was saved a second ago survives)."""
+        if self.proc is not None:
+            self.proc.kill()
+            self.proc.wait()
+        self.proc = None
+
+    def freeze(self) -> None:
+        """SIGSTOP: the broker keeps its sockets but answers nothing (packets stay in flight)."""
+        assert self.proc is not None
+        self.proc.send_signal(signal.SIGSTOP)
 
     def restart(self) -> None:
         self.stop()
