@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import gzip
 import io
+import shutil
 
 import pytest
 
@@ -172,3 +173,30 @@ def test_iter_replay_counts_sentences_for_a_progress_bar(tmp_path):
     bar = ProgressBar(io.StringIO())
     list(iter_replay([path], LineIngest, progress=bar.update))
     assert bar.sentences == 100 and bar.done == bar.total == path.stat().st_size
+
+
+def real_ingest_factory():
+    from daemon.counters import Counters
+    from daemon.ingest import Ingest
+    from daemon.magvar import VariationProvider
+
+    counters, variation = Counters(), VariationProvider("sentence")
+    return lambda source: Ingest(source, counters=counters, variation=variation, live=False)
+
+
+def test_a_real_capture_gzipped_replays_exactly_as_plain(tmp_path):
+    from tests.shared import shared_path
+
+    # Source: a real GNSS/sounder recording (see the captures' SOURCES.md), copied, never edited.
+    capture = shared_path("real-captures", "sounder-survey-43min-dpt-mtw.nmea")
+    plain = tmp_path / capture.name
+    shutil.copyfile(capture, plain)
+    packed = tmp_path / "survey.gz"
+    packed.write_bytes(gzip.compress(capture.read_bytes()))
+    a = list(iter_replay([plain], real_ingest_factory()))
+    b = list(iter_replay([packed], real_ingest_factory()))
+    assert len(a) > 10_000  # raw lines and readings
+    key = lambda i: (type(i).__name__, item_time(i), getattr(i, "text", None), getattr(i, "sample", None))
+    assert [key(i) for i in a] == [key(i) for i in b]
+    times = [item_time(i) for i in a]
+    assert times == sorted(times)
