@@ -192,6 +192,9 @@ class MqttSink:
         self._hold_until = 0.0
         self._connected = False
         self._closing = False
+        self._outbox_closed = False
+        self._accepted = 0   # messages put on the work queue (pipeline thread)
+        self._stored = 0     # of those, stored in the outbox (worker thread)
         self._last_callback_failure = -math.inf
         self._heartbeat = time.monotonic()
         self.connected_at: float | None = None      # monotonic time of the latest CONNACK
@@ -259,7 +262,9 @@ class MqttSink:
         if self._work.qsize() >= MAX_WORK_ITEMS:
             self.counters["dropped_work_queue_full"] += 1
             return
-        self._work.put(("msg", Outgoing(msg.topic, encode_payload(msg.payload), msg.qos, msg.retain)))
+        item = ("msg", Outgoing(msg.topic, encode_payload(msg.payload), msg.qos, msg.retain))
+        self._accepted += 1  # before put: the worker may store it at once
+        self._work.put(item)
 
     def close(self) -> None:
         """Keep what is pending in the outbox, say offline, disconnect; waits at most ~close_timeout_s."""
@@ -271,6 +276,7 @@ class MqttSink:
         self._client.loop_stop()
         if not self._worker.is_alive():
             self.outbox.close()
+            self._outbox_closed = True
 
     # -- health -----------------------------------------------------------------
 
@@ -288,9 +294,16 @@ class MqttSink:
     def connected(self) -> bool:
         return self._connected
 
+    def snapshot(self) -> dict[str, Any]:
+        """Counters and state for the health report and the status topic."""
+        return {"connected": self._connected, "healthy": self.healthy(), "pending": self.pending(),
+                "dropped_outbox_full": self.outbox.dropped if not self._outbox_closed else None,
+                **dict(self.counters)}
+
     def pending(self) -> int:
         """Queued messages not yet taken by the broker (outbox and work queue)."""
-        return self.outbox.queued_count() + self._work.qsize()
+        queued = 0 if self._outbox_closed else self.outbox.queued_count()
+        return queued + (self._accepted - self._stored)
 
     # -- paho callbacks (network thread): report, never raise --------------------
 
@@ -395,6 +408,7 @@ class MqttSink:
             for it, seq in zip(new, self.outbox.store(new)):
                 if seq is None:
                     self._dirty_states.add(it.topic)
+            self._stored += len(new)
         closing = False
         for it in items:
             kind = it[0]

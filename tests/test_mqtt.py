@@ -420,3 +420,16 @@ def test_from_config_uses_the_state_dir(tmp_path):
         assert (tmp_path / "mqtt-outbox.sqlite").exists()
     finally:
         sink.close()
+
+
+def test_snapshot_reports_counters(mosquitto, sinks):
+    host, port = mosquitto
+    sink = sinks(settings(host, port))
+    assert wait_until(lambda: sink.connected)
+    sink.message(alert(1))
+    assert wait_until(lambda: sink.pending() == 0)
+    snap = sink.snapshot()
+    assert snap["connected"] is True and snap["healthy"] is True
+    assert snap["delivered"] == 1 and snap["pending"] == 0 and snap["dropped_outbox_full"] == 0
+    sink.close()
+    assert "delivered" in sink.snapshot()  # still callable after close
