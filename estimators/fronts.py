@@ -9,10 +9,11 @@ hove-to while the surface layer heats, changes the reading in time without
 any distance run, and must not look like a front.
 
 Independent variable: ``d``, the distance run over ground in nautical miles,
-summed from successive GNSS fixes along the WGS84 geodesic (geographiclib).
-GNSS jitter while stopped would add distance that was never run, so the
-odometer advances only once the boat is ``min_step_m`` from the last counted
-position (a step odometer).
+summed from successive GNSS fixes on the WGS84 ellipsoid (a local step with
+the radii of curvature; the geodesic from geographiclib after a long gap).
+GNSS jitter while stopped would add distance that was never run, so fixes are
+averaged over ``position_average_s`` and the odometer advances only once the
+boat is ``min_step_m`` from the last counted position (a step odometer).
 
 Method (a robust windowed regression in distance; no state-space model):
 1. Despike in time: each reading is replaced by the median of the readings of
@@ -32,14 +33,20 @@ Method (a robust windowed regression in distance; no state-space model):
 4. Decide (a small state machine on ``g``): a *run* starts when ``|g|`` reaches
    ``min_gradient_c_per_nm`` and lasts while ``g`` keeps its sign and ``|g|``
    stays above ``run_keep_fraction`` of that (hysteresis against the
-   gradient's noise). The change across the front, ``delta``, is the newest
-   bin's temperature less the coldest (warming run) or warmest (cooling run)
-   bin in the trailing ``window_nm``, the window starting no earlier than the
-   previous crossing. A crossing is declared once per run, when ``|delta|``
-   reaches ``min_delta_c`` and the gradient is past its peak (it has fallen
-   to ``past_peak_fraction`` of the peak, ``confirm_nm`` has been run past the
-   peak, or the run has ended). The steepest point is the centre of the
-   regression window at the peak gradient.
+   gradient's noise). The steepest point is the centre of the regression
+   window at the peak gradient. The far side is the coldest (warming run) or
+   warmest (cooling run) bin before the steepest point within the trailing
+   ``window_nm`` (never before the previous crossing). The change so far,
+   ``delta``, is the newest bin less the far side; the whole change expected
+   is the larger of ``delta`` and twice the change from the far side to the
+   steepest point (a front's ramp is about symmetric about its steepest
+   point), which lets a crossing be declared before the boat is over the far
+   edge. A crossing is declared once per run, when the expected change
+   (rounded to 0.1 °C) reaches ``min_delta_c`` and the gradient is past its
+   peak: fallen to ``past_peak_fraction`` of the peak, ``confirm_nm`` run
+   past the peak, or the run ended. Detection lag: at most ``confirm_nm``
+   plus half of ``smoothing_nm`` past the steepest point (0.2 nm by default)
+   for a front steep enough to hold the run that long.
 
 Why a windowed regression and not a Kalman filter with a local linear trend
 or Bayesian online change-point detection (Adams & MacKay 2007): a front is a
@@ -97,12 +104,13 @@ class FrontParams:
     min_gradient_c_per_nm: float = param(1.0, "°C/nm", 0.1, 50.0,
                                           "gradient (regression over smoothing_nm) that starts a front run")
     min_delta_c: float = param(2.0, "°C", 0.3, 20.0, "total change across the front that makes it a crossing")
-    window_nm: float = param(1.0, "nm", 0.1, 10.0, "distance over which the total change is measured")
+    window_nm: float = param(2.0, "nm", 0.1, 10.0, "longest distance over which the total change is measured")
     smoothing_nm: float = param(0.1, "nm", 0.02, 1.0, "regression window for temperature and gradient")
     bin_nm: float = param(0.01, "nm", 0.002, 0.1, "distance bin of the profile")
     despike_s: float = param(15.0, "s", 0.0, 120.0, "running-median window against splash spikes")
     min_speed_kn: float = param(1.5, "kn", 0.1, 10.0, "below this the profile restarts (time is not distance)")
     min_step_m: float = param(10.0, "m", 0.0, 100.0, "odometer step: GNSS jitter below this is not distance")
+    position_average_s: float = param(10.0, "s", 0.0, 60.0, "fixes are averaged over this before the odometer")
     run_keep_fraction: float = param(0.5, "", 0.1, 1.0, "a run lasts while |g| >= this x min_gradient")
     past_peak_fraction: float = param(0.5, "", 0.1, 0.95, "gradient fallen to this x its peak: past the front")
     confirm_nm: float = param(0.15, "nm", 0.0, 1.0, "distance past the peak after which a crossing is declared")
@@ -163,26 +171,48 @@ def step_distance_m(lat1: float, lon1: float, lat2: float, lon2: float) -> float
 
 
 class _Odometer:
-    """Distance run over ground from fixes; advances only in steps of ``min_step_m``."""
+    """Distance run over ground from fixes.
 
-    def __init__(self, min_step_m: float) -> None:
+    Positions are first averaged over ``average_s`` (GNSS jitter of a few
+    metres a fix would otherwise add up to knots of speed that never was), and
+    the distance advances only in steps of at least ``min_step_m`` from the
+    last counted position.
+    """
+
+    def __init__(self, min_step_m: float, average_s: float) -> None:
         self.min_step_m = min_step_m
+        self.average_s = average_s
         self.distance_m = 0.0
-        self.anchor: Fix | None = None  # last counted position
+        self.anchor: tuple[float, float] | None = None  # last counted (averaged) position
         self.last: Fix | None = None  # newest fix
+        self._recent: deque[Fix] = deque()
 
     def add(self, fix: Fix) -> float:
         """Take a fix; return the distance run in metres it added (0 within the step)."""
         self.last = fix
+        self._recent.append(fix)
+        while self._recent[0].t_s < fix.t_s - self.average_s:
+            self._recent.popleft()
+        here = self._mean_position()
         if self.anchor is None:
-            self.anchor = fix
+            self.anchor = here
             return 0.0
-        s12 = step_distance_m(self.anchor.lat_deg, self.anchor.lon_deg, fix.lat_deg, fix.lon_deg)
+        s12 = step_distance_m(self.anchor[0], self.anchor[1], here[0], here[1])
         if s12 < self.min_step_m:
             return 0.0
-        self.anchor = fix
+        self.anchor = here
         self.distance_m += s12
         return s12
+
+    def _mean_position(self) -> tuple[float, float]:
+        ref = self._recent[-1].lon_deg
+        n = len(self._recent)
+        lat = sum(f.lat_deg for f in self._recent) / n
+        dlon = sum((f.lon_deg - ref + 180.0) % 360.0 - 180.0 for f in self._recent) / n  # across ±180 too
+        return lat, (ref + dlon + 180.0) % 360.0 - 180.0
+
+    def reset_average(self) -> None:
+        self._recent.clear()
 
     @property
     def nm(self) -> float:
@@ -240,7 +270,7 @@ class FrontDetector(EstimatorBase):
 
     def __init__(self, params: FrontParams | None = None) -> None:
         self.p = params or FrontParams()
-        self._odo = _Odometer(self.p.min_step_m)
+        self._odo = _Odometer(self.p.min_step_m, self.p.position_average_s)
         self._raw: deque[SeaTemperature] = deque()  # readings within despike_s
         self._bins: deque[_Bin] = deque()
         self._bin_sum = 0.0
@@ -278,6 +308,7 @@ class FrontDetector(EstimatorBase):
             return ()
         prev = self._odo.last
         if prev is not None and fix.t_s - prev.t_s > self.p.gap_s:
+            self._odo.reset_average()
             self._restart()
         self._counts["fixes"] += 1
         self._odo.add(fix)
@@ -389,24 +420,34 @@ class FrontDetector(EstimatorBase):
                 out.extend(self._maybe_fire(run, t_s, d_c, ctx, ended_now=False))
         return out
 
-    def _delta(self, sign: int) -> tuple[float, float]:
-        """(signed change °C, distance nm over which it happened) up to the newest bin."""
+    def _delta(self, run: _Run) -> tuple[float, float, float]:
+        """(change so far °C, distance nm over which it happened, expected whole change °C), signed.
+
+        The far side is the coldest (warming run) or warmest (cooling run) bin
+        in the trailing window before the steepest point. A front's profile is
+        about symmetric about its steepest point (a tanh ramp), so the whole
+        change is expected to be about twice the change up to that point.
+        """
+        sign = run.sign
         d_end = self._bins[-1].d_nm
         start = max(d_end - self.p.window_nm, self._last_crossing_d)
         win = [b for b in self._bins if b.d_nm >= start]
         smooth = _running_mean([b.temp_c for b in win], 3)  # three bins take the edge off sensor noise
-        now = smooth[-1]
         pick = min if sign > 0 else max
-        i = pick(range(len(smooth)), key=lambda k: smooth[k])
-        delta = now - smooth[i]
+        before_peak = [k for k in range(len(win)) if win[k].d_nm <= run.peak_d] or [0]
+        i = pick(before_peak, key=lambda k: smooth[k])
+        at_peak = before_peak[-1]
+        delta = smooth[-1] - smooth[i]
+        expected = 2.0 * (smooth[at_peak] - smooth[i])  # symmetric ramp: twice the change to the steepest point
+        expected = delta if abs(delta) >= abs(expected) else expected
         # The front's width: from the last bin still within 10 % of the change of the far side's extreme.
-        j = max(k for k in range(len(smooth)) if sign * (smooth[k] - smooth[i]) <= 0.1 * abs(delta))
-        return delta, d_end - win[j].d_nm
+        j = max(k for k in range(i, len(smooth)) if sign * (smooth[k] - smooth[i]) <= 0.1 * abs(delta))
+        return delta, d_end - win[j].d_nm, expected
 
     def _maybe_fire(self, run: _Run, t_s: float, d_c: float, ctx: Context, ended_now: bool) -> Sequence[Output]:
         p = self.p
-        delta, dist = self._delta(run.sign)
-        if run.sign * delta < p.min_delta_c:
+        delta, dist, expected = self._delta(run)
+        if round(run.sign * expected, 1) < p.min_delta_c:  # judged to 0.1 °C, as sensors report
             return ()
         g_now = self._gradient if self._gradient is not None else 0.0
         past_peak = (ended_now or d_c - run.peak_d >= p.confirm_nm
@@ -416,7 +457,7 @@ class FrontDetector(EstimatorBase):
         run.fired = True
         self._last_crossing_d = self._bins[-1].d_nm
         self._counts["crossings"] += 1
-        return self._crossing_outputs(run, t_s, delta, dist, ctx)
+        return self._crossing_outputs(run, t_s, delta, dist, expected, ctx)
 
     # ------------------------------------------------------------------ outputs
 
@@ -430,7 +471,8 @@ class FrontDetector(EstimatorBase):
             return None
         return float(east), float(north)
 
-    def _crossing_outputs(self, run: _Run, t_s: float, delta: float, dist: float, ctx: Context) -> list[Output]:
+    def _crossing_outputs(self, run: _Run, t_s: float, delta: float, dist: float, expected: float,
+                          ctx: Context) -> list[Output]:
         before, after = run.current_at_start, self._current_vector(ctx)
         change = None if before is None or after is None else math.hypot(after[0] - before[0], after[1] - before[1])
         where = format_lat_lon(run.peak_lat, run.peak_lon)
@@ -443,7 +485,8 @@ class FrontDetector(EstimatorBase):
             "kind": "front_crossing",
             "lat": round(run.peak_lat, 6),
             "lon": round(run.peak_lon, 6),
-            "delta_c": round(delta, 2),
+            "delta_c": round(delta, 2),  # measured so far, from the far side to the detection
+            "delta_expected_c": round(expected, 2),  # the whole front's change (see _delta)
             "gradient_c_per_nm": round(run.peak_g, 2),
             "warmer": delta > 0,
             "distance_nm": round(dist, 3),  # over which delta_c was measured
