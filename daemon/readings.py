@@ -32,6 +32,7 @@ class Reading:
     sample: Sample
     recv_utc: float
     sentence: str = ""  # the NMEA sentence type it came from, e.g. "RMC"
+    gnss_utc: float | None = None  # the sentence's own GNSS time (UNIX s) where it has one
 
 
 @dataclass(frozen=True, slots=True)

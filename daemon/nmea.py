@@ -1,0 +1,673 @@
+"""One NMEA 0183 line to typed values: checksum, TAG block, fields, plausibility.
+
+Two steps, both pure:
+
+1. :func:`parse_line` checks the frame of one line: an optional TAG block
+   (``\\c:<unix time>,s:<source>*hh\\``, parsed by hand, own checksum), the
+   start character, the checksum (XOR of every byte between the start
+   character and ``*``, two hex digits in either case), the address (talker
+   and formatter). It sorts the line into exactly one counter: ``ok`` (to be
+   extracted) or one of ``bad_checksum``, ``no_checksum``, ``unparseable``,
+   ``unknown``, ``proprietary``, ``ais``, ``not_sentence``.
+2. :func:`extract` turns the fields of an understood sentence into values, in
+   SI-free trade units (kn, degrees, hPa, °C, m), each checked against its
+   plausible range. An implausible value (out of range, NaN, infinite, a void
+   fix) is counted and dropped, never passed on.
+
+Fields are split with pynmea2 for the types it knows (it parses their framing
+correctly); its typed attributes are not used because they mislead for real
+data (an empty position comes back as 0.0, 0.0; ``RMC.is_valid`` ignores the
+NMEA 4.1 mode indicator; numbers come as Decimal, float or str). THS, which
+pynmea2 does not know, is split by hand, and every value is extracted here by
+field position. Field layouts follow NMEA 0183 v4.10 (marked where older
+layouts are accepted too).
+
+The talker (``GP``, ``GN``, ``II``, ``HC``, ``AP``...) is never checked against
+a list: any two letters or digits will do.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from functools import lru_cache, reduce
+from operator import xor
+
+import pynmea2
+
+from estimators.samples import (
+    AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Pressure,
+    SeaTemperature, WaterSpeed, WaterWind,
+)
+
+KMH_TO_KN = 1 / 1.852  # 1 kn = 1.852 km/h exactly
+MPS_TO_KN = 3600 / 1852
+MPH_TO_KN = 1609.344 / 1852  # statute mile = 1609.344 m exactly
+FT_TO_M = 0.3048  # international foot, exactly
+FATHOM_TO_M = 1.8288  # 6 ft
+INHG_TO_HPA = 33.8639  # 1 inHg = 3386.39 Pa (standard conversion, from memory)
+TAG_MS_THRESHOLD = 1e11  # a TAG c: above this is milliseconds (interface.md)
+_EPOCH_ORDINAL = dt.date(1970, 1, 1).toordinal()
+
+# Plausible ranges (lo, hi): outside them a value is dropped and counted.
+SOG_MAX_KN = 60.0
+STW_MAX_KN = 40.0
+WIND_MAX_KN = 250.0  # above the strongest gust on record (113 m/s, about 220 kn; from memory)
+PRESSURE_HPA = (870.0, 1085.0)  # lowest and highest sea-level pressures on record, rounded out
+SEA_TEMP_C = (-3.0, 40.0)
+AIR_TEMP_C = (-60.0, 60.0)
+DEPTH_MAX_M = 12000.0  # deeper than any ocean
+ATTITUDE_MAX_DEG = 90.0
+
+
+# --- step 1: the frame of one line -------------------------------------------------
+
+class Line:
+    """One checked line: ``status`` is ``ok`` or the counter it belongs to."""
+
+    __slots__ = ("status", "key", "talker", "fields", "tag_time", "tag_source", "sentence")
+
+    def __init__(self, status: str, key: str, talker: str = "", fields: list[str] | None = None,
+                 tag_time: float | None = None, tag_source: str | None = None, sentence: str = "") -> None:
+        self.status = status
+        self.key = key  # "RMC"; "PGRME" for proprietary; "-" not a sentence; "TAG" a bad TAG block
+        self.talker = talker
+        self.fields = fields if fields is not None else []
+        self.tag_time = tag_time  # UNIX seconds from TAG c:, or None
+        self.tag_source = tag_source
+        self.sentence = sentence  # the sentence without its TAG block
+
+
+def checksum(body: str) -> int:
+    """XOR of every character of ``body`` (the text between the start char and ``*``)."""
+    return reduce(xor, body.encode("ascii"), 0)
+
+
+def _check_star(text: str, start: int, allow_no_checksum: bool) -> tuple[str, int]:
+    """(status, end of body) for the text from ``start`` (after the start char)."""
+    star = text.rfind("*", start)
+    if star < 0:
+        return ("ok" if allow_no_checksum else "no_checksum"), len(text)
+    hh = text[star + 1:]
+    if len(hh) != 2:
+        return "bad_checksum", star
+    try:
+        want = int(hh, 16)
+    except ValueError:
+        return "bad_checksum", star
+    if reduce(xor, text[start:star].encode("ascii"), 0) != want:
+        return "bad_checksum", star
+    return "ok", star
+
+
+def parse_tag_block(tag: str) -> tuple[str, float | None, str | None]:
+    """(status, c: time in s, s: source) of a TAG block's text between the backslashes.
+
+    NMEA 0183 v4.10 §7 (TAG blocks; from memory): ``code:value`` pairs separated
+    by commas, then ``*hh``, the XOR of the pairs. ``c:`` is UNIX time, seconds
+    (milliseconds above 1e11, as the interface allows); ``s:`` the source.
+    """
+    status, end = _check_star(tag, 0, allow_no_checksum=False)
+    if status != "ok":
+        return status, None, None
+    t: float | None = None
+    src: str | None = None
+    for pair in tag[:end].split(","):
+        code, sep, value = pair.partition(":")
+        if not sep:
+            return "unparseable", None, None
+        if code == "c":
+            try:
+                t = float(value)
+            except ValueError:
+                return "unparseable", None, None
+            if not math.isfinite(t) or t < 0:
+                return "unparseable", None, None
+            if t > TAG_MS_THRESHOLD:
+                t /= 1000.0
+        elif code == "s":
+            src = value
+    return "ok", t, src
+
+
+def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
+    """Check the frame of one line (no line ending) and sort it into one counter."""
+    tag_time = tag_source = None
+    sentence = text
+    if text.startswith("\\"):
+        close = text.find("\\", 1)
+        if close < 0:
+            return Line("unparseable", "TAG")
+        status, tag_time, tag_source = parse_tag_block(text[1:close])
+        if status != "ok":
+            return Line(status, "TAG")
+        sentence = text[close + 1:]
+    if not sentence or sentence[0] not in "$!":
+        return Line("not_sentence", "-", tag_time=tag_time)
+    status, end = _check_star(sentence, 1, allow_no_checksum)
+    body = sentence[1:end]
+    address, _, rest = body.partition(",")
+    if not address.isalnum() or not address.isupper() and not address.isdigit():
+        return Line("unparseable" if status == "ok" else status, "-", tag_time=tag_time)
+    if address[0] == "P":
+        return Line("proprietary" if status == "ok" else status, address, tag_time=tag_time)
+    talker, key = address[:2], address[2:]
+    if not key:
+        return Line("unparseable" if status == "ok" else status, "-", tag_time=tag_time)
+    if status != "ok":
+        return Line(status, key, talker, tag_time=tag_time)
+    if sentence[0] == "!":
+        return Line("ais", key, talker, tag_time=tag_time)
+    if key not in EXTRACTORS:
+        return Line("unknown", key, talker, tag_time=tag_time)
+    return Line("ok", key, talker, _split(key, sentence, rest), tag_time, tag_source, sentence)
+
+
+def _split(key: str, sentence: str, rest: str) -> list[str]:
+    """The data fields: pynmea2 where it knows the type, our own split otherwise."""
+    if key in _PYNMEA2_TYPES:
+        try:
+            return pynmea2.parse(sentence, check=False).data
+        except (pynmea2.ParseError, ValueError, AttributeError):
+            pass
+    return rest.split(",")
+
+
+_PYNMEA2_TYPES = frozenset(pynmea2.TalkerSentence.sentence_types) - {"THS"}
+
+
+# --- step 2: typed values -----------------------------------------------------------
+
+# Value codes in Extract.values (the ingest turns them into samples at data time):
+SAMPLE = 0  # (SAMPLE, cls, args): cls(t_s, *args)
+HEADING = 1  # (HEADING, deg, "T" | "M"): as the sentence labels it
+HDG = 2  # (HDG, sensor_deg, deviation_east | None)
+VARIATION = 3  # (VARIATION, east_deg)
+WIND_ANGLE_WATER = 4  # (WIND_ANGLE_WATER, angle_off_bow_deg, speed_kn): MWV theoretical
+WIND_FROM_MAGNETIC = 5  # (WIND_FROM_MAGNETIC, from_magnetic_deg, speed_kn): MWD without true
+
+
+class Extract:
+    """What one understood sentence gave: values, dropped ones, its own GNSS time."""
+
+    __slots__ = ("values", "implausible", "tod_s", "day")
+
+    def __init__(self) -> None:
+        self.values: list[tuple] = []
+        self.implausible = 0
+        self.tod_s: float | None = None  # UTC seconds of day, when the sentence is a valid time source
+        self.day: int | None = None  # days since 1970-01-01, when it also carries a date
+
+    def drop(self) -> None:
+        self.implausible += 1
+
+    def add(self, cls: type, *args: object) -> None:
+        self.values.append((SAMPLE, cls, args))
+
+
+class Unparseable(ValueError):
+    """A field that is not what its layout says."""
+
+
+def _get(fields: list[str], i: int) -> str:
+    return fields[i] if i < len(fields) else ""
+
+
+def num(s: str) -> float | None:
+    """A number field: None when empty. NaN and infinity pass through (plausibility drops them)."""
+    if not s:
+        return None
+    try:
+        return float(s)
+    except ValueError:
+        raise Unparseable(s) from None
+
+
+def _in(x: float, lo: float, hi: float) -> bool:
+    return lo <= x <= hi  # False for NaN
+
+
+def direction(s: str) -> float | None | bool:
+    """A direction 0..360 (360 taken as 0); None when empty; False when implausible."""
+    x = num(s)
+    if x is None:
+        return None
+    if not _in(x, 0.0, 360.0):
+        return False
+    return 0.0 if x == 360.0 else x
+
+
+def latlon(value: str, hemi: str, is_lat: bool) -> float | None:
+    """ddmm.mmmm / dddmm.mmmm with N/S or E/W to signed degrees; None when empty.
+
+    Raises Unparseable for a bad hemisphere or minutes >= 60; the range
+    check (|lat| <= 90, |lon| <= 180) is the caller's plausibility.
+    """
+    if not value:
+        return None
+    v = num(value)
+    assert v is not None
+    if not math.isfinite(v) or v < 0:
+        raise Unparseable(value)
+    deg = math.floor(v / 100.0)
+    minutes = v - 100.0 * deg
+    if minutes >= 60.0:
+        raise Unparseable(value)
+    x = deg + minutes / 60.0
+    if hemi == ("S" if is_lat else "W"):
+        return -x
+    if hemi != ("N" if is_lat else "E"):
+        raise Unparseable(hemi)
+    return x
+
+
+def time_of_day(s: str) -> float | None:
+    """hhmmss[.ss] to seconds of the UTC day; None when empty."""
+    if not s:
+        return None
+    if len(s) < 6 or not s[:4].isdigit():
+        raise Unparseable(s)
+    h, m = int(s[0:2]), int(s[2:4])
+    sec = num(s[4:])
+    assert sec is not None
+    if h > 23 or m > 59 or not _in(sec, 0.0, 60.999):  # 60: a leap second
+        raise Unparseable(s)
+    return h * 3600.0 + m * 60.0 + sec
+
+
+@lru_cache(maxsize=256)
+def day_number(year: int, month: int, day: int) -> int:
+    """Days since 1970-01-01 of a calendar date; Unparseable when it is no date."""
+    try:
+        return dt.date(year, month, day).toordinal() - _EPOCH_ORDINAL
+    except ValueError:
+        raise Unparseable(f"{year}-{month}-{day}") from None
+
+
+def rmc_date(s: str) -> int | None:
+    """RMC ddmmyy to a day number; two-digit years 80..99 are 19xx, 00..79 are 20xx (from memory)."""
+    if not s:
+        return None
+    if len(s) != 6 or not s.isdigit():
+        raise Unparseable(s)
+    yy = int(s[4:6])
+    return day_number(1900 + yy if yy >= 80 else 2000 + yy, int(s[2:4]), int(s[0:2]))
+
+
+def _east(value: float | None, hemi: str) -> float | None:
+    """A variation or deviation with E/W to east-positive degrees."""
+    if value is None:
+        return None
+    if hemi == "W":
+        return -value
+    if hemi == "E":
+        return value
+    raise Unparseable(hemi)
+
+
+def _fix(ex: Extract, lat: float | None, lon: float | None, **extra: float | None) -> None:
+    if lat is None or lon is None:
+        return
+    if not (_in(lat, -90.0, 90.0) and _in(lon, -180.0, 180.0)):
+        ex.drop()
+        return
+    ex.add(Fix, lat, lon, extra.get("sog"), extra.get("cog"), extra.get("hdop"))
+
+
+def _sog(x: float | None) -> float | None | bool:
+    if x is None:
+        return None
+    return x if 0.0 <= x < SOG_MAX_KN else False
+
+
+def ext_rmc(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 RMC: 0 time, 1 status A/V, 2-3 lat, 4-5 lon, 6 SOG kn, 7 COG true,
+    8 date ddmmyy, 9-10 variation E/W, 11 mode indicator (v2.3+), 12 navigational status (v4.1)."""
+    ex = Extract()
+    tod, day = time_of_day(_get(f, 0)), rmc_date(_get(f, 8))
+    lat, lon = latlon(_get(f, 2), _get(f, 3), True), latlon(_get(f, 4), _get(f, 5), False)
+    sog, cog = _sog(num(_get(f, 6))), direction(_get(f, 7))
+    var = _east(num(_get(f, 9)), _get(f, 10)) if _get(f, 9) else None
+    if _get(f, 1) != "A" or _get(f, 11) == "N":  # void, or mode N "data not valid" (v4.10 field 12)
+        ex.drop()
+        return ex
+    ex.tod_s, ex.day = tod, day
+    if var is not None:
+        if _in(var, -180.0, 180.0):
+            ex.values.append((VARIATION, var))
+        else:
+            ex.drop()
+    if sog is False or cog is False:
+        ex.drop()
+        return ex
+    _fix(ex, lat, lon, sog=sog, cog=cog)
+    return ex
+
+
+_GGA_FIX_QUALITIES = frozenset("12345")  # 0 invalid, 6 estimated (DR), 7 manual, 8 simulator
+
+
+def ext_gga(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 GGA: 0 time, 1-2 lat, 3-4 lon, 5 quality, 6 satellites, 7 HDOP,
+    8-9 altitude M, 10-11 geoid separation M, 12 age of differential data, 13 station."""
+    ex = Extract()
+    tod = time_of_day(_get(f, 0))
+    lat, lon = latlon(_get(f, 1), _get(f, 2), True), latlon(_get(f, 3), _get(f, 4), False)
+    hdop = num(_get(f, 7))
+    if _get(f, 5) not in _GGA_FIX_QUALITIES:
+        ex.drop()
+        return ex
+    ex.tod_s = tod
+    if hdop is not None and not _in(hdop, 0.0, 50.0):
+        hdop = None  # 99.9 and the like mean "unknown", not a bad fix
+    _fix(ex, lat, lon, hdop=hdop)
+    return ex
+
+
+def ext_gll(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 GLL: 0-1 lat, 2-3 lon, 4 time, 5 status A/V, 6 mode (v2.3+).
+    Older layouts without status (v1.5: four fields) are taken as valid positions."""
+    ex = Extract()
+    lat, lon = latlon(_get(f, 0), _get(f, 1), True), latlon(_get(f, 2), _get(f, 3), False)
+    tod = time_of_day(_get(f, 4))
+    status = _get(f, 5)
+    if status not in ("A", "") or _get(f, 6) == "N":
+        ex.drop()
+        return ex
+    if status == "A":
+        ex.tod_s = tod
+    _fix(ex, lat, lon)
+    return ex
+
+
+def ext_vtg(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 VTG: 0 COG true, 1 T, 2 COG magnetic, 3 M, 4 SOG kn, 5 N, 6 SOG km/h, 7 K,
+    8 mode (v2.3+). The old layout without unit letters (COG T, COG M, SOG kn, SOG km/h) too."""
+    ex = Extract()
+    if len(f) >= 2 and f[1] not in ("T", ""):  # old layout: four numbers
+        cog, kn, kmh, mode = direction(_get(f, 0)), num(_get(f, 2)), num(_get(f, 3)), ""
+    else:
+        cog, kn, kmh, mode = direction(_get(f, 0)), num(_get(f, 4)), num(_get(f, 6)), _get(f, 8)
+    if mode == "N":
+        ex.drop()
+        return ex
+    sog = _sog(kn if kn is not None else (kmh * KMH_TO_KN if kmh is not None else None))
+    if sog is None:
+        return ex
+    if sog is False or cog is False:
+        ex.drop()
+        return ex
+    ex.add(GroundVelocity, sog, cog)
+    return ex
+
+
+def ext_zda(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 ZDA: 0 time, 1 day, 2 month, 3 year (four digits), 4-5 local zone."""
+    ex = Extract()
+    tod = time_of_day(_get(f, 0))
+    d, m, y = _get(f, 1), _get(f, 2), _get(f, 3)
+    if not (d and m and y):
+        return ex
+    if not (d.isdigit() and m.isdigit() and y.isdigit() and len(y) == 4):
+        raise Unparseable(f"{d}/{m}/{y}")
+    ex.tod_s, ex.day = tod, day_number(int(y), int(m), int(d))
+    return ex
+
+
+def _heading(ex: Extract, s: str, ref: str) -> None:
+    deg = direction(s)
+    if deg is False:
+        ex.drop()
+    elif deg is not None:
+        ex.values.append((HEADING, deg, ref))
+
+
+def ext_hdt(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 HDT: 0 heading, 1 T."""
+    ex = Extract()
+    _heading(ex, _get(f, 0), "T")
+    return ex
+
+
+def ext_hdm(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 HDM: 0 heading, 1 M."""
+    ex = Extract()
+    _heading(ex, _get(f, 0), "M")
+    return ex
+
+
+def ext_ths(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 THS: 0 true heading, 1 mode: A autonomous, E estimated (dead reckoning),
+    M manual, S simulator, V not valid. Only A and E are headings of this boat now."""
+    ex = Extract()
+    deg = direction(_get(f, 0))
+    if deg is None:
+        return ex
+    if deg is False or _get(f, 1) not in ("A", "E"):
+        ex.drop()
+        return ex
+    ex.values.append((HEADING, deg, "T"))
+    return ex
+
+
+def ext_hdg(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 HDG: 0 magnetic sensor heading, 1-2 deviation E/W, 3-4 variation E/W.
+    Magnetic heading = sensor + deviation (E positive); true = magnetic + variation."""
+    ex = Extract()
+    deg = direction(_get(f, 0))
+    dev = _east(num(_get(f, 1)), _get(f, 2)) if _get(f, 1) else None
+    var = _east(num(_get(f, 3)), _get(f, 4)) if _get(f, 3) else None
+    if var is not None:
+        if _in(var, -180.0, 180.0):
+            ex.values.append((VARIATION, var))
+        else:
+            ex.drop()
+    if deg is False or (dev is not None and not _in(dev, -180.0, 180.0)):
+        ex.drop()
+    elif deg is not None:
+        ex.values.append((HDG, deg, dev))
+    return ex
+
+
+def _stw(ex: Extract, kn: float | None, kmh: float | None) -> None:
+    speed = kn if kn is not None else (kmh * KMH_TO_KN if kmh is not None else None)
+    if speed is None:
+        return
+    if 0.0 <= speed < STW_MAX_KN:
+        ex.add(WaterSpeed, speed)
+    else:
+        ex.drop()
+
+
+def ext_vhw(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 VHW: 0 heading true, 1 T, 2 heading magnetic, 3 M, 4 STW kn, 5 N,
+    6 STW km/h, 7 K. (Headings here are not used: HDx/THS carry them.)"""
+    ex = Extract()
+    _stw(ex, num(_get(f, 4)), num(_get(f, 6)))
+    return ex
+
+
+def ext_vbw(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 VBW: 0 longitudinal water speed kn, 1 transverse water speed, 2 status
+    A/V, 3 longitudinal ground speed, 4 transverse ground speed, 5 status, 6-9 stern speeds."""
+    ex = Extract()
+    kn = num(_get(f, 0))
+    if kn is None:
+        return ex
+    if _get(f, 2) != "A":
+        ex.drop()
+        return ex
+    _stw(ex, kn, None)
+    return ex
+
+
+def _temp(ex: Extract, value: float | None, cls: type, lo_hi: tuple[float, float]) -> None:
+    if value is None:
+        return
+    if _in(value, *lo_hi):
+        ex.add(cls, value)
+    else:
+        ex.drop()
+
+
+def _pressure(ex: Extract, hpa: float | None) -> None:
+    if hpa is None:
+        return
+    if _in(hpa, *PRESSURE_HPA):
+        ex.add(Pressure, hpa)
+    else:
+        ex.drop()
+
+
+def ext_mtw(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 MTW: 0 water temperature, 1 C."""
+    ex = Extract()
+    if _get(f, 1) not in ("C", ""):
+        raise Unparseable(_get(f, 1))
+    _temp(ex, num(_get(f, 0)), SeaTemperature, SEA_TEMP_C)
+    return ex
+
+
+def _unit_value(f: list[str], i: int, unit: str) -> float | None:
+    """The number at field i when field i+1 is the given unit letter."""
+    return num(_get(f, i)) if _get(f, i + 1) == unit else None
+
+
+def ext_mda(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 MDA: 0-1 pressure inHg I, 2-3 pressure bar B, 4-5 air temp C,
+    6-7 water temp C, 8 relative humidity, 9 absolute humidity, 10-11 dew point C,
+    12-13 wind from true T, 14-15 wind from magnetic M, 16-17 wind kn N, 18-19 wind m/s M.
+    Each value is taken only where its unit letter stands beside it (devices leave
+    out what they do not measure, some stop after the pressure).
+    The wind here is not used: MWV/MWD carry it with a clear reference."""
+    ex = Extract()
+    bar, inhg = _unit_value(f, 2, "B"), _unit_value(f, 0, "I")
+    _pressure(ex, bar * 1000.0 if bar is not None else (inhg * INHG_TO_HPA if inhg is not None else None))
+    _temp(ex, _unit_value(f, 4, "C"), AirTemperature, AIR_TEMP_C)
+    _temp(ex, _unit_value(f, 6, "C"), SeaTemperature, SEA_TEMP_C)
+    return ex
+
+
+_WATER_NAMES = ("WATER", "SEA", "WTEMP", "WTMP")
+_ROLL_NAMES = ("ROLL", "HEEL")
+_PITCH_NAMES = ("PITCH", "PTCH")
+
+
+def ext_xdr(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 XDR: groups of four fields: type, value, unit, transducer name.
+    Used: P pressure (unit B bar or P pascal), C temperature (unit C; a name with
+    WATER/SEA is sea temperature, any other name air temperature), A angle (unit D;
+    a name with ROLL/HEEL is heel, positive to starboard; PITCH/PTCH pitch, bow up).
+    The names are the installer's choice; these are the common ones (from memory)."""
+    ex = Extract()
+    heel = pitch = None
+    for i in range(0, len(f) - 2, 4):
+        kind, value, unit = f[i], num(f[i + 1]), f[i + 2]
+        name = _get(f, i + 3).upper()
+        if value is None:
+            continue
+        if kind == "P" and unit in ("B", "P"):
+            _pressure(ex, value * 1000.0 if unit == "B" else value / 100.0)
+        elif kind == "C" and unit == "C":
+            water = any(w in name for w in _WATER_NAMES)
+            _temp(ex, value, SeaTemperature if water else AirTemperature, SEA_TEMP_C if water else AIR_TEMP_C)
+        elif kind == "A" and unit == "D":
+            is_roll, is_pitch = any(w in name for w in _ROLL_NAMES), any(w in name for w in _PITCH_NAMES)
+            if not (is_roll or is_pitch):
+                continue
+            if not _in(value, -ATTITUDE_MAX_DEG, ATTITUDE_MAX_DEG):
+                ex.drop()
+            elif is_roll:
+                heel = value
+            else:
+                pitch = value
+    if heel is not None or pitch is not None:
+        ex.add(Attitude, heel, pitch)
+    return ex
+
+
+_WIND_UNITS = {"N": 1.0, "M": MPS_TO_KN, "K": KMH_TO_KN, "S": MPH_TO_KN}
+
+
+def ext_mwv(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 MWV: 0 wind angle 0..360 off the bow, 1 reference R relative /
+    T theoretical, 2 speed, 3 unit K/M/N/S, 4 status A/V."""
+    ex = Extract()
+    angle, speed, ref = direction(_get(f, 0)), num(_get(f, 2)), _get(f, 1)
+    if angle is None or speed is None:
+        return ex
+    factor = _WIND_UNITS.get(_get(f, 3))
+    if factor is None or ref not in ("R", "T"):
+        raise Unparseable(",".join(f[:4]))
+    kn = speed * factor
+    if _get(f, 4) != "A" or angle is False or not _in(kn, 0.0, WIND_MAX_KN):
+        ex.drop()
+        return ex
+    if ref == "R":
+        ex.add(ApparentWind, angle, kn)
+    else:
+        ex.values.append((WIND_ANGLE_WATER, angle, kn))
+    return ex
+
+
+def ext_mwd(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 MWD: 0 wind from, true, 1 T, 2 from, magnetic, 3 M, 4 speed kn, 5 N,
+    6 speed m/s, 7 M."""
+    ex = Extract()
+    true, mag = direction(_get(f, 0)), direction(_get(f, 2))
+    kn, mps = num(_get(f, 4)), num(_get(f, 6))
+    speed = kn if kn is not None else (mps * MPS_TO_KN if mps is not None else None)
+    if speed is None or (true is None and mag is None):
+        return ex
+    if true is False or mag is False or not _in(speed, 0.0, WIND_MAX_KN):
+        ex.drop()
+    elif true is not None:
+        ex.add(WaterWind, speed, true, None)
+    else:
+        ex.values.append((WIND_FROM_MAGNETIC, mag, speed))
+    return ex
+
+
+def _depth(ex: Extract, metres: float | None) -> None:
+    if metres is None:
+        return
+    if _in(metres, 0.0, DEPTH_MAX_M):
+        ex.add(Depth, metres)
+    else:
+        ex.drop()
+
+
+def ext_dbt(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 DBT: depth below transducer: 0-1 feet f, 2-3 metres M, 4-5 fathoms F."""
+    ex = Extract()
+    m, ft, fa = _unit_value(f, 2, "M"), _unit_value(f, 0, "f"), _unit_value(f, 4, "F")
+    _depth(ex, m if m is not None else ft * FT_TO_M if ft is not None else fa * FATHOM_TO_M if fa is not None else None)
+    return ex
+
+
+def ext_dpt(f: list[str]) -> Extract:
+    """NMEA 0183 v4.10 DPT: 0 depth below transducer m, 1 offset m (positive: transducer to
+    waterline, added; negative: transducer to keel, not added), 2 maximum range (v3.0+)."""
+    ex = Extract()
+    d, off = num(_get(f, 0)), num(_get(f, 1))
+    if d is not None and off is not None and off > 0 and math.isfinite(off):
+        d += off
+    _depth(ex, d)
+    return ex
+
+
+EXTRACTORS = {
+    "RMC": ext_rmc, "GGA": ext_gga, "GLL": ext_gll, "VTG": ext_vtg, "ZDA": ext_zda,
+    "HDG": ext_hdg, "HDM": ext_hdm, "HDT": ext_hdt, "THS": ext_ths,
+    "VHW": ext_vhw, "VBW": ext_vbw, "MTW": ext_mtw, "MDA": ext_mda, "XDR": ext_xdr,
+    "MWV": ext_mwv, "MWD": ext_mwd, "DBT": ext_dbt, "DPT": ext_dpt,
+}
+TIME_SENTENCES = frozenset({"RMC", "GGA", "GLL", "ZDA"})
+
+
+def extract(key: str, fields: list[str]) -> Extract | None:
+    """Typed values of an understood sentence; None when a field is unparseable."""
+    try:
+        return EXTRACTORS[key](fields)
+    except Unparseable:
+        return None
