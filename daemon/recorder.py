@@ -834,7 +834,7 @@ def read_meta(path: str | Path) -> dict[str, Any]:
 # The exporter's own TAG block: \c:<ms>,s:<source>*hh\ (NMEA 0183 v4.10 TAG block,
 # c: UNIX time, s: source; checksum = XOR of the characters between '\' and '*').
 _OWN_TAG_RE = re.compile(r"\\(c:\d+,s:[^,*\\]*)\*([0-9A-F]{2})\\")
-_SOURCE_UNSAFE_RE = re.compile(r"[^\x21-\x7e]|[,*\\$!]")
+_SOURCE_UNSAFE_RE = re.compile(r"[^\x21-\x7e]|[,*\\$!^~]")  # NMEA 0183 reserved characters
 
 
 def _nmea_checksum(body: str) -> str:
