@@ -255,11 +255,18 @@ class WindField:
     """Wind over the ground: (t_s, from_deg, speed_kn) knots, interpolated as a vector."""
 
     knots: tuple[tuple[float, float, float], ...]
+    _east: tuple[tuple[float, float], ...] = field(init=False, repr=False, compare=False, default=())
+    _north: tuple[tuple[float, float], ...] = field(init=False, repr=False, compare=False, default=())
+
+    def __post_init__(self) -> None:
+        # air velocity (toward) components at each knot: u = −s·sin(from), v = −s·cos(from)
+        object.__setattr__(self, "_east", tuple((t, -s * math.sin(math.radians(d))) for t, d, s in self.knots))
+        object.__setattr__(self, "_north", tuple((t, -s * math.cos(math.radians(d))) for t, d, s in self.knots))
 
     def wind(self, t_s: float, lat: float, lon: float) -> tuple[float, float]:
         """(from_deg, speed_kn) of the wind over the ground."""
-        east = interp_knots([(t, -s * math.sin(math.radians(d))) for t, d, s in self.knots], t_s)
-        north = interp_knots([(t, -s * math.cos(math.radians(d))) for t, d, s in self.knots], t_s)
+        east = interp_knots(self._east, t_s)
+        north = interp_knots(self._north, t_s)
         speed = math.hypot(east, north)
         return (wrap_360(math.degrees(math.atan2(-east, -north))) if speed > 1e-9 else 0.0), speed
 

@@ -117,6 +117,10 @@ class SimRun:
         values["t_s"] = float(t_s)
         return TruthRow(**values, motoring=int(self.truth["motoring"][i]), leg=int(self.truth["leg"][i]))
 
+    def truth_series(self, field: str, t_s) -> np.ndarray:
+        """One truth field interpolated at many times (a numpy array of UNIX seconds): fast."""
+        return self._interp(field, np.asarray(t_s, dtype=float))
+
     def rows(self) -> list[TruthRow]:
         """Every truth row as a ``TruthRow``."""
         return [TruthRow(*(r[f].item() for f in TRUTH_FIELDS)) for r in self.truth]

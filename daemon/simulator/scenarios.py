@@ -82,10 +82,10 @@ def tidal_box() -> Scenario:
 
 
 def current_crossing() -> Scenario:
-    """Four hours steering 090 across a narrow warm current (4.8 kn core toward 010, 1-nm edges, +3 °C)."""
+    """Four hours steering 090 across a narrow warm current (4.8 kn core toward 010, 0.8-nm edges, +3 °C)."""
     t0, lat, lon = utc(2026, 5, 6, 5), 39.80, -47.20
     clat, clon = along(lat, lon, 90.0, 11.0)
-    band = CurrentBand(clat, clon, set_deg=10.0, core_kn=4.8, core_width_nm=6.0, edge_width_nm=1.0, warm_c=3.0)
+    band = CurrentBand(clat, clon, set_deg=10.0, core_kn=4.8, core_width_nm=6.0, edge_width_nm=0.8, warm_c=3.0)
     ocean = Ocean(
         currents=(SteadyCurrent(200.0, 0.3), band),
         sea_temp=SeaTemperatureField(17.0, lat, lon, patches=(Patch(0.15, 2.5, 30.0),)),
@@ -194,14 +194,14 @@ def demo_passage(heading_hz: float = 2.0) -> Scenario:
     Timeline (from 04:00 UTC): motoring out 135° (30 min), sailing 135°;
     course change to 195° at 05:50 and back to 135° at 06:30 (calibration);
     the warm band's near edge about 07:00, its far edge about 09:00 (core
-    5.0 kn toward 045, +4 °C, fronts 1 nm wide); wind from about 040, i.e.
+    5.0 kn toward 045, +4 °C, fronts 0.8 nm wide); wind from about 040, i.e.
     against the band's current; MSL steady 1017.6 hPa until 07:30, then
     falling 2.2 hPa/h to 1008.8 at 11:30; GNSS dropout 08:40:00–08:42:30;
     course 160° from 09:30.
     """
     t0, lat, lon = DEMO_START, DEMO_LAT, DEMO_LON
     clat, clon = along(lat, lon, 135.0, 22.0)
-    band = CurrentBand(clat, clon, set_deg=45.0, core_kn=5.0, core_width_nm=12.0, edge_width_nm=1.0, warm_c=4.0)
+    band = CurrentBand(clat, clon, set_deg=45.0, core_kn=5.0, core_width_nm=12.0, edge_width_nm=0.8, warm_c=4.0)
     ocean = Ocean(
         currents=(SteadyCurrent(200.0, 0.3), band),
         sea_temp=SeaTemperatureField(15.5, lat, lon, patches=(Patch(0.15, 3.5, 20.0, 0.7), Patch(0.08, 1.2, 110.0))),
