@@ -106,6 +106,8 @@ def iter_replay(paths: Sequence[str | Path], make_ingest: Callable[[str], Any],
     tracker = _Tracker(sum(sizes), progress)
     streams = [_iter_one(i, p, fmt, name, size, make_ingest, tracker)
                for i, (p, fmt, name, size) in enumerate(zip(paths, formats, source_names(paths), sizes))]
+    if not streams:
+        return iter(())
     merged = streams[0] if len(streams) == 1 else heapq.merge(*streams, key=item_time)
     bar = getattr(progress, "__self__", progress)
     if isinstance(bar, ProgressBar):
@@ -164,21 +166,32 @@ def _iter_recording(index: int, path: Path, size: int,
     from daemon.recorder import iter_raw  # only when a recording is replayed
 
     ingests: dict[str, Any] = {}
-    done = reported = 0
+    n_total = _recorded_line_count(path)
+    step = max(1, n_total // 200)
     try:
-        for line in iter_raw(path):
+        for n, line in enumerate(iter_raw(path), start=1):
             ingest = ingests.get(line.source)
             if ingest is None:
                 ingest = ingests[line.source] = make_ingest(line.source)
             yield from ingest.feed_timed_line(line.text, line.t_s, line.recv_utc)
-            done += len(line.text) + 2  # the line's share of the file, about
-            if done - reported >= CHUNK_BYTES:
-                reported = done
-                tracker.set(index, min(done, size))
+            if n_total and n % step == 0:
+                tracker.set(index, min(size, size * n // n_total))
     except sqlite3.DatabaseError as e:
         raise InputError(f"replay file {path} is not a readable recording: {e}") from None
     for ingest in ingests.values():
         yield from ingest.flush()
+
+
+def _recorded_line_count(path: Path) -> int:
+    """Lines in a recording (for progress only; 0 when it cannot be told)."""
+    try:
+        conn = sqlite3.connect(path.resolve().as_uri() + "?mode=ro", uri=True)
+        try:
+            return int(conn.execute("SELECT COALESCE(SUM(n_lines), 0) FROM raw_block").fetchone()[0])
+        finally:
+            conn.close()
+    except sqlite3.Error:
+        return 0
 
 
 class ProgressBar:

@@ -135,7 +135,10 @@ def test_a_recording_replays_each_stored_source_with_its_stored_times(tmp_path):
     writer.commit(final=True)
     writer.close()
     assert detect_format(db) == "sqlite"
-    items, made = items_of([db])
+    calls: list[tuple[int, int]] = []
+    items, made = items_of([db], progress=lambda d, t: calls.append((d, t)))
+    size = db.stat().st_size
+    assert calls[-1] == (size, size) and len(calls) > 2  # progress along the way, whole at the end
     assert sorted(made) == ["compass", "gps"]  # one Ingest per stored source
     assert [(i.source, i.t_s, i.text) for i in items] == [(r.source, r.t_s, r.text) for r in stored]
     assert made["gps"].timed[0][2] == pytest.approx(1000.2, abs=1e-3)  # receive time kept
