@@ -1,4 +1,4 @@
-"""The passage recording: every raw sentence and every published message, in SQLite.
+r"""The passage recording: every raw sentence and every published message, in SQLite.
 
 The pipeline hands each raw line and each message to ``Recorder`` (a Sink),
 which only puts it on a bounded queue (a full queue drops and counts, it never
@@ -40,28 +40,34 @@ arrays, one line each, in arrival order:
 - raw: `[time, recv, name_index, text]`
 - message: `[time, name_index, retain, qos, kind, payload]`
 
-`time` is either an integer, the step in milliseconds from the previous
-line's time in the block (the first step counts from 0, so it is the whole
-time in ms), or a JSON number with a fraction, the exact time itself (kept
-whenever the time is not a whole millisecond). `recv` is `null` (same as the
-data time), an integer (ms after the data time) or an exact time, the same way.
+`time` is exact, in one of three forms: an integer is the step in whole
+milliseconds from the previous line's time (the first line steps from 0, so
+it gives the whole time in ms); a string of digits is the step in ticks of
+2^-22 s (every double time from 2004 to 2106 is a whole number of them) from
+the previous line's tick count; a number with a fraction is the time itself.
+`recv` is `null` (same as the data time), an integer (ms after the data time)
+or the exact receive time. Decoding one raw block in Python:
 
 ```python
 import json, lzma, sqlite3, zlib
 db = sqlite3.connect("offwatch-20260504T063000Z.sqlite")
 for codec, names, data in db.execute(
         "SELECT codec, names, data FROM raw_block ORDER BY seq_first"):
-    names, ms = json.loads(names), 0
+    names, ms, ticks = json.loads(names), 0, 0
     text = (zlib if codec == "zlib" else lzma).decompress(data).decode("ascii")
-    for line in text.split("\\n"):
+    for line in text.split("\n"):
         t, recv, i, sentence = json.loads(line)
         if isinstance(t, int):
-            ms += t
-            t = ms / 1000
-        else:
-            ms = round(t * 1000)
-        print(t, names[i], sentence)
+            t = (ms + t) / 1000
+        elif isinstance(t, str):
+            t = (ticks + int(t)) / 2**22
+        ms, ticks = round(t * 1000), int(t * 2**22)
+        recv = t if recv is None else (ms + recv) / 1000 if isinstance(recv, int) else recv
+        print(t, recv, names[i], sentence)
 ```
+
+(`offwatch` itself reads them with `daemon.recorder.iter_raw` and
+`iter_messages`.)
 
 Plain SQL for the alerts: `SELECT datetime(t, 'unixepoch'), alert_id, state,
 text FROM alert ORDER BY t`.
@@ -437,7 +443,7 @@ class RecordingWriter:
             self.conn.executemany("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
                                   list(self.pending_meta.items()))
             self.conn.execute("COMMIT")
-        except sqlite3.Error as exc:
+        except (sqlite3.Error, ValueError, TypeError, OverflowError) as exc:  # SQLite, or a payload JSON refuses
             if self.conn.in_transaction:
                 self.conn.execute("ROLLBACK")
             for stream, (small, seq) in zip(streams, saved):
@@ -576,18 +582,24 @@ class _Config:
 class Recorder:
     """The recording Sink: enqueue from the pipeline, write from one thread, commit about once a second.
 
-    Give it a file (``Recorder("passage.sqlite")``, as ``replay --record`` does)
-    or a managed directory (``Recorder.in_directory(params)``, as ``run`` does).
-    ``on_commit(stats)`` is called in the writer thread after each commit.
+    Give it a file (``Recorder("passage.sqlite", overflow="wait")``, as
+    ``replay --record`` should: a replay may wait for the disk, a live input
+    may not) or a managed directory (``Recorder.in_directory(params)``, as
+    ``run`` does). With ``overflow="drop"`` (the default) a full queue drops the
+    new item and counts it. ``on_commit(stats)`` is called in the writer thread
+    after each commit that wrote lines.
     """
 
     def __init__(self, path: str | Path | None = None, *, commit_interval_s: float = 1.0,
                  block_span_s: float = 60.0, queue_size: int = 20000,
                  policy: RecordingPolicy | None = None, clock: Callable[[], float] = time.time,
                  on_commit: Callable[[RecorderStats], None] | None = None,
-                 enforce_every: int = 60):
+                 enforce_every: int = 60, overflow: str = "drop"):
         if (path is None) == (policy is None):
             raise ValueError("give a recording path or a RecordingPolicy, not both")
+        if overflow not in ("drop", "wait"):
+            raise ValueError(f"overflow = {overflow!r}: expected 'drop' or 'wait'")
+        self._wait_when_full = overflow == "wait"
         self.commit_interval_s = commit_interval_s
         self.block_span_s = block_span_s
         self._policy = policy
@@ -661,7 +673,7 @@ class Recorder:
         if self._closed:
             return
         try:
-            self._queue.put_nowait(item)
+            self._queue.put(item, block=self._wait_when_full)
             counter = "enqueued"
         except queue.Full:
             counter = "dropped"
@@ -711,13 +723,12 @@ class Recorder:
                 item = None
             if item is _CLOSE:
                 break
-            if isinstance(item, RawLine):
-                writer.add_raw(item)
-            elif isinstance(item, Message):
-                writer.add_message(item)
-            elif isinstance(item, _Config):
-                self._config = item.effective
-                writer.set_config(item.effective, self._clock())
+            try:
+                self._add(writer, item)
+            except (TypeError, ValueError, AttributeError) as exc:  # a malformed item: count, skip
+                log.warning("recording skipped an item it cannot keep (%s): %r", exc, item)
+                with self._lock:
+                    self._stats.write_errors += 1
             if deadline is None and writer.has_pending():
                 deadline = self._clock() + self.commit_interval_s
             if isinstance(item, _Flush) or (deadline is not None and self._clock() >= deadline):
@@ -730,6 +741,15 @@ class Recorder:
             writer.close()
         except (OutputError, sqlite3.Error) as exc:
             log.error("recording %s: closing failed: %s", writer.path, exc)
+
+    def _add(self, writer: RecordingWriter, item: object) -> None:
+        if isinstance(item, RawLine):
+            writer.add_raw(item)
+        elif isinstance(item, Message):
+            writer.add_message(item)
+        elif isinstance(item, _Config):
+            self._config = item.effective
+            writer.set_config(item.effective, self._clock())
 
     def _commit(self, writer: RecordingWriter, failing: bool) -> tuple[RecordingWriter, bool]:
         started = time.perf_counter()

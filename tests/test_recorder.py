@@ -236,6 +236,31 @@ def test_full_queue_drops_and_counts_without_blocking(tmp_path):
     assert len(list(iter_raw(tmp_path / "q.sqlite"))) == rec.stats.enqueued <= 1 + 100
 
 
+def test_wait_mode_keeps_everything_when_the_writer_is_slow(tmp_path):
+    # GIVEN a replay-style recorder (overflow="wait") with a tiny queue and a writer held up 0.3 s
+    def slow_commit(_stats):
+        time.sleep(0.3)
+
+    rec = Recorder(tmp_path / "w.sqlite", queue_size=100, commit_interval_s=0.05, overflow="wait",
+                   on_commit=slow_commit)
+    lines = sample_lines(3000)
+    for line in lines:
+        rec.raw(line)
+    rec.close()
+    # THEN nothing was dropped: every line is in the file
+    assert rec.stats.dropped == 0
+    assert list(iter_raw(tmp_path / "w.sqlite")) == lines
+
+
+def test_a_malformed_message_is_counted_and_skipped(tmp_path):
+    rec = Recorder(tmp_path / "bad.sqlite")
+    rec.message(Message(T0, "offwatch/x", "not a mapping", True))  # type: ignore[arg-type]
+    rec.raw(RawLine("s", T0, T0, "$OK"))
+    rec.close()
+    assert rec.stats.write_errors == 1
+    assert [line.text for line in iter_raw(tmp_path / "bad.sqlite")] == ["$OK"]
+
+
 def test_small_blocks_are_merged_after_a_span(tmp_path):
     # GIVEN one commit per second of data, blocks merged every 10 s of data
     path = tmp_path / "merge.sqlite"
