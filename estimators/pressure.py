@@ -72,8 +72,6 @@ from collections import deque
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-import numpy as np
-
 from estimators.base import CAUTION, WARNING, Condition, Context, EstimatorBase, Output, Publication
 from estimators.params import param
 from estimators.samples import AirTemperature, Fix, Pressure
@@ -104,6 +102,7 @@ class PressureParams:
     fall_caution_hpa: float = param(3.6, "hPa/3h", 0.5, 20.0, "3-hour fall for the pressure_fall caution")
     fall_warning_hpa: float = param(6.0, "hPa/3h", 1.0, 30.0, "3-hour fall beyond which it is a warning")
     fall_clear_margin_hpa: float = param(0.6, "hPa/3h", 0.1, 5.0, "hysteresis: cleared this much below")
+    early_rule: bool = param(True, doc="raise pressure_fall from the last hour's rate (see the module text)")
     early_window_s: float = param(3600.0, "s", 900.0, 10800.0, "window of the early fall rule")
     early_sigma: float = param(2.0, "sigma", 0.0, 5.0, "confidence of the early fall rule")
     rapid_ref_hpa: float = param(24.0, "hPa/24h", 5.0, 60.0, "Sanders-Gyakum rate at 60° latitude")
@@ -224,43 +223,54 @@ class FusionReport:
 
 
 class LevelTrendFilter:
-    """Kalman local linear trend in time: x = [level hPa, rate hPa/h]."""
+    """Kalman local linear trend in time: x = [level hPa, rate hPa/h].
+
+    Written out for 2x2 in plain floats (a reading a second for days on a
+    small computer); the matrix form is in the comments.
+    """
 
     def __init__(self, q_level: float, q_rate: float) -> None:
         self.q_level, self.q_rate = q_level, q_rate
-        self.x: np.ndarray | None = None
-        self.P = np.zeros((2, 2))
+        self.x: list[float] | None = None
+        self.P = [[0.0, 0.0], [0.0, 0.0]]
         self.t_s: float | None = None
 
     def start(self, t_s: float, level: float, var_level: float, var_rate: float = 4.0) -> None:
-        self.x = np.array([level, 0.0])
-        self.P = np.diag([var_level, var_rate])
+        self.x = [level, 0.0]
+        self.P = [[var_level, 0.0], [0.0, var_rate]]
         self.t_s = t_s
 
     def predict(self, t_s: float) -> None:
         dt = max(0.0, (t_s - self.t_s) / 3600.0)  # hours
         if dt == 0.0:
             return
-        F = np.array([[1.0, dt], [0.0, 1.0]])
+        (p00, p01), (_, p11) = self.P
         q = self.q_rate
-        Q = q * np.array([[dt**3 / 3.0, dt**2 / 2.0], [dt**2 / 2.0, dt]])  # white noise on the rate's derivative
-        Q[0, 0] += self.q_level * dt  # plus a random walk of the level
-        self.x = F @ self.x  # x⁻ = F x
-        self.P = F @ self.P @ F.T + Q  # P⁻ = F P Fᵀ + Q
+        self.x = [self.x[0] + dt * self.x[1], self.x[1]]  # x⁻ = F x, F = [[1, Δt], [0, 1]]
+        # P⁻ = F P Fᵀ + Q, Q = q [[Δt³/3, Δt²/2], [Δt²/2, Δt]] + [[q_level Δt, 0], [0, 0]]
+        n00 = p00 + 2.0 * dt * p01 + dt * dt * p11 + q * dt**3 / 3.0 + self.q_level * dt
+        n01 = p01 + dt * p11 + q * dt * dt / 2.0
+        n11 = p11 + q * dt
+        self.P = [[n00, n01], [n01, n11]]
         self.t_s = t_s
 
     def update(self, z: float, r: float, gate_sigma: float) -> FusionReport:
-        H = np.array([1.0, 0.0])
-        nu = z - self.x[0]  # innovation ν = z - H x⁻
-        s = self.P[0, 0] + r  # S = H P Hᵀ + R
+        (p00, p01), (_, p11) = self.P
+        nu = z - self.x[0]  # innovation ν = z - H x⁻, H = [1, 0]
+        s = p00 + r  # S = H P Hᵀ + R
+        if not (math.isfinite(nu) and s > 0.0):
+            return FusionReport(self.t_s, nu, s, math.inf, False)
         ratio = nu * nu / s / (gate_sigma * gate_sigma)
         if ratio > 1.0:
             return FusionReport(self.t_s, nu, s, ratio, False)
-        k = self.P @ H / s  # K = P Hᵀ S⁻¹
-        self.x = self.x + k * nu
-        a = np.eye(2) - np.outer(k, H)
-        self.P = a @ self.P @ a.T + r * np.outer(k, k)  # Joseph form: (I-KH) P (I-KH)ᵀ + K R Kᵀ
-        self.P = 0.5 * (self.P + self.P.T)
+        k0, k1 = p00 / s, p01 / s  # K = P Hᵀ S⁻¹
+        self.x = [self.x[0] + k0 * nu, self.x[1] + k1 * nu]
+        # Joseph form P = (I-KH) P (I-KH)ᵀ + K R Kᵀ, with I-KH = [[1-k0, 0], [-k1, 1]]
+        a00, a10 = 1.0 - k0, -k1
+        n00 = a00 * a00 * p00 + r * k0 * k0
+        n01 = a00 * (a10 * p00 + p01) + r * k0 * k1
+        n11 = a10 * a10 * p00 + 2.0 * a10 * p01 + p11 + r * k1 * k1
+        self.P = [[n00, n01], [n01, n11]]
         return FusionReport(self.t_s, nu, s, ratio, True)
 
 
@@ -379,7 +389,7 @@ class PressureTendency(EstimatorBase):
             self._rejected_since = t_s
         elif t_s - self._rejected_since >= self.p.reset_after_s:
             self.counts["resets"] += 1  # a lasting step: the barometer was moved or replaced
-            rate_var = self.kf.P[1, 1]
+            rate_var = self.kf.P[1][1]
             rate = self.kf.x[1]
             self.kf.start(t_s, z, r, rate_var)
             self.kf.x[1] = rate
@@ -407,7 +417,7 @@ class PressureTendency(EstimatorBase):
 
     def _level_at(self, t_s: float) -> _Minute | None:
         """The minute record nearest ``t_s`` (within 90 s), or None."""
-        if not self._minutes or self._minutes[0].t_s > t_s + 90.0:
+        if not self._minutes or self._minutes[0].t_s > t_s + 60.0:  # not before the history reaches back
             return None
         lo, hi = 0, len(self._minutes) - 1
         while lo < hi:  # first record at or after t_s
@@ -433,6 +443,8 @@ class PressureTendency(EstimatorBase):
     def _implied_fall_3h(self, t_s: float) -> tuple[float | None, float | None, float | None]:
         """(implied 3-h fall, slope, se) from the last hour's minute medians (early rule)."""
         w = self.p.early_window_s
+        if not self.p.early_rule:
+            return None, None, None
         pts = [(t, z) for t, z in self._medians if t >= t_s - w]
         if len(pts) < 0.8 * w / 60.0 or pts[-1][0] - pts[0][0] < 0.8 * w:
             return None, None, None
@@ -467,7 +479,7 @@ class PressureTendency(EstimatorBase):
             "tendency_3h_hpa": None if tend is None else round(tend[0], 2),
             "tendency_3h_raw_hpa": None if tend is None else round(tend[1], 2),
             "rate_hpa_per_h": round(rate, 3),
-            "rate_sigma_hpa_per_h": round(math.sqrt(max(self.kf.P[1, 1], 0.0)), 3),
+            "rate_sigma_hpa_per_h": round(math.sqrt(max(self.kf.P[1][1], 0.0)), 3),
             "descriptor": descriptor(None if tend is None else tend[0]),
             "characteristic": self._characteristic(t_s),
             "air_temp_c": air,
