@@ -62,8 +62,8 @@ shrinks during an outage. With no current known it is taken as zero with
 and ``heading_offset_sigma_deg`` are used.
 
 When a fix returns, the distance between the dead-reckoned position at the
-fix time and the fix is published once as ``dr_error_m`` with the next GNSS
-position, and dead reckoning restarts from the fix at the next outage.
+fix time and the fix is published once as ``dr_error_m`` with the GNSS
+position, published at once (the one exception to the rate limit), and dead reckoning restarts from the fix at the next outage.
 ``gnss_lost`` is active once no fix has come for
 ``gnss_lost_after_s`` and inactive with the first usable fix.
 """
@@ -163,6 +163,7 @@ class PositionEstimator(EstimatorBase):
         self._current: Mapping[str, Any] | None = None  # last usable current payload
         self._current_unavailable = False
         self._last_pub_s = -math.inf
+        self._last_source = ""
         self._lost = False
         self._jump_rejects = 0
         self._dr_error_m: float | None = None
@@ -186,8 +187,8 @@ class PositionEstimator(EstimatorBase):
         if self._lost:
             self._lost = False
             out.append(Condition(fix.t_s, ALERT_ID, WARNING, False, "GNSS fixes have returned.", {}))
-        if fix.t_s - self._last_pub_s >= self.params.publish_interval_s - _EPS_S:
-            out.append(self._gnss_publication(fix))
+        if fix.t_s - self._last_pub_s >= self.params.publish_interval_s - _EPS_S or self._last_source != "gnss":
+            out.append(self._gnss_publication(fix))  # the return to GNSS is news: published at once
         return out
 
     def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
@@ -236,7 +237,7 @@ class PositionEstimator(EstimatorBase):
         return True
 
     def _gnss_publication(self, fix: Fix) -> Publication:
-        self._last_pub_s = fix.t_s
+        self._last_pub_s, self._last_source = fix.t_s, "gnss"
         payload: dict[str, Any] = {
             "lat": fix.lat_deg, "lon": fix.lon_deg, "source": "gnss",
             "sigma_m": round(self._fix_sigma_m, 1),
@@ -259,7 +260,7 @@ class PositionEstimator(EstimatorBase):
         speed_kn, toward_deg = from_east_north(v.east_kn, v.north_kn)
         distance_m = speed_kn * KN_TO_MPS * dt                         # s = |v| dt
         if distance_m > 0.0:
-            g = _GEOD.Direct(dr.lat, dr.lon, toward_deg, distance_m)
+            g = _GEOD.Direct(dr.lat, dr.lon, toward_deg, distance_m, Geodesic.LATITUDE | Geodesic.LONGITUDE)
             dr.lat, dr.lon = g["lat2"], g["lon2"]
         dr.sigma_int_m += v.sigma_kn * KN_TO_MPS * dt                  # sigma_int += sigma_v dt
         dr.t_s, dr.running = t_s, True
@@ -335,7 +336,7 @@ class PositionEstimator(EstimatorBase):
         return last.speed_kn if last is not None and t_s - last.t_s <= p.input_max_age_s else None
 
     def _dr_publication(self, t_s: float) -> Publication:
-        self._last_pub_s = t_s
+        self._last_pub_s, self._last_source = t_s, "dead_reckoning"
         dr = self._dr
         payload = {
             "lat": dr.lat, "lon": dr.lon, "source": "dead_reckoning", "sigma_m": round(dr.sigma_m, 1),
