@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import getpass
 import shutil
 import signal
 import socket
@@ -31,14 +32,19 @@ class Mosquitto:
     their queued QoS-1 messages survive a restart, as on a real boat.
     """
 
-    def __init__(self, workdir: Path) -> None:
+    def __init__(self, workdir: Path, listener_conf: str = "") -> None:
+        """``listener_conf``: lines for the listener (e.g. cafile/certfile/keyfile for TLS)."""
         self.host = "127.0.0.1"
         self.port = free_port()
         self.workdir = workdir
+        self.tls = "certfile" in listener_conf
         self.conf = workdir / "mosquitto.conf"
         self.log = workdir / "mosquitto.log"
         self.conf.write_text(
             f"listener {self.port} {self.host}\n"
+            f"{listener_conf}"
+            # started as root, mosquitto would drop to its own user, who cannot read the temp dir
+            f"user {getpass.getuser()}\n"
             "allow_anonymous true\n"
             "persistence true\n"
             "autosave_interval 1\n"
@@ -54,13 +60,22 @@ class Mosquitto:
         self.proc = subprocess.Popen([MOSQUITTO, "-c", str(self.conf)],
                                      stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
         deadline = time.monotonic() + timeout_s
-        while not broker_answers(self.host, self.port, timeout=0.5):
+        while not self._answers():
             if self.proc.poll() is not None:
                 err = self.proc.stderr.read().decode(errors="replace") if self.proc.stderr else ""
                 raise RuntimeError(f"mosquitto exited with {self.proc.returncode}: {err}")
             if time.monotonic() > deadline:
                 raise RuntimeError(f"mosquitto did not answer on port {self.port}")
             time.sleep(0.05)
+
+    def _answers(self) -> bool:
+        if not self.tls:
+            return broker_answers(self.host, self.port, timeout=0.5)
+        try:  # a TLS listener: the MQTT probe speaks plain TCP, so a connect must do
+            socket.create_connection((self.host, self.port), timeout=0.5).close()
+            return True
+        except OSError:
+            return False
 
     def stop(self) -> None:
         if self.proc is not None and self.proc.poll() is None:
