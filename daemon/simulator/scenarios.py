@@ -224,7 +224,7 @@ def demo_passage(heading_hz: float = 2.0) -> Scenario:
     )
     return Scenario(
         name="demo_passage", start_utc=t0, duration_s=7.5 * H, start_lat=lat, start_lon=lon,
-        helm=helm, ocean=ocean, sensors=sensors, boat=HelmModel(),
+        helm=helm, ocean=ocean, sensors=sensors, boat=HelmModel(heel_max_deg=28.0, heel_ref_kn=30.0),
         description=demo_passage.__doc__ or "",
         vessel=DEMO_VESSEL,
     )
