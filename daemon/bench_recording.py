@@ -2,8 +2,9 @@
 
     python -m daemon.bench_recording [--minutes 60] [--rate 25] [--captures DIR]
 
-Feeds real NMEA sentences (the demo passage in recorded_runs/ when there is
-one, else the shared real captures beside the repository) to a RecordingWriter
+Feeds NMEA sentences (the demo passage in recorded_runs/ when there is one,
+TAG blocks taken off; else the real captures beside the repository, or
+``--captures DIR``) to a RecordingWriter
 at ``--rate`` sentences per second of data time, committing once per second of
 data, as the live service does, with about 4 messages per second (position,
 current, sea temperature, sea state at 1 Hz; pressure, status every 10 s) and
@@ -21,6 +22,7 @@ Timing figures belong here, never in the tests.
 from __future__ import annotations
 
 import argparse
+import gzip
 import random
 import sqlite3
 import statistics
@@ -29,16 +31,33 @@ import time
 from pathlib import Path
 
 from daemon.readings import Message, RawLine
-from daemon.recorder import RecordingWriter, iter_raw
+from daemon.recorder import RecordingWriter, iter_raw, parse_tag_line
 
 REPO = Path(__file__).resolve().parents[1]
 CAPTURE_NAMES = ("under-way-94min-hdg-hdt-rmc.nmea", "sounder-survey-43min-dpt-mtw.nmea",
                  "berth-13min-mda-pressure.nmea")
 
 
+def _read_text(path: Path) -> str:
+    try:
+        data = gzip.open(path).read() if path.suffix == ".gz" else path.read_bytes()
+    except EOFError:  # a gzip file still being written: take what is there
+        with gzip.open(path) as f:
+            data = b"".join(iter(lambda: _read_some(f), b""))
+    return data.decode("ascii", errors="replace")
+
+
+def _read_some(f) -> bytes:
+    try:
+        return f.read(65536)
+    except EOFError:
+        return b""
+
+
 def load_sentences(captures: Path | None) -> tuple[list[str], str]:
-    """Realistic sentences: the demo passage if committed, else the real captures."""
-    demo = sorted((REPO / "recorded_runs").glob("*.nmea")) if (REPO / "recorded_runs").is_dir() else []
+    """Realistic sentences: the demo passage if committed, else the real captures; TAG blocks taken off
+    (live instruments send none; the recorder keeps whatever arrives)."""
+    demo = sorted((REPO / "recorded_runs").glob("*.nmea*")) if (REPO / "recorded_runs").is_dir() else []
     if captures is None and demo:
         files = demo
     else:
@@ -48,8 +67,9 @@ def load_sentences(captures: Path | None) -> tuple[list[str], str]:
         raise SystemExit("no NMEA sentences found: give --captures DIR")
     lines: list[str] = []
     for f in files:
-        text = f.read_bytes().decode("ascii", errors="replace")
-        lines += [s.strip("\x00\r ") for s in text.replace("\r", "\n").split("\n")]
+        text = _read_text(f)
+        lines += [parse_tag_line(s.strip("\x00\r ")).text if s.startswith("\\") else s.strip("\x00\r ")
+                  for s in text.replace("\r", "\n").split("\n")]
     return [s for s in lines if s.startswith(("$", "!"))], ", ".join(f.name for f in files)
 
 
@@ -141,7 +161,7 @@ def main() -> None:
     ap.add_argument("--dir", type=Path, default=None, help="where to write (default: a temporary dir)")
     args = ap.parse_args()
     sentences, origin = load_sentences(args.captures)
-    print(f"{len(sentences)} distinct lines from {origin}; {args.minutes} min at {args.rate}/s per case")
+    print(f"{len(sentences)} sentences from {origin}; {args.minutes} min at {args.rate}/s per case")
     with tempfile.TemporaryDirectory() as tmp:
         directory = args.dir or Path(tmp)
         for stamping, messages in (("ms", "none"), ("live", "none"), ("live", "full"), ("live", "rounded")):

@@ -75,6 +75,7 @@ text FROM alert ORDER BY t`.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 import lzma
@@ -110,7 +111,7 @@ _MB = 1024 * 1024
 class RecordingParams:
     """The [recording] section: where recordings go, when a new one starts, how much is kept."""
 
-    directory: str = param("/var/lib/offwatch/recordings", doc="directory holding the recordings")
+    directory: str = param("", doc="directory holding the recordings (empty: recordings/ in the state directory)")
     per: str = param("day", choices=("start", "day"),
                      doc="a new recording on each start, or one per UTC day (continued after a restart)")
     max_total_mb: float = param(2000.0, "MB", 0.1, 10_000_000.0,
@@ -582,10 +583,10 @@ class _Config:
 class Recorder:
     """The recording Sink: enqueue from the pipeline, write from one thread, commit about once a second.
 
-    Give it a file (``Recorder("passage.sqlite", overflow="wait")``, as
-    ``replay --record`` should: a replay may wait for the disk, a live input
-    may not) or a managed directory (``Recorder.in_directory(params)``, as
-    ``run`` does). With ``overflow="drop"`` (the default) a full queue drops the
+    Give it a file (``Recorder.open_file(path)``, as ``replay --record`` does:
+    it waits for the disk rather than drop, a replay may wait, a live input may
+    not) or a managed directory (``Recorder.open_passage(params, default_dir)``,
+    as ``run`` does). With ``overflow="drop"`` (the default) a full queue drops the
     new item and counts it. ``on_commit(stats)`` is called in the writer thread
     after each commit that wrote lines.
     """
@@ -623,10 +624,22 @@ class Recorder:
             raise self._error
 
     @classmethod
-    def in_directory(cls, params: RecordingParams, *, free_bytes: Callable[[Path], int] | None = None,
-                     clock: Callable[[], float] = time.time,
+    def open_file(cls, path: str | Path, **options: Any) -> Recorder:
+        """A recorder for ``replay --record FILE``: that one file (appended to if it exists), never dropping."""
+        options.setdefault("overflow", "wait")
+        return cls(path, **options)
+
+    @classmethod
+    def open_passage(cls, params: RecordingParams, default_directory: str | Path | None = None, *,
+                     free_bytes: Callable[[Path], int] | None = None, clock: Callable[[], float] = time.time,
                      on_commit: Callable[[RecorderStats], None] | None = None) -> Recorder:
-        """A recorder for ``offwatch run``: a recording in params.directory, rotated and capped by params."""
+        """A recorder for ``offwatch run``: a recording in params.directory (or ``default_directory``
+        when that is empty), a new one per start or per UTC day, the directory kept under the cap
+        and above the free-disk floor. A live input never waits: a full queue drops and counts."""
+        directory = params.directory or default_directory
+        if not directory:
+            raise OutputError("no recording directory: set [recording] directory")
+        params = dataclasses.replace(params, directory=str(Path(directory).expanduser()))
         return cls(policy=RecordingPolicy(params, free_bytes), commit_interval_s=params.commit_interval_s,
                    block_span_s=params.block_span_s, queue_size=params.queue_size, clock=clock,
                    on_commit=on_commit)
@@ -851,9 +864,10 @@ def read_meta(path: str | Path) -> dict[str, Any]:
 
 # --------------------------------------------------------------------------- TAG-block NMEA export
 
-# The exporter's own TAG block: \c:<ms>,s:<source>*hh\ (NMEA 0183 v4.10 TAG block,
-# c: UNIX time, s: source; checksum = XOR of the characters between '\' and '*').
-_OWN_TAG_RE = re.compile(r"\\(c:\d+,s:[^,*\\]*)\*([0-9A-F]{2})\\")
+# TAG blocks (NMEA 0183 v4.10): \<param>:<value>,...*hh\ before the sentence; c: is
+# UNIX time (s, or ms when larger than 10^11, as offwatch reads it), s: the source;
+# the checksum is the XOR of the characters between the leading backslash and '*'.
+_TAG_RE = re.compile(r"\\([^\\*]*)\*([0-9A-Fa-f]{2})\\")
 _SOURCE_UNSAFE_RE = re.compile(r"[^\x21-\x7e]|[,*\\$!^~]")  # NMEA 0183 reserved characters
 
 
@@ -862,14 +876,6 @@ def _nmea_checksum(body: str) -> str:
     for ch in body:
         value ^= ord(ch)
     return f"{value & 0xFF:02X}"
-
-
-def _own_tag_length(text: str) -> int:
-    """Length of a leading TAG block in the exporter's own form with a right checksum, else 0."""
-    m = _OWN_TAG_RE.match(text)
-    if m is None or _nmea_checksum(m.group(1)) != m.group(2):
-        return 0
-    return m.end()
 
 
 def tag_block(t_s: float, source: str) -> str:
@@ -882,16 +888,16 @@ def tag_block(t_s: float, source: str) -> str:
 def export_tag_nmea(db_path: str | Path, out_path: str | Path) -> int:
     """Write the raw sentences as TAG-block NMEA text (CRLF lines); returns the lines written.
 
-    A line that carries a TAG block is written as stored. Every other line gets
-    ``\\c:<ms>,s:<source>*hh\\`` in front; so does a stored line whose own TAG
-    block has exactly that form, so ``read_tag_nmea`` can always tell the two
-    apart and gives back the stored text byte for byte. Times keep the ms.
+    A line that already carries a TAG block is written as stored, byte for
+    byte (so a recording of a TAG-block file exports as that file). Every other
+    line gets ``\\c:<ms>,s:<source>*hh\\`` in front: the data time to the
+    millisecond and the source, the stored line unchanged after it.
     """
     n = 0
     try:
         with open(out_path, "w", encoding="utf-8", errors="surrogateescape", newline="") as out:
             for line in iter_raw(db_path):
-                if line.text.startswith("\\") and not _own_tag_length(line.text):
+                if _TAG_RE.match(line.text):
                     out.write(line.text + "\r\n")
                 else:
                     out.write(tag_block(line.t_s, line.source) + line.text + "\r\n")
@@ -901,24 +907,36 @@ def export_tag_nmea(db_path: str | Path, out_path: str | Path) -> int:
     return n
 
 
-def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
-    """Read an export back: the exporter's TAG block gives time and source, the rest is the stored text.
+def parse_tag_line(line: str) -> RawLine:
+    """One TAG-block line split: c: gives the time, s: the source, the rest after the block is the text.
 
-    Lines without it (stored with their own TAG block) come back whole, with
-    NaN time and an empty source.
+    A line without a well-formed TAG block (or with a wrong TAG checksum) comes
+    back whole as the text, with NaN time and an empty source.
     """
+    m = _TAG_RE.match(line)
+    if m is None or _nmea_checksum(m.group(1)) != m.group(2).upper():
+        return RawLine(source="", t_s=math.nan, recv_utc=math.nan, text=line)
+    fields = dict(part.split(":", 1) for part in m.group(1).split(",") if ":" in part)
+    t = math.nan
+    if fields.get("c", "").isdigit():
+        c = int(fields["c"])
+        t = c / 1000 if c > 10**11 else float(c)
+    return RawLine(source=fields.get("s", ""), t_s=t, recv_utc=t, text=line[m.end():])
+
+
+def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
+    """The lines of a TAG-block NMEA file (CRLF or LF), each through ``parse_tag_line``."""
     with open(path, "r", encoding="utf-8", errors="surrogateescape", newline="") as f:
-        for raw in f.read().split("\r\n")[:-1]:
-            n = _own_tag_length(raw)
-            if n == 0:
-                yield RawLine(source="", t_s=math.nan, recv_utc=math.nan, text=raw)
-                continue
-            fields = dict(part.split(":", 1) for part in raw[1:n - 4].split(","))
-            t = int(fields["c"]) / 1000
-            yield RawLine(source=fields["s"], t_s=t, recv_utc=t, text=raw[n:])
+        text = f.read()
+    lines = text.replace("\r\n", "\n").split("\n")
+    if lines[-1] == "":
+        lines.pop()
+    for line in lines:
+        yield parse_tag_line(line)
 
 
 __all__ = ["RecordingParams", "RecordingPolicy", "Recorder", "RecorderStats", "RecordingWriter",
            "SCHEMA_VERSION", "connect", "connection_pragmas", "recording_name", "is_recording",
-           "iter_raw", "iter_messages", "read_meta", "export_tag_nmea", "read_tag_nmea", "tag_block"]
+           "iter_raw", "iter_messages", "read_meta", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
+           "tag_block"]
 

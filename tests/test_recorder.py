@@ -237,12 +237,12 @@ def test_full_queue_drops_and_counts_without_blocking(tmp_path):
 
 
 def test_wait_mode_keeps_everything_when_the_writer_is_slow(tmp_path):
-    # GIVEN a replay-style recorder (overflow="wait") with a tiny queue and a writer held up 0.3 s
+    # GIVEN a replay's recorder (open_file: overflow="wait") with a tiny queue and a writer held up 0.3 s
     def slow_commit(_stats):
         time.sleep(0.3)
 
-    rec = Recorder(tmp_path / "w.sqlite", queue_size=100, commit_interval_s=0.05, overflow="wait",
-                   on_commit=slow_commit)
+    rec = Recorder.open_file(tmp_path / "w.sqlite", queue_size=100, commit_interval_s=0.05,
+                             on_commit=slow_commit)
     lines = sample_lines(3000)
     for line in lines:
         rec.raw(line)
@@ -350,8 +350,9 @@ def test_per_day_continues_today_and_per_start_begins_anew(tmp_path):
 def test_recorder_starts_a_new_file_at_utc_midnight_and_copies_the_config(tmp_path):
     # GIVEN a managed recorder on a clock we move
     now = [T0]
-    params = RecordingParams(directory=str(tmp_path), per="day", commit_interval_s=0.05)
-    rec = Recorder.in_directory(params, clock=lambda: now[0], free_bytes=lambda d: 10**12)
+    params = RecordingParams(per="day", commit_interval_s=0.05)  # directory empty: the default one
+    rec = Recorder.open_passage(params, tmp_path / "recordings", clock=lambda: now[0],
+                                free_bytes=lambda d: 10**12)
     rec.record_config({"k": 1})
     day1 = sample_lines(30)
     for line in day1:
@@ -368,7 +369,7 @@ def test_recorder_starts_a_new_file_at_utc_midnight_and_copies_the_config(tmp_pa
     rec.close()
     # THEN a second recording holds the new day's lines, with the config
     second = rec.path
-    assert first != second and first.parent == second.parent == tmp_path
+    assert first != second and first.parent == second.parent == tmp_path / "recordings"
     assert list(iter_raw(first)) == day1 + [RawLine("s", T0, T0, "$tick")]
     assert list(iter_raw(second)) == day2
     assert read_meta(second)["config"] == {"k": 1}
@@ -383,9 +384,10 @@ def test_checksum_against_the_classic_gga_example():
 
 
 def test_export_tag_nmea_round_trips_byte_for_byte(tmp_path):
-    # GIVEN plain lines, lines with a foreign TAG block, one in the exporter's own TAG form, odd sources
-    own = recorder.tag_block(T0, "gnss") + "$GPZDA,030640.00,24,04,2026,,*00"
-    stored = sample_lines(200) + [RawLine("gnss", T0 + 9, T0 + 9, own),
+    # GIVEN plain lines, lines with a foreign TAG block, one with a TAG block in the exporter's own form
+    # (as the demo passage has them), and sources a TAG value cannot hold
+    own_form = "\\c:1777000009000,s:gnss*" + nmea_checksum("c:1777000009000,s:gnss") + "\\$GPZDA,030649.00,24,04,2026,,*00"
+    stored = sample_lines(200) + [RawLine("demo", T0 + 9, T0 + 9, own_form),
                                   RawLine("odd,src*\\", T0 + 10, T0 + 10, "$X")]
     db = tmp_path / "e.sqlite"
     writer = RecordingWriter(db)
@@ -393,24 +395,35 @@ def test_export_tag_nmea_round_trips_byte_for_byte(tmp_path):
         writer.add_raw(line)
     writer.close()
     out = tmp_path / "e.nmea"
-    # WHEN exported and read back
+    # WHEN exported and the TAG lines parsed back
     assert export_tag_nmea(db, out) == len(stored)
+    exported = out.read_bytes().decode("utf-8", "surrogateescape").split("\r\n")
+    assert exported.pop() == ""  # every line ends in CRLF
     back = list(read_tag_nmea(out))
-    # THEN the stored texts come back byte for byte, in order
-    assert [b.text for b in back] == [s.text for s in stored]
-    exported = out.read_bytes().decode("utf-8", "surrogateescape").split("\r\n")[:-1]
+    assert len(exported) == len(back) == len(stored)
     for line, ex, b in zip(stored, exported, back):
-        if line.text.startswith("\\s:mast"):  # a foreign TAG block: written as stored
+        if line.text.startswith("\\"):
+            # THEN a line stored with its TAG block is written as stored, byte for byte
             assert ex == line.text
             continue
-        # our TAG block: c in ms, s the source, its own checksum right by an independent XOR
-        tag = ex[1:ex.index("\\", 1)]
-        body, hh = tag.split("*")
+        # THEN every other line comes back byte for byte after its added TAG block ...
+        assert b.text == line.text
+        assert ex.encode("utf-8", "surrogateescape").endswith(line.text.encode("utf-8", "surrogateescape"))
+        # ... which carries the time in ms, the source, and a checksum right by an independent XOR
+        body, hh = ex[1:ex.index("\\", 1)].split("*")
         assert hh == nmea_checksum(body)
-        assert body.startswith(f"c:{round(line.t_s * 1000)},s:")
         assert b.t_s == round(line.t_s * 1000) / 1000
         # TAG values: printable ASCII without NMEA 0183's reserved , * \ $ ! ^ ~ (the list from memory)
         assert b.source == {"gnss": "gnss", "log": "log", "ins\u00e9 port": "ins__port",
                             "odd,src*\\": "odd_src__"}[line.source]
-    # AND the line that already had the exporter's form got a second one, so it could be told apart
-    assert exported[200] == recorder.tag_block(T0 + 9, "gnss") + own
+    assert sum(line.text.startswith("\\") for line in stored) == 35  # both kinds were exercised
+
+
+def test_parse_tag_line_reads_seconds_and_milliseconds():
+    # Interface: c: is UNIX seconds, or milliseconds when larger than 10^11.
+    seconds = "\\s:r3669,c:1241544035*" + nmea_checksum("s:r3669,c:1241544035") + "\\!AIVDM,1,1,,B,x,0*00"
+    line = recorder.parse_tag_line(seconds)
+    assert (line.t_s, line.source, line.text) == (1241544035.0, "r3669", "!AIVDM,1,1,,B,x,0*00")
+    assert recorder.parse_tag_line(recorder.tag_block(T0 + 0.25, "gnss") + "$A").t_s == T0 + 0.25
+    broken = "\\c:1241544035*00\\$A"  # wrong TAG checksum: not taken apart
+    assert recorder.parse_tag_line(broken).text == broken
