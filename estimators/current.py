@@ -77,7 +77,7 @@ import numpy as np
 from filterpy.kalman import ExtendedKalmanFilter
 from scipy.stats import chi2
 
-from estimators.angles import from_east_north, to_east_north, wrap_180, wrap_360
+from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180, wrap_360
 from estimators.base import CAUTION, Condition, EstimatorBase, Output, Publication
 from estimators.history import SampleHistory
 from estimators.params import param
@@ -118,7 +118,11 @@ class CurrentParams:
         0.5, "deg/sqrt(day)", 0.0, 45.0, "growth of a saved heading-offset sigma with its age")
     calibrated_stw_scale_sigma: float = param(0.015, "", 0.0001, 0.5, "log scale counts as calibrated below this sigma")
     calibrated_heading_offset_sigma_deg: float = param(1.0, "deg", 0.01, 45.0, "heading offset counts as calibrated below this sigma")
-    min_course_change_deg: float = param(60.0, "deg", 10.0, 180.0, "course change that calibrates (quoted in the advice)")
+    min_course_change_deg: float = param(
+        60.0, "deg", 10.0, 180.0, "course change that calibrates (quoted in the advice); half of it opens the calibration window")
+    calibration_window_s: float = param(
+        900.0, "s", 60.0, 7200.0, "after a course or speed change, k and d are updated for this long")
+    calibration_speed_change_fraction: float = param(0.3, "", 0.05, 1.0, "a relative speed change that opens the window")
     gate_probability: float = param(0.9995, "", 0.9, 0.999999, "chi-square gate on the ground-velocity innovation")
     rejections_before_reset: int = param(8, "fixes", 1, 1000, "a run of this many rejections inflates and accepts")
     reset_current_sigma_kn: float = param(1.0, "kn", 0.05, 10.0, "current sigma added per axis on such a reset")
@@ -131,6 +135,8 @@ class CurrentParams:
     averaging_window_s: float = param(2.0, "s", 0.1, 60.0, "longest window for the mean heading and log speed before a fix")
     jacobian_smoothing_s: float = param(
         30.0, "s", 0.0, 600.0, "time constant of the low-passed log speed and heading used in the Jacobian")
+    manoeuvre_heading_deg: float = param(8.0, "deg", 0.5, 90.0, "a heading change beyond this is a manoeuvre (Jacobian follows)")
+    manoeuvre_speed_kn: float = param(0.5, "kn", 0.05, 10.0, "a log speed change beyond this is a manoeuvre")
     stale_s: float = param(5.0, "s", 0.5, 600.0, "an input older than this makes the estimate degraded")
     publish_interval_s: float = param(1.0, "s", 1.0, 600.0, "at most one publication per this interval")
     valid_sigma_kn: float = param(0.3, "kn", 0.01, 5.0, "vector sigma of the current below which it is valid")
@@ -222,7 +228,7 @@ class _Health:
     bad_inputs: int = 0    # heading/log samples out of range, ignored
 
     def as_dict(self) -> dict[str, int]:
-        return asdict(self)
+        return dict(vars(self))
 
 
 @dataclass
@@ -231,6 +237,7 @@ class _WaterInputs:
     heading_deg: float    # circular mean heading reading over the window
     heel_deg: float | None
     slow_speed_kn: float = 0.0     # the same, low-passed: used in the Jacobian (see _slow_inputs)
+    spread_deg: float = 0.0        # largest departure of a heading in the window from their mean (a turn)
     slow_heading_deg: float = 0.0
 
 
@@ -282,6 +289,8 @@ class CurrentEstimator(EstimatorBase):
         self.last_report: FusionReport | None = None
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
         self._seen: dict[str, float] = {}
+        self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
+        self._gate = float(chi2.ppf(self.params.gate_probability, 2))  # chi-square, 2 dof
         self._t_last_pub: float | None = None
         self._prior: tuple[float, float, float, float] | None = None  # k, d_rad, sigma_k, sigma_d_rad
         self._strong = Hysteresis(self.params.current_strong_kn,
@@ -297,6 +306,10 @@ class CurrentEstimator(EstimatorBase):
         self._last_gv: tuple[float, float] | None = None
         self._last_inputs: _WaterInputs | None = None
         self._slow: tuple[float, float, float, float] | None = None  # t, speed, heading unit vector (e, n)
+        self._fast: tuple[float, float, float, float] | None = None
+        self._manoeuvre_hist: deque[tuple[float, float, float]] = deque()
+        self._calibrating = False
+        self._calibrating_until = -math.inf
 
     # -- the protocol ---------------------------------------------------------------
 
@@ -312,7 +325,8 @@ class CurrentEstimator(EstimatorBase):
             self._input_seen("water_speed", t, sample.speed_kn, 0.0, 60.0)
             return ()
         if isinstance(sample, Attitude):
-            self._seen["attitude"] = t
+            if sample.heel_deg is not None:
+                self._input_seen("heel", t, sample.heel_deg, -90.0, 90.0)
             return ()
         return self._ground_velocity_epoch(sample, ctx)
 
@@ -324,56 +338,81 @@ class CurrentEstimator(EstimatorBase):
     # -- inputs ---------------------------------------------------------------------
 
     def _input_seen(self, kind: str, t: float, value: float, lo: float, hi: float) -> None:
-        if math.isfinite(value) and lo <= value <= hi:
-            self._seen[kind] = t
-        else:
+        """An input sample: range-checked (a bad one is counted and ignored), buffered for the fix's means."""
+        if not (math.isfinite(value) and lo <= value <= hi):
             self.health.bad_inputs += 1
+            return
+        buf = self._buf[kind]
+        if buf and t < buf[-1][0]:
+            return  # late: not part of the history
+        self._seen[kind] = t
+        buf.append((t, value))
+        keep = max(self.params.averaging_window_s, self.params.stale_s) + 1.0
+        while buf and buf[0][0] < t - keep:
+            buf.popleft()
 
     def _water_inputs(self, t: float, ctx: Any) -> _WaterInputs | None:
-        """Mean log speed and circular-mean heading over the fix interval (at most averaging_window_s)."""
+        """Mean log speed and circular-mean heading over the fix interval (at most averaging_window_s).
+
+        The same means SampleHistory.mean_heading_deg gives, from the estimator's own short buffers
+        (``_buffer``), so one fix costs O(window) whatever the history keeps.
+        """
         p = self.params
         t0 = t - p.averaging_window_s if self.t_prev_gv is None else max(self.t_prev_gv, t - p.averaging_window_s)
-        hist: SampleHistory = ctx.history
-        heading = hist.mean_heading_deg(t0, t)
-        if heading is None or not math.isfinite(heading):
-            h = hist.latest(Heading)
-            heading = h.true_deg if (h is not None and t - h.t_s <= p.stale_s and math.isfinite(h.true_deg)) else None
-        logs = [s.speed_kn for s in hist.between(WaterSpeed, t0, t) if math.isfinite(s.speed_kn) and 0 <= s.speed_kn <= 60]
+        in_window = [v for (ts, v) in self._buf["heading"] if t0 < ts <= t]
+        heading = circular_mean_deg(in_window)
+        spread = max((abs(wrap_180(v - heading)) for v in in_window), default=0.0) if heading is not None else 0.0
+        if heading is None:
+            last = self._buf["heading"][-1] if self._buf["heading"] else None
+            heading = last[1] if (last is not None and t - last[0] <= p.stale_s) else None
+        logs = [v for (ts, v) in self._buf["water_speed"] if t0 < ts <= t]
         if logs:
             speed = sum(logs) / len(logs)
         else:
-            w = hist.latest(WaterSpeed)
-            speed = w.speed_kn if (w is not None and t - w.t_s <= p.stale_s and math.isfinite(w.speed_kn)) else None
+            last = self._buf["water_speed"][-1] if self._buf["water_speed"] else None
+            speed = last[1] if (last is not None and t - last[0] <= p.stale_s) else None
         if heading is None or speed is None:
             return None
-        heels = [a.heel_deg for a in hist.between(Attitude, t0, t) if a.heel_deg is not None and math.isfinite(a.heel_deg)]
-        w = _WaterInputs(speed, heading, sum(heels) / len(heels) if heels else None)
+        heels = [v for (ts, v) in self._buf["heel"] if t0 < ts <= t]
+        w = _WaterInputs(speed, heading, sum(heels) / len(heels) if heels else None, spread_deg=spread)
         self._slow_inputs(t, w)
         return w
 
     def _slow_inputs(self, t: float, w: _WaterInputs) -> None:
-        """Low-pass the log speed and heading for the Jacobian.
+        """Low-pass the log speed and heading for the Jacobian, except in a manoeuvre.
 
         The log and the compass are inputs with noise: a Jacobian built from the
-        noisy readings would read their noise as speed and course changes and
-        "learn" k and d from it (errors in variables: k biased toward zero).
-        Built from the low-passed readings, only real, lasting changes of speed
-        and course inform the calibration; the innovation still uses the fix
+        noisy readings reads their noise as speed and course changes and "learns"
+        k and d from it (errors in variables: k is biased toward zero on a steady
+        course). Built from low-passed readings (time constant
+        ``jacobian_smoothing_s``), only real, lasting changes inform the
+        calibration. In a manoeuvre (a fast EMA of the readings departs from the
+        slow one by more than ``manoeuvre_heading_deg`` or ``manoeuvre_speed_kn``,
+        far beyond the noise) the slow value follows the readings at once, so the
+        Jacobian does not lag a turn. The innovation always uses the fix
         interval's means, with their noise in R.
         """
-        tau = self.params.jacobian_smoothing_s
-        dt = math.inf if self._slow is None else t - self._slow[0]
-        a = 1.0 if tau <= 0.0 or dt > 10.0 * tau else 1.0 - math.exp(-dt / tau)   # EMA weight for this step
+        p = self.params
         he, hn = to_east_north(1.0, w.heading_deg)
-        if self._slow is None or a >= 1.0:
-            self._slow = (t, w.speed_kn, he, hn)
-        # this epoch's Jacobian uses the low-pass *before* this epoch's readings: their noise is then
-        # independent of the gain, so it cannot nudge k or d one way (a bias that would accumulate
-        # along the unobservable direction on a steady course)
-        w.slow_speed_kn = self._slow[1]
-        w.slow_heading_deg = from_east_north(self._slow[2], self._slow[3])[1]
-        _, s0, e0, n0 = self._slow
-        self._slow = (t, s0 + a * (w.speed_kn - s0), e0 + a * (he - e0), n0 + a * (hn - n0))
+        now = (w.speed_kn, he, hn)
+        dt = math.inf if self._slow is None else t - self._slow[0]
+        if self._slow is None or dt > 10.0 * max(p.jacobian_smoothing_s, 1.0):
+            self._slow = (t, *now)
+            self._fast = (t, *now)
+        ema = lambda old, tau: tuple(o + (1.0 - math.exp(-dt / tau)) * (v - o) if tau > 0 else v
+                                     for o, v in zip(old[1:], now))
+        fast = ema(self._fast, 3.0)                                                # EMA, 3 s
+        slow = ema(self._slow, p.jacobian_smoothing_s)                             # EMA, jacobian_smoothing_s
+        turn = abs(wrap_180(from_east_north(fast[1], fast[2])[1] - from_east_north(slow[1], slow[2])[1]))
+        if turn > p.manoeuvre_heading_deg or abs(fast[0] - slow[0]) > p.manoeuvre_speed_kn:
+            slow = now                                                             # a manoeuvre: no lag
+        # this epoch's Jacobian uses the slow value *before* this epoch's readings (in a manoeuvre, the
+        # readings): their noise is then independent of the gain and cannot nudge k or d one way
+        in_manoeuvre = slow is now
+        ref = now if in_manoeuvre else self._slow[1:]
+        w.slow_speed_kn = ref[0]
+        w.slow_heading_deg = from_east_north(ref[1], ref[2])[1]
+        self._slow, self._fast = (t, *slow), (t, *fast)
 
     # -- one ground-velocity epoch --------------------------------------------------------
 
@@ -482,7 +521,10 @@ class CurrentEstimator(EstimatorBase):
         s = w.speed_kn
         lam = math.radians(leeway_deg(p, w.heel_deg, k * s))
         u, n = unit(theta), d_unit(theta)
-        cross = (k * s) ** 2 * (math.radians(p.heading_sigma_deg) ** 2 + (p.leeway_sigma_fraction * lam) ** 2)
+        # heading noise, the leeway's uncertainty and, in a turn, how far the interval's mean heading
+        # can be from the heading at the fix (the spread of the headings in the window)
+        cross = (k * s) ** 2 * (math.radians(p.heading_sigma_deg) ** 2 + (p.leeway_sigma_fraction * lam) ** 2
+                                + math.radians(w.spread_deg) ** 2)
         return sg ** 2 * np.eye(2) + (k * p.log_sigma_kn) ** 2 * u @ u.T + cross * n @ n.T
 
     def _fuse_ground_velocity(self, t: float, g: tuple[float, float], w: _WaterInputs) -> FusionReport:
@@ -503,10 +545,11 @@ class CurrentEstimator(EstimatorBase):
 
         z = np.array([[g[0]], [g[1]]])
         R = self._measurement_cov(g, w, k, theta_of(ekf.x))
+        self._track_manoeuvres(t, w)
         H = jacobian(ekf.x)
         y = z - hx(ekf.x)                                                       # innovation
         S = H @ ekf.P @ H.T + R                                                 # its covariance
-        gate = float(chi2.ppf(p.gate_probability, 2))
+        gate = self._gate
         if not (np.all(np.isfinite(y)) and np.all(np.isfinite(S))) or np.linalg.det(S) <= 0.0 or S[0, 0] <= 0.0:
             self.health.faults += 1
             return self._report(t, y, math.nan, gate, False, "numerical guard", x_prior, P_prior)
@@ -521,7 +564,15 @@ class CurrentEstimator(EstimatorBase):
             ekf.P[:2, :2] += (p.reset_current_sigma_kn ** 2 + (y.T @ y).item() / 2.0) * np.eye(2)  # inflate, then accept
             x_prior, P_prior = ekf.x.copy(), ekf.P.copy()
         self.consecutive_rejects = 0
-        ekf.update(z, jacobian, hx, R=R)                                        # Joseph form inside filterpy
+        if nis > gate:  # after a reset the innovation covariance is the inflated one
+            H = jacobian(ekf.x)
+            S = H @ ekf.P @ H.T + R
+        K = ekf.P @ H.T @ np.linalg.inv(S)                                      # K = P H' S^-1
+        if not self._calibrating:
+            K[IK:, :] = 0.0   # Schmidt "consider" states: k, d not updated on a steady course (see _track_manoeuvres)
+        ekf.x = ekf.x + K @ y                                                   # x+ = x + K y
+        I_KH = np.eye(4) - K @ H
+        ekf.P = I_KH @ ekf.P @ I_KH.T + K @ R @ K.T                             # Joseph form: right for any gain
         ekf.P = 0.5 * (ekf.P + ekf.P.T)
         if not (np.all(np.isfinite(ekf.x)) and np.all(np.isfinite(ekf.P)) and np.all(np.diag(ekf.P) > 0.0)):
             self.health.faults += 1
@@ -529,6 +580,29 @@ class CurrentEstimator(EstimatorBase):
             return self._report(t, y, nis, gate, False, "numerical guard after update", x_prior, P_prior)
         self.health.fused += 1
         return self._report(t, y, nis, gate, True, "", x_prior, P_prior)
+
+    def _track_manoeuvres(self, t: float, w: _WaterInputs) -> None:
+        """Open the calibration window for ``calibration_window_s`` after a manoeuvre.
+
+        Only a change of the water velocity's direction (or, a little, its size)
+        separates k and d from the current. On a steady course the filter treats
+        k and d as Schmidt "consider" states: their covariance and their
+        correlation with the current are propagated exactly (Joseph form), but
+        their estimates are not moved. Otherwise a current that changes faster
+        than its random walk allows (a current's edge) would be explained away
+        as a compass offset or a log scale it had never observed.
+        """
+        p = self.params
+        hist = self._manoeuvre_hist
+        hist.append((t, w.slow_heading_deg, w.slow_speed_kn))
+        while hist and hist[0][0] < t - p.calibration_window_s:
+            hist.popleft()
+        turned = max(abs(wrap_180(h - w.slow_heading_deg)) for (_, h, _) in hist)
+        speeds = [v for (_, _, v) in hist]
+        sped = (max(speeds) - min(speeds)) / max(0.5, max(speeds))
+        if turned >= 0.5 * p.min_course_change_deg or sped >= p.calibration_speed_change_fraction:
+            self._calibrating_until = t + p.calibration_window_s
+        self._calibrating = t <= self._calibrating_until
 
     def _adapt(self, nis: float) -> None:
         """Windowed NIS above its expectation (2) -> the current changes faster than Q says: inflate Q."""
