@@ -43,7 +43,7 @@ class InstallationConfig:
 @dataclass(frozen=True)
 class MqttConfig:
     url: str = param("", doc="mqtt://host:port or mqtts://host:port; empty: no broker")
-    client_id: str = param("offwatch")
+    client_id: str = param("", doc="empty: offwatch-<hostname> for run, offwatch-replay-<pid> for replay")
     prefix: str = param("offwatch", doc="topic prefix, e.g. fleet/<boat> for a fleet")
     username: str = param("")
     password: str = param("")
@@ -51,6 +51,16 @@ class MqttConfig:
     cert_file: str = param("", doc="client certificate for mqtts:// (optional)")
     key_file: str = param("", doc="client key for mqtts:// (optional)")
     protocol: str = param("3.1.1", choices=("3.1.1", "5"))
+
+
+def client_id_for(mqtt: MqttConfig, role: str) -> MqttConfig:
+    """The config with a client id that a run and a replay on one broker never share."""
+    if mqtt.client_id:
+        return mqtt
+    import socket
+
+    cid = f"offwatch-{socket.gethostname()}" if role == "run" else f"offwatch-replay-{os.getpid()}"
+    return dataclasses.replace(mqtt, client_id=cid)
 
 
 @dataclass(frozen=True)

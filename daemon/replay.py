@@ -9,7 +9,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from daemon.assembly import build
-from daemon.config import Config, load_config
+from daemon.config import Config, client_id_for, load_config
 from daemon.errors import InputError
 from daemon.jsonl import JsonlSink
 from daemon.readings import Sink
@@ -33,7 +33,7 @@ def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url
     url = mqtt_url or cfg.mqtt.url
     if url:
         from daemon.mqtt import MqttSink
-        sinks.append(MqttSink.from_config(cfg.mqtt, url=url, state_dir=None,
+        sinks.append(MqttSink.from_config(client_id_for(cfg.mqtt, "replay"), url=url, state_dir=None,
                                           on_ack=lambda i: pipeline_hooks["ack"](i),
                                           on_connected=lambda: pipeline_hooks["status"]()))
     return sinks

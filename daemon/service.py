@@ -22,7 +22,7 @@ from pathlib import Path
 from daemon import sdnotify
 from daemon.assembly import build
 from daemon.calibration_store import load_calibration, save_calibration
-from daemon.config import Config, load_config
+from daemon.config import Config, client_id_for, load_config
 from daemon.errors import ConfigError
 from daemon.statefiles import read_json, write_json_atomic
 
@@ -57,7 +57,7 @@ class Service:
         self.recorder.record_config(self.cfg.effective())
         if url:
             from daemon.mqtt import MqttSink
-            self.mqtt = MqttSink.from_config(self.cfg.mqtt, url=url, state_dir=self.state_dir,
+            self.mqtt = MqttSink.from_config(client_id_for(self.cfg.mqtt, "run"), url=url, state_dir=self.state_dir,
                                              on_ack=lambda i: self.parts.pipeline.acknowledge(i),
                                              on_connected=lambda: self.parts.pipeline.request_status())
 
