@@ -147,10 +147,11 @@ def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
     status, end = _check_star(sentence, 1, allow_no_checksum)
     body = sentence[1:end]
     address, _, rest = body.partition(",")
+    if address[:1] == "P":  # "P" + a manufacturer's mnemonic; the rest is theirs to define
+        key = address if address.isalnum() and len(address) <= 8 else address[:4]
+        return Line("proprietary" if status == "ok" else status, key, tag_time=tag_time)
     if not address.isalnum() or not address.isupper() and not address.isdigit():
         return Line("unparseable" if status == "ok" else status, "-", tag_time=tag_time)
-    if address[0] == "P":
-        return Line("proprietary" if status == "ok" else status, address, tag_time=tag_time)
     talker, key = address[:2], address[2:]
     if not key:
         return Line("unparseable" if status == "ok" else status, "-", tag_time=tag_time)
@@ -324,13 +325,14 @@ def ext_rmc(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 RMC: 0 time, 1 status A/V, 2-3 lat, 4-5 lon, 6 SOG kn, 7 COG true,
     8 date ddmmyy, 9-10 variation E/W, 11 mode indicator (v2.3+), 12 navigational status (v4.1)."""
     ex = Extract()
+    if _get(f, 1) != "A" or _get(f, 11) == "N":  # void, or mode N "data not valid" (v4.10 field 12)
+        ex.drop()  # a void sentence's other fields are often junk (89 deg 60'): not looked at
+        return ex
     tod, day = time_of_day(_get(f, 0)), rmc_date(_get(f, 8))
     lat, lon = latlon(_get(f, 2), _get(f, 3), True), latlon(_get(f, 4), _get(f, 5), False)
     sog, cog = _sog(num(_get(f, 6))), direction(_get(f, 7))
-    var = _east(num(_get(f, 9)), _get(f, 10)) if _get(f, 9) else None
-    if _get(f, 1) != "A" or _get(f, 11) == "N":  # void, or mode N "data not valid" (v4.10 field 12)
-        ex.drop()
-        return ex
+    # a variation without E/W is no variation (some receivers send "0" and no hemisphere)
+    var = _east(num(_get(f, 9)), _get(f, 10)) if _get(f, 9) and _get(f, 10) in ("E", "W") else None
     ex.tod_s, ex.day = tod, day
     if var is not None:
         if _in(var, -180.0, 180.0):
@@ -351,12 +353,12 @@ def ext_gga(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 GGA: 0 time, 1-2 lat, 3-4 lon, 5 quality, 6 satellites, 7 HDOP,
     8-9 altitude M, 10-11 geoid separation M, 12 age of differential data, 13 station."""
     ex = Extract()
-    tod = time_of_day(_get(f, 0))
-    lat, lon = latlon(_get(f, 1), _get(f, 2), True), latlon(_get(f, 3), _get(f, 4), False)
-    hdop = num(_get(f, 7))
     if _get(f, 5) not in _GGA_FIX_QUALITIES:
         ex.drop()
         return ex
+    tod = time_of_day(_get(f, 0))
+    lat, lon = latlon(_get(f, 1), _get(f, 2), True), latlon(_get(f, 3), _get(f, 4), False)
+    hdop = num(_get(f, 7))
     ex.tod_s = tod
     if hdop is not None and not _in(hdop, 0.0, 50.0):
         hdop = None  # 99.9 and the like mean "unknown", not a bad fix
@@ -368,12 +370,12 @@ def ext_gll(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 GLL: 0-1 lat, 2-3 lon, 4 time, 5 status A/V, 6 mode (v2.3+).
     Older layouts without status (v1.5: four fields) are taken as valid positions."""
     ex = Extract()
-    lat, lon = latlon(_get(f, 0), _get(f, 1), True), latlon(_get(f, 2), _get(f, 3), False)
-    tod = time_of_day(_get(f, 4))
     status = _get(f, 5)
     if status not in ("A", "") or _get(f, 6) == "N":
         ex.drop()
         return ex
+    lat, lon = latlon(_get(f, 0), _get(f, 1), True), latlon(_get(f, 2), _get(f, 3), False)
+    tod = time_of_day(_get(f, 4))
     if status == "A":
         ex.tod_s = tod
     _fix(ex, lat, lon)

@@ -248,10 +248,13 @@ def test_hdg_applies_its_deviation_and_gives_its_variation_to_the_provider():
     assert samples == [Heading(1000.0, pytest.approx(1.0))]  # 350 - 2 + 13 = 361 -> 1
 
 
-def test_the_real_autopilot_hdg_gives_the_same_true_heading_as_its_hdt():
-    # From the under-way capture: HDT = HDM + 13 with variation 13.0 E in HDG.
-    samples, _ = samples_of("$APHDG,220.9,,,13.0,E*08", "$APHDT,233.9,T*30".replace("*30", "*" + xor_hex("APHDT,233.9,T")))
-    assert samples[0].true_deg == pytest.approx(233.9) and samples[1].true_deg == pytest.approx(233.9)
+def test_the_real_autopilot_hdg_agrees_with_its_hdt():
+    # Consecutive real lines (two-receiver capture): HDG 220.9 with variation 13.0 E, then HDT 233.5,
+    # sampled a moment apart: 220.9 + 13.0 = 233.9, within half a degree of the HDT.
+    var = StandInVariation()
+    samples, _ = samples_of("$APHDG,220.9,,,13.0,E*08", "$APHDT,233.5,T*34", variation=var)
+    assert samples[0].true_deg == pytest.approx(233.9) and samples[1].true_deg == 233.5
+    assert var.noted == [(13.0, 1000.0)]
 
 
 def test_heading_sensor_true_takes_magnetic_labelled_sentences_as_true():
@@ -421,3 +424,15 @@ def test_live_readings_keep_the_sentences_own_gnss_time():
     assert math.isclose(reading.recv_utc, 1589137300.0)
     with pytest.raises(ValueError):
         ing.feed(b"$APHDT,340.5,T*31\r\n", None)
+
+
+def test_real_receiver_quirks_from_the_gpsd_corpus():
+    # motorola-t805: a void RMC with 89 deg 60' (junk) is void, not unparseable
+    void = values("$GPRMC,071733.929,V,8960.0000,N,00000.0000,E,0.00,0.00,111111,,,N*72")
+    assert void.implausible == 1 and void.values == []
+    # motorola-t805: variation "0" without its E/W: the fix is kept, no variation noted
+    ex = values("$GPRMC,212614.879,A,4839.9488,N,00214.8863,E,0.56,344.41,181207,0,A*77")
+    assert [v[1] for v in ex.values] == [Fix]
+    # blumax-gps009: a proprietary text with spaces in its "address" is still proprietary
+    line = parse_line("$PSRFTXTBaud rate: 57600 *51")
+    assert (line.status, line.key) == ("proprietary", "PSRF")
