@@ -282,3 +282,52 @@ def test_demo_passage_has_what_its_readme_promises():
     # MSL falls at 2.2 hPa/h for the last four hours: a 3-h tendency of −6.6 hPa
     tr = run.truth
     assert tr["msl_hpa"][-1] - tr["msl_hpa"][-1 - 3 * 3600] == pytest.approx(-6.6, abs=0.01)
+
+
+def test_samples_are_in_time_order_at_the_stated_rates(tacking):
+    times = [s.t_s for s in tacking.samples]
+    assert times == sorted(times)
+    span_h = tacking.scenario.duration_s / 3600.0
+    n_heading = len(tacking.samples_of(Heading))
+    n_fix = len(tacking.samples_of(Fix))
+    # 10 Hz heading and 1 Hz fixes, less the 0.1 % dropouts (binomial: a few tens at most)
+    assert n_heading == pytest.approx(10 * 3600 * span_h, rel=0.004)
+    assert n_fix == pytest.approx(3600 * span_h, rel=0.004)
+
+
+def test_waypoint_leg_arrives_and_box_closes_in_still_water():
+    # GIVEN still water, a waypoint 2 nm to the north-east, then a motoring box of 10-min sides
+    t0 = scenarios.utc(2026, 5, 1)
+    ocean = Ocean((), SeaTemperatureField(15.0, 45.0, -30.0), PressureField(((t0, 1013.0),)),
+                  WindField(((t0, 0.0, 5.0),)))
+    wp = WGS84.Direct(45.0, -30.0, 45.0, 2 * NM_M)
+    from daemon.simulator import Waypoint, box
+    legs = (Waypoint(wp["lat2"], wp["lon2"], 6.0, 3600.0, arrive_nm=0.05),) + box(90.0, 600.0, 6.0)
+    run = simulate(Scenario("wp", t0, 3 * 3600.0, 45.0, -30.0, legs, ocean), seed=3)
+    arrive = next(e for e in run.events if e.kind == "leg_start" and e.detail["leg"] == 1)
+    # THEN she reaches the waypoint in about 2 nm / 6 kn = 20 min, within 0.05 nm
+    assert WGS84.Inverse(arrive.lat, arrive.lon, wp["lat2"], wp["lon2"])["s12"] < 0.05 * NM_M + 5.0
+    assert arrive.t_s - t0 == pytest.approx(1200.0, abs=60.0)
+    # and four equal sides at right angles bring her back near where the box began (turns cut corners)
+    end = next(e for e in run.events if e.kind == "leg_start" and e.detail["leg"] == 4).t_s + 600.0
+    back = run.truth_at(end)
+    assert WGS84.Inverse(arrive.lat, arrive.lon, back.lat, back.lon)["s12"] < 0.05 * NM_M
+
+
+def test_steady_pressure_has_a_spike_gusts_and_no_real_tendency():
+    s = scenarios.steady_pressure_12h()
+    run = simulate(replace(s, duration_s=6 * 3600.0, sensors=replace(s.sensors, heading_hz=0.2)), seed=6)
+    tr = run.truth
+    # the true 3-h change stays inside "steady or slowly" (WMO: under 1.5 hPa in 3 h; from memory)
+    three_h = int(3 * 3600 / s.truth_dt_s)
+    assert np.max(np.abs(tr["msl_hpa"][three_h:] - tr["msl_hpa"][:-three_h])) < 1.5
+    ps = run.samples_of(Pressure)
+    p = np.array([x.station_hpa for x in ps])
+    # every reading is on the 0.1-hPa grid of the sentence
+    assert np.allclose(np.round(p * 10.0), p * 10.0, atol=1e-6)
+    # the spike: one reading about 2.5 hPa above its neighbours, five hours in
+    (t_spike, dp), = s.sensors.pressure_spikes
+    i = next(k for k, x in enumerate(ps) if x.t_s >= t_spike)
+    assert p[i] - 0.5 * (p[i - 1] + p[i + 1]) == pytest.approx(dp, abs=0.5)
+    # gusts: reading-to-reading scatter well above the 0.03-hPa sensor noise
+    assert np.std(np.diff(np.delete(p, i))) > 0.1

@@ -192,8 +192,8 @@ def demo_passage(heading_hz: float = 2.0) -> Scenario:
     """Seven and a half hours out of Port Averly across the warm Skerrow Stream (invented).
 
     Timeline (from 04:00 UTC): motoring out 135° (30 min), sailing 135°;
-    course change to 195° at 05:50 and back to 135° at 06:30 (calibration);
-    the warm band's near edge about 07:00, its far edge about 09:00 (core
+    course change to 230° at 05:50 and back to 135° at 06:30 (calibration);
+    the warm band's near edge about 07:18, its far edge about 09:12 (core
     5.0 kn toward 045, +4 °C, fronts 0.8 nm wide); wind from about 040, i.e.
     against the band's current; MSL steady 1017.6 hPa until 07:30, then
     falling 2.2 hPa/h to 1008.8 at 11:30; GNSS dropout 08:40:00–08:42:30;
@@ -213,7 +213,7 @@ def demo_passage(heading_hz: float = 2.0) -> Scenario:
     helm = (
         Steer(135.0, 5.5, 30 * MIN, motoring=True),
         Steer(135.0, 6.0, 80 * MIN),
-        Steer(195.0, 6.0, 40 * MIN),
+        Steer(230.0, 6.0, 40 * MIN),
         Steer(135.0, 6.2, 180 * MIN),
         Steer(160.0, 6.0, 120 * MIN),
     )
