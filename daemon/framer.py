@@ -27,8 +27,9 @@ import re
 MAX_LINE = 1024
 START_CHARS = b"$!\\"
 
-_ENDINGS = re.compile(rb"[\r\n]")
+_ENDINGS = re.compile(rb"\r\n?|\n")
 _BAD_BYTE = re.compile(rb"[^\x20-\x7e]")
+_BAD_IN_CHUNK = re.compile(rb"[^\x20-\x7e\r\n]")
 _START = re.compile(rb"[$!\\]")
 
 
@@ -46,11 +47,17 @@ class LineFramer:
         """Frame ``data``; return the lines it completed (bytes, no terminators)."""
         out: list[bytes] = []
         pieces = _ENDINGS.split(data)
-        last = len(pieces) - 1
-        for i, piece in enumerate(pieces):
+        tail = pieces.pop()  # what follows the last line ending: the start of a line
+        clean = _BAD_IN_CHUNK.search(data) is None
+        limit = self.max_line
+        for piece in pieces:  # each one was followed by a line ending
+            if clean and not self._buf and not self._skipping and len(piece) <= limit:
+                if piece:  # the usual case: a whole clean line in one chunk
+                    out.append(piece)
+                continue
             self._take(piece, out)
-            if i < last:  # a line ending followed this piece
-                self._end_line(out)
+            self._end_line(out)
+        self._take(tail, out)
         return out
 
     def flush(self) -> list[bytes]:
