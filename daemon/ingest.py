@@ -20,6 +20,23 @@ MWV theoretical wind gives an angle off the bow; it is turned into a
 direction with the latest true heading when one is at most
 ``HEADING_FOR_WIND_MAX_AGE_S`` old, else the angle alone is passed on.
 Every fix goes to the provider as the latest position.
+
+Public API:
+
+- ``Ingest(source, *, counters, variation, live, allow_no_checksum=False,
+  heading_sensor="auto", not_before_utc=None, default_date=None)``:
+  ``not_before_utc`` is the week-rollover reference (and the time given to a
+  replay with no time at all); ``default_date`` dates GGA/GLL times of a
+  replay that never sends RMC/ZDA.
+- ``feed(data, recv_utc)``: bytes as they came. Live: every line's data time
+  is ``recv_utc``. Replay (``recv_utc`` may be None): data time from the
+  data; lines wait in the clock until the next fix time, so output lags input
+  by up to one fix interval.
+- ``feed_timed_line(text, t_s, recv_utc)``: one line with its time given (our
+  own recording), no clock.
+- ``flush()``: end of stream: the framer's last unterminated line and all the
+  clock still holds.
+- ``time_events``: what the clock did (also in the counters, per source).
 """
 
 from __future__ import annotations

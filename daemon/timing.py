@@ -44,7 +44,10 @@ each other beyond the gate: then a new time segment starts (counted
 keeps the output moving on from the last output time at the usual line
 period: output time never goes backwards. A single stuck or foreign clock
 (a GLL repeating 04:59:59 for a whole passage among RMCs at 05:12) never
-gets ``confirm_lines`` in a row and so never moves the time.
+gets ``confirm_lines`` in a row and so never moves the time. The limit of the
+rule: a single bad time less than ``max_gap_s`` ahead is taken as a fix; the
+good times after it then confirm a backward segment, and the output runs on
+from the bad time (ahead by that much) rather than going back.
 
 **GNSS week rollover.** The GPS week number has 10 bits: a receiver whose
 firmware pivot has passed reports a date exactly 1024 weeks (19.6 years) too
