@@ -33,8 +33,10 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
                   current_en: tuple[float, float] = (0.8, -0.5), walk_kn_per_sqrt_h: float = 0.0,
                   k: float = 1.06, offset_deg: float = 3.0, gnss_sigma: float = 0.1, log_sigma: float = 0.1,
                   heading_sigma_deg: float = 1.5, turn_rate_deg_s: float = 10.0,
-                  fix_gap: tuple[float, float] | None = None, log_override=None) -> Synth:
-    """``legs``: (start time s from T0, true heading deg), sorted. ``log_override(t_rel, reading) -> reading``."""
+                  fix_gap: tuple[float, float] | None = None, log_override=None,
+                  current_steps: tuple[tuple[float, tuple[float, float]], ...] = ()) -> Synth:
+    """``legs``: (start time s from T0, true heading deg), sorted. ``log_override(t_rel, reading) -> reading``;
+    ``current_steps``: (time s from T0, new (east, north)) where the current jumps."""
     rng = np.random.default_rng(seed)
     out = Synth(k=k, offset_deg=offset_deg)
     ce, cn = current_en
@@ -44,6 +46,9 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
         target = [h for (ts, h) in legs if ts <= i][-1]
         diff = (target - hdg + 180.0) % 360.0 - 180.0
         hdg = wrap_360(hdg + max(-turn_rate_deg_s, min(turn_rate_deg_s, diff)))
+        for ts, new in current_steps:
+            if i == ts:
+                ce, cn = new
         ce += q * rng.standard_normal()
         cn += q * rng.standard_normal()
         t = T0 + i

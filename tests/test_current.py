@@ -1,0 +1,218 @@
+"""The current estimator: observability, gates, log watch, outages, calibration, payload."""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import pytest
+
+from estimators.base import Condition, Publication
+from estimators.current import Calibration, CurrentEstimator, CurrentParams, run
+from estimators.samples import Fix
+from tests.shared import shared_path
+from tests.test_current_synth import T0, synth_passage, tacking_legs
+
+INTERFACE_FIELDS = ("set_deg", "drift_kn", "east_kn", "north_kn", "set_sigma_deg", "drift_sigma_kn", "quality",
+                    "stw_scale", "heading_offset_deg")
+
+
+def drive(est, samples):
+    pubs, conds = [], []
+    for _, outs in run(est, samples):
+        for o in outs:
+            (pubs if isinstance(o, Publication) else conds).append(o)
+    return pubs, conds
+
+
+def test_steady_course_does_not_earn_a_calibration():
+    # GIVEN 40 min on one steady course with a log 6 % low and a compass 3 deg off (seeded)
+    syn = synth_passage(1, 2400, [(0.0, 40.0)], k=1.06, offset_deg=3.0)
+    est = CurrentEstimator(CurrentParams())
+    # WHEN the estimator runs over it
+    pubs, _ = drive(est, syn.samples)
+    p = CurrentParams()
+    st = est.state()
+    # THEN the log scale's and the offset's sigmas stay near their priors (no collapse) ...
+    assert st["stw_scale_sigma"] > 0.8 * p.initial_stw_scale_sigma
+    assert st["heading_offset_sigma_deg"] > 0.8 * p.initial_heading_offset_sigma_deg
+    # ... the payload reports the prior, says so, and says what would help
+    last = pubs[-1].payload
+    assert last["stw_scale"] == 1.0 and last["heading_offset_deg"] == 0.0
+    assert last["calibration"]["status"] == "not yet calibrated"
+    assert "60 deg" in last["calibration"]["advice"]
+    # ... and the current's own sigma is honest about it: not "valid"
+    assert last["quality"] == "converging"
+    err = math.hypot(st["east_kn"] - syn.current[-1][0], st["north_kn"] - syn.current[-1][1])
+    assert err < 3.0 * math.hypot(st["east_sigma_kn"], st["north_sigma_kn"])
+
+
+def test_tacks_calibrate_the_log_and_the_compass():
+    # GIVEN 30 min of 5-min legs 90 deg apart, log 6 % low, compass 3 deg off
+    syn = synth_passage(2, 1800, tacking_legs(1800, 300), k=1.06, offset_deg=3.0)
+    est = CurrentEstimator(CurrentParams())
+    # WHEN the estimator runs over it
+    pubs, _ = drive(est, syn.samples)
+    last = pubs[-1].payload
+    # THEN it has learnt both within three sigma and says it is calibrated
+    assert last["calibration"]["status"] == "calibrated"
+    assert abs(last["stw_scale"] - 1.06) < 3 * last["stw_scale_sigma"]
+    assert abs(last["heading_offset_deg"] - 3.0) < 3 * last["heading_offset_sigma_deg"]
+    assert last["quality"] == "valid"
+    ce, cn = syn.current[-1]
+    assert math.hypot(last["east_kn"] - ce, last["north_kn"] - cn) < 0.1
+    assert set(INTERFACE_FIELDS) <= set(last)
+
+
+def test_gnss_velocity_jump_is_rejected_and_counted():
+    # GIVEN 10 min steady, then one fix whose SOG is 4 kn too high (a GNSS glitch)
+    syn = synth_passage(3, 620, [(0.0, 40.0)])
+    samples = list(syn.samples)
+    i = max(j for j, s in enumerate(samples) if isinstance(s, Fix) and s.t_s <= T0 + 600)
+    bad = samples[i]
+    samples[i] = dataclasses.replace(bad, sog_kn=bad.sog_kn + 4.0)
+    est = CurrentEstimator(CurrentParams())
+    before = None
+    for s, _ in run(est, samples):
+        if s is samples[i - 1] or (isinstance(s, Fix) and s.t_s == T0 + 599):
+            before = est.state()
+        if s is samples[i]:
+            after = est.state()
+    # THEN the jump is rejected, counted, and the estimate did not move
+    assert est.health.rejected >= 1
+    assert est.last_report is not None
+    assert math.hypot(after["east_kn"] - before["east_kn"], after["north_kn"] - before["north_kn"]) < 0.05
+
+
+def test_a_run_of_rejections_reinitialises_instead_of_locking_out():
+    # GIVEN a current that jumps by 3 kn at 10 min (faster than any gate allows)
+    syn = synth_passage(4, 900, [(0.0, 40.0)], current_en=(0.5, 0.0), current_steps=((600, (-1.5, 2.2)),))
+    est = CurrentEstimator(CurrentParams())
+    drive(est, syn.samples)
+    st = est.state()
+    # THEN after some rejections it reset and follows the new current
+    assert est.health.resets >= 1
+    assert math.hypot(st["east_kn"] + 1.5, st["north_kn"] - 2.2) < 0.5
+
+
+def test_outage_holds_the_current_and_resumes_without_a_jump():
+    # GIVEN a calibrated run (tacks), then 10 min without fixes, same current
+    syn = synth_passage(5, 2400, tacking_legs(1500, 300) + [(1500.0, 40.0)], fix_gap=(1800, 2400 - 60))
+    est = CurrentEstimator(CurrentParams())
+    held, sig, first_back = [], [], None
+    for s, outs in run(est, syn.samples):
+        for o in outs:
+            if isinstance(o, Publication) and T0 + 1810 <= o.t_s < T0 + 2340:
+                held.append(o.payload)
+        if isinstance(s, Fix) and s.t_s >= T0 + 2340 and first_back is None:
+            first_back = est.state()
+            last_held = held[-1]
+    # THEN during the outage the estimate holds, is degraded and its sigma grows
+    assert held and all(p["quality"] == "degraded" for p in held)
+    assert len({(p["east_kn"], p["north_kn"]) for p in held}) == 1
+    assert held[-1]["drift_sigma_kn"] > held[0]["drift_sigma_kn"]
+    # ... and the first fix back does not make it jump
+    assert math.hypot(first_back["east_kn"] - last_held["east_kn"], first_back["north_kn"] - last_held["north_kn"]) < 0.15
+
+
+def test_dead_log_is_suspect_and_not_a_current():
+    # GIVEN a log that reads 0.00 kn from 5 min on while the boat sails on at 6 kn
+    syn = synth_passage(6, 900, [(0.0, 40.0)], log_override=lambda i, r: 0.0 if i >= 300 else r)
+    est = CurrentEstimator(CurrentParams())
+    pubs, conds = drive(est, syn.samples)
+    later = [p.payload for p in pubs if p.t_s > T0 + 320]
+    # THEN the caution is raised and no 6-kn current is reported
+    assert any(c.alert_id == "log_suspect" and c.active for c in conds)
+    assert all(p["drift_kn"] < 1.5 for p in later)
+    assert all(p["quality"] == "degraded" and p["log"] == "suspect" for p in later)
+    assert est.health.held > 0
+
+
+def test_log_step_is_suspect_then_relearnt():
+    # GIVEN weed: the log reads 35 % low from 10 min on, on a steady course
+    syn = synth_passage(7, 1200, [(0.0, 40.0)], log_override=lambda i, r: r * 0.65 if i >= 600 else r)
+    est = CurrentEstimator(CurrentParams())
+    pubs, conds = drive(est, syn.samples)
+    # THEN the step is seen; the held estimate never reports the log's error as current
+    raised = [c for c in conds if c.alert_id == "log_suspect" and c.active]
+    assert raised and raised[0].t_s < T0 + 630
+    during = [p.payload for p in pubs if T0 + 620 < p.t_s < T0 + 700]
+    assert during and all(p["calibration"]["status"] == "suspended" for p in during)
+    assert all(p["drift_kn"] < 1.5 for p in during)
+
+
+def test_calibration_round_trip_and_age_inflation():
+    # GIVEN a saved calibration with small sigmas
+    cal = Calibration(1.05, -2.0, 0.004, 0.2, T0 - 30 * 86400.0, 5000)
+    # THEN it survives to_dict/from_dict unchanged
+    assert Calibration.from_dict(cal.to_dict()) == cal
+    # WHEN an estimator starts from it (a 30-day-old calibration vs a fresh one)
+    old = CurrentEstimator(CurrentParams(), cal)
+    fresh = CurrentEstimator(CurrentParams(), dataclasses.replace(cal, t_s=T0))
+    syn = synth_passage(8, 120, [(0.0, 40.0)], k=1.05, offset_deg=-2.0)
+    drive(old, syn.samples)
+    drive(fresh, syn.samples)
+    # THEN the old one's sigmas are inflated by its age: var + rate^2 * age (0.01^2/day * 30 days)
+    p = CurrentParams()
+    assert old.state()["stw_scale_sigma"] == pytest.approx(math.sqrt(0.004 ** 2 + p.calibration_age_stw_scale_per_sqrt_day ** 2 * 30), rel=0.05)
+    assert fresh.state()["stw_scale_sigma"] < old.state()["stw_scale_sigma"]
+    # ... and both report the saved values, the fresh one as calibrated
+    assert fresh.calibration().stw_scale == pytest.approx(1.05, abs=0.01)
+
+
+def test_stated_installation_calibration_loads_without_sigmas():
+    cal = Calibration.from_dict({"stw_scale": 1.04, "heading_offset_deg": 1.5})
+    assert cal.stw_scale_sigma is None and cal.t_s is None
+    est = CurrentEstimator(CurrentParams(), cal)
+    assert est.calibration().stw_scale == 1.04
+    assert est.calibration().stw_scale_sigma == CurrentParams().initial_stw_scale_sigma
+
+
+@pytest.mark.parametrize("bad", [{"stw_scale": "x"}, {"stw_scale": float("nan")}, {"stw_scale": 9.0},
+                                 {"stw_scale_sigma": -1.0}])
+def test_calibration_from_bad_dict_raises(bad):
+    with pytest.raises(ValueError):
+        Calibration.from_dict(bad)
+
+
+def test_current_strong_with_hysteresis():
+    # GIVEN a calibrated boat; the current 2.4 kn, then 1.85 kn (between the thresholds), then 1.2 kn
+    cal = Calibration(1.06, 3.0, 0.003, 0.15, T0, 1000)
+    syn = synth_passage(9, 1500, [(0.0, 40.0)], current_en=(2.4, 0.0),
+                        current_steps=((500, (1.85, 0.0)), (1000, (1.2, 0.0))))
+    est = CurrentEstimator(CurrentParams(), cal)
+    _, conds = drive(est, syn.samples)
+    strong = [c for c in conds if c.alert_id == "current_strong"]
+    # THEN raised once in the first part, kept through 1.85 kn, cleared after 1.2 kn
+    assert strong[0].active and strong[0].t_s < T0 + 500
+    assert [c.active for c in strong] == [True, False]
+    assert strong[1].t_s > T0 + 1000
+    assert "check" in strong[0].text
+
+
+def test_dead_log_in_the_real_capture_is_rejected():
+    # GIVEN the real capture with a dead log (VHW 0.00 kn while SOG is 5 kn), through the whole pipeline
+    path = shared_path("real-captures", "robustness", "nmea-reader", "two-gps-dead-log-garbage-truncated.nmea")
+    from daemon.config import load_config
+    from daemon.replay import run_replay
+
+    class Collect:
+        def __init__(self):
+            self.msgs = []
+
+        def raw(self, line):
+            pass
+
+        def message(self, msg):
+            self.msgs.append(msg)
+
+        def close(self):
+            pass
+
+    sink = Collect()
+    run_replay([str(path)], load_config(None), progress=False, extra_sinks=[sink])
+    current = [m.payload for m in sink.msgs if m.topic.endswith("/current")]
+    alerts = [m.payload for m in sink.msgs if m.topic.endswith("/alerts/log_suspect")]
+    # THEN no current of anything like 5 kn is reported, and the log is called suspect
+    assert all((p.get("drift_kn") or 0.0) < 1.0 for p in current)
+    assert alerts and alerts[0]["state"] == "active"
