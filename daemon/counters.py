@@ -1,7 +1,8 @@
 """What each input did with what it received: one table shared by all sources.
 
 Per source and per sentence type (the three-letter formatter, e.g. ``RMC``;
-the whole address for proprietary sentences, e.g. ``PGRME``; ``-`` for a line
+the whole address for proprietary sentences, e.g. ``PGRME`` (``P`` and the
+maker's three letters when the address is free text, e.g. ``PSRF``); ``-`` for a line
 that is no sentence at all; ``TAG`` for a TAG block that fails):
 
 - ``good``: well-formed sentences of a type we understand (checksum right,
