@@ -331,3 +331,21 @@ def test_steady_pressure_has_a_spike_gusts_and_no_real_tendency():
     assert p[i] - 0.5 * (p[i - 1] + p[i + 1]) == pytest.approx(dp, abs=0.5)
     # gusts: reading-to-reading scatter well above the 0.03-hPa sensor noise
     assert np.std(np.diff(np.delete(p, i))) > 0.1
+
+
+def test_leeway_when_asked_follows_k_heel_over_speed_squared_and_the_log_reads_along_the_keel():
+    # GIVEN the tacking leg with leeway on (K = 10, λ = K·φ/STW², Garrett's form at small heel)
+    s = scenarios.tacking_leg()
+    s = replace(s, duration_s=1800.0, boat=replace(s.boat, leeway_k=10.0), sensors=replace(s.sensors, heading_hz=1.0))
+    run = simulate(s, seed=9)
+    tr = run.truth[60:]  # after the start-up
+    # THEN leeway is to leeward (the sign of the heel) and of the stated size
+    expected = np.clip(10.0 * tr["heel_deg"] / tr["stw_true_kn"] ** 2, -10.0, 10.0)
+    assert np.allclose(tr["leeway_deg"], expected)
+    assert np.all(np.sign(tr["leeway_deg"][tr["heel_deg"] != 0]) == np.sign(tr["heel_deg"][tr["heel_deg"] != 0]))
+    assert 0.5 < np.median(np.abs(tr["leeway_deg"])) < 5.0
+    # and the log (scale 0.94) reads the speed along the keel, STW·cos λ
+    ws = run.samples_of(WaterSpeed)[60:]
+    keel = _truth_at_samples(run, ws, "stw_true_kn") * np.cos(np.radians(_truth_at_samples(run, ws, "leeway_deg")))
+    log = np.array([w.speed_kn for w in ws])
+    assert float(np.sum(log * keel) / np.sum(keel**2)) == pytest.approx(0.94, abs=0.004)

@@ -13,12 +13,15 @@ track that crosses a narrow band is integrated without a lag.
 
 Heel and leeway (optional). Heel φ grows with the square of the beam component
 of the apparent wind, φ = φ_max · min(1, (AWS·|sin AWA| / heel_ref_kn)²),
-positive to starboard, zero when motoring. Leeway uses the common empirical
-form λ = K · φ / STW² (degrees; K about 10 for a cruising keel boat; the form
-is the usual one in sailing-instrument practice, stated here from memory),
-toward leeward, capped at 10°. ``leeway_k = 0`` (the default) turns it off, so
-the only water-relative error an estimator meets is the log and compass error
-it is meant to calibrate.
+positive to starboard, zero when motoring. Leeway follows R. Garrett, *The
+Symmetry of Sailing* (Adlard Coles, 1987), §3.5.3: leeway ∝ sin φ / STW²
+(his constant 464 for a 12.2-m yacht, degrees and knots, i.e. about 8·φ°/STW²
+at small heel; quoted from a secondary source, not checked against the book).
+Here λ = K · φ / STW² with φ in degrees (K of 5–16 is the usual range of
+instrument calibrations), toward leeward, capped at 10°. ``leeway_k = 0`` (the
+default) turns it off, so the only water-relative error an estimator meets is
+the log and compass error it is meant to calibrate. The log measures the
+speed along the keel, STW · cos λ.
 
 Yaw: the helm wanders about the commanded heading by a sum of two slow sines
 (a few degrees, periods of tens of seconds), seeded, so mean heading is right
