@@ -6,6 +6,8 @@ import calendar
 import datetime as dt
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from daemon.counters import Counters
 from daemon.ingest import Ingest
@@ -216,3 +218,34 @@ def test_feed_timed_line_uses_the_given_time():
     out = ing.feed_timed_line(HDT, 1700000000.25, 1700000000.5)
     assert out[0] == RawLine("gnss", 1700000000.25, 1700000000.5, HDT)
     assert out[1].sample.t_s == 1700000000.25 and out[1].recv_utc == 1700000000.5
+
+
+# --- properties over any sequence of GNSS times ------------------------------------------------------
+
+STEP = st.one_of(
+    st.none(),  # a line without time
+    st.just(0.0),  # the same time again
+    st.floats(min_value=0.05, max_value=2.0),  # the next epoch
+    st.floats(min_value=-20.0, max_value=-0.01),  # a second receiver a little behind
+    st.floats(min_value=-90000.0, max_value=90000.0),  # jumps, resets, a day either way
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(STEP, max_size=120))
+def test_any_gnss_time_sequence_gives_every_line_once_in_order_and_time_never_back(steps):
+    # GIVEN lines with GNSS times wandering by the given steps (None: no time on that line)
+    clock = ReplayClock(GnssDate(), max_pending=50, max_hold=30)
+    t = 1_600_000_000.0
+    out = []
+    for i, step in enumerate(steps):
+        if step is None:
+            out += clock.push(i, None)
+        else:
+            t += step
+            out += clock.push(i, t)
+    out += clock.flush()
+    # THEN every line comes out exactly once, in arrival order, with times that never go back
+    assert [item for _, item in out] == list(range(len(steps)))
+    times = [x for x, _ in out if x is not None]
+    assert all(a <= b for a, b in zip(times, times[1:]))
