@@ -125,7 +125,7 @@ class Service:
 
     def _save_state(self) -> None:
         try:
-            save_calibration(self.state_dir, self.parts.current.calibration())
+            save_calibration(self.state_dir, self.parts.current.calibration(), time.time())
             write_json_atomic(self.state_dir / ALERTS_FILE, self.parts.pipeline.alerts.snapshot())
         except OSError as e:
             log.error("cannot save state in %s: %s", self.state_dir, e)

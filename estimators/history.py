@@ -12,6 +12,10 @@ from estimators.angles import circular_mean_deg
 from estimators.samples import Heading, Sample
 
 
+def _time(sample: Sample) -> float:
+    return sample.t_s
+
+
 class SampleHistory:
     """Per sample type, a deque of samples no older than ``keep_s`` behind the newest."""
 
@@ -37,9 +41,9 @@ class SampleHistory:
         q = self._by_type.get(kind)
         if not q:
             return []
-        times = [s.t_s for s in q]
-        lo = bisect.bisect_right(times, t0_s)
-        hi = bisect.bisect_right(times, t1_s)
+        # deque indexing is O(n) in the middle, but the asked-for window is at the young end
+        lo = bisect.bisect_right(q, t0_s, key=_time)
+        hi = bisect.bisect_right(q, t1_s, lo=lo, key=_time)
         return [q[i] for i in range(lo, hi)]
 
     def mean_heading_deg(self, t0_s: float, t1_s: float) -> float | None:
