@@ -5,6 +5,8 @@ from __future__ import annotations
 import json
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from daemon.counters import Counters
 from daemon.ingest import Ingest
@@ -102,3 +104,19 @@ def test_no_checksum_allowed_for_a_source_that_sends_none():
     out = ing.feed(b"$IIMTW,12.5,C\r\n$IIMTW,12.6,C*" + xor_hex("IIMTW,12.6,C").encode() + b"\r\n", 5.0)
     temps = [x.sample.temp_c for x in out if isinstance(x, Reading)]
     assert temps == [12.5, 12.6]
+
+
+FRAGMENTS = [b for b, _ in CASES] + [b"\r", b"\n", b"$", b"*", b",", b"\\", b"!", b"\x00", b"\xff"]
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.one_of(st.sampled_from(FRAGMENTS), st.binary(max_size=40)), max_size=60))
+def test_any_mix_of_garbage_is_never_fatal_and_every_line_is_counted_once(parts):
+    data = b"".join(parts)
+    out, counters = replay(data)
+    totals = counters.snapshot().get("g", {}).get("totals", {})
+    line_counts = ("good", "bad_checksum", "no_checksum", "unparseable", "unknown", "proprietary", "ais",
+                   "not_sentence")
+    assert sum(totals.get(k, 0) for k in line_counts) == sum(isinstance(x, RawLine) for x in out)
+    times = [x.t_s if isinstance(x, RawLine) else x.sample.t_s for x in out]
+    assert all(a <= b for a, b in zip(times, times[1:]))
