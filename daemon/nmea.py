@@ -19,8 +19,9 @@ correctly); its typed attributes are not used because they mislead for real
 data (an empty position comes back as 0.0, 0.0; ``RMC.is_valid`` ignores the
 NMEA 4.1 mode indicator; numbers come as Decimal, float or str). THS, which
 pynmea2 does not know, is split by hand, and every value is extracted here by
-field position. Field layouts follow NMEA 0183 v4.10 (marked where older
-layouts are accepted too).
+field position. Field layouts follow NMEA 0183 v4.10, from memory of the
+standard and checked against real devices' sentences in the tests (marked
+where older layouts are accepted too).
 
 The talker (``GP``, ``GN``, ``II``, ``HC``, ``AP``...) is never checked against
 a list: any two letters or digits will do.

@@ -1,8 +1,11 @@
 """Sentence by sentence against the NMEA 0183 field layouts, checksums, TAG blocks, plausibility.
 
 Layouts: NMEA 0183 v4.10 (field numbers counted from 1 after the address, as the
-standard's tables do, and named so beside each check). Where a detail is from
-memory rather than from the standard's text, it says so.
+standard's tables do, and named so beside each check). The standard's text was
+not at hand while writing these: the field layouts are from memory of v4.10,
+and are confirmed in practice by the real device lines used beside them (from
+the shared captures: their checksums are the devices' own). Details beyond the
+layouts that are from memory say so.
 """
 
 from __future__ import annotations
