@@ -18,6 +18,7 @@ import os
 from pathlib import Path
 
 from daemon.errors import OutputError
+from daemon.statefiles import write_json_atomic
 from estimators.current import Calibration
 
 log = logging.getLogger(__name__)
@@ -37,16 +38,9 @@ def save_calibration(state_dir: str | os.PathLike, calibration: Calibration, sav
     """
     path = calibration_path(state_dir)
     doc = {"format": FORMAT, "saved_utc_s": saved_utc_s, "calibration": calibration.to_dict()}
-    tmp = path.with_name(path.name + ".tmp")
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        with open(tmp, "w", encoding="utf-8") as f:
-            json.dump(doc, f, indent=1, sort_keys=True)
-            f.write("\n")
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-        _fsync_dir(path.parent)
+        write_json_atomic(path, doc)
     except OSError as e:
         raise OutputError(f"cannot write the calibration to {path}: {e.strerror or e}") from e
     return path
@@ -75,16 +69,3 @@ def load_calibration(state_dir: str | os.PathLike) -> Calibration | None:
 def calibration_age_s(calibration: Calibration, now_s: float) -> float | None:
     """Age of a calibration in seconds at ``now_s`` (data time), or None when it has no time."""
     return None if calibration.t_s is None else max(0.0, now_s - calibration.t_s)
-
-
-def _fsync_dir(directory: Path) -> None:
-    try:
-        fd = os.open(directory, os.O_RDONLY)
-    except OSError:
-        return  # some filesystems cannot open a directory; the rename is still atomic
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)

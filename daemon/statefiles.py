@@ -20,9 +20,14 @@ def write_json_atomic(path: Path, data: Any) -> None:
         f.flush()
         os.fsync(f.fileno())
     os.replace(tmp, path)
-    fd = os.open(path.parent, os.O_RDONLY)
+    try:
+        fd = os.open(path.parent, os.O_RDONLY)
+    except OSError:
+        return  # some filesystems cannot open a directory; the rename is still atomic
     try:
         os.fsync(fd)
+    except OSError:
+        pass
     finally:
         os.close(fd)
 
