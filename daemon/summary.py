@@ -20,6 +20,7 @@ class SummarySink:
         self.first_t: float | None = None
         self.last_t: float | None = None
         self.latest: dict[str, Message] = {}
+        self._alert_state: dict[str, tuple] = {}
 
     def raw(self, line: RawLine) -> None:
         self.raw_lines += 1
@@ -30,10 +31,18 @@ class SummarySink:
             self.first_t = msg.t_s
         self.last_t = msg.t_s
         self.latest[msg.topic.rsplit("/", 1)[-1] if msg.kind != "alert" else msg.topic] = msg
-        if msg.kind == "alert":
+        if msg.kind == "alert" and self._is_change(msg):
             self.alert_changes.append(msg)
         elif msg.kind == "event":
             self.events.append(msg)
+
+    def _is_change(self, msg: Message) -> bool:
+        """A re-announcement repeats the same state and priority: not a change worth a line."""
+        key = (msg.payload.get("state"), msg.payload.get("priority"))
+        if self._alert_state.get(msg.topic) == key:
+            return False
+        self._alert_state[msg.topic] = key
+        return True
 
     def close(self) -> None:
         pass
@@ -79,15 +88,11 @@ def _fmt(v: Any) -> str:
 
 
 def _counter_line(inputs: dict[str, Any]) -> str:
+    """Totals over all sources: sentence outcomes, framer drops and time repairs."""
     totals: Counter[str] = Counter()
-
-    def walk(d: Any) -> None:
-        if isinstance(d, dict):
-            for k, v in d.items():
-                if isinstance(v, (int, float)) and not isinstance(v, bool) and k != "last_seen":
+    for src in inputs.values():
+        for part in ("totals", "framer", "time"):
+            for k, v in src.get(part, {}).items():
+                if isinstance(v, (int, float)) and not isinstance(v, bool):
                     totals[k] += v
-                else:
-                    walk(v)
-
-    walk(inputs)
     return ", ".join(f"{k} {int(v)}" for k, v in sorted(totals.items()) if v) or "none"

@@ -90,6 +90,8 @@ S_PER_DAY = 86400.0
 IE, IN, IK, ID = 0, 1, 2, 3  # state indices
 
 
+MANOEUVRE_SAMPLE_S = 10.0  # spacing of the course/speed history that detects a manoeuvre
+
 @dataclass(frozen=True)
 class CurrentParams:
     """Parameters of the current estimator ([current] in the config)."""
@@ -594,7 +596,8 @@ class CurrentEstimator(EstimatorBase):
         """
         p = self.params
         hist = self._manoeuvre_hist
-        hist.append((t, w.slow_heading_deg, w.slow_speed_kn))
+        if not hist or t - hist[-1][0] >= MANOEUVRE_SAMPLE_S:  # the low-passed course needs no 1-s history
+            hist.append((t, w.slow_heading_deg, w.slow_speed_kn))
         while hist and hist[0][0] < t - p.calibration_window_s:
             hist.popleft()
         turned = max(abs(wrap_180(h - w.slow_heading_deg)) for (_, h, _) in hist)
