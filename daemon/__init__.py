@@ -5,3 +5,6 @@ MQTT, SQLite). The computation lives in ``estimators``.
 """
 
 __version__ = "0.1.0"
+# No GNSS date aboard can be much older than the software reading it: the reference for
+# spotting a receiver that lost 1024 weeks at a week-number rollover.
+RELEASE_DATE = "2026-12-01"

@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 from datetime import date, datetime, timezone
 from typing import Any
 
+from daemon import RELEASE_DATE
 from daemon.alerts import AlertManager
 from daemon.config import Config
 from daemon.counters import Counters
@@ -61,7 +62,12 @@ class Parts:
 
 
 def not_before_utc(cfg: Config) -> float:
-    d = date.fromisoformat(cfg.installation.gnss_not_before)
+    """The week-rollover reference: the configured date, or this release's date.
+
+    Old logs genuinely dated more than ~18.6 years before it (1024 weeks less a
+    year) would be moved forward: replay them with an earlier gnss_not_before.
+    """
+    d = date.fromisoformat(cfg.installation.gnss_not_before or RELEASE_DATE)
     return datetime(d.year, d.month, d.day, tzinfo=timezone.utc).timestamp()
 
 

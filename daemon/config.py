@@ -37,7 +37,8 @@ class InstallationConfig:
     variation_fixed_deg: float = param(0.0, "deg east", -180.0, 180.0, "used when variation_source = fixed")
     stw_scale: float = param(1.0, "", 0.5, 1.5, "initial speed-log calibration: true STW = log x stw_scale")
     heading_offset_deg: float = param(0.0, "deg", -45.0, 45.0, "initial compass offset: true heading = heading + offset")
-    gnss_not_before: str = param("2019-04-07", doc="ISO date: a GNSS date earlier than this by ~1024 weeks is a week rollover")
+    gnss_not_before: str = param("", doc="ISO date the data is known to be after; a GNSS date ~1024 weeks "
+                                         "earlier is a week rollover and is corrected. Empty: this release's date")
 
 
 @dataclass(frozen=True)
@@ -163,6 +164,7 @@ def build_config(table: dict[str, Any], where: str = "config") -> Config:
         if key not in known:
             raise ConfigError(f"{where}: unknown section [{key}]: expected one of {', '.join(sorted(known))}")
     fixed = {name: fill(cls, table.get(name, {}), f"{where}: [{name}]") for name, cls in _FIXED.items()}
+    _check_date(fixed["installation"].gnss_not_before, f"{where}: [installation] gnss_not_before")
     inputs = _inputs(table.get("inputs", {}), where)
     priority = _priority(table.get("priority", {}), where, inputs)
     sections = {name: fill(cls, table.get(name, {}), f"{where}: [{name}]") for name, cls in sections_cls.items()}
@@ -228,6 +230,16 @@ def _coerce(value: Any, hint: Any, where: str) -> Any:
                 continue
         raise ConfigError(f"{where} = {value!r}: expected {hint}")
     return value
+
+
+def _check_date(text: str, where: str) -> None:
+    from datetime import date
+
+    if text:
+        try:
+            date.fromisoformat(text)
+        except ValueError:
+            raise ConfigError(f"{where} = {text!r}: expected an ISO date like \"2019-04-07\"") from None
 
 
 def _inputs(table: Any, where: str) -> dict[str, InputConfig]:

@@ -54,6 +54,7 @@ prefix = "fleet/tern"
     ({"inputs": {"gps": {"kind": "serial", "device": "/dev/x", "baud": "fast"}}}, ["baud", "whole number"]),
     ({"priority": {"compass": ["a"]}}, ["[priority]", "compass", "heading"]),
     ({"wibble": {}}, ["[wibble]", "installation"]),
+    ({"installation": {"gnss_not_before": "last spring"}}, ["gnss_not_before", "ISO date"]),
 ])
 def test_each_mistake_names_the_key_and_what_is_expected(table, words):
     with pytest.raises(ConfigError) as err:
