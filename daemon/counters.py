@@ -46,6 +46,17 @@ class Counters:
     def count(self, source: str, sentence: str, what: str, n: int = 1) -> None:
         self._n[(source, sentence, what)] += n
 
+    def take(self, items) -> None:
+        """Apply what each RawLine among ``items`` counted for (the pipeline does this per line)."""
+        for item in items:
+            counts = getattr(item, "counts", None)
+            if counts is None:
+                continue
+            for what, n in counts:
+                self._n[(item.source, item.sentence, what)] += n
+            if item.seen:
+                self._last_seen[(item.source, item.sentence)] = item.t_s
+
     def seen(self, source: str, sentence: str, t_s: float) -> None:
         self._last_seen[(source, sentence)] = t_s
 
@@ -67,6 +78,15 @@ class Counters:
 
     def time_events(self, source: str) -> dict[str, int]:
         return dict(self._time.get(source, {}))
+
+    def line_snapshot(self) -> dict[str, Any]:
+        """The per-line counts only: what a recording of framed lines reproduces exactly.
+
+        Framer drops and time repairs belong to the byte stream, which a recording
+        no longer holds; they stay in ``snapshot()``, the log and the replay summary.
+        """
+        return {src: {"sentences": d["sentences"], "totals": d["totals"]}
+                for src, d in self.snapshot().items() if d.get("sentences")}
 
     def snapshot(self) -> dict[str, Any]:
         """``{source: {"framer", "sentences": {type: {...}}, "time", "totals"}}``, keys sorted."""

@@ -132,28 +132,32 @@ class Ingest:
     # --- per line ----------------------------------------------------------------------------
 
     def _parse(self, text: str, recv_utc: float | None) -> tuple:
+        """Parse one line; its counts travel with it and are made when it is emitted,
+        so the counters at any moment match the lines that have left (the same in a
+        replay of our own recording, whose lines arrive one by one)."""
         line = parse_line(text, self.allow_no_checksum)
         key = line.key
         ex: Extract | None = None
         gnss: float | None = None
         tod: float | None = None
+        counts: list[tuple[str, int]] = []
         if line.status == "ok":
             ex = extract(key, line.fields)
             if ex is None:
-                self.counters.count(self.source, key, "unparseable")
+                counts.append(("unparseable", 1))
             else:
-                self.counters.count(self.source, key, "good")
+                counts.append(("good", 1))
                 if ex.implausible:
-                    self.counters.count(self.source, key, "implausible", ex.implausible)
+                    counts.append(("implausible", ex.implausible))
                 if ex.tod_s is not None:
                     gnss = (self._dates.dated(ex.tod_s, ex.day) if ex.day is not None
                             else self._dates.undated(ex.tod_s))
                     tod = ex.tod_s if gnss is None else None
                 elif not ex.values and not ex.implausible:
-                    self.counters.count(self.source, key, "empty")
+                    counts.append(("empty", 1))
         else:
-            self.counters.count(self.source, key, line.status)
-        return (text, recv_utc, key, ex, gnss, tod, line.tag_time)
+            counts.append((line.status, 1))
+        return (text, recv_utc, key, ex, gnss, tod, line.tag_time, counts)
 
     def _line(self, text: str, recv_utc: float | None, out: list[Item]) -> None:
         item = self._parse(text, recv_utc)
@@ -168,23 +172,23 @@ class Ingest:
             self._emit(t, it, out)
 
     def _emit(self, t: float | None, item: tuple, out: list[Item]) -> None:
-        text, recv, key, ex, gnss, _tod, _tag = item
+        text, recv, key, ex, gnss, _tod, _tag, counts = item
         if t is None:
             t = recv if recv is not None else self._fallback_t
         t = self._guard(t)
         if recv is None:
             recv = t
         source = self.source
-        out.append(RawLine(source, t, recv, text))
-        if ex is None:
-            return
-        self.counters.seen(source, key, t)
-        for v in ex.values:
-            sample = self._sample(v, t, key)
-            if sample is not None:
-                out.append(Reading(source, sample, recv, key, gnss))
+        readings: list[Reading] = []
+        if ex is not None:
+            for v in ex.values:
+                sample = self._sample(v, t, key, counts)
+                if sample is not None:
+                    readings.append(Reading(source, sample, recv, key, gnss))
+        out.append(RawLine(source, t, recv, text, key, tuple(counts), ex is not None))
+        out.extend(readings)
 
-    def _sample(self, v: tuple, t: float, key: str):
+    def _sample(self, v: tuple, t: float, key: str, counts: list):
         code = v[0]
         if code == SAMPLE:
             sample = v[1](t, *v[2])
@@ -192,10 +196,10 @@ class Ingest:
                 self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
             return sample
         if code == HEADING:
-            return self._heading(v[1], v[2] == "T" and not self._all_magnetic, t, key)
+            return self._heading(v[1], v[2] == "T" and not self._all_magnetic, t, key, counts)
         if code == HDG:
             deg = v[1] if self._true_sensor or v[2] is None else v[1] + v[2]
-            return self._heading(deg, False, t, key)
+            return self._heading(deg, False, t, key, counts)
         if code == VARIATION:
             if not (self._true_sensor and key == "HDG"):
                 self.variation.note_sentence_variation(v[1], t)
@@ -206,23 +210,23 @@ class Ingest:
                 return WaterWind(t, v[2], wrap_360(th[1] + v[1]), v[1])
             return WaterWind(t, v[2], None, v[1])
         if code == WIND_FROM_MAGNETIC:
-            var = self._variation(t, key)
+            var = self._variation(t, counts)
             return None if var is None else WaterWind(t, v[2], wrap_360(v[1] + var), None)
         raise AssertionError(code)
 
-    def _heading(self, deg: float, is_true: bool, t: float, key: str) -> Heading | None:
+    def _heading(self, deg: float, is_true: bool, t: float, key: str, counts: list) -> Heading | None:
         if not (is_true or self._true_sensor):
-            var = self._variation(t, key)
+            var = self._variation(t, counts)
             if var is None:
                 return None
             deg = wrap_360(deg + var)
         self._true_heading = (t, deg)
         return Heading(t, deg)
 
-    def _variation(self, t: float, key: str) -> float | None:
+    def _variation(self, t: float, counts: list) -> float | None:
         var = self.variation.east_deg(t)
         if var is None:
-            self.counters.count(self.source, key, "no_variation")
+            counts.append(("no_variation", 1))
         return var
 
     def _sync_counts(self) -> None:

@@ -69,6 +69,8 @@ class Pipeline:
     def feed(self, item: RawLine | Reading) -> None:
         self._run_commands()
         if isinstance(item, RawLine):
+            if self.counters is not None:
+                self.counters.take((item,))
             for sink in self.sinks:
                 sink.raw(item)
             self._advance(item.t_s)
@@ -174,7 +176,7 @@ class Pipeline:
             "sensors": {k: round(t_s - seen, 1) for k, seen in sorted(self._last_seen.items())},
         }
         if self.counters is not None:
-            payload["inputs"] = self.counters.snapshot()
+            payload["inputs"] = self.counters.line_snapshot()
         if self.selector is not None:
             payload["priority"] = self.selector.snapshot()
         if self.extra_status is not None:

@@ -22,6 +22,11 @@ class RawLine:
     t_s: float
     recv_utc: float
     text: str
+    # What the line counted for, applied to the counters when the pipeline takes
+    # the line, so counts follow data time exactly (also in a replay of a recording).
+    sentence: str = ""
+    counts: tuple[tuple[str, int], ...] = ()
+    seen: bool = False  # the line carried values: its sentence's last_seen moves
 
 
 @dataclass(frozen=True, slots=True)

@@ -57,6 +57,7 @@ def replay(data: bytes, chunk: int | None = None):
         for i in range(0, len(data), chunk):
             out += ing.feed(data[i:i + chunk], None)
     out += ing.flush()
+    counters.take(out)
     return out, counters
 
 

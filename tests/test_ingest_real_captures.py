@@ -46,6 +46,7 @@ def run(name: str, not_before_utc: float | None = None):
     counters = Counters()
     ing = Ingest("cap", counters=counters, variation=StandInVariation(), live=False, not_before_utc=not_before_utc)
     items = ing.feed(path.read_bytes(), None) + ing.flush()
+    counters.take(items)
     return items, counters, ing
 
 

@@ -69,7 +69,9 @@ def samples_of(*sentences: str, variation=None, heading_sensor="auto", counters=
     ing = Ingest("nav", counters=counters, variation=variation or StandInVariation(), live=True,
                  heading_sensor=heading_sensor)
     data = "".join(x + "\r\n" for x in sentences).encode()
-    return [r.sample for r in ing.feed(data, 1000.0) if isinstance(r, Reading)], counters
+    items = ing.feed(data, 1000.0)
+    counters.take(items)
+    return [r.sample for r in items if isinstance(r, Reading)], counters
 
 
 # --- checksums and framing of a sentence --------------------------------------------------------

@@ -216,7 +216,8 @@ def test_readings_carry_the_line_time_and_the_gnss_time():
 def test_feed_timed_line_uses_the_given_time():
     ing = Ingest("gnss", counters=Counters(), variation=StandInVariation(13.0), live=False)
     out = ing.feed_timed_line(HDT, 1700000000.25, 1700000000.5)
-    assert out[0] == RawLine("gnss", 1700000000.25, 1700000000.5, HDT)
+    assert (out[0].source, out[0].t_s, out[0].recv_utc, out[0].text) == ("gnss", 1700000000.25, 1700000000.5, HDT)
+    assert out[0].sentence == "HDT" and out[0].counts == (("good", 1),)
     assert out[1].sample.t_s == 1700000000.25 and out[1].recv_utc == 1700000000.5
 
 
