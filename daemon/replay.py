@@ -50,6 +50,7 @@ def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, r
     sinks = [summary, *extra_sinks, *open_outputs(cfg, jsonl=jsonl, record=record, mqtt_url=mqtt_url, pipeline_hooks=hooks)]
     parts = build(cfg, sinks, live=False)
     pipe = parts.pipeline
+    summary.counters = parts.counters
     hooks["ack"], hooks["status"] = pipe.acknowledge, pipe.request_status
     bar = ProgressBar() if progress and sys.stderr.isatty() else None
     pacer = _Pacer(speed) if speed else None

@@ -21,6 +21,7 @@ class SummarySink:
         self.last_t: float | None = None
         self.latest: dict[str, Message] = {}
         self._alert_state: dict[str, tuple] = {}
+        self.counters: Any = None  # the ingest Counters, set by the replay for the full picture
 
     def raw(self, line: RawLine) -> None:
         self.raw_lines += 1
@@ -64,9 +65,8 @@ class SummarySink:
             msg = self.latest.get(topic)
             if msg:
                 out.append(f"Last {topic}: " + _fields(msg.payload))
-        inputs = self.latest.get("status")
-        if inputs is not None:
-            out.append("Input counters: " + _counter_line(inputs.payload.get("inputs", {})))
+        if self.counters is not None:
+            out.append("Input counters: " + _counter_line(self.counters.snapshot()))
         return out
 
 
