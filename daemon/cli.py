@@ -54,9 +54,12 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--mqtt", metavar="URL", help="broker to use (default: 127.0.0.1:1883, or an embedded one)")
     demo.add_argument("--out", metavar="DIR", default="demo-out", help="where the JSONL and recording go")
 
-    exp = sub.add_parser("export", help="the track and the estimates as CSV, GPX or GeoJSON")
+    exp = sub.add_parser("export", help="the track and the estimates as CSV, GPX or GeoJSON; a recording's raw NMEA",
+                         description="csv, gpx, geojson: the track with the estimates beside each point, from a "
+                                     "recording or any replayable file. nmea: a recording's raw sentences as "
+                                     "TAG-block NMEA 0183 text, which replays to the same output.")
     exp.add_argument("source", metavar="SOURCE", help="a recording or any replayable file")
-    exp.add_argument("--format", choices=("csv", "gpx", "geojson"), required=True)
+    exp.add_argument("--format", choices=("csv", "gpx", "geojson", "nmea"), required=True)
     exp.add_argument("--out", metavar="FILE", required=True)
     exp.add_argument("--config", metavar="FILE")
 

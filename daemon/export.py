@@ -14,7 +14,7 @@ from typing import Any
 from xml.sax.saxutils import escape
 
 from daemon.config import load_config
-from daemon.errors import OutputError
+from daemon.errors import InputError, OutputError
 from daemon.readings import Message, RawLine
 
 COLUMNS = ("time", "lat", "lon", "source", "sigma_m", "set_deg", "drift_kn", "current_quality",
@@ -99,9 +99,22 @@ def write_geojson(track: TrackSink, out: Path) -> None:
 WRITERS = {"csv": write_csv, "gpx": write_gpx, "geojson": write_geojson}
 
 
+def export_raw_nmea(source: str, out: Path) -> int:
+    """A recording's raw sentences as TAG-block NMEA text (lines with a TAG block stay as stored)."""
+    from daemon.recorder import export_tag_nmea, is_recording
+
+    if not is_recording(source):
+        raise InputError(f"{source} is not an offwatch recording: --format nmea exports a recording's raw sentences")
+    return export_tag_nmea(source, out)
+
+
 def export_command(args) -> int:
     from daemon.replay import run_replay
 
+    if args.format == "nmea":
+        n = export_raw_nmea(args.source, Path(args.out))
+        print(f"{n} sentences written to {args.out}")
+        return 0
     cfg = load_config(args.config)
     track = TrackSink()
     run_replay([args.source], cfg, extra_sinks=[track], progress=True)
