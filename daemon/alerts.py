@@ -304,21 +304,6 @@ def _from_entry(entry: Any) -> _Alert | None:
     return rec
 
 
-def parse_ack(payload: bytes | str | Mapping[str, Any]) -> str | None:
-    """The alert id in an ``<prefix>/ack`` payload ``{"id": "<id>"}``, or None for anything else."""
-    try:
-        if isinstance(payload, (bytes, bytearray)):
-            payload = payload.decode("utf-8")
-        if isinstance(payload, str):
-            payload = json.loads(payload)
-    except (UnicodeDecodeError, ValueError):
-        return None
-    if not isinstance(payload, Mapping):
-        return None
-    alert_id = payload.get("id")
-    return alert_id if isinstance(alert_id, str) and alert_id else None
-
-
 def _clean(v: Any) -> Any:
     """JSON-safe values: finite floats rounded (7 decimals keeps ~1 cm in latitude), others None."""
     if isinstance(v, float):
@@ -341,8 +326,10 @@ def _fit(payload: dict[str, Any], max_bytes: int) -> dict[str, Any]:
     if _size(payload) <= max_bytes:
         return payload
     payload = {**payload, "values": {"truncated": True}}
-    excess = _size(payload) - max_bytes
-    if excess > 0:
-        text = payload["text"].encode("utf-8")[: max(0, len(payload["text"].encode("utf-8")) - excess - 3)]
-        payload["text"] = text.decode("utf-8", errors="ignore") + "..."
+    while _size(payload) > max_bytes and payload["text"]:
+        excess = _size(payload) - max_bytes
+        raw = payload["text"].removesuffix("...").encode("utf-8")
+        payload["text"] = raw[: max(0, len(raw) - excess - 3)].decode("utf-8", errors="ignore") + "..."
+        if len(raw) <= 3:
+            break
     return payload

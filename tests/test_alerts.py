@@ -15,7 +15,7 @@ from dataclasses import replace
 
 import pytest
 
-from daemon.alerts import AlertManager, AlertParams, parse_ack
+from daemon.alerts import AlertManager, AlertParams
 from daemon.errors import ConfigError
 from estimators.base import ADVISORY, ALARM, CAUTION, WARNING, Condition, iso_utc
 from estimators.params import check
@@ -250,14 +250,6 @@ def test_bad_per_id_times_name_the_key():
 def test_default_params_pass_their_own_checks():
     assert check(AlertParams()) == []
     assert "reannounce_warning_s" in check(replace(AlertParams(), reannounce_warning_s=1.0))[0]
-
-
-def test_parse_ack_takes_only_an_id_object():
-    assert parse_ack(b'{"id": "front"}') == "front"
-    assert parse_ack('{"id": ""}') is None
-    assert parse_ack(b"\xff\xfe") is None
-    assert parse_ack("[1, 2]") is None
-    assert parse_ack({"alert": "front"}) is None
 
 
 # -- snapshot and restore ---------------------------------------------------------------------------
