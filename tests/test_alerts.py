@@ -64,6 +64,24 @@ def test_warning_is_raised_only_after_its_minimum_time():
     assert list(msg.payload)[0] == "time"
 
 
+def test_a_condition_said_once_is_raised_by_the_ticks():
+    # GIVEN an estimator that reports only changes (current_strong, pressure_fall do)
+    mgr = AlertManager(FAST)
+    assert mgr.on_condition(cond(0, True)) == []
+    # WHEN only ticks follow THEN the minimum time runs out on a tick
+    assert states(run(mgr, 1, 8)) == [(5.0, "active", True, 0)]
+    # AND a single all-clear later clears an acknowledged one after the clear time, by ticks alone
+    mgr.acknowledge("pressure_fall", T0 + 9)
+    assert mgr.on_condition(cond(10, False)) == []
+    assert states(run(mgr, 11, 45)) == [(40.0, "cleared", False, 0)]
+
+
+def test_a_condition_with_an_unknown_priority_is_ignored():
+    mgr = AlertManager(FAST)
+    assert mgr.on_condition(Condition(T0, "front", "urgent", True, "x")) == []
+    assert mgr.ignored_conditions == 1 and run(mgr, 0, 20) == []
+
+
 def test_topic_prefix_is_a_constructor_argument():
     mgr = AlertManager(FAST, prefix="fleet/aurora/")
     out = run(mgr, 0, 6, active=True)
