@@ -39,7 +39,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from daemon.errors import ConfigError
-from daemon.readings import Message
+from daemon.readings import Message, json_safe
 from estimators.base import ADVISORY, ALARM, CAUTION, PRIORITIES, WARNING, Condition, iso_utc
 from estimators.params import param
 
@@ -187,7 +187,7 @@ class AlertManager:
             if rec.listed:
                 alerts.append({
                     "id": rec.alert_id, "priority": rec.priority, "state": rec.state, "text": rec.text,
-                    "values": _clean(dict(rec.values or {})), "condition": rec.condition,
+                    "values": json_safe(dict(rec.values or {})), "condition": rec.condition,
                     "since_s": rec.since_s, "last_announced_s": rec.last_announced_s,
                 })
         return {"version": SNAPSHOT_VERSION, "alerts": alerts}
@@ -282,7 +282,7 @@ class AlertManager:
             "text": text,
             "since": iso_utc(rec.since_s) if rec.since_s is not None else None,
             "condition": rec.condition,
-            "values": _clean(dict(rec.values or {})),
+            "values": json_safe(dict(rec.values or {})),
         }
 
 
@@ -302,19 +302,6 @@ def _from_entry(entry: Any) -> _Alert | None:
     if rec.state == ACKNOWLEDGED and (rec.priority == CAUTION or not rec.condition):
         return None  # not a state this manager leaves an alert in
     return rec
-
-
-def _clean(v: Any) -> Any:
-    """JSON-safe values: finite floats rounded (7 decimals keeps ~1 cm in latitude), others None."""
-    if isinstance(v, float):
-        return round(v, 7) if math.isfinite(v) else None
-    if isinstance(v, Mapping):
-        return {str(k): _clean(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_clean(x) for x in v]
-    if v is None or isinstance(v, (bool, int, str)):
-        return v
-    return str(v)
 
 
 def _size(payload: Mapping[str, Any]) -> int:

@@ -22,7 +22,7 @@ import queue
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-from daemon.readings import Message, RawLine, Reading, Sink
+from daemon.readings import Message, RawLine, Reading, Sink, json_safe
 from estimators.base import Condition, Publication, iso_utc
 from estimators.history import SampleHistory
 from estimators.samples import KIND_NAMES, kind_of
@@ -92,6 +92,10 @@ class Pipeline:
         """Wall-clock tick from ``run``: data time cannot stand still when feeds fall silent."""
         self._run_commands()
         self._advance(t_s)
+
+    def republish_alerts(self, t_s: float) -> None:
+        """Announce the listed alerts again (after a restart restored them)."""
+        self._emit_all(self.alerts.republish(t_s))
 
     def close(self) -> None:
         self._run_commands()
@@ -196,15 +200,5 @@ def _payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
     out: dict[str, Any] = {"time": iso_utc(t_s)}
     for k, v in fields.items():
         if k != "time":
-            out[k] = _clean(v)
+            out[k] = json_safe(v)
     return out
-
-
-def _clean(v: Any) -> Any:
-    if isinstance(v, float):
-        return round(v, 7) if math.isfinite(v) else None
-    if isinstance(v, Mapping):
-        return {str(k): _clean(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_clean(x) for x in v]
-    return v

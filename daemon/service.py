@@ -23,7 +23,7 @@ from daemon import sdnotify
 from daemon.assembly import build
 from daemon.calibration_store import load_calibration, save_calibration
 from daemon.config import Config, client_id_for, load_config
-from daemon.errors import ConfigError
+from daemon.errors import ConfigError, OffwatchError
 from daemon.statefiles import read_json, write_json_atomic
 
 log = logging.getLogger(__name__)
@@ -44,7 +44,8 @@ class Service:
         self.mqtt = None
         self.recorder = None
         self._open_outputs(mqtt_url or cfg.mqtt.url)
-        sinks = [s for s in (self.recorder, self.mqtt) if s is not None]
+        self.alerts_changed = _AlertWatch()
+        sinks = [s for s in (self.recorder, self.mqtt, self.alerts_changed) if s is not None]
         self.parts = build(cfg, sinks, live=True, calibration=load_calibration(self.state_dir),
                            alert_snapshot=read_json(self.state_dir / ALERTS_FILE),
                            extra_status=self._health)
@@ -70,9 +71,10 @@ class Service:
     def run(self) -> int:
         from daemon.sources import start_sources, specs_from_config
         self.source_threads, self.health = start_sources(specs_from_config(self.cfg.inputs), self.chunks, self.stop)
+        pipe = self.parts.pipeline
+        pipe.republish_alerts(time.time())
         self.notifier.ready()
         log.info("offwatch running: %d inputs, state in %s", len(self.cfg.inputs), self.state_dir)
-        pipe = self.parts.pipeline
         next_tick = time.monotonic()
         next_save = time.monotonic() + CALIBRATION_SAVE_EVERY_S
         try:
@@ -82,6 +84,8 @@ class Service:
                 if now >= next_tick:
                     pipe.tick(time.time())
                     self._watchdog()
+                    if self.alerts_changed.take():
+                        self._save_alerts()
                     next_tick = now + 1.0
                 if now >= next_save:
                     self._save_state()
@@ -126,9 +130,37 @@ class Service:
     def _save_state(self) -> None:
         try:
             save_calibration(self.state_dir, self.parts.current.calibration(), time.time())
+        except OffwatchError as e:
+            log.error("%s", e)
+        self._save_alerts()
+
+    def _save_alerts(self) -> None:
+        """The listed alerts, so a restart shows them again (saved at most once a second)."""
+        try:
             write_json_atomic(self.state_dir / ALERTS_FILE, self.parts.pipeline.alerts.snapshot())
         except OSError as e:
-            log.error("cannot save state in %s: %s", self.state_dir, e)
+            log.error("cannot save the alert states in %s: %s", self.state_dir, e)
+
+
+class _AlertWatch:
+    """A sink that only notes that an alert changed, so the loop saves the alert states."""
+
+    def __init__(self) -> None:
+        self._changed = False
+
+    def raw(self, line) -> None:
+        pass
+
+    def message(self, msg) -> None:
+        if msg.kind == "alert":
+            self._changed = True
+
+    def close(self) -> None:
+        pass
+
+    def take(self) -> bool:
+        changed, self._changed = self._changed, False
+        return changed
 
 
 def run_command(args) -> int:
