@@ -77,6 +77,7 @@ class Service:
         log.info("offwatch running: %d inputs, state in %s", len(self.cfg.inputs), self.state_dir)
         next_tick = time.monotonic()
         next_save = time.monotonic() + CALIBRATION_SAVE_EVERY_S
+        clean = False
         try:
             while not self.stop.is_set():
                 self._drain(timeout=0.2)
@@ -90,6 +91,7 @@ class Service:
                 if now >= next_save:
                     self._save_state()
                     next_save = now + CALIBRATION_SAVE_EVERY_S
+            clean = True
         finally:
             self.notifier.stopping()
             self.stop.set()
@@ -97,7 +99,10 @@ class Service:
                 pipe.feed_all(ingest.flush())
             self._save_state()
             pipe.close()
-            log.info("offwatch stopped cleanly")
+            if clean:
+                log.info("offwatch stopped cleanly")
+            else:
+                log.error("offwatch stopped after an error (traceback below); systemd restarts it")
         return 0
 
     def _drain(self, timeout: float) -> None:
@@ -122,10 +127,7 @@ class Service:
             return
         self.notifier.watchdog()
         cur = self.parts.pipeline.ctx.latest("current")
-        text = "running"
-        if cur is not None:
-            text = f"current {cur.payload.get('drift_kn', 0):.1f} kn toward {cur.payload.get('set_deg', 0):.0f}°, {cur.payload.get('quality')}"
-        self.notifier.status(text)
+        self.notifier.status(status_text(cur.payload if cur is not None else None))
 
     def _save_state(self) -> None:
         try:
@@ -140,6 +142,16 @@ class Service:
             write_json_atomic(self.state_dir / ALERTS_FILE, self.parts.pipeline.alerts.snapshot())
         except OSError as e:
             log.error("cannot save the alert states in %s: %s", self.state_dir, e)
+
+
+def status_text(current: dict | None) -> str:
+    """The one line for ``systemctl status``; a current not yet estimable (fields None) says so."""
+    if not current:
+        return "running"
+    drift, set_deg = current.get("drift_kn"), current.get("set_deg")
+    if not isinstance(drift, (int, float)) or not isinstance(set_deg, (int, float)):
+        return f"running; current {current.get('quality') or 'unavailable'}"
+    return f"current {drift:.1f} kn toward {set_deg:.0f}°, {current.get('quality')}"
 
 
 class _AlertWatch:

@@ -1,0 +1,451 @@
+"""``offwatch run`` as systemd would run it: a real process, real sockets, a real Mosquitto.
+
+The daemon is started as a subprocess with a config of the test's own: one TCP
+input (a loopback server in the test playing a simulated passage at a few
+times real time, as an NMEA multiplexer would) and one UDP input (the
+thermometer and the barometer, as a Wi-Fi gateway broadcasting datagrams).
+``NOTIFY_SOCKET`` names a datagram socket the test listens on, as the service
+manager's is.
+
+Expected behaviour, from outside the project:
+- sd_notify(3) and systemd.service(5) (systemd manual pages): ``READY=1``
+  once up (``Type=notify``), ``WATCHDOG=1`` more often than ``WATCHDOG_USEC``,
+  ``STATUS=`` free text, ``STOPPING=1`` when shutting down; SIGTERM is the
+  stop signal and exit status 0 a clean stop.
+- MQTT 3.1.1 (OASIS, 2014): a retained message goes to late subscribers
+  (3.3.1.3); the will is published when the network connection closes
+  without a DISCONNECT (3.1.2.5), which is what a kill -9 does.
+- SQLite's ``PRAGMA integrity_check`` answers the single row ``ok`` for a
+  sound database file (sqlite.org, "Pragma statements supported by SQLite").
+- interface.md: topics, payload fields, the ack topic and the alert lifecycle
+  (an alarm or warning acknowledged by the crew; a caution never).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import socket
+import sqlite3
+import subprocess
+import sys
+import threading
+import time
+import uuid
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import paho.mqtt.client as paho
+import pytest
+from paho.mqtt.enums import CallbackAPIVersion
+
+REPO = Path(__file__).resolve().parents[1]
+PREFIX = "testboat"
+TCP_SOURCES = {"gnss", "compass", "log", "vane", "sounder", "attitude"}
+UDP_SOURCES = {"thermo", "baro"}
+PLAY_SPEED = 3.0          # simulated seconds per wall second on the live inputs
+WATCHDOG_USEC = 8_000_000  # systemd would restart a service silent this long
+
+
+# --------------------------------------------------------------------------- helpers (also used by
+# test_mqtt_end_to_end.py and test_demo.py)
+
+def free_port(kind: int = socket.SOCK_STREAM) -> int:
+    with socket.socket(socket.AF_INET, kind) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def wait_until(cond: Callable[[], object], timeout_s: float, step_s: float = 0.05) -> bool:
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        if cond():
+            return True
+        time.sleep(step_s)
+    return bool(cond())
+
+
+@dataclass
+class Received:
+    topic: str
+    payload: dict | None
+    retain: bool
+    at: float  # monotonic arrival time
+
+
+class Display:
+    """A display app on the boat's network: subscribes to ``<prefix>/#`` and keeps everything.
+
+    ``persistent=True`` keeps a session on the broker (a fixed client id, clean
+    session off), so QoS-1 messages wait for it while it is away, even across a
+    broker restart (Mosquitto persistence is on in the fixture).
+    """
+
+    def __init__(self, host: str, port: int, prefix: str = PREFIX, persistent: bool = False) -> None:
+        self.messages: list[Received] = []
+        self._lock = threading.Lock()
+        self.connected = threading.Event()
+        self.subscribed = threading.Event()
+        self.connects = 0
+        self.client = paho.Client(CallbackAPIVersion.VERSION2, client_id=f"display-{uuid.uuid4().hex[:8]}",
+                                  clean_session=not persistent)
+        self.client.reconnect_delay_set(min_delay=1, max_delay=1)
+        self.filter = f"{prefix}/#"
+
+        def on_connect(client, userdata, flags, reason, properties):
+            self.connects += 1
+            if not flags.session_present:
+                client.subscribe(self.filter, qos=1)
+            else:
+                self.subscribed.set()
+            self.connected.set()
+
+        def on_disconnect(client, userdata, flags, reason, properties):
+            self.connected.clear()
+
+        self.client.on_connect = on_connect
+        self.client.on_disconnect = on_disconnect
+        self.client.on_subscribe = lambda c, u, mid, rc, p: self.subscribed.set()
+        self.client.on_message = self._keep
+        self.client.connect(host, port, keepalive=5)
+        self.client.loop_start()
+        assert self.subscribed.wait(10), "the display could not subscribe"
+
+    def _keep(self, client, userdata, msg) -> None:
+        try:
+            payload = json.loads(msg.payload)
+        except ValueError:
+            payload = None
+        with self._lock:
+            self.messages.append(Received(msg.topic, payload, bool(msg.retain), time.monotonic()))
+
+    def on(self, topic: str) -> list[Received]:
+        with self._lock:
+            return [m for m in self.messages if m.topic == topic]
+
+    def latest(self, topic: str) -> Received | None:
+        got = self.on(topic)
+        return got[-1] if got else None
+
+    def topics(self) -> set[str]:
+        with self._lock:
+            return {m.topic for m in self.messages}
+
+    def publish(self, topic: str, payload: bytes) -> None:
+        self.client.publish(topic, payload, qos=1).wait_for_publish(5)
+
+    def close(self) -> None:
+        self.client.loop_stop()
+        self.client.disconnect()
+
+
+class NotifyListener:
+    """The service manager's end of ``NOTIFY_SOCKET``: an abstract-namespace datagram socket."""
+
+    def __init__(self) -> None:
+        self.name = f"@offwatch-test-{os.getpid()}-{uuid.uuid4().hex[:8]}"
+        self.sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+        self.sock.bind(b"\0" + self.name[1:].encode())
+        self.sock.settimeout(0.2)
+        self.datagrams: list[tuple[float, list[str]]] = []
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while not self._stop.is_set():
+            try:
+                data = self.sock.recv(4096)
+            except socket.timeout:
+                continue
+            except OSError:
+                return
+            self.datagrams.append((time.monotonic(), data.decode("utf-8", "replace").split("\n")))
+
+    def times_of(self, assignment: str) -> list[float]:
+        return [t for t, lines in list(self.datagrams) if assignment in lines]
+
+    def values_of(self, key: str) -> list[str]:
+        return [line[len(key) + 1:] for _, lines in list(self.datagrams) for line in lines
+                if line.startswith(key + "=")]
+
+    def close(self) -> None:
+        self._stop.set()
+        self._thread.join(2)
+        self.sock.close()
+
+
+def simulated_lines(minutes: float = 6.0, seed: int = 11) -> list[tuple[float, str, str]]:
+    """A short simulated passage (invented boat, invented water) as (t_s, source, sentence).
+
+    Sources are the instruments' TAG-block names of the simulator's writer.
+    """
+    from daemon.simulator import (Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
+                                  SteadyCurrent, WindField, simulate)
+    from daemon.simulator.nmea_writer import WriterOptions, run_lines
+    from daemon.simulator.scenarios import MIN, utc
+
+    t0, lat, lon = utc(2026, 6, 2, 9), 44.1, -31.2
+    ocean = Ocean(currents=(SteadyCurrent(80.0, 0.6),), sea_temp=SeaTemperatureField(15.2, lat, lon),
+                  pressure=PressureField(((t0, 1013.0),)), wind=WindField(((t0, 240.0, 11.0),)))
+    scenario = Scenario(name="service_test", start_utc=t0, duration_s=minutes * MIN, start_lat=lat,
+                        start_lon=lon, helm=(Steer(100.0, 5.5, minutes * MIN),), ocean=ocean,
+                        sensors=SensorSpec(heading_hz=1.0))
+    out = []
+    for line in run_lines(simulate(scenario, seed), WriterOptions(tag_blocks=True)):
+        tag, sentence = line[1:].split("\\", 1)
+        fields = dict(f.split(":", 1) for f in tag.split("*")[0].split(","))
+        out.append((int(fields["c"]) / 1000.0, fields["s"], sentence))
+    return out
+
+
+class LivePlayer:
+    """Plays simulated lines to the daemon: a TCP server (one client at a time) and UDP datagrams.
+
+    ``drop_sources`` may be changed while it plays (e.g. ``{"gnss"}``: the GNSS
+    falls silent while the compass and the log go on).
+    """
+
+    def __init__(self, lines: list[tuple[float, str, str]], udp_port: int, speed: float = PLAY_SPEED) -> None:
+        self.lines = lines
+        self.udp_port = udp_port
+        self.speed = speed
+        self.drop_sources: set[str] = set()
+        self.sent = {"tcp": 0, "udp": 0}
+        self.server = socket.create_server(("127.0.0.1", 0))
+        self.server.settimeout(0.2)
+        self.tcp_port = self.server.getsockname()[1]
+        self._udp = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._serve, daemon=True)
+        self._thread.start()
+
+    def _serve(self) -> None:
+        while not self._stop.is_set():
+            try:
+                conn, _ = self.server.accept()
+            except socket.timeout:
+                continue
+            except OSError:
+                return
+            with conn:
+                try:
+                    self._play(conn)
+                except OSError:
+                    continue  # the daemon went away; wait for the next connection
+
+    def _play(self, conn: socket.socket) -> None:
+        t_first = self.lines[0][0]
+        wall0 = time.monotonic()
+        i = 0
+        while not self._stop.is_set() and i < len(self.lines):
+            due = wall0 + (self.lines[i][0] - t_first) / self.speed
+            delay = due - time.monotonic()
+            if delay > 0:
+                self._stop.wait(min(delay, 0.2))
+                continue
+            tcp = bytearray()
+            t_now = self.lines[i][0]
+            while i < len(self.lines) and self.lines[i][0] == t_now:
+                _, src, text = self.lines[i]
+                i += 1
+                if src in self.drop_sources:
+                    continue
+                data = (text + "\r\n").encode("ascii")
+                if src in UDP_SOURCES:
+                    self._udp.sendto(data, ("127.0.0.1", self.udp_port))
+                    self.sent["udp"] += 1
+                else:
+                    tcp += data
+                    self.sent["tcp"] += 1
+            if tcp:
+                conn.sendall(bytes(tcp))
+        while not self._stop.is_set():  # passage over: keep the connection, silent
+            self._stop.wait(0.2)
+
+    def close(self) -> None:
+        self._stop.set()
+        self.server.close()
+        self._thread.join(3)
+        self._udp.close()
+
+
+@dataclass
+class Daemon:
+    """One ``offwatch run`` subprocess and what it was given."""
+
+    proc: subprocess.Popen
+    state_dir: Path
+    log_path: Path
+    notify: NotifyListener | None
+    extra: dict = field(default_factory=dict)
+
+    def log(self) -> str:
+        return self.log_path.read_text(errors="replace") if self.log_path.exists() else ""
+
+    def stop(self, sig: int = signal.SIGTERM, timeout_s: float = 20.0) -> int:
+        if self.proc.poll() is None:
+            self.proc.send_signal(sig)
+        return self.proc.wait(timeout=timeout_s)
+
+    def kill(self) -> None:
+        if self.proc.poll() is None:
+            self.proc.kill()
+            self.proc.wait(timeout=10)
+
+
+def write_run_config(path: Path, *, state_dir: Path, tcp_port: int, udp_port: int, broker: tuple[str, int],
+                     extra: str = "") -> Path:
+    host, port = broker
+    path.write_text(
+        "# a test boat (invented)\n"
+        "[installation]\nvariation_source = \"model\"\n\n"
+        f"[inputs.mux]\nkind = \"tcp\"\nhost = \"127.0.0.1\"\nport = {tcp_port}\n\n"
+        f"[inputs.wifi]\nkind = \"udp\"\nbind = \"127.0.0.1\"\nport = {udp_port}\n\n"
+        f"[mqtt]\nurl = \"mqtt://{host}:{port}\"\nprefix = \"{PREFIX}\"\nclient_id = \"offwatch-test-{uuid.uuid4().hex[:6]}\"\n\n"
+        f"[state]\ndir = \"{state_dir}\"\n\n"
+        "[recording]\nper = \"start\"\n"
+        f"{extra}")
+    return path
+
+
+def start_daemon(tmp: Path, cfg: Path, notify: NotifyListener | None, name: str = "run") -> Daemon:
+    env = {k: v for k, v in os.environ.items() if k not in ("NOTIFY_SOCKET", "WATCHDOG_USEC", "WATCHDOG_PID")}
+    env["PYTHONUNBUFFERED"] = "1"
+    if notify is not None:
+        env["NOTIFY_SOCKET"] = notify.name
+        env["WATCHDOG_USEC"] = str(WATCHDOG_USEC)
+    log_path = tmp / f"{name}.log"
+    with open(log_path, "wb") as log_file:
+        proc = subprocess.Popen([sys.executable, "-m", "daemon", "run", "--config", str(cfg)], cwd=REPO, env=env,
+                                stdout=log_file, stderr=subprocess.STDOUT)
+    return Daemon(proc, tmp / "state", log_path, notify)
+
+
+def integrity(db_path: Path) -> str:
+    with sqlite3.connect(f"file:{db_path}?mode=ro", uri=True) as db:
+        return db.execute("PRAGMA integrity_check").fetchone()[0]
+
+
+def run_cli(*args: str, timeout_s: float = 90.0) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "daemon", *args], cwd=REPO, capture_output=True, text=True,
+                          timeout=timeout_s)
+
+
+# --------------------------------------------------------------------------- fixtures
+
+@pytest.fixture(scope="module")
+def passage() -> list[tuple[float, str, str]]:
+    return simulated_lines()
+
+
+@pytest.fixture
+def live(tmp_path: Path, passage, mosquitto) -> Iterator[dict]:
+    """The live inputs, a display on the broker, a notify socket; all closed at the end."""
+    udp_port = free_port(socket.SOCK_DGRAM)
+    player = LivePlayer(passage, udp_port)
+    notify = NotifyListener()
+    state = tmp_path / "state"
+    cfg = write_run_config(tmp_path / "offwatch.toml", state_dir=state, tcp_port=player.tcp_port,
+                           udp_port=udp_port, broker=tuple(mosquitto))
+    display = Display(*mosquitto)
+    daemons: list[Daemon] = []
+
+    def start(name: str = "run", with_notify: bool = True) -> Daemon:
+        d = start_daemon(tmp_path, cfg, notify if with_notify else None, name)
+        daemons.append(d)
+        return d
+
+    try:
+        yield {"player": player, "notify": notify, "display": display, "start": start, "state": state,
+               "broker": mosquitto, "cfg": cfg}
+    finally:
+        for d in daemons:
+            d.kill()
+        display.close()
+        notify.close()
+        player.close()
+
+
+# --------------------------------------------------------------------------- the tests
+
+def test_run_tells_systemd_publishes_and_stops_cleanly_on_sigterm(live, tmp_path):
+    """The service life under systemd: READY, watchdog pings, status, MQTT states; SIGTERM: a clean stop."""
+    # GIVEN a running daemon fed over TCP and UDP, watched by the notify socket and a display
+    notify, display, player = live["notify"], live["display"], live["player"]
+    t_start = time.monotonic()
+    daemon = live["start"]()
+    try:
+        # THEN it says READY=1 once its inputs and outputs are up
+        assert wait_until(lambda: notify.times_of("READY=1"), 30), daemon.log()
+        time_to_ready = notify.times_of("READY=1")[0] - t_start
+        # AND a display sees the retained status online with sensor ages and input counters for both inputs
+        def status_with_both_inputs():
+            m = display.latest(f"{PREFIX}/status")
+            return m and m.payload["state"] == "online" and {"mux", "wifi"} <= set(m.payload.get("inputs", {}))
+        assert wait_until(status_with_both_inputs, 30), (display.topics(), daemon.log())
+        # AND the states computed from the feeds arrive
+        assert wait_until(lambda: {f"{PREFIX}/position", f"{PREFIX}/sea_temperature"} <= display.topics(), 30), \
+            (display.topics(), daemon.log())
+        # AND the watchdog is pinged repeatedly, with STATUS= text
+        assert wait_until(lambda: len(notify.times_of("WATCHDOG=1")) >= 4, 20), notify.datagrams
+        running_status = display.latest(f"{PREFIX}/status").payload
+        daemon_alive_during_run = daemon.proc.poll() is None
+    finally:
+        # WHEN systemd stops it with SIGTERM
+        rc = daemon.stop(signal.SIGTERM, timeout_s=30)
+    t_stop = time.monotonic()
+    log = daemon.log()
+
+    assert daemon_alive_during_run
+    # THEN it said STOPPING=1 and exited 0
+    assert notify.times_of("STOPPING=1"), notify.datagrams
+    assert rc == 0, log
+    assert notify.times_of("STOPPING=1")[-1] > notify.times_of("READY=1")[0]
+    pings = notify.times_of("WATCHDOG=1")
+    ready = notify.times_of("READY=1")[0]
+    gaps = [b - a for a, b in zip([ready, *pings], pings)]
+    # no gap long enough for systemd's watchdog (WATCHDOG_USEC) to fire
+    assert max(gaps) < WATCHDOG_USEC / 1e6, gaps
+    assert notify.values_of("STATUS"), notify.datagrams
+
+    assert any(text.startswith(("running", "current")) for text in notify.values_of("STATUS"))
+
+    # the status while running: sensor ages of the kinds both inputs gave (fix and heading over TCP,
+    # sea temperature and pressure over UDP), the line counters and the state of each input
+    assert running_status["state"] == "online"
+    assert {"fix", "heading", "sea_temperature", "pressure"} <= set(running_status["sensors"]), running_status
+    assert all(0 <= age < 60 for age in running_status["sensors"].values()), running_status["sensors"]
+    for name in ("mux", "wifi"):
+        assert running_status["inputs"][name]["totals"]["good"] > 0, running_status["inputs"]
+        assert running_status["sources"][name]["state"] == "open", running_status["sources"]
+    assert running_status["mqtt"]["connected"] is True
+    # the last status before the stop counts what was sent (nothing was spoiled, so all lines are good)
+    status = display.latest(f"{PREFIX}/status")
+    last_online = [m for m in display.on(f"{PREFIX}/status") if m.payload["state"] == "online"][-1].payload
+    good = sum(last_online["inputs"][name]["totals"]["good"] for name in ("mux", "wifi"))
+    assert 0 < good <= player.sent["tcp"] + player.sent["udp"]
+    # the position came from the GNSS; a clean stop leaves the retained status offline
+    position = display.latest(f"{PREFIX}/position").payload
+    assert position["source"] == "gnss" and abs(position["lat"] - 44.1) < 0.2 and abs(position["lon"] + 31.2) < 0.2
+    assert status.payload["state"] == "offline", status
+
+    # AND the state directory holds a sound recording that replays, the calibration and the alerts
+    state = live["state"]
+    recordings = sorted((state / "recordings").glob("offwatch-*.sqlite"))
+    assert len(recordings) == 1, list(state.rglob("*"))
+    assert integrity(recordings[0]) == "ok"
+    replay = run_cli("replay", str(recordings[0]), "--jsonl", str(tmp_path / "rec.jsonl"))
+    assert replay.returncode == 0, replay.stderr
+    replayed_topics = {json.loads(line)["topic"] for line in (tmp_path / "rec.jsonl").read_text().splitlines()}
+    # (replayed without the run's config: the default prefix)
+    assert {"offwatch/position", "offwatch/sea_temperature", "offwatch/status"} <= replayed_topics, replayed_topics
+    calibration = json.loads((state / "calibration.json").read_text())
+    assert "stw_scale" in json.dumps(calibration)
+    alerts = json.loads((state / "alerts.json").read_text())
+    assert isinstance(alerts.get("alerts"), list)
+    print(f"\nfigures: READY after {time_to_ready:.1f} s; {len(pings)} watchdog pings, largest gap "
+          f"{max(gaps):.2f} s; stop took {t_stop - t_start:.1f} s in all; "
+          f"lines sent tcp {player.sent['tcp']} udp {player.sent['udp']}")
