@@ -10,7 +10,7 @@ from pathlib import Path
 
 from daemon.assembly import build
 from daemon.config import Config, client_id_for, load_config
-from daemon.errors import InputError
+from daemon.errors import ConfigError, InputError
 from daemon.jsonl import JsonlSink
 from daemon.readings import Sink
 from daemon.replayfiles import ProgressBar, iter_replay
@@ -67,24 +67,34 @@ def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, r
 
 
 class _Pacer:
-    """Sleeps so data time passes ``speed`` times faster than the wall clock."""
+    """Sleeps so data time passes ``speed`` times faster than the wall clock.
+
+    Each item waits until it is due (it used to sleep at most 1 s and then go
+    early, so a slow pace ran ahead). A jump of more than ``MAX_GAP_S`` in the
+    data (files hours apart) is crossed in one wall second, not waited out.
+    """
+
+    MAX_GAP_S = 600.0  # as the pipeline's MAX_TICKS_PER_GAP
 
     def __init__(self, speed: float) -> None:
         self.speed = speed
         self.t0_data: float | None = None
-        self.t0_wall = time.monotonic()
+        self.t0_wall = 0.0
+        self.t_prev = 0.0
 
     def wait_for(self, t_s: float) -> None:
-        if self.t0_data is None:
-            self.t0_data = t_s
-            return
-        due = self.t0_wall + (t_s - self.t0_data) / self.speed
-        delay = due - time.monotonic()
+        now = time.monotonic()
+        if self.t0_data is None or t_s - self.t_prev > self.MAX_GAP_S:
+            self.t0_data, self.t0_wall, self.t_prev = t_s, now + (1.0 if self.t0_data is not None else 0.0), t_s
+        self.t_prev = max(self.t_prev, t_s)
+        delay = self.t0_wall + (t_s - self.t0_data) / self.speed - now
         if delay > 0:
-            time.sleep(min(delay, 1.0))
+            time.sleep(delay)
 
 
 def replay_command(args) -> int:
+    if args.speed is not None and not args.speed > 0:
+        raise ConfigError(f"--speed {args.speed}: expected a number above 0 (times real time), e.g. --speed 10")
     cfg = load_config(args.config)
     summary = run_replay(args.files, cfg, jsonl=args.jsonl, record=args.record, mqtt_url=args.mqtt,
                          speed=args.speed)

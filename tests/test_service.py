@@ -325,8 +325,12 @@ def start_daemon(tmp: Path, cfg: Path, notify: NotifyListener | None, name: str 
 
 
 def integrity(db_path: Path) -> str:
-    with sqlite3.connect(f"file:{db_path}?mode=ro", uri=True) as db:
+    """``PRAGMA integrity_check`` of a database as any reader opens it (a WAL left by a crash is read too)."""
+    db = sqlite3.connect(str(db_path))
+    try:
         return db.execute("PRAGMA integrity_check").fetchone()[0]
+    finally:
+        db.close()
 
 
 def run_cli(*args: str, timeout_s: float = 90.0) -> subprocess.CompletedProcess:
@@ -449,3 +453,109 @@ def test_run_tells_systemd_publishes_and_stops_cleanly_on_sigterm(live, tmp_path
     print(f"\nfigures: READY after {time_to_ready:.1f} s; {len(pings)} watchdog pings, largest gap "
           f"{max(gaps):.2f} s; stop took {t_stop - t_start:.1f} s in all; "
           f"lines sent tcp {player.sent['tcp']} udp {player.sent['udp']}")
+
+
+def test_kill9_leaves_the_last_will_and_a_sound_recording(live, tmp_path):
+    """A power cut or a kill -9: the broker says offline for us, and the recording survives."""
+    # GIVEN a daemon that has been publishing and recording for a few seconds
+    display = live["display"]
+    daemon = live["start"]("killed")
+    assert wait_until(lambda: display.latest(f"{PREFIX}/position") is not None, 30), daemon.log()
+    assert display.latest(f"{PREFIX}/status").payload["state"] == "online"
+    time.sleep(3.0)  # a few of the recorder's one-second commits
+    # WHEN it is killed with SIGKILL (no chance to clean up)
+    t_kill = time.monotonic()
+    daemon.kill()
+    assert daemon.proc.returncode == -signal.SIGKILL
+
+    # THEN the broker publishes the will: status offline, retained, with a reason (MQTT 3.1.1 3.1.2.5)
+    assert wait_until(lambda: display.latest(f"{PREFIX}/status").payload["state"] == "offline", 15), \
+        [m.payload for m in display.on(f"{PREFIX}/status")][-3:]
+    will_after = display.latest(f"{PREFIX}/status").at - t_kill
+    assert display.latest(f"{PREFIX}/status").payload["reason"] == "connection lost"
+    late = Display(*live["broker"])  # a display that starts only now gets it as the retained state
+    try:
+        assert wait_until(lambda: late.latest(f"{PREFIX}/status") is not None, 10)
+        got = late.latest(f"{PREFIX}/status")
+        assert got.retain and got.payload["state"] == "offline"
+        assert late.latest(f"{PREFIX}/position").retain  # the last position stays for the display
+    finally:
+        late.close()
+
+    # AND the recording opens, passes the integrity check, holds the lines and replays
+    recordings = sorted((live["state"] / "recordings").glob("offwatch-*.sqlite"))
+    assert len(recordings) == 1
+    assert integrity(recordings[0]) == "ok"
+    from daemon.recorder import iter_raw
+    assert sum(1 for _ in iter_raw(recordings[0])) > 20
+    out = tmp_path / "killed.jsonl"
+    replay = run_cli("replay", str(recordings[0]), "--jsonl", str(out))
+    assert replay.returncode == 0, replay.stderr
+    topics = {json.loads(line)["topic"] for line in out.read_text().splitlines()}
+    assert "offwatch/position" in topics
+    print(f"\nfigures: will seen {will_after:.2f} s after the kill")
+
+
+def test_ack_over_mqtt_acknowledges_a_warning_and_ignores_the_rest(live, tmp_path):
+    """gnss_lost (a warning) is acknowledged by {"id": "gnss_lost"} on <prefix>/ack; junk is ignored."""
+    display, player = live["display"], live["player"]
+    # a short clear time so the end of the lifecycle (acknowledged -> cleared) fits in the test
+    cfg = live["cfg"]
+    cfg.write_text(cfg.read_text() + "\n[alerts]\nclear_after_by_id = { gnss_lost = 1.0 }\n")
+    daemon = live["start"]("ack")
+    alert = f"{PREFIX}/alerts/gnss_lost"
+    stale = f"{PREFIX}/alerts/sensor_stale"
+    ack = f"{PREFIX}/ack"
+
+    def state_of(topic):
+        m = display.latest(topic)
+        return None if m is None else m.payload["state"]
+
+    try:
+        assert wait_until(lambda: display.latest(f"{PREFIX}/position") is not None, 30), daemon.log()
+        # GIVEN the GNSS falls silent while the compass and the log go on
+        t_silent = time.monotonic()
+        player.drop_sources = {"gnss"}
+        # THEN gnss_lost is raised as an active warning (after 10 s without a fix)
+        assert wait_until(lambda: state_of(alert) == "active", 30), (display.topics(), daemon.log()[-2000:])
+        raised_after = display.latest(alert).at - t_silent
+        assert display.latest(alert).payload["priority"] == "warning"
+        # and the stale fix is a caution
+        assert wait_until(lambda: state_of(stale) == "active", 10), display.topics()
+        assert display.latest(stale).payload["priority"] == "caution"
+
+        # WHEN a display sends junk to the ack topic: a huge payload naming gnss_lost, malformed JSON,
+        # the wrong types, and a caution's id
+        display.publish(ack, json.dumps({"id": "gnss_lost", "pad": "x" * 200_000}).encode())
+        display.publish(ack, b'{"id": "gnss_lost"')
+        display.publish(ack, b"\xff\xfe not even UTF-8")
+        display.publish(ack, b'["gnss_lost"]')
+        display.publish(ack, b'{"id": 17}')
+        display.publish(ack, b'{"id": "sensor_stale"}')
+        t_junk = time.monotonic()
+        # THEN nothing changes and the daemon goes on publishing its status
+        assert wait_until(lambda: any(m.at > t_junk + 1.0 for m in display.on(f"{PREFIX}/status")), 20)
+        assert daemon.proc.poll() is None, daemon.log()[-2000:]
+        assert state_of(alert) == "active"
+        assert state_of(stale) == "active" and all(m.payload["state"] == "active" for m in display.on(stale))
+
+        # WHEN a display acknowledges the warning properly
+        display.publish(ack, b'{"id": "gnss_lost"}')
+        # THEN it is acknowledged while the condition lasts
+        assert wait_until(lambda: state_of(alert) == "acknowledged", 10), [m.payload for m in display.on(alert)]
+        acked = display.latest(alert).payload
+        assert acked["id"] == "gnss_lost" and acked["priority"] == "warning"
+        # AND once fixes return it is cleared
+        player.drop_sources = set()
+        assert wait_until(lambda: state_of(alert) == "cleared", 30), [m.payload for m in display.on(alert)]
+        # the daemon counted the refused payloads (the caution's id is refused by the alert manager instead)
+        assert wait_until(lambda: display.latest(f"{PREFIX}/status").payload["mqtt"].get("ack_ignored", 0) >= 4, 15), \
+            display.latest(f"{PREFIX}/status").payload["mqtt"]
+        assert "a caution is not acknowledged" in daemon.log()
+    finally:
+        rc = daemon.stop(signal.SIGTERM, timeout_s=30)
+    assert rc == 0, daemon.log()[-3000:]
+    states = [m.payload["state"] for m in display.on(alert)]
+    # the lifecycle in order (re-announcements may repeat a state): active, acknowledged, cleared
+    assert [s for i, s in enumerate(states) if i == 0 or states[i - 1] != s] == ["active", "acknowledged", "cleared"]
+    print(f"\nfigures: gnss_lost raised {raised_after:.1f} s after the last fix")
