@@ -1,0 +1,193 @@
+"""``offwatch replay --mqtt`` against a real Mosquitto: what a display app on the boat receives.
+
+A short simulated passage (invented boat, invented water; daemon.simulator)
+with a strong steady current (3 kn), a +2 °C sea-temperature front, a steep
+pressure fall (12 hPa/h) and a 40-s GNSS outage, so in half an hour of data it
+produces every state topic the pipeline has, an event and several alert
+changes. The JSONL output of the same replay is the reference: interface.md
+says it holds every message the replay publishes, in order.
+
+Expected behaviour, from outside the project:
+- MQTT 3.1.1 (OASIS, 2014): a retained message is kept by the broker and sent
+  to a later subscriber (3.3.1.3); QoS 1 is delivered at least once, so
+  duplicates may come (4.3.2); messages of one topic keep their order (4.6).
+- interface.md: topics and fields; states retained, ``events`` not; alerts
+  QoS 1; every alert change reaches the broker even across its restart.
+"""
+
+from __future__ import annotations
+
+import json
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from tests.test_service import PREFIX, REPO, Display, wait_until
+
+SPEED = 100.0  # the paced replay: 30 min of data in 18 s
+STATE_TOPICS = ("status", "position", "current", "pressure", "sea_temperature")
+
+
+@pytest.fixture(scope="module")
+def short_passage(tmp_path_factory) -> dict:
+    """The simulated file, a config for it, and its start time."""
+    from daemon.simulator import (Front, Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
+                                  SteadyCurrent, WindField, simulate)
+    from daemon.simulator.nmea_writer import WriterOptions, write_nmea
+    from daemon.simulator.scenarios import MIN, along, utc
+
+    t0, lat, lon = utc(2026, 6, 1, 6), 43.3, -30.7
+    front = Front(*along(lat, lon, 90.0, 1.6), along_deg=0.0, delta_c=2.0, width_nm=0.3)
+    ocean = Ocean(currents=(SteadyCurrent(30.0, 3.0),), sea_temp=SeaTemperatureField(15.0, lat, lon, fronts=(front,)),
+                  pressure=PressureField(((t0, 1015.0), (t0 + 60 * MIN, 1003.0))),
+                  wind=WindField(((t0, 220.0, 12.0),)))
+    scenario = Scenario(
+        name="mqtt_end_to_end", start_utc=t0, duration_s=30 * MIN, start_lat=lat, start_lon=lon,
+        helm=(Steer(90.0, 6.0, 8 * MIN), Steer(180.0, 6.0, 8 * MIN), Steer(90.0, 6.0, 14 * MIN)), ocean=ocean,
+        sensors=SensorSpec(heading_hz=1.0, gnss_outages=((t0 + 4 * MIN, t0 + 4 * MIN + 40),)))
+    d = tmp_path_factory.mktemp("passage")
+    nmea = d / "short.nmea"
+    write_nmea(simulate(scenario, 7), nmea, WriterOptions())
+    cfg = d / "replay.toml"
+    # the early pressure-fall rule over its shortest window (15 min) so half an hour shows it;
+    # gnss_lost counts as gone 5 s after fixes return
+    cfg.write_text(f'[mqtt]\nprefix = "{PREFIX}"\n\n[pressure]\nearly_window_s = 900.0\n\n'
+                   "[alerts]\nclear_after_by_id = { gnss_lost = 5.0 }\n")
+    return {"nmea": nmea, "cfg": cfg, "t0": t0}
+
+
+def replay_args(passage: dict, jsonl: Path, url: str, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "daemon", "replay", str(passage["nmea"]), "--config", str(passage["cfg"]),
+            "--jsonl", str(jsonl), "--mqtt", url, "--quiet", *extra]
+
+
+def read_jsonl(path: Path) -> list[dict]:
+    return [json.loads(line) for line in path.read_text().splitlines()]
+
+
+def alert_changes(messages) -> list[tuple[str, str]]:
+    """(topic, compact payload JSON) of every alert message, in order."""
+    return [(m["topic"], json.dumps(m["payload"], sort_keys=True)) for m in messages if "/alerts/" in m["topic"]]
+
+
+def received_alerts(display: Display) -> list[tuple[str, str]]:
+    with display._lock:
+        got = list(display.messages)
+    return [(m.topic, json.dumps(m.payload, sort_keys=True)) for m in got if "/alerts/" in m.topic]
+
+
+def missing_in_order(expected: list, received: list) -> list:
+    """The expected items not found in ``received`` as a subsequence (extra and repeated items allowed)."""
+    i = 0
+    missing = []
+    for item in expected:
+        j = i
+        while j < len(received) and received[j] != item:
+            j += 1
+        if j == len(received):
+            missing.append(item)
+        else:
+            i = j + 1
+    return missing
+
+
+def test_replay_to_mqtt_feeds_every_topic_and_leaves_retained_states(short_passage, mosquitto, tmp_path):
+    # GIVEN a display subscribed to offwatch/# (here testboat/#) before the replay starts
+    host, port = mosquitto
+    display = Display(host, port)
+    out = tmp_path / "fast.jsonl"
+    try:
+        # WHEN the passage is replayed as fast as it goes, to the broker and to JSONL
+        done = subprocess.run(replay_args(short_passage, out, f"mqtt://{host}:{port}"), cwd=REPO,
+                              capture_output=True, text=True, timeout=120)
+        assert done.returncode == 0, done.stderr[-3000:]
+        sent = read_jsonl(out)
+        topics = {m["topic"] for m in sent}
+        # the file produces what the interface lists for it (no wind-over-current here: sea_state needs it)
+        expected = {f"{PREFIX}/{t}" for t in (*STATE_TOPICS, "events")}
+        assert expected <= topics, topics
+        alert_topics = {t for t in topics if t.startswith(f"{PREFIX}/alerts/")}
+        assert {f"{PREFIX}/alerts/{a}" for a in ("gnss_lost", "current_strong", "pressure_fall", "front")} <= alert_topics
+        # THEN the display got every topic, and every alert change in order
+        assert wait_until(lambda: topics <= display.topics(), 10), topics - display.topics()
+        assert wait_until(lambda: not missing_in_order(alert_changes(sent), received_alerts(display)), 10), \
+            missing_in_order(alert_changes(sent), received_alerts(display))
+        # the event arrived as it was written, not retained
+        event = display.on(f"{PREFIX}/events")[-1]
+        assert event.payload == [m for m in sent if m["topic"] == f"{PREFIX}/events"][-1]["payload"]
+        assert event.payload["kind"] == "front_crossing" and event.payload["warmer"] is True
+    finally:
+        display.close()
+
+    # AND a display that comes later finds the latest state of every state topic and alert, retained
+    late = Display(host, port)
+    try:
+        retained = alert_topics | {f"{PREFIX}/{t}" for t in STATE_TOPICS}
+        assert wait_until(lambda: retained <= late.topics(), 10), retained - late.topics()
+        assert all(m.retain for m in late.messages)
+        assert f"{PREFIX}/events" not in late.topics()
+        for topic in retained - {f"{PREFIX}/status"}:
+            last_sent = [m for m in sent if m["topic"] == topic][-1]["payload"]
+            assert late.latest(topic).payload == last_sent, topic
+        # the replay ended cleanly: the status says offline, stopped
+        assert late.latest(f"{PREFIX}/status").payload["state"] == "offline"
+        # spot check of the values against the simulated truth: a steady 3 kn current toward 030
+        current = late.latest(f"{PREFIX}/current").payload
+        assert current["quality"] == "valid"
+        assert abs(current["drift_kn"] - 3.0) < 0.3 and abs(current["set_deg"] - 30.0) < 8.0, current
+    finally:
+        late.close()
+
+
+def test_broker_killed_and_restarted_mid_replay_loses_no_alert_change(short_passage, mosquitto, tmp_path):
+    # GIVEN a display with a persistent session (its QoS-1 messages wait for it on the broker)
+    host, port = mosquitto
+    display = Display(host, port, persistent=True)
+    out = tmp_path / "paced.jsonl"
+    t0 = short_passage["t0"]
+    proc = subprocess.Popen(replay_args(short_passage, out, f"mqtt://{host}:{port}", "--speed", str(SPEED)),
+                            cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        def data_time_seen() -> float:
+            m = display.latest(f"{PREFIX}/status")
+            return 0.0 if m is None else _unix(m.payload["time"])
+
+        # WHEN the broker is killed (SIGKILL) 3 min into the data, just before the GNSS outage
+        assert wait_until(lambda: data_time_seen() >= t0 + 180, 60), proc.poll()
+        t_kill_data = data_time_seen()
+        mosquitto.kill()
+        time.sleep(3.0)  # about 5 min of data go by without a broker
+        t_restart = time.monotonic()
+        mosquitto.start()
+        # THEN the replay reconnects and finishes cleanly
+        n_before = len(display.messages)
+        assert wait_until(lambda: len(display.messages) > n_before, 20)
+        reconnect_s = display.messages[n_before].at - t_restart
+        first_after = display.messages[n_before]
+        stdout, stderr = proc.communicate(timeout=90)
+        assert proc.returncode == 0, stderr[-3000:]
+        sent = read_jsonl(out)
+        expected = alert_changes(sent)
+        # the test means something only if alert changes fell into the broker's absence
+        t_back_data = _unix(first_after.payload["time"])
+        during = [m for m in sent if "/alerts/" in m["topic"] and t_kill_data < m["t"] < t_back_data]
+        assert during, (t_kill_data - t0, t_back_data - t0)
+        # AND every alert change of the JSONL reached the display, in order (duplicates allowed)
+        assert wait_until(lambda: not missing_in_order(expected, received_alerts(display)), 20), \
+            missing_in_order(expected, received_alerts(display))
+        print(f"\nfigures: {len(expected)} alert changes, {len(during)} while the broker was away "
+              f"({t_back_data - t_kill_data:.0f} s of data); first message {reconnect_s:.1f} s after the restart")
+    finally:
+        if proc.poll() is None:
+            proc.send_signal(signal.SIGKILL)
+            proc.wait(10)
+        display.close()
+
+
+def _unix(iso: str) -> float:
+    from datetime import datetime
+    return datetime.fromisoformat(iso.replace("Z", "+00:00")).timestamp()
