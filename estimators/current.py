@@ -135,6 +135,11 @@ class CurrentParams:
     q_inflation_max: float = param(400.0, "", 1.0, 1e6, "largest factor on the current's process noise")
     min_fix_interval_s: float = param(0.5, "s", 0.0, 60.0, "a ground velocity closer than this to the last one is a duplicate")
     averaging_window_s: float = param(2.0, "s", 0.1, 60.0, "longest window for the mean heading and log speed before a fix")
+    input_timing_sigma_s: float = param(
+        1.0, "s", 0.0, 10.0, "uncertain lag between the GNSS velocity and the compass/log means (in R as rate x lag in a long turn)")
+    turn_rate_hold_deg_s: float = param(
+        2.0, "deg/s", 0.2, 30.0, "a heading rate above this (or a manoeuvre) holds the filter: prediction only")
+    turn_hold_max_s: float = param(60.0, "s", 0.0, 600.0, "longest hold through one turn; a longer one is fused")
     jacobian_smoothing_s: float = param(
         30.0, "s", 0.0, 600.0, "time constant of the low-passed log speed and heading used in the Jacobian")
     manoeuvre_heading_deg: float = param(8.0, "deg", 0.5, 90.0, "a heading change beyond this is a manoeuvre (Jacobian follows)")
@@ -226,6 +231,7 @@ class _Health:
     resets: int = 0
     duplicates: int = 0
     held: int = 0          # epochs not fused because the log was suspect
+    turning: int = 0       # epochs predicted through a turn, not fused (see _turn_hold)
     no_inputs: int = 0     # epochs without a heading or a log speed
     bad_inputs: int = 0    # heading/log samples out of range, ignored
 
@@ -241,6 +247,10 @@ class _WaterInputs:
     slow_speed_kn: float = 0.0     # the same, low-passed: used in the Jacobian (see _slow_inputs)
     spread_deg: float = 0.0        # largest departure of a heading in the window from their mean (a turn)
     slow_heading_deg: float = 0.0
+    turn_rate_deg_s: float = 0.0   # rate of the 3-s EMA heading, deg/s (see _slow_inputs)
+    speed_rate_kn_s: float = 0.0   # rate of the 3-s EMA log speed, kn/s
+    manoeuvring: bool = False      # the readings depart from their low-passed values (see _slow_inputs)
+    turning: bool = False          # a manoeuvre or a fast heading change (see _turn_hold)
 
 
 def unit(angle_rad: float) -> np.ndarray:
@@ -309,6 +319,7 @@ class CurrentEstimator(EstimatorBase):
         self._last_inputs: _WaterInputs | None = None
         self._slow: tuple[float, float, float, float] | None = None  # t, speed, heading unit vector (e, n)
         self._fast: tuple[float, float, float, float] | None = None
+        self._turn_since: float | None = None
         self._manoeuvre_hist: deque[tuple[float, float, float]] = deque()
         self._calibrating = False
         self._calibrating_until = -math.inf
@@ -405,12 +416,17 @@ class CurrentEstimator(EstimatorBase):
                                      for o, v in zip(old[1:], now))
         fast = ema(self._fast, 3.0)                                                # EMA, 3 s
         slow = ema(self._slow, p.jacobian_smoothing_s)                             # EMA, jacobian_smoothing_s
-        turn = abs(wrap_180(from_east_north(fast[1], fast[2])[1] - from_east_north(slow[1], slow[2])[1]))
+        fast_heading = from_east_north(fast[1], fast[2])[1]
+        if 0.0 < dt <= 5.0:  # rates of the 3-s EMA: a turn or a speed change, not the readings' noise
+            w.turn_rate_deg_s = wrap_180(fast_heading - from_east_north(self._fast[2], self._fast[3])[1]) / dt
+            w.speed_rate_kn_s = (fast[0] - self._fast[1]) / dt
+        turn = abs(wrap_180(fast_heading - from_east_north(slow[1], slow[2])[1]))
         if turn > p.manoeuvre_heading_deg or abs(fast[0] - slow[0]) > p.manoeuvre_speed_kn:
             slow = now                                                             # a manoeuvre: no lag
         # this epoch's Jacobian uses the slow value *before* this epoch's readings (in a manoeuvre, the
         # readings): their noise is then independent of the gain and cannot nudge k or d one way
         in_manoeuvre = slow is now
+        w.manoeuvring = in_manoeuvre
         ref = now if in_manoeuvre else self._slow[1:]
         w.slow_speed_kn = ref[0]
         w.slow_heading_deg = from_east_north(ref[1], ref[2])[1]
@@ -453,7 +469,35 @@ class CurrentEstimator(EstimatorBase):
             self._start(t, g, w)
             return
         self._predict(t)
+        self._track_manoeuvres(t, w)
+        if self._turn_hold(t, w):
+            self.health.turning += 1
+            self._record(t, restart=False)
+            return
         self._fuse_ground_velocity(t, g, w)
+
+    def _turn_hold(self, t: float, w: _WaterInputs) -> bool:
+        """Predict only through a turn (at most ``turn_hold_max_s``).
+
+        In a turn the fix's ground velocity and the interval's mean heading and
+        log speed belong to instants up to a second apart (sample times, the
+        receiver's and the compass's own lags), and the boat sheds speed: an
+        error of rate x lag with the same sign for every fix of the turn, which
+        no white R describes. Fused, those fixes teach k and d the lag; the
+        information that separates them from the current comes from the steady
+        legs on either side, so the filter carries the current across the turn
+        on its random walk. A turn longer than the cap (circling) is fused with
+        rate x lag in R.
+        """
+        p = self.params
+        turning = w.manoeuvring or abs(w.turn_rate_deg_s) > p.turn_rate_hold_deg_s
+        if not turning:
+            self._turn_since = None
+            return False
+        if self._turn_since is None:
+            self._turn_since = t
+        w.turning = True
+        return t - self._turn_since <= p.turn_hold_max_s
 
     # -- the filter -----------------------------------------------------------------
 
@@ -525,9 +569,13 @@ class CurrentEstimator(EstimatorBase):
         u, n = unit(theta), d_unit(theta)
         # heading noise, the leeway's uncertainty and, in a turn, how far the interval's mean heading
         # can be from the heading at the fix (the spread of the headings in the window)
+        # ... and, in a turn fused (longer than the hold), the unknown lag between the GNSS velocity and
+        # the compass/log means: rate x lag (not on a steady course: there the rate is the readings' noise)
+        lag = p.input_timing_sigma_s if w.turning else 0.0
         cross = (k * s) ** 2 * (math.radians(p.heading_sigma_deg) ** 2 + (p.leeway_sigma_fraction * lam) ** 2
-                                + math.radians(w.spread_deg) ** 2)
-        return sg ** 2 * np.eye(2) + (k * p.log_sigma_kn) ** 2 * u @ u.T + cross * n @ n.T
+                                + math.radians(w.spread_deg) ** 2 + math.radians(w.turn_rate_deg_s * lag) ** 2)
+        along = k ** 2 * (p.log_sigma_kn ** 2 + (w.speed_rate_kn_s * lag) ** 2)
+        return sg ** 2 * np.eye(2) + along * u @ u.T + cross * n @ n.T
 
     def _fuse_ground_velocity(self, t: float, g: tuple[float, float], w: _WaterInputs) -> FusionReport:
         """One gated, Joseph-form EKF update with the ground velocity."""
@@ -547,7 +595,6 @@ class CurrentEstimator(EstimatorBase):
 
         z = np.array([[g[0]], [g[1]]])
         R = self._measurement_cov(g, w, k, theta_of(ekf.x))
-        self._track_manoeuvres(t, w)
         H = jacobian(ekf.x)
         y = z - hx(ekf.x)                                                       # innovation
         S = H @ ekf.P @ H.T + R                                                 # its covariance
