@@ -33,20 +33,29 @@ Method (a robust windowed regression in distance; no state-space model):
 4. Decide (a small state machine on ``g``): a *run* starts when ``|g|`` reaches
    ``min_gradient_c_per_nm`` and lasts while ``g`` keeps its sign and ``|g|``
    stays above ``run_keep_fraction`` of that (hysteresis against the
-   gradient's noise). The steepest point is the centre of the regression
-   window at the peak gradient. The far side is the coldest (warming run) or
+   gradient's noise). The steepest point is the centroid of the gradient's
+   top (``|g|`` above ``steepest_fraction`` of the run's peak, weighted by how
+   far above): the maximum alone wanders by a tenth of a mile on a wide
+   front, whose top is flat. The far side is the coldest (warming run) or
    warmest (cooling run) bin before the steepest point within the trailing
-   ``window_nm`` (never before the previous crossing). The change so far,
-   ``delta``, is the newest bin less the far side; the whole change expected
-   is the larger of ``delta`` and twice the change from the far side to the
-   steepest point (a front's ramp is about symmetric about its steepest
-   point), which lets a crossing be declared before the boat is over the far
-   edge. A crossing is declared once per run, when the expected change
-   (rounded to 0.1 °C) reaches ``min_delta_c`` and the gradient is past its
-   peak: fallen to ``past_peak_fraction`` of the peak, ``confirm_nm`` run
-   past the peak, or the run ended. Detection lag: at most ``confirm_nm``
-   plus half of ``smoothing_nm`` past the steepest point (0.2 nm by default)
-   for a front steep enough to hold the run that long.
+   ``window_nm``, and never before the end of the last front declared, so
+   the tail of a front (its last tenth often creeps in over most of a mile)
+   is never measured again as a front of its own. The change, ``delta_c``, is
+   *measured*: the newest bin less the far side, nothing extrapolated. A
+   crossing is declared once per run, when that change (rounded to 0.1 °C)
+   reaches ``min_delta_c`` and the gradient is past its peak: fallen to
+   ``past_peak_fraction`` of the peak, ``confirm_nm`` run past the steepest
+   point, or the run ended. Detection lag: ``confirm_nm`` plus half of
+   ``smoothing_nm`` plus the despike lag, about 0.27 nm past the steepest
+   point by default (less on a narrow front, whose gradient falls sooner),
+   for a front whose measured change has reached ``min_delta_c`` by then; a
+   front only just over the threshold is declared later, once it has.
+   By then about 80 % of a 0.8-nm front's change (10-90 %) has been run, so
+   ``delta_c`` is that much of the whole change; the rest is its tail.
+   One front gives one event: a new run of the same sign is a new front only
+   once the water has changed by ``min_delta_c`` again since the last one
+   ended; the far side of a current's band (a run of the other sign) is its
+   own event.
 
 Why a windowed regression and not a Kalman filter with a local linear trend
 or Bayesian online change-point detection (Adams & MacKay 2007): a front is a
@@ -113,12 +122,14 @@ class FrontParams:
     position_average_s: float = param(10.0, "s", 0.0, 60.0, "fixes are averaged over this before the odometer")
     run_keep_fraction: float = param(0.5, "", 0.1, 1.0, "a run lasts while |g| >= this x min_gradient")
     past_peak_fraction: float = param(0.5, "", 0.1, 0.95, "gradient fallen to this x its peak: past the front")
-    confirm_nm: float = param(0.15, "nm", 0.0, 1.0, "distance past the peak after which a crossing is declared")
+    confirm_nm: float = param(0.2, "nm", 0.0, 1.0, "distance past the peak after which a crossing is declared")
     caution_nm: float = param(2.0, "nm", 0.1, 50.0, "the front caution lasts this far past the crossing...")
     caution_s: float = param(1200.0, "s", 60.0, 86400.0, "...or this long, whichever comes first")
     current_note_kn: float = param(0.5, "kn", 0.0, 10.0, "current change across the front worth a note")
     gap_s: float = param(120.0, "s", 5.0, 3600.0, "no fix or temperature for this long restarts the profile")
     publish_interval_s: float = param(1.0, "s", 1.0, 60.0, "sea_temperature is published at most this often")
+    steepest_fraction: float = param(0.7, "", 0.3, 0.95,
+                                     "the steepest point is the centroid of the gradient above this x its peak")
 
 
 @dataclass(frozen=True)
@@ -247,19 +258,46 @@ def format_lat_lon(lat: float, lon: float) -> str:
 class _Run:
     """A stretch of steep gradient of one sign: a front being crossed."""
 
-    def __init__(self, sign: int, start_d: float) -> None:
+    def __init__(self, sign: int, start_d: float, top_fraction: float, keep_nm: float) -> None:
         self.sign = sign
         self.start_d = start_d
-        self.peak_g = 0.0  # signed
-        self.peak_d = start_d
-        self.peak_lat = math.nan
-        self.peak_lon = math.nan
+        self.top_fraction = top_fraction
+        self.keep_nm = keep_nm
+        self.peak_g = 0.0  # signed, the largest |g| seen in the run
+        self.top: deque[tuple[float, float, float, float]] = deque()  # (d_c nm, g, lat, lon) with |g| near the peak
         self.fired = False
         self.current_at_start: tuple[float, float] | None = None
 
     def note_gradient(self, g: float, d_c: float, lat: float, lon: float) -> None:
         if abs(g) > abs(self.peak_g):
-            self.peak_g, self.peak_d, self.peak_lat, self.peak_lon = g, d_c, lat, lon
+            self.peak_g = g
+        floor = self.top_fraction * abs(self.peak_g)
+        if abs(g) > floor:
+            self.top.append((d_c, g, lat, lon))
+        while self.top and (abs(self.top[0][1]) <= floor or self.top[0][0] < d_c - self.keep_nm):
+            self.top.popleft()  # the floor only rises: what falls under it never counts again
+
+    def steepest(self) -> tuple[float, float, float]:
+        """(odometer nm, lat, lon) of the steepest point: the centroid of the gradient's top.
+
+        The gradient's maximum alone wanders by a tenth of a mile on a wide
+        front (its top is flat and the noise picks the highest point); the
+        centroid of ``|g| - top_fraction x |peak|`` over the points above that
+        floor is about three times steadier and, for a symmetric ramp, at the
+        same place once both sides of the top have been run.
+        """
+        floor = self.top_fraction * abs(self.peak_g)
+        pts = [(abs(g) - floor, d, lat, lon) for d, g, lat, lon in self.top if abs(g) > floor]
+        if not pts:
+            return self.start_d, math.nan, math.nan
+        w_sum = sum(w for w, _, _, _ in pts)
+        d_s = sum(w * d for w, d, _, _ in pts) / w_sum if w_sum > 0.0 else pts[-1][1]  # Σ w d / Σ w
+        _, d_n, lat, lon = min(pts, key=lambda p: abs(p[1] - d_s))
+        return d_s, lat, lon
+
+    @property
+    def peak_d(self) -> float:
+        return self.steepest()[0]
 
 
 class FrontDetector(EstimatorBase):
@@ -278,7 +316,7 @@ class FrontDetector(EstimatorBase):
         self._bin_start_d = 0.0
         self._bin_start_t: float | None = None
         self._run: _Run | None = None
-        self._last_crossing_d = -math.inf
+        self._far_side_from_d = -math.inf  # the far side of a new front is never before this (nm)
         self._caution_until: tuple[float, float] | None = None  # (odometer nm, t_s)
         self._last_pub_t = -math.inf
         self._last_temp: SeaTemperature | None = None
@@ -410,9 +448,11 @@ class FrontDetector(EstimatorBase):
             self._run = None  # the run is over: a last chance for a front that is only now large enough
             if not run.fired:
                 out.extend(self._maybe_fire(run, t_s, d_c, ctx, ended_now=True))
+            if run.fired:
+                self._far_side_from_d = d_c  # the front ends here: its tail is no new front's far side
             run = None
         if run is None and abs(g) >= p.min_gradient_c_per_nm:
-            run = self._run = _Run(int(math.copysign(1, g)), d_c)
+            run = self._run = _Run(int(math.copysign(1, g)), d_c, p.steepest_fraction, p.window_nm)
             run.current_at_start = self._current_vector(ctx)
         if run is not None:
             run.note_gradient(g, d_c, centre.lat, centre.lon)
@@ -420,34 +460,31 @@ class FrontDetector(EstimatorBase):
                 out.extend(self._maybe_fire(run, t_s, d_c, ctx, ended_now=False))
         return out
 
-    def _delta(self, run: _Run) -> tuple[float, float, float]:
-        """(change so far °C, distance nm over which it happened, expected whole change °C), signed.
+    def _delta(self, run: _Run) -> tuple[float, float]:
+        """(change measured so far °C, signed; distance nm over which it happened).
 
         The far side is the coldest (warming run) or warmest (cooling run) bin
-        in the trailing window before the steepest point. A front's profile is
-        about symmetric about its steepest point (a tanh ramp), so the whole
-        change is expected to be about twice the change up to that point.
+        before the steepest point, within the trailing ``window_nm`` and never
+        before the end of the last front declared (``_far_side_from_d``): the
+        tail of a front already reported is not counted again.
         """
         sign = run.sign
         d_end = self._bins[-1].d_nm
-        start = max(d_end - self.p.window_nm, self._last_crossing_d)
-        win = [b for b in self._bins if b.d_nm >= start]
+        start = max(d_end - self.p.window_nm, self._far_side_from_d)
+        win = [b for b in self._bins if b.d_nm >= start] or [self._bins[-1]]
         smooth = _running_mean([b.temp_c for b in win], 3)  # three bins take the edge off sensor noise
         pick = min if sign > 0 else max
         before_peak = [k for k in range(len(win)) if win[k].d_nm <= run.peak_d] or [0]
         i = pick(before_peak, key=lambda k: smooth[k])
-        at_peak = before_peak[-1]
-        delta = smooth[-1] - smooth[i]
-        expected = 2.0 * (smooth[at_peak] - smooth[i])  # symmetric ramp: twice the change to the steepest point
-        expected = delta if abs(delta) >= abs(expected) else expected
+        delta = smooth[-1] - smooth[i]  # measured: newest less the far side
         # The front's width: from the last bin still within 10 % of the change of the far side's extreme.
         j = max(k for k in range(i, len(smooth)) if sign * (smooth[k] - smooth[i]) <= 0.1 * abs(delta))
-        return delta, d_end - win[j].d_nm, expected
+        return delta, d_end - win[j].d_nm
 
     def _maybe_fire(self, run: _Run, t_s: float, d_c: float, ctx: Context, ended_now: bool) -> Sequence[Output]:
         p = self.p
-        delta, dist, expected = self._delta(run)
-        if round(run.sign * expected, 1) < p.min_delta_c:  # judged to 0.1 °C, as sensors report
+        delta, dist = self._delta(run)
+        if round(run.sign * delta, 1) < p.min_delta_c:  # the measured change, judged to 0.1 °C as sensors report
             return ()
         g_now = self._gradient if self._gradient is not None else 0.0
         past_peak = (ended_now or d_c - run.peak_d >= p.confirm_nm
@@ -455,9 +492,8 @@ class FrontDetector(EstimatorBase):
         if not past_peak:
             return ()
         run.fired = True
-        self._last_crossing_d = self._bins[-1].d_nm
         self._counts["crossings"] += 1
-        return self._crossing_outputs(run, t_s, delta, dist, expected, ctx)
+        return self._crossing_outputs(run, t_s, delta, dist, ctx)
 
     # ------------------------------------------------------------------ outputs
 
@@ -471,26 +507,25 @@ class FrontDetector(EstimatorBase):
             return None
         return float(east), float(north)
 
-    def _crossing_outputs(self, run: _Run, t_s: float, delta: float, dist: float, expected: float,
-                          ctx: Context) -> list[Output]:
+    def _crossing_outputs(self, run: _Run, t_s: float, delta: float, dist: float, ctx: Context) -> list[Output]:
         before, after = run.current_at_start, self._current_vector(ctx)
         change = None if before is None or after is None else math.hypot(after[0] - before[0], after[1] - before[1])
-        where = format_lat_lon(run.peak_lat, run.peak_lon)
+        steep_d, steep_lat, steep_lon = run.steepest()
+        where = format_lat_lon(steep_lat, steep_lon)
         verb = "rose" if delta > 0 else "fell"
         note = None
         if change is not None and change >= self.p.current_note_kn:
             note = f"the current estimate changed by {change:.1f} kn across the front"
-        detected_after = self._bins[-1].d_nm - run.peak_d
+        detected_after = self._bins[-1].d_nm - steep_d
         payload = {
             "kind": "front_crossing",
-            "lat": round(run.peak_lat, 6),
-            "lon": round(run.peak_lon, 6),
-            "delta_c": round(delta, 2),  # measured so far, from the far side to the detection
-            "delta_expected_c": round(expected, 2),  # the whole front's change (see _delta)
+            "lat": round(steep_lat, 6),
+            "lon": round(steep_lon, 6),
+            "delta_c": round(delta, 2),  # measured, from the far side to the detection
             "gradient_c_per_nm": round(run.peak_g, 2),
             "warmer": delta > 0,
             "distance_nm": round(dist, 3),  # over which delta_c was measured
-            "distance_run_nm": round(run.peak_d, 3),  # odometer at the steepest point
+            "distance_run_nm": round(steep_d, 3),  # odometer at the steepest point
             "detected_after_nm": round(detected_after, 3),  # run past the steepest point when declared
             "current_change_kn": None if change is None else round(change, 2),
             "current_note": note,

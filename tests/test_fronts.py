@@ -94,7 +94,9 @@ def test_one_event_per_front_within_a_third_of_a_mile():
     assert abs(x_reported - 3.0) < 0.05
     # AND the peak gradient is of the right size: the ramp's steepest is 3.4 x 2.197 / (2 x 0.6) = 6.2 °C/nm
     assert 4.0 < ev["gradient_c_per_nm"] < 8.0
-    assert 2.0 <= ev["delta_c"] <= 3.5 and 2.6 <= ev["delta_expected_c"] <= 3.8
+    # AND delta_c is the change measured up to the detection: most of the 3.4 °C, never under min_delta_c
+    assert 2.0 <= ev["delta_c"] <= 3.4
+    assert "delta_expected_c" not in ev
     # AND the front caution was raised once, with what was seen
     raised = [c for c in conditions if c.active]
     assert len(raised) == 1 and raised[0].alert_id == "front" and raised[0].priority == "caution"
@@ -119,6 +121,59 @@ def test_far_side_of_a_warm_current_is_its_own_event():
     # THEN two events: warmer, then cooler, each near its own edge
     assert [e["warmer"] for e, _ in events] == [True, False]
     assert 0.0 <= events[0][1] - 2.0 <= 0.3 and 0.0 <= events[1][1] - 5.0 <= 0.3
+
+
+def test_the_tail_of_a_front_is_not_a_second_front():
+    # GIVEN a +2.4 °C front 0.6 nm wide at 2 nm whose last 0.8 °C creeps in over the next 0.8 nm, with
+    #       ±0.15 °C patches every 0.8 nm (the demo passage's band edge along a crabbing track looks like this;
+    #       the tail's own gradient reaches the 1 °C/nm that starts a run)
+    tail = lambda x: 0.8 * min(max(x - 2.3, 0.0) / 0.8, 1.0)
+    sea = lambda x: tanh_front(2.0, 2.4, 0.6)(x) + tail(x) + 0.15 * math.sin(2 * math.pi * x / 0.8)
+    for seed in (21, 22, 23):
+        events, conditions, _, _ = sail(sea, hours=0.9, seed=seed)
+        # THEN exactly one event and one caution, declared at the front, not in its tail
+        assert len(events) == 1, (seed, [e for e, _ in events])
+        assert len([c for c in conditions if c.active]) == 1
+        assert 0.0 <= events[0][1] - 2.0 <= 0.3
+        assert events[0][0]["delta_c"] >= 2.0
+
+
+def test_delta_c_is_measured_and_never_under_the_threshold():
+    # GIVEN fronts just over the 2.0 °C threshold, wide enough that at the usual detection point
+    #       (about 0.27 nm past the steepest point) only about 80 % of the change has been run
+    for seed, (dc, width) in enumerate(((2.2, 0.8), (-2.3, 0.9), (2.1, 0.6)), start=30):
+        events, _, _, _ = sail(tanh_front(2.0, dc, width), hours=0.8, seed=seed)
+        # THEN the detector waits until the measured change reaches the threshold; it reports no more than it saw
+        assert len(events) == 1
+        ev, x_boat = events[0]
+        assert round(abs(ev["delta_c"]), 1) >= FrontParams().min_delta_c
+        assert abs(ev["delta_c"]) <= abs(dc) + 0.15  # + sensor noise and quantisation, no extrapolation
+        # AND the whole change the boat had run through by then, by the formula, is at least what it reports
+        seen = abs(tanh_front(2.0, dc, width)(x_boat) - tanh_front(2.0, dc, width)(0.0))
+        assert abs(ev["delta_c"]) <= seen + 0.15
+
+
+def test_steepest_point_is_steady_on_a_wide_front():
+    # GIVEN a 4 °C front 1.0 nm wide (flat-topped gradient), four seeds, at 5 and 7 kn
+    for speed_kn in (5.0, 7.0):
+        for seed in range(40, 44):
+            events, _, _, _ = sail(tanh_front(1.5, 4.0, 1.0), hours=2.6 / speed_kn, speed_kn=speed_kn, seed=seed)
+            # THEN one event, declared within 0.3 nm past the steepest point, which it places within 0.05 nm
+            assert len(events) == 1
+            ev, x_boat = events[0]
+            assert 0.0 <= x_boat - 1.5 <= 0.3
+            x_reported = (ev["lon"] - LON0) * M_PER_DEG_LON / 1852.0
+            assert abs(x_reported - 1.5) < 0.05
+
+
+def test_same_sign_front_after_a_plateau_is_its_own_event():
+    # GIVEN +2.8 °C at 2 nm, a plateau, then +2.6 °C at 3.2 nm (0.4 nm wide each)
+    sea = lambda x: tanh_front(2.0, 2.8, 0.4)(x) + tanh_front(3.2, 2.6, 0.4)(x)
+    events, _, _, _ = sail(sea, hours=0.8, seed=13)
+    # THEN two warmer events, each near its own front, each measured from its own far side
+    assert [e["warmer"] for e, _ in events] == [True, True]
+    assert 0.0 <= events[0][1] - 2.0 <= 0.3 and 0.0 <= events[1][1] - 3.2 <= 0.3
+    assert all(2.0 <= e["delta_c"] <= 2.95 for e, _ in events)
 
 
 def test_two_warming_steps_a_few_miles_apart_are_two_events():
