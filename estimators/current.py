@@ -253,6 +253,26 @@ class _WaterInputs:
     turning: bool = False          # a manoeuvre or a fast heading change (see _turn_hold)
 
 
+_I4 = np.eye(4)
+
+
+def _inv2(S: np.ndarray) -> np.ndarray:
+    """Inverse of a 2 x 2 matrix (closed form)."""
+    a, b, c, d = S.ravel().tolist()
+    det = a * d - b * c
+    return np.array([[d, -b], [-c, a]]) / det
+
+
+def _nis(y: np.ndarray, S: np.ndarray) -> float:
+    """y' S^-1 y for a 2-vector; NaN when y or S is not finite, or S not positive definite."""
+    a, b, c, d = S.ravel().tolist()
+    y0, y1 = y[0, 0].item(), y[1, 0].item()
+    det = a * d - b * c
+    if not (math.isfinite(a + b + c + d + y0 + y1) and det > 0.0 and a > 0.0):
+        return math.nan
+    return (y0 * (d * y0 - b * y1) + y1 * (a * y1 - c * y0)) / det
+
+
 def unit(angle_rad: float) -> np.ndarray:
     """(east, north) of a unit vector toward ``angle_rad`` (from north, clockwise)."""
     return np.array([[math.sin(angle_rad)], [math.cos(angle_rad)]])
@@ -320,7 +340,7 @@ class CurrentEstimator(EstimatorBase):
         self._slow: tuple[float, float, float, float] | None = None  # t, speed, heading unit vector (e, n)
         self._fast: tuple[float, float, float, float] | None = None
         self._turn_since: float | None = None
-        self._manoeuvre_hist: deque[tuple[float, float, float]] = deque()
+        self._manoeuvre_hist: deque[tuple[float, float, float, float]] = deque()  # t, heading unit e/n, speed
         self._calibrating = False
         self._calibrating_until = -math.inf
 
@@ -555,9 +575,7 @@ class CurrentEstimator(EstimatorBase):
 
     def _predict(self, t: float) -> None:
         dt = max(0.0, t - self.t_filter)
-        self.ekf.F = np.eye(4)
-        self.ekf.Q = self._process_noise(dt)
-        self.ekf.predict()                                                           # x = F x, P = F P F' + Q
+        self.ekf.P = self.ekf.P + self._process_noise(dt)                            # F = I: x = x, P = P + Q
         self.t_filter = t
 
     def _measurement_cov(self, g: tuple[float, float], w: _WaterInputs, k: float, theta: float) -> np.ndarray:
@@ -566,7 +584,6 @@ class CurrentEstimator(EstimatorBase):
         sg = p.gnss_velocity_sigma_kn * (p.low_sog_inflation if math.hypot(*g) < p.low_sog_kn else 1.0)
         s = w.speed_kn
         lam = math.radians(leeway_deg(p, w.heel_deg, k * s))
-        u, n = unit(theta), d_unit(theta)
         # heading noise, the leeway's uncertainty and, in a turn, how far the interval's mean heading
         # can be from the heading at the fix (the spread of the headings in the window)
         # ... and, in a turn fused (longer than the hold), the unknown lag between the GNSS velocity and
@@ -575,34 +592,36 @@ class CurrentEstimator(EstimatorBase):
         cross = (k * s) ** 2 * (math.radians(p.heading_sigma_deg) ** 2 + (p.leeway_sigma_fraction * lam) ** 2
                                 + math.radians(w.spread_deg) ** 2 + math.radians(w.turn_rate_deg_s * lag) ** 2)
         along = k ** 2 * (p.log_sigma_kn ** 2 + (w.speed_rate_kn_s * lag) ** 2)
-        return sg ** 2 * np.eye(2) + along * u @ u.T + cross * n @ n.T
+        ue, un = math.sin(theta), math.cos(theta)                               # u = u(theta), n = (un, -ue)
+        r2 = sg ** 2
+        return np.array([[r2 + along * ue * ue + cross * un * un, (along - cross) * ue * un],   # sg^2 I + along u u'
+                         [(along - cross) * ue * un, r2 + along * un * un + cross * ue * ue]])  #   + cross n n'
 
     def _fuse_ground_velocity(self, t: float, g: tuple[float, float], w: _WaterInputs) -> FusionReport:
-        """One gated, Joseph-form EKF update with the ground velocity."""
+        """One gated, Joseph-form EKF update with the ground velocity.
+
+        Written out for the 2 x 4 case with plain floats where numpy's small-matrix
+        calls cost more than the arithmetic (it runs at 1 Hz on a small computer and
+        over whole passages in replay). Every step makes new arrays, never changes
+        one in place, so the prior is kept by reference.
+        """
         p, ekf = self.params, self.ekf
-        x_prior, P_prior = ekf.x.copy(), ekf.P.copy()
+        x_prior, P_prior = ekf.x, ekf.P
+        x, P = x_prior, P_prior
         s = w.speed_kn
-        k, d = float(ekf.x[IK, 0]), float(ekf.x[ID, 0])
-        theta_of = lambda x: math.radians(w.heading_deg + leeway_deg(p, w.heel_deg, float(x[IK, 0]) * s)) + float(x[ID, 0])
-
-        def hx(x: np.ndarray) -> np.ndarray:
-            return x[:2] + float(x[IK, 0]) * s * unit(theta_of(x))              # h(x) = c + k s u(theta)
-
-        def jacobian(x: np.ndarray) -> np.ndarray:
-            ss, kk = w.slow_speed_kn, float(x[IK, 0])                           # low-passed inputs (_slow_inputs)
-            th = math.radians(w.slow_heading_deg + leeway_deg(p, w.heel_deg, kk * ss)) + float(x[ID, 0])
-            return np.hstack([np.eye(2), ss * unit(th), kk * ss * d_unit(th)])  # [I, s u, k s du/dtheta]
-
-        z = np.array([[g[0]], [g[1]]])
-        R = self._measurement_cov(g, w, k, theta_of(ekf.x))
-        H = jacobian(ekf.x)
-        y = z - hx(ekf.x)                                                       # innovation
-        S = H @ ekf.P @ H.T + R                                                 # its covariance
+        ce, cn, k, d = x[:, 0].tolist()
+        theta = math.radians(w.heading_deg + leeway_deg(p, w.heel_deg, k * s)) + d
+        R = self._measurement_cov(g, w, k, theta)
+        H = self._jacobian(w, k, d)
+        y = np.array([[g[0] - ce - k * s * math.sin(theta)],                    # y = z - h(x),
+                      [g[1] - cn - k * s * math.cos(theta)]])                   # h(x) = c + k s u(theta)
+        PHt = P @ H.T
+        S = H @ PHt + R                                                         # S = H P H' + R
         gate = self._gate
-        if not (np.all(np.isfinite(y)) and np.all(np.isfinite(S))) or np.linalg.det(S) <= 0.0 or S[0, 0] <= 0.0:
+        nis = _nis(y, S)                                                        # y' S^-1 y, NaN if S is not usable
+        if not math.isfinite(nis):
             self.health.faults += 1
             return self._report(t, y, math.nan, gate, False, "numerical guard", x_prior, P_prior)
-        nis = (y.T @ np.linalg.solve(S, y)).item()                                # normalised innovation squared
         self._adapt(min(nis, 4.0 * gate))
         if nis > gate:
             self.health.rejected += 1
@@ -610,25 +629,35 @@ class CurrentEstimator(EstimatorBase):
             if self.consecutive_rejects < p.rejections_before_reset:
                 return self._report(t, y, nis, gate, False, "gate", x_prior, P_prior)
             self.health.resets += 1
-            ekf.P[:2, :2] += (p.reset_current_sigma_kn ** 2 + (y.T @ y).item() / 2.0) * np.eye(2)  # inflate, then accept
-            x_prior, P_prior = ekf.x.copy(), ekf.P.copy()
+            P = P.copy()
+            P[:2, :2] += (p.reset_current_sigma_kn ** 2 + float(y[0, 0] ** 2 + y[1, 0] ** 2) / 2.0) * np.eye(2)  # inflate, then accept
+            ekf.P = P_prior = P
+            PHt = P @ H.T                                                       # the inflated innovation covariance
+            S = H @ PHt + R
         self.consecutive_rejects = 0
-        if nis > gate:  # after a reset the innovation covariance is the inflated one
-            H = jacobian(ekf.x)
-            S = H @ ekf.P @ H.T + R
-        K = ekf.P @ H.T @ np.linalg.inv(S)                                      # K = P H' S^-1
+        K = PHt @ _inv2(S)                                                      # K = P H' S^-1
         if not self._calibrating:
             K[IK:, :] = 0.0   # Schmidt "consider" states: k, d not updated on a steady course (see _track_manoeuvres)
-        ekf.x = ekf.x + K @ y                                                   # x+ = x + K y
-        I_KH = np.eye(4) - K @ H
-        ekf.P = I_KH @ ekf.P @ I_KH.T + K @ R @ K.T                             # Joseph form: right for any gain
-        ekf.P = 0.5 * (ekf.P + ekf.P.T)
-        if not (np.all(np.isfinite(ekf.x)) and np.all(np.isfinite(ekf.P)) and np.all(np.diag(ekf.P) > 0.0)):
+        x_new = x + K @ y                                                       # x+ = x + K y
+        I_KH = _I4 - K @ H
+        P_new = I_KH @ P @ I_KH.T + K @ R @ K.T                                 # Joseph form: right for any gain
+        P_new = 0.5 * (P_new + P_new.T)
+        if not (math.isfinite(float(x_new.sum())) and math.isfinite(float(P_new.sum()))
+                and float(P_new.diagonal().min()) > 0.0):
             self.health.faults += 1
             ekf.x, ekf.P = x_prior, P_prior
             return self._report(t, y, nis, gate, False, "numerical guard after update", x_prior, P_prior)
+        ekf.x, ekf.P = x_new, P_new
         self.health.fused += 1
         return self._report(t, y, nis, gate, True, "", x_prior, P_prior)
+
+    def _jacobian(self, w: _WaterInputs, k: float, d: float) -> np.ndarray:
+        """H = [I, s u(theta), k s du/dtheta] from the low-passed inputs (_slow_inputs)."""
+        ss = w.slow_speed_kn
+        th = math.radians(w.slow_heading_deg + leeway_deg(self.params, w.heel_deg, k * ss)) + d
+        sn, cs = math.sin(th), math.cos(th)
+        return np.array([[1.0, 0.0, ss * sn, k * ss * cs],
+                         [0.0, 1.0, ss * cs, -k * ss * sn]])
 
     def _track_manoeuvres(self, t: float, w: _WaterInputs) -> None:
         """Open the calibration window for ``calibration_window_s`` after a manoeuvre.
@@ -643,14 +672,18 @@ class CurrentEstimator(EstimatorBase):
         """
         p = self.params
         hist = self._manoeuvre_hist
+        he, hn = to_east_north(1.0, w.slow_heading_deg)
         if not hist or t - hist[-1][0] >= MANOEUVRE_SAMPLE_S:  # the low-passed course needs no 1-s history
-            hist.append((t, w.slow_heading_deg, w.slow_speed_kn))
+            hist.append((t, he, hn, w.slow_speed_kn))
         while hist and hist[0][0] < t - p.calibration_window_s:
             hist.popleft()
-        turned = max(abs(wrap_180(h - w.slow_heading_deg)) for (_, h, _) in hist)
-        speeds = [v for (_, _, v) in hist]
-        sped = (max(speeds) - min(speeds)) / max(0.5, max(speeds))
-        if turned >= 0.5 * p.min_course_change_deg or sped >= p.calibration_speed_change_fraction:
+        # turned by half the calibrating course change or more  <=>  cos(turn) = u_then . u_now <= cos(half)
+        cos_half = math.cos(math.radians(0.5 * p.min_course_change_deg))
+        turned = min(e * he + n * hn for (_, e, n, _) in hist) <= cos_half
+        speeds = [v for (_, _, _, v) in hist]
+        top = max(speeds)
+        sped = (top - min(speeds)) / max(0.5, top)
+        if turned or sped >= p.calibration_speed_change_fraction:
             self._calibrating_until = t + p.calibration_window_s
         self._calibrating = t <= self._calibrating_until
 
