@@ -4,7 +4,10 @@ The boat follows legs of constant true heading at a constant true speed through
 the water; the current walks (or holds); the compass reads the true heading
 minus the offset plus white noise; the log reads true STW / scale plus noise;
 the GNSS gives ground velocity (true water velocity + current) plus white
-noise per axis. One heading, one log and one fix sample per second.
+noise per axis. One log and one fix sample per second, ``heading_hz`` headings
+(the newest 0.4 s before the fix; above one a second each is the heading at
+its own time, so in a turn the mean heading lags the fix's course); optionally the boat sheds speed in a turn (``turn_speed_loss``,
+recovering with a 20-s time constant), as a sailing boat does.
 """
 
 from __future__ import annotations
@@ -34,7 +37,8 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
                   k: float = 1.06, offset_deg: float = 3.0, gnss_sigma: float = 0.1, log_sigma: float = 0.1,
                   heading_sigma_deg: float = 1.5, turn_rate_deg_s: float = 10.0,
                   fix_gap: tuple[float, float] | None = None, log_override=None,
-                  current_steps: tuple[tuple[float, tuple[float, float]], ...] = ()) -> Synth:
+                  current_steps: tuple[tuple[float, tuple[float, float]], ...] = (),
+                  heading_hz: int = 1, turn_speed_loss: float = 0.0) -> Synth:
     """``legs``: (start time s from T0, true heading deg), sorted. ``log_override(t_rel, reading) -> reading``;
     ``current_steps``: (time s from T0, new (east, north)) where the current jumps."""
     rng = np.random.default_rng(seed)
@@ -42,22 +46,30 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
     ce, cn = current_en
     q = walk_kn_per_sqrt_h / math.sqrt(3600.0)
     hdg = legs[0][1]
+    stw = stw_kn
     for i in range(1, duration_s + 1):
         target = [h for (ts, h) in legs if ts <= i][-1]
         diff = (target - hdg + 180.0) % 360.0 - 180.0
+        prev_hdg = hdg
         hdg = wrap_360(hdg + max(-turn_rate_deg_s, min(turn_rate_deg_s, diff)))
+        target_stw = stw_kn * (1.0 - turn_speed_loss) if abs(diff) > 20.0 else stw_kn
+        stw += (target_stw - stw) * (1.0 - math.exp(-1.0 / 20.0))          # first-order speed, 20 s
         for ts, new in current_steps:
             if i == ts:
                 ce, cn = new
         ce += q * rng.standard_normal()
         cn += q * rng.standard_normal()
         t = T0 + i
-        reading = stw_kn / k + log_sigma * rng.standard_normal()
+        reading = stw / k + log_sigma * rng.standard_normal()
         if log_override is not None:
             reading = log_override(i, reading)
-        out.samples.append(Heading(t - 0.4, wrap_360(hdg - offset_deg + heading_sigma_deg * rng.standard_normal())))
+        for j in reversed(range(heading_hz)):
+            lag = 0.4 + j / heading_hz                                         # seconds before the fix
+            # the heading at the sample's time (one a second: the fix's heading, the original model)
+            h_then = hdg if heading_hz == 1 else prev_hdg + (1.0 - lag) * ((hdg - prev_hdg + 180.0) % 360.0 - 180.0)
+            out.samples.append(Heading(t - lag, wrap_360(h_then - offset_deg + heading_sigma_deg * rng.standard_normal())))
         out.samples.append(WaterSpeed(t - 0.3, max(0.0, reading)))
-        we, wn = to_east_north(stw_kn, hdg)
+        we, wn = to_east_north(stw, hdg)
         ge = we + ce + gnss_sigma * rng.standard_normal()
         gn = wn + cn + gnss_sigma * rng.standard_normal()
         sog, cog = from_east_north(ge, gn)
