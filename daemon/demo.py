@@ -8,7 +8,6 @@ service itself (``run``) never starts a broker.
 from __future__ import annotations
 
 import json
-import socket
 import threading
 import time
 from collections import Counter
@@ -28,12 +27,6 @@ def demo_files() -> tuple[list[str], str | None]:
         raise InputError(f"no demo passage (*.nmea.gz) in {RECORDED}")
     cfg = RECORDED / "demo.toml"
     return files[:1], str(cfg) if cfg.exists() else None
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 class Display:
@@ -76,9 +69,10 @@ def demo_command(args) -> int:
     if broker_answers(host, port):
         print(f"Using the MQTT broker at {host}:{port}.")
     else:
-        host, port = "127.0.0.1", _free_port()
-        broker = EmbeddedBroker(host, port)
+        host = "127.0.0.1"
+        broker = EmbeddedBroker(host, 0)  # 0: the broker binds a free port itself (no race for it)
         broker.start()
+        port = broker.port
         url = f"mqtt://{host}:{port}"
         print(f"No broker answered; started an embedded demo broker on {host}:{port}.")
     out = Path(args.out)
