@@ -46,7 +46,7 @@ Method (a robust windowed regression in distance; no state-space model):
    reaches ``min_delta_c`` and the gradient is past its peak: fallen to
    ``past_peak_fraction`` of the peak, ``confirm_nm`` run past the steepest
    point, or the run ended. Detection lag: ``confirm_nm`` plus half of
-   ``smoothing_nm`` plus the despike lag, about 0.27 nm past the steepest
+   ``smoothing_nm`` plus the despike lag, about 0.25 nm past the steepest
    point by default (less on a narrow front, whose gradient falls sooner),
    for a front whose measured change has reached ``min_delta_c`` by then; a
    front only just over the threshold is declared later, once it has.
@@ -122,7 +122,7 @@ class FrontParams:
     position_average_s: float = param(10.0, "s", 0.0, 60.0, "fixes are averaged over this before the odometer")
     run_keep_fraction: float = param(0.5, "", 0.1, 1.0, "a run lasts while |g| >= this x min_gradient")
     past_peak_fraction: float = param(0.5, "", 0.1, 0.95, "gradient fallen to this x its peak: past the front")
-    confirm_nm: float = param(0.2, "nm", 0.0, 1.0, "distance past the peak after which a crossing is declared")
+    confirm_nm: float = param(0.18, "nm", 0.0, 1.0, "distance past the peak after which a crossing is declared")
     caution_nm: float = param(2.0, "nm", 0.1, 50.0, "the front caution lasts this far past the crossing...")
     caution_s: float = param(1200.0, "s", 60.0, 86400.0, "...or this long, whichever comes first")
     current_note_kn: float = param(0.5, "kn", 0.0, 10.0, "current change across the front worth a note")

@@ -291,3 +291,75 @@ def test_long_steps_fall_back_to_the_geodesic():
 def test_positions_in_degrees_and_minutes():
     assert format_lat_lon(36.205, -12.5758) == "36°12.3'N 012°34.5'W"
     assert format_lat_lon(-0.9999999, 0.0) == "01°00.0'S 000°00.0'E"
+
+
+# --------------------------------------------------------------------------- simulator scenario and a real capture
+
+
+def _fronts_on(run, params: FrontParams | None = None) -> list[Publication]:
+    det, ctx, events = FrontDetector(params or FrontParams()), FakeContext(), []
+    for s in run.samples:
+        if isinstance(s, (Fix, SeaTemperature)):
+            events += [o for o in det.step(s, ctx) if isinstance(o, Publication) and o.topic == "events"]
+    return events
+
+
+@pytest.mark.parametrize("seed", [1, 2])
+def test_simulated_front_crossing_one_event_for_the_main_front_none_for_the_weak_one(seed):
+    from daemon.simulator import scenarios, simulate
+
+    # GIVEN the simulator's front_crossing scenario: a +3 °C front at 5 nm, patchiness of ±0.3 °C,
+    #       a −0.8 °C front at 14 nm (under the 2 °C threshold), sensor noise, sun on the hull
+    run = simulate(scenarios.front_crossing(), seed=seed)
+    main, weak = [e for e in run.events if e.kind == "front_crossing"]
+    assert main.detail["delta_c"] == 3.0 and weak.detail["delta_c"] == -0.8
+    # WHEN the detector runs over its fixes and sea temperatures
+    events = _fronts_on(run)
+    # THEN exactly one event, warmer, for the main front, and none for the weak one
+    assert len(events) == 1
+    ev = events[0]
+    assert ev.payload["warmer"] is True and ev.t_s < weak.t_s
+    # AND it was declared 0 to 0.3 nm past the true crossing (WGS84 geodesic, geographiclib)
+    boat = run.truth_at(ev.t_s)
+    lag_nm = Geodesic.WGS84.Inverse(main.lat, main.lon, boat.lat, boat.lon)["s12"] / 1852.0
+    assert ev.t_s >= main.t_s and lag_nm <= 0.3
+    # AND it reports the change it measured: over the threshold, not more than the true 3 °C + noise
+    assert 2.0 <= ev.payload["delta_c"] <= 3.2
+
+
+def test_real_survey_with_a_mild_gradient_gives_no_front():
+    from daemon.config import load_config
+    from daemon.replay import run_replay
+    from tests.shared import shared_path
+
+    # GIVEN a real 43-minute sounder survey from a small boat (paleolimbot/nmea, inst/extdata/depths.nmea,
+    #       MIT; see SOURCES.md): SDMTW every 2 s, 20.5–21.5 °C in 0.1 °C steps, a mild gradient, no sharp front
+    path = shared_path("real-captures", "sounder-survey-43min-dpt-mtw.nmea")
+
+    class Collect:
+        def __init__(self) -> None:
+            self.messages = []
+
+        def raw(self, line) -> None:
+            pass
+
+        def message(self, msg) -> None:
+            self.messages.append(msg)
+
+        def close(self) -> None:
+            pass
+
+    sink = Collect()
+    # WHEN it is replayed through the whole pipeline
+    run_replay([str(path)], load_config(None), extra_sinks=[sink], progress=False)
+    # THEN the detector followed the water along the track (temperatures in the range the source states,
+    #      gradients once distance had been run) ...
+    sea = [m.payload for m in sink.messages if m.topic.endswith("/sea_temperature")]
+    temps = [p["temp_c"] for p in sea]
+    grads = [p["gradient_c_per_nm"] for p in sea if p["gradient_c_per_nm"] is not None]
+    assert len(temps) > 500 and 20.4 <= min(temps) and max(temps) <= 21.6
+    assert len(grads) > 300 and max(p["distance_run_nm"] for p in sea) > 1.0
+    # ... AND reported no front_crossing event and raised no front caution
+    kinds = [m.payload.get("kind") for m in sink.messages if m.topic.endswith("/events")]
+    assert "front_crossing" not in kinds
+    assert not [m for m in sink.messages if m.topic.endswith("/alerts/front")]

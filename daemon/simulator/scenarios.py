@@ -121,9 +121,9 @@ def gnss_outage() -> Scenario:
 
 
 def front_crossing() -> Scenario:
-    """Three hours south at 6 kn: a +2.0 °C front (0.5 nm wide) at 5 nm, patchiness, a −0.8 °C front at 14 nm."""
+    """Three hours south at 6 kn: a +3.0 °C front (0.5 nm wide) at 5 nm, patchiness, a −0.8 °C front at 14 nm."""
     t0, lat, lon = utc(2026, 5, 8, 7), 45.50, -25.80
-    f1 = Front(*along(lat, lon, 180.0, 5.0), along_deg=90.0, delta_c=2.0, width_nm=0.5)  # warmer to the south
+    f1 = Front(*along(lat, lon, 180.0, 5.0), along_deg=90.0, delta_c=3.0, width_nm=0.5)  # warmer to the south
     f2 = Front(*along(lat, lon, 180.0, 14.0), along_deg=90.0, delta_c=-0.8, width_nm=0.8)  # cooler to the south
     sea = SeaTemperatureField(14.0, lat, lon, fronts=(f1, f2),
                               patches=(Patch(0.2, 3.0, 160.0, 0.4), Patch(0.1, 1.1, 45.0, 1.3)))
@@ -138,7 +138,7 @@ def front_crossing() -> Scenario:
         helm=(Steer(180.0, 6.0, 3 * H),),
         ocean=ocean,
         sensors=SensorSpec(hull_sun_warming_c=0.2),
-        description="Patchiness of ±0.3 °C everywhere; a sharp +2 °C front, later a weak −0.8 °C one.",
+        description="Patchiness of ±0.3 °C everywhere; a sharp +3 °C front, later a weak −0.8 °C one (no front).",
     )
 
 
