@@ -559,3 +559,44 @@ def test_ack_over_mqtt_acknowledges_a_warning_and_ignores_the_rest(live, tmp_pat
     # the lifecycle in order (re-announcements may repeat a state): active, acknowledged, cleared
     assert [s for i, s in enumerate(states) if i == 0 or states[i - 1] != s] == ["active", "acknowledged", "cleared"]
     print(f"\nfigures: gnss_lost raised {raised_after:.1f} s after the last fix")
+
+
+def test_broker_away_at_start_and_at_stop(live):
+    """The service does not wait for the broker: READY without it, it publishes once the broker comes,
+    and SIGTERM while the broker is away still ends it promptly with status 0 (systemd's
+    TimeoutStopSec in systemd/offwatch.service is 20 s)."""
+    broker, notify = live["broker"], live["notify"]
+    # GIVEN the boat's broker is not running yet
+    live["display"].close()
+    broker.stop()
+    daemon = live["start"]("away")
+    try:
+        # THEN the service is ready anyway and keeps pinging the watchdog
+        assert wait_until(lambda: notify.times_of("READY=1"), 30), daemon.log()
+        assert wait_until(lambda: len(notify.times_of("WATCHDOG=1")) >= 3, 15), daemon.log()
+        # WHEN the broker comes up
+        t_up = time.monotonic()
+        broker.start()
+        display = Display(*broker)
+        try:
+            # THEN the status and the position arrive (the outbox kept the latest states)
+            assert wait_until(lambda: {f"{PREFIX}/status", f"{PREFIX}/position"} <= display.topics(), 20), \
+                (display.topics(), daemon.log()[-2000:])
+            connected_after = min(m.at for m in display.messages) - t_up
+            assert display.latest(f"{PREFIX}/status").payload["state"] == "online"
+        finally:
+            display.close()
+        # WHEN the broker goes away again and systemd stops the service
+        broker.stop()
+        time.sleep(1.0)
+        t_term = time.monotonic()
+        rc = daemon.stop(signal.SIGTERM, timeout_s=20)
+        stop_took = time.monotonic() - t_term
+    finally:
+        daemon.kill()
+    # THEN it stopped cleanly, and said so
+    assert rc == 0, daemon.log()[-3000:]
+    assert notify.times_of("STOPPING=1")
+    assert "stopped cleanly" in daemon.log()
+    print(f"\nfigures: first message {connected_after:.1f} s after the broker came up; "
+          f"SIGTERM with the broker away took {stop_took:.1f} s")
