@@ -42,8 +42,8 @@ Method (a robust windowed regression in distance; no state-space model):
    the tail of a front (its last tenth often creeps in over most of a mile)
    is never measured again as a front of its own. The change, ``delta_c``, is
    *measured*: the newest bin less the far side, nothing extrapolated. A
-   crossing is declared once per run, when that change (rounded to 0.1 °C)
-   reaches ``min_delta_c`` and the gradient is past its peak: fallen to
+   crossing is declared once per run, when that change reaches
+   ``min_delta_c`` and the gradient is past its peak: fallen to
    ``past_peak_fraction`` of the peak, ``confirm_nm`` run past the steepest
    point, or the run ended. Detection lag: ``confirm_nm`` plus half of
    ``smoothing_nm`` plus the despike lag, about 0.25 nm past the steepest
@@ -484,7 +484,7 @@ class FrontDetector(EstimatorBase):
     def _maybe_fire(self, run: _Run, t_s: float, d_c: float, ctx: Context, ended_now: bool) -> Sequence[Output]:
         p = self.p
         delta, dist = self._delta(run)
-        if round(run.sign * delta, 1) < p.min_delta_c:  # the measured change, judged to 0.1 °C as sensors report
+        if run.sign * delta < p.min_delta_c:  # the measured change itself, so no event reports less
             return ()
         g_now = self._gradient if self._gradient is not None else 0.0
         past_peak = (ended_now or d_c - run.peak_d >= p.confirm_nm
