@@ -130,6 +130,9 @@ def run_all(sim, params: CurrentParams) -> dict:
             out[name].dr_pct = dead_reckoning_pct(sim, outage, state)
     out["health"] = est.health.as_dict()
     out["calibration"] = est.calibration()
+    out["state"] = est.state()
+    out["truth_calibration"] = (true_scale, true_offset)
+    out["status"] = est._calibration_words(None)["status"]
     return out
 
 
@@ -196,9 +199,14 @@ def main(argv: list[str] | None = None) -> int:
               f"| {fmt(o.dr_pct, 2)} / {fmt(p.dr_pct, 2)} / {fmt(b.dr_pct, 2)} | {secs:.1f} |")
     print()
     for name, r, _ in rows:
-        c = r["calibration"]
-        print(f"- {name}: learnt stw_scale {c.stw_scale:.4f} ± {c.stw_scale_sigma:.4f}, heading offset "
-              f"{c.heading_offset_deg:+.2f} ± {c.heading_offset_sigma_deg:.2f} deg; health {r['health']}")
+        c, st = r["calibration"], r["state"]
+        k_true, d_true = r["truth_calibration"]
+        zk = (st["stw_scale"] - k_true) / st["stw_scale_sigma"]                  # error in the filter's own sigmas
+        zd = (st["heading_offset_deg"] - d_true) / st["heading_offset_sigma_deg"]
+        print(f"- {name}: {r['status']}; reported stw_scale {c.stw_scale:.4f} ± {c.stw_scale_sigma:.4f}, heading offset "
+              f"{c.heading_offset_deg:+.2f} ± {c.heading_offset_sigma_deg:.2f} deg; filter k {st['stw_scale']:.4f} "
+              f"(truth {k_true:.4f}, {zk:+.1f} sigma), d {st['heading_offset_deg']:+.2f} deg (truth {d_true:+.2f}, "
+              f"{zd:+.1f} sigma); health {r['health']}")
     print(f"\ntotal {time.perf_counter() - t_all:.1f} s")
     return 0
 

@@ -3,7 +3,8 @@ the compass's offset, with the uncertainty it honestly has.
 
 Theory of operation
 -------------------
-State (extended Kalman filter, filterpy ``ExtendedKalmanFilter``)::
+State (extended Kalman filter; x and P live in a filterpy ``ExtendedKalmanFilter``, the predict and
+the 2 x 4 update are written out here, cheaper than the generic ones)::
 
     x = [c_e, c_n, k, d]
         c_e, c_n  the current toward east / north, kn (ground frame)
@@ -46,10 +47,22 @@ heading_offset_deg as the prior values with the status "not yet calibrated"
 until their sigmas fall below ``calibrated_*`` thresholds, and says what would
 calibrate them.
 
+Turns: in a turn the fix's ground velocity and the fix interval's mean
+heading and log speed belong to instants up to a second apart (sample times,
+the instruments' own lags) while the boat sheds speed: an error of rate x lag
+with the same sign at every fix of the turn, which no white R describes.
+Fused, those fixes teach k and d the lag and claim sigmas not earned (the
+demo passage's one course change gave a log scale 5 sigma off). So the filter
+predicts through a turn (the 3-s EMA heading turning faster than
+``turn_rate_hold_deg_s``, or a manoeuvre, for at most ``turn_hold_max_s``;
+counted as ``turning``) and learns k and d from the steady legs on either
+side, the current carried across on its random walk; a longer turn
+(circling) is fused with rate x ``input_timing_sigma_s`` in R.
+
 Each fusion step: observation and its covariance; innovation and its
 covariance; a numerical guard; a chi-square gate on the NIS (probability
-``gate_probability``, 2 degrees of freedom); the Joseph-form update
-(filterpy's EKF update) and a symmetric covariance; a health counter. A run
+``gate_probability``, 2 degrees of freedom); the Joseph-form update and a
+symmetric covariance; a health counter. A run
 of ``rejections_before_reset`` rejections is not a lock-out: the current's
 covariance is inflated and the measurement accepted.
 
@@ -62,7 +75,8 @@ next fix with k's uncertainty re-inflated, so the log is re-learnt.
 
 Consistency is checked with NEES/NIS over Monte-Carlo runs (Bar-Shalom, Li &
 Kirubarajan, "Estimation with Applications to Tracking and Navigation",
-2001, ch. 5.4) in tests/test_current_consistency.py.
+2001, ch. 5.4) in tests/test_current_consistency.py (tacking) and, for the
+calibration states after one course change, tests/test_current_calibration_nees.py.
 """
 
 from __future__ import annotations
