@@ -355,6 +355,7 @@ class CurrentEstimator(EstimatorBase):
         self._fast: tuple[float, float, float, float] | None = None
         self._turn_since: float | None = None
         self._manoeuvre_hist: deque[tuple[float, float, float, float]] = deque()  # t, heading unit e/n, speed
+        self._manoeuvre_arrays: tuple[np.ndarray, np.ndarray, float] = (np.ones(1), np.zeros(1), 0.0)
         self._calibrating = False
         self._calibrating_until = -math.inf
 
@@ -687,16 +688,21 @@ class CurrentEstimator(EstimatorBase):
         p = self.params
         hist = self._manoeuvre_hist
         he, hn = to_east_north(1.0, w.slow_heading_deg)
+        changed = False
         if not hist or t - hist[-1][0] >= MANOEUVRE_SAMPLE_S:  # the low-passed course needs no 1-s history
             hist.append((t, he, hn, w.slow_speed_kn))
+            changed = True
         while hist and hist[0][0] < t - p.calibration_window_s:
             hist.popleft()
+            changed = True
+        if changed:  # every 10 s: the history as arrays, and its speed range
+            arr = np.array(hist)
+            top = float(arr[:, 3].max())
+            self._manoeuvre_arrays = (arr[:, 1].copy(), arr[:, 2].copy(), (top - float(arr[:, 3].min())) / max(0.5, top))
+        east, north, sped = self._manoeuvre_arrays
         # turned by half the calibrating course change or more  <=>  cos(turn) = u_then . u_now <= cos(half)
         cos_half = math.cos(math.radians(0.5 * p.min_course_change_deg))
-        turned = min(e * he + n * hn for (_, e, n, _) in hist) <= cos_half
-        speeds = [v for (_, _, _, v) in hist]
-        top = max(speeds)
-        sped = (top - min(speeds)) / max(0.5, top)
+        turned = float((east * he + north * hn).min()) <= cos_half
         if turned or sped >= p.calibration_speed_change_fraction:
             self._calibrating_until = t + p.calibration_window_s
         self._calibrating = t <= self._calibrating_until
