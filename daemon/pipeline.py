@@ -137,7 +137,10 @@ class Pipeline:
             self._next_status_s = t_s
         self.now_s = t_s
         if t_s - self._next_tick_s > MAX_TICKS_PER_GAP:
-            self._next_tick_s = math.floor(t_s)
+            # A gap this long in replayed data is the logger being off, not feeds falling
+            # silent (live, the wall clock ticks every second): no ticks across it, so the
+            # first reading after it is handled before any timeout is judged.
+            self._next_tick_s = math.floor(t_s) + 1.0
         while self._next_tick_s <= t_s:
             self._tick_all(self._next_tick_s)
             self._next_tick_s += 1.0

@@ -60,13 +60,6 @@ def test_help_names_the_interface_commands_and_reads_on_an_80_column_terminal():
     assert "not for navigation" in r.stdout
 
 
-@pytest.mark.xfail(strict=True, reason="interface.md lists `offwatch report SOURCE --out DIR`; the command line "
-                                        "has no report command yet (reported to the lead)")
-def test_help_names_the_report_command_of_the_interface():
-    r = cli("--help")
-    assert re.search(r"^\s+report\s", r.stdout, re.M)
-
-
 def test_replay_help_names_the_interface_options():
     r = cli("replay", "--help")
     assert r.returncode == 0

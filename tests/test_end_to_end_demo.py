@@ -299,16 +299,3 @@ def test_pressure_tendency_words_and_characteristic_at_the_end(demo, truth):
     assert all(abs(p["tendency_3h_hpa"]) < 1.0 for p in early if p["tendency_3h_hpa"] is not None)
 
 
-# --------------------------------------------------------------------------- wind against current
-
-
-@pytest.mark.xfail(strict=True, reason="no estimator publishes offwatch/sea_state or raises wind_against_current "
-                                        "(interface.md lists both); reported to the lead as missing")
-def test_wind_against_current_in_the_band(demo, truth):
-    msgs, _, _ = demo
-    # README: 07:17-09:13 the wind from 040-045 deg at 16-19 kn blows over a current setting 047 at 4 kn
-    t0, t1 = utc(7, 30), utc(9, 0)
-    sea = [m["payload"] for m in on(msgs, "sea_state") if t0 <= m["t"] < t1]
-    assert sea and median(p["opposing_current_kn"] for p in sea) > 3.0
-    raised = [t for t, _, state, _ in alert_changes(msgs, "wind_against_current") if state == "active"]
-    assert raised and utc(7, 15) <= raised[0] <= utc(7, 35)

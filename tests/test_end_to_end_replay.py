@@ -421,11 +421,6 @@ def test_a_few_captures_through_the_command_line(name, tmp_path):
     assert lines and interface_problems(lines) == []
 
 
-@pytest.mark.xfail(strict=True, reason="Pipeline._advance ticks every estimator up to floor(t) before the reading "
-                                        "at t is handled: after a logger gap the tick at the first new second "
-                                        "still sees no fix, so gnss_lost and sensor_stale are raised (and a DR "
-                                        "position 6.5 km uncertain is published) just as the fixes return; "
-                                        "reported to the lead")
 def test_a_logger_gap_raises_no_gnss_alert_when_the_fixes_resume():
     # GIVEN the capture's two pieces, 19:01:05-19:01:51 and 21:23:40-21:23:44 (SOURCES.md), both with fixes
     sink = Collect()
