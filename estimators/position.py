@@ -88,6 +88,8 @@ _EPS_S = 1e-6
 _GEOD = Geodesic.WGS84
 
 
+HDOP_KEEP_S = 5.0  # a fix without HDOP takes the receiver's latest this young
+
 @dataclass(frozen=True)
 class PositionParams:
     """The [position] section."""
@@ -167,11 +169,14 @@ class PositionEstimator(EstimatorBase):
         self._lost = False
         self._jump_rejects = 0
         self._dr_error_m: float | None = None
+        self._last_hdop: tuple[float | None, float | None] = (None, None)
 
     # -- the protocol --------------------------------------------------------
 
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
         fix = sample
+        if fix.hdop is not None:
+            self._last_hdop = (fix.t_s, fix.hdop)
         if self._fix is not None and fix.t_s <= self._fix.t_s:
             return ()
         if not self._usable(fix):
@@ -210,8 +215,17 @@ class PositionEstimator(EstimatorBase):
 
     # -- fixes -------------------------------------------------------------------
 
+    def _hdop_of(self, fix: Fix) -> float | None:
+        """The fix's HDOP, or the receiver's latest (GGA gives it, RMC of the same epoch does not)."""
+        if fix.hdop is not None:
+            return fix.hdop
+        t, hdop = self._last_hdop
+        return hdop if t is not None and fix.t_s - t <= HDOP_KEEP_S else None
+
     def _sigma_of(self, fix: Fix) -> float:
-        hdop = fix.hdop if fix.hdop is not None and math.isfinite(fix.hdop) and fix.hdop > 0 else self.params.hdop_when_missing
+        hdop = self._hdop_of(fix)
+        if hdop is None or not math.isfinite(hdop) or hdop <= 0:
+            hdop = self.params.hdop_when_missing
         return hdop * self.params.uere_m  # DRMS = HDOP x UERE
 
     def _usable(self, fix: Fix) -> bool:
@@ -241,7 +255,7 @@ class PositionEstimator(EstimatorBase):
         payload: dict[str, Any] = {
             "lat": fix.lat_deg, "lon": fix.lon_deg, "source": "gnss",
             "sigma_m": round(self._fix_sigma_m, 1),
-            "sog_kn": fix.sog_kn, "cog_deg": fix.cog_deg, "hdop": fix.hdop,
+            "sog_kn": fix.sog_kn, "cog_deg": fix.cog_deg, "hdop": self._hdop_of(fix),
         }
         if self._dr_error_m is not None:
             payload["dr_error_m"] = round(self._dr_error_m, 1)

@@ -284,3 +284,24 @@ def test_a_jumping_fix_is_rejected_but_not_forever():
     # AND a fix with an HDOP past max_hdop is not used
     assert positions(est.step(Fix(T0 + 4, LAT0, LON0, 5.0, 0.0, 25.0), ctx)) == []
     assert est.health.rejected_hdop == 1
+
+
+def test_a_fix_without_hdop_takes_the_receivers_latest():
+    # GIVEN a GGA-like fix with HDOP 0.9, then RMC-like fixes (no HDOP) a second apart
+    from estimators.position import PositionEstimator, PositionParams
+    from estimators.samples import Fix
+
+    class Ctx:
+        history = None
+
+        def latest(self, topic):
+            return None
+
+    est, ctx = PositionEstimator(PositionParams()), Ctx()
+    est.step(Fix(1000.0, 40.0, -30.0, hdop=0.9), ctx)
+    pubs = est.step(Fix(1001.0, 40.00001, -30.0), ctx)
+    # THEN the RMC fix is published with that HDOP and sigma = HDOP x UERE (0.9 x 5 m)
+    assert pubs[0].payload["hdop"] == 0.9 and pubs[0].payload["sigma_m"] == 4.5
+    # and an HDOP older than a few seconds is not carried forward
+    pubs = est.step(Fix(1020.0, 40.0001, -30.0), ctx)
+    assert pubs[0].payload["hdop"] is None
