@@ -43,9 +43,10 @@ changes direction (a tack, a 90 degree or reciprocal leg; a change of speed
 helps a little). On a steady course the filter keeps the cross-correlation
 that ties k and d to the current and adds no pseudo-measurements, so their
 variances stay near the prior: the filter reports stw_scale and
-heading_offset_deg as the prior values with the status "not yet calibrated"
-until their sigmas fall below ``calibrated_*`` thresholds, and says what would
-calibrate them.
+heading_offset_deg as the prior values until it knows them better than the
+prior, and the status "calibrated" only once their sigmas fall below the
+``calibrated_*`` thresholds (2 sigma: 2 % of STW, 1.5 deg); until then it says
+what would calibrate them.
 
 Turns: in a turn the fix's ground velocity and the fix interval's mean
 heading and log speed belong to instants up to a second apart (sample times,
@@ -132,8 +133,10 @@ class CurrentParams:
         0.01, "1/sqrt(day)", 0.0, 1.0, "growth of a saved log-scale sigma with its age")
     calibration_age_heading_deg_per_sqrt_day: float = param(
         0.5, "deg/sqrt(day)", 0.0, 45.0, "growth of a saved heading-offset sigma with its age")
-    calibrated_stw_scale_sigma: float = param(0.015, "", 0.0001, 0.5, "log scale counts as calibrated below this sigma")
-    calibrated_heading_offset_sigma_deg: float = param(1.0, "deg", 0.01, 45.0, "heading offset counts as calibrated below this sigma")
+    calibrated_stw_scale_sigma: float = param(
+        0.01, "", 0.0001, 0.5, "log scale counts as calibrated below this sigma (2 sigma: 2 % of STW)")
+    calibrated_heading_offset_sigma_deg: float = param(
+        0.75, "deg", 0.01, 45.0, "heading offset counts as calibrated below this sigma (2 sigma: 1.5 deg)")
     min_course_change_deg: float = param(
         60.0, "deg", 10.0, 180.0, "course change that calibrates (quoted in the advice); half of it opens the calibration window")
     calibration_window_s: float = param(
@@ -862,6 +865,13 @@ class CurrentEstimator(EstimatorBase):
         return (math.sqrt(self.ekf.P[IK, IK]) <= p.calibrated_stw_scale_sigma,
                 math.degrees(math.sqrt(self.ekf.P[ID, ID])) <= p.calibrated_heading_offset_sigma_deg)
 
+    def _earned(self) -> tuple[bool, bool]:
+        """Whether the log scale / the heading offset are known better than their prior."""
+        if self.ekf is None or self._prior is None:
+            return False, False
+        _, _, sk0, sd0 = self._prior
+        return self.ekf.P[IK, IK] < sk0 ** 2, self.ekf.P[ID, ID] < sd0 ** 2
+
     def _calibration_words(self, P: np.ndarray | None) -> dict[str, str]:
         p = self.params
         if self._log_state == "suspect":
@@ -881,13 +891,19 @@ class CurrentEstimator(EstimatorBase):
                 "advice": f"{turn} would calibrate the log scale and the heading offset; a change of speed helps a little"}
 
     def calibration(self) -> Calibration:
-        """The calibration earned so far; a part not yet earned is the prior (saved or stated) with its sigma."""
+        """The calibration earned so far; a part not yet earned is the prior (saved or stated) with its sigma.
+
+        A part is earned once the filter's sigma is below the prior's (it has learnt something: a better
+        estimate than the prior, with its honest sigma); the status words say "calibrated" only below the
+        tighter ``calibrated_*`` sigmas. So a calibration whose sigma creeps past those thresholds on a
+        long steady passage keeps its learnt value rather than falling back to the prior.
+        """
         if self.ekf is None:
             saved = self.saved or Calibration()
             # before any sample there is no "now": the prior at its own age (none), else as first seen
             k, d, sk, sd = self._prior or self._prior_calibration(saved.t_s if saved.t_s is not None else 0.0)
             return Calibration(k, math.degrees(d), sk, math.degrees(sd), saved.t_s, saved.fixes_used)
-        log_ok, hdg_ok = self._calibrated()
+        log_ok, hdg_ok = self._earned()
         k0, d0, sk0, sd0 = self._prior
         x, P = self.ekf.x, self.ekf.P
         k, sk = (float(x[IK, 0]), math.sqrt(P[IK, IK])) if log_ok else (k0, sk0)

@@ -216,3 +216,19 @@ def test_dead_log_in_the_real_capture_is_rejected():
     # THEN no current of anything like 5 kn is reported, and the log is called suspect
     assert all((p.get("drift_kn") or 0.0) < 1.0 for p in current)
     assert alerts and alerts[0]["state"] == "active"
+
+
+def test_a_learnt_calibration_short_of_the_threshold_is_reported_but_not_called_calibrated():
+    # GIVEN tacks that teach the log and the compass, and a "calibrated" threshold no filter reaches
+    syn = synth_passage(2, 1800, tacking_legs(1800, 300), k=1.06, offset_deg=3.0)
+    p = dataclasses.replace(CurrentParams(), calibrated_stw_scale_sigma=0.0001, calibrated_heading_offset_sigma_deg=0.01)
+    est = CurrentEstimator(p)
+    # WHEN the estimator runs over them
+    pubs, _ = drive(est, syn.samples)
+    last = pubs[-1].payload
+    # THEN the status does not say calibrated ...
+    assert last["calibration"]["status"] == "not yet calibrated"
+    # ... but what was learnt (sigma below the prior's) is reported with its sigma, not the prior
+    assert last["stw_scale_sigma"] < p.initial_stw_scale_sigma / 2
+    assert abs(last["stw_scale"] - 1.06) < 3 * last["stw_scale_sigma"]
+    assert abs(last["heading_offset_deg"] - 3.0) < 3 * last["heading_offset_sigma_deg"]
