@@ -292,7 +292,7 @@ class _Run:
             return self.start_d, math.nan, math.nan
         w_sum = sum(w for w, _, _, _ in pts)
         d_s = sum(w * d for w, d, _, _ in pts) / w_sum if w_sum > 0.0 else pts[-1][1]  # Σ w d / Σ w
-        _, d_n, lat, lon = min(pts, key=lambda p: abs(p[1] - d_s))
+        _, _, lat, lon = min(pts, key=lambda p: abs(p[1] - d_s))
         return d_s, lat, lon
 
     @property
