@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+
 import getpass
 import shutil
 import signal
@@ -111,6 +113,8 @@ class Mosquitto:
 @pytest.fixture
 def mosquitto_broker(tmp_path: Path) -> Iterator[Mosquitto]:
     if not Path(MOSQUITTO).exists():
+        if os.environ.get("CI") == "true":
+            pytest.fail("mosquitto is not installed; under CI .ci/run installs it")
         pytest.skip("mosquitto is not installed (apt install mosquitto)")
     workdir = tmp_path / "mosquitto"
     workdir.mkdir()
@@ -124,3 +128,37 @@ def mosquitto_broker(tmp_path: Path) -> Iterator[Mosquitto]:
 def mosquitto(mosquitto_broker: Mosquitto) -> Iterator[Mosquitto]:
     """The broker; unpack as ``host, port = mosquitto``, or call ``mosquitto.restart()``."""
     yield mosquitto_broker
+
+
+class DemoReplay:
+    """The demo passage replayed once for the whole session (about a minute)."""
+
+    def __init__(self, tmp: Path) -> None:
+        from daemon.demo import demo_files
+        from daemon.jsonl import encode_line
+        from daemon.config import load_config
+        from daemon.replay import run_replay
+
+        files, cfg = demo_files()
+        self.path = Path(files[0])
+        self.messages: list = []
+        keep = self
+
+        class _Keep:
+            def raw(self, line) -> None:
+                pass
+
+            def message(self, msg) -> None:
+                keep.messages.append(msg)
+
+            def close(self) -> None:
+                pass
+
+        self.summary = run_replay(files, load_config(cfg), extra_sinks=[_Keep()], progress=False)
+        self.lines = [encode_line(m) for m in self.messages]
+
+
+@pytest.fixture(scope="session")
+def demo_replay(tmp_path_factory) -> DemoReplay:
+    """The committed demo passage through the whole pipeline, with the demo's own config."""
+    return DemoReplay(tmp_path_factory.mktemp("demo"))

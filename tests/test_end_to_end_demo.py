@@ -27,8 +27,6 @@ import numpy as np
 import pytest
 from geographiclib.geodesic import Geodesic
 
-from daemon.config import load_config
-from daemon.replay import run_replay
 from daemon.simulator import scenarios
 from daemon.simulator.__main__ import DEMO_MALFORMED
 from tests.shared import REPO
@@ -67,14 +65,10 @@ class Truth:
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    """The demo passage replayed once: (messages as JSONL dicts, the raw JSONL lines, the summary)."""
-    if not DEMO.exists():
-        pytest.fail(f"{DEMO.name} is part of the repository and must be there")
-    out = tmp_path_factory.mktemp("demo") / "demo.jsonl"
-    summary = run_replay([str(DEMO)], load_config(None), jsonl=str(out), progress=False)
-    lines = out.read_text(encoding="utf-8").splitlines()
-    return [json.loads(x) for x in lines], lines, summary
+def demo(demo_replay):
+    """The demo passage replayed once per session: (messages as JSONL dicts, the raw JSONL lines, the summary)."""
+    lines = demo_replay.lines
+    return [json.loads(x) for x in lines], lines, demo_replay.summary
 
 
 @pytest.fixture(scope="module")

@@ -20,8 +20,6 @@ import numpy as np
 import pytest
 from geographiclib.geodesic import Geodesic
 
-from daemon.config import load_config
-from daemon.replay import run_replay
 from tests.shared import REPO
 
 DEMO = REPO / "recorded_runs" / "tern-of-haldane.nmea.gz"
@@ -57,14 +55,11 @@ class Keep:
 
 
 @pytest.fixture(scope="module")
-def replayed():
-    """(front_crossing events as Messages, front alert payloads), from one replay of the demo passage."""
-    if not DEMO.exists():
-        pytest.fail(f"{DEMO.name} is part of the repository and must be there")
-    sink = Keep()
-    run_replay([str(DEMO)], load_config(None), extra_sinks=[sink], progress=False)
-    events = [m for m in sink.messages if m.topic.endswith("/events") and m.payload.get("kind") == "front_crossing"]
-    alerts = [m.payload for m in sink.messages if m.topic.endswith("/alerts/front")]
+def replayed(demo_replay):
+    """(front_crossing events as Messages, front alert payloads), from the session's replay of the demo."""
+    msgs = demo_replay.messages
+    events = [m for m in msgs if m.topic.endswith("/events") and m.payload.get("kind") == "front_crossing"]
+    alerts = [m.payload for m in msgs if m.topic.endswith("/alerts/front")]
     return events, alerts
 
 
