@@ -31,6 +31,7 @@ log = logging.getLogger(__name__)
 CALIBRATION_SAVE_EVERY_S = 600.0
 ALERTS_FILE = "alerts.json"
 QUEUE_SIZE = 10000
+DRAIN_SLICE_S = 0.5  # longest the loop feeds queued input before it ticks and pings again
 
 
 class Service:
@@ -95,7 +96,11 @@ class Service:
         finally:
             self.notifier.stopping()
             self.stop.set()
-            for ingest_name, ingest in self.ingests.items():
+            end_utc = time.time()
+            for ingest in self.ingests.values():
+                # a line cut off by the stop ends here, received now: a live Ingest has a time for
+                # every line (its flush() alone would hand the framer's rest on without one)
+                pipe.feed_all(ingest.feed(b"\r\n", end_utc))
                 pipe.feed_all(ingest.flush())
             self._save_state()
             pipe.close()
@@ -106,15 +111,20 @@ class Service:
         return 0
 
     def _drain(self, timeout: float) -> None:
+        """Feed queued chunks for at most DRAIN_SLICE_S, so a flooding input cannot starve
+        the tick, the watchdog or a stop request (the bounded queue then drops and counts)."""
         try:
             chunk = self.chunks.get(timeout=timeout)
         except queue.Empty:
             return
         pipe = self.parts.pipeline
+        until = time.monotonic() + DRAIN_SLICE_S
         while True:
             ingest = self.ingests.get(chunk.source)
             if ingest is not None:
                 pipe.feed_all(ingest.feed(chunk.data, chunk.recv_utc))
+            if time.monotonic() >= until or self.stop.is_set():
+                return
             try:
                 chunk = self.chunks.get_nowait()
             except queue.Empty:

@@ -208,8 +208,11 @@ class LivePlayer:
     falls silent while the compass and the log go on).
     """
 
-    def __init__(self, lines: list[tuple[float, str, str]], udp_port: int, speed: float = PLAY_SPEED) -> None:
+    def __init__(self, lines: list[tuple[float, str, str]], udp_port: int, speed: float = PLAY_SPEED,
+                 flood: bool = False) -> None:
+        """``flood``: send the passage over TCP again and again, as fast as the socket takes it."""
         self.lines = lines
+        self.flood = flood
         self.udp_port = udp_port
         self.speed = speed
         self.drop_sources: set[str] = set()
@@ -237,6 +240,12 @@ class LivePlayer:
                     continue  # the daemon went away; wait for the next connection
 
     def _play(self, conn: socket.socket) -> None:
+        if self.flood:
+            blob = "".join(text + "\r\n" for _, src, text in self.lines if src in TCP_SOURCES).encode("ascii")
+            while not self._stop.is_set():
+                conn.sendall(blob)
+                self.sent["tcp"] += len(self.lines)
+            return
         t_first = self.lines[0][0]
         wall0 = time.monotonic()
         i = 0
@@ -643,3 +652,59 @@ def test_an_unacknowledged_warning_survives_a_kill_and_restart(live):
         second.kill()
     # and a third start would not list it again (the stale-fix caution may still wait out its clear time)
     assert "gnss_lost" not in {a["id"] for a in json.loads((live["state"] / "alerts.json").read_text())["alerts"]}
+
+
+def test_a_flooding_input_does_not_starve_the_watchdog(tmp_path, passage, mosquitto):
+    """A TCP feed sending faster than the pipeline can take (a multiplexer dumping a file, say):
+    the loop still ticks and pings the watchdog, and SIGTERM still stops it."""
+    udp_port = free_port(socket.SOCK_DGRAM)
+    player = LivePlayer(passage, udp_port, flood=True)
+    notify = NotifyListener()
+    cfg = write_run_config(tmp_path / "offwatch.toml", state_dir=tmp_path / "state", tcp_port=player.tcp_port,
+                           udp_port=udp_port, broker=tuple(mosquitto))
+    daemon = start_daemon(tmp_path, cfg, notify, "flood")
+    try:
+        assert wait_until(lambda: notify.times_of("READY=1"), 30), daemon.log()
+        ready = notify.times_of("READY=1")[0]
+        time.sleep(10.0)
+        pings = [t for t in notify.times_of("WATCHDOG=1") if t > ready]
+        gaps = [b - a for a, b in zip([ready, *pings], [*pings, time.monotonic()])]
+        # THEN the watchdog never went silent long enough for systemd to restart the service
+        assert max(gaps) < WATCHDOG_USEC / 1e6, (gaps, daemon.log()[-2000:])
+        t_term = time.monotonic()
+        assert daemon.stop(signal.SIGTERM, timeout_s=20) == 0, daemon.log()[-2000:]
+        print(f"\nfigures: flood: {len(pings)} pings in 10 s, largest gap {max(gaps):.1f} s; "
+              f"stopped {time.monotonic() - t_term:.1f} s after SIGTERM")
+    finally:
+        daemon.kill()
+        notify.close()
+        player.close()
+
+
+def test_sigterm_with_half_a_sentence_received_stops_cleanly(tmp_path, mosquitto):
+    """The stop finds a sentence cut off (its line end never came): exit status 0 all the same."""
+    server = socket.create_server(("127.0.0.1", 0))
+    server.settimeout(20)
+    cfg = write_run_config(tmp_path / "offwatch.toml", state_dir=tmp_path / "state",
+                           tcp_port=server.getsockname()[1], udp_port=free_port(socket.SOCK_DGRAM),
+                           broker=tuple(mosquitto))
+    notify = NotifyListener()
+    daemon = start_daemon(tmp_path, cfg, notify, "half")
+    try:
+        conn, _ = server.accept()
+        # GIVEN one whole sentence and the first half of the next (NMEA 0183 RMC, checksum computed)
+        from daemon.simulator.nmea_writer import sentence
+        whole = sentence("GP", "RMC", "120000.00,A,4406.000,N,03112.000,W,5.5,100.0,020626,,,A".split(","))
+        conn.sendall((whole + "\r\n").encode() + whole[:20].encode())
+        assert wait_until(lambda: notify.times_of("READY=1"), 30), daemon.log()
+        time.sleep(2.0)
+        # WHEN systemd stops the service
+        rc = daemon.stop(signal.SIGTERM, timeout_s=20)
+        conn.close()
+    finally:
+        daemon.kill()
+        notify.close()
+        server.close()
+    # THEN it stops cleanly (it used to end in an AssertionError from the live Ingest's flush)
+    assert rc == 0, daemon.log()[-3000:]
+    assert "stopped cleanly" in daemon.log()
