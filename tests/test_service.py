@@ -708,3 +708,13 @@ def test_sigterm_with_half_a_sentence_received_stops_cleanly(tmp_path, mosquitto
     # THEN it stops cleanly (it used to end in an AssertionError from the live Ingest's flush)
     assert rc == 0, daemon.log()[-3000:]
     assert "stopped cleanly" in daemon.log()
+
+
+def test_status_line_for_a_current_not_yet_estimable():
+    """The STATUS= text (sd_notify(3): free text) for every shape of the current payload; a None
+    drift once ended the whole service with a TypeError."""
+    from daemon.service import status_text
+
+    assert status_text(None) == "running"
+    assert status_text({"drift_kn": None, "set_deg": None, "quality": "unavailable"}) == "running; current unavailable"
+    assert status_text({"drift_kn": 1.26, "set_deg": 44.6, "quality": "valid"}) == "current 1.3 kn toward 45°, valid"
