@@ -469,7 +469,9 @@ def test_kill9_leaves_the_last_will_and_a_sound_recording(live, tmp_path):
     # GIVEN a daemon that has been publishing and recording for a few seconds
     display = live["display"]
     daemon = live["start"]("killed")
-    assert wait_until(lambda: display.latest(f"{PREFIX}/position") is not None, 30), daemon.log()
+    # (states and the QoS-1 status travel apart: wait for both)
+    assert wait_until(lambda: display.latest(f"{PREFIX}/position") is not None
+                      and display.latest(f"{PREFIX}/status") is not None, 30), daemon.log()
     assert display.latest(f"{PREFIX}/status").payload["state"] == "online"
     time.sleep(3.0)  # a few of the recorder's one-second commits
     # WHEN it is killed with SIGKILL (no chance to clean up)
