@@ -95,6 +95,7 @@ class Ingest:
         self._clock = ReplayClock(self._dates, events=self.time_events)
         self._guard = monotonic_guard(self.time_events)
         self._fallback_t = not_before_utc if not_before_utc is not None else 0.0
+        self._last_recv: float | None = None  # receive time of the latest chunk
         self._true_heading: tuple[float, float] | None = None  # (t_s, deg) of the latest true heading
         self._true_sensor = heading_sensor == "true"
         self._all_magnetic = heading_sensor == "magnetic"
@@ -106,6 +107,7 @@ class Ingest:
         if self.live and recv_utc is None:
             raise ValueError("live ingest needs the receive time of each chunk")
         out: list[Item] = []
+        self._last_recv = recv_utc
         for raw in self._framer.feed(data):
             self._line(raw.decode("ascii"), recv_utc, out)
         self._sync_counts()
@@ -120,10 +122,11 @@ class Ingest:
         return out
 
     def flush(self) -> list[Item]:
-        """End of stream: release what the replay clock still holds."""
+        """End of stream: release what the replay clock still holds (live: the framer's
+        last unterminated line, stamped with the last receive time)."""
         out: list[Item] = []
         for raw in self._framer.flush():
-            self._line(raw.decode("ascii"), None, out)
+            self._line(raw.decode("ascii"), self._last_recv, out)
         for t, item in self._clock.flush():
             self._emit(t, item, out)
         self._sync_counts()

@@ -96,12 +96,8 @@ class Service:
         finally:
             self.notifier.stopping()
             self.stop.set()
-            end_utc = time.time()
             for ingest in self.ingests.values():
-                # a line cut off by the stop ends here, received now: a live Ingest has a time for
-                # every line (its flush() alone would hand the framer's rest on without one)
-                pipe.feed_all(ingest.feed(b"\r\n", end_utc))
-                pipe.feed_all(ingest.flush())
+                pipe.feed_all(ingest.flush())  # a line cut off by the stop ends here
             self._save_state()
             pipe.close()
             if clean:

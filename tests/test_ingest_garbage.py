@@ -121,3 +121,13 @@ def test_any_mix_of_garbage_is_never_fatal_and_every_line_is_counted_once(parts)
     assert sum(totals.get(k, 0) for k in line_counts) == sum(isinstance(x, RawLine) for x in out)
     times = [x.t_s if isinstance(x, RawLine) else x.sample.t_s for x in out]
     assert all(a <= b for a, b in zip(times, times[1:]))
+
+
+def test_live_flush_of_a_cut_off_line_uses_the_last_receive_time():
+    # GIVEN a live source whose last sentence was cut off by the stop (no line ending)
+    ing = Ingest("cut", counters=Counters(), variation=StandInVariation(), live=True)
+    ing.feed(b"$IIMTW,12.5,C*" + xor_hex("IIMTW,12.5,C").encode(), 42.0)
+    # WHEN the stream ends
+    out = ing.flush()
+    # THEN the line is handed on, stamped with when its bytes arrived
+    assert [x.t_s for x in out if isinstance(x, RawLine)] == [42.0]
