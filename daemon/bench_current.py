@@ -85,11 +85,10 @@ def figures(sim, track: Track, t0: float) -> Figures:
 def converge_minutes(t: np.ndarray, err: np.ndarray, t0: float) -> float:
     """First time (min from start) after which the error stays below CONVERGED_KN for CONVERGED_HOLD_S."""
     bad = ~(err < CONVERGED_KN)
-    last_bad_t = -math.inf
     start = None
     for ti, b in zip(t, bad):
         if b:
-            last_bad_t, start = ti, None
+            start = None
         elif start is None:
             start = ti
         if start is not None and ti - start >= CONVERGED_HOLD_S:

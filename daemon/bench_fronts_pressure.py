@@ -29,7 +29,6 @@ Prints a Markdown table. Takes well under a minute.
 
 from __future__ import annotations
 
-import math
 import time
 from dataclasses import dataclass
 

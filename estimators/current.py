@@ -85,14 +85,14 @@ from __future__ import annotations
 import math
 from collections import deque
 from collections.abc import Iterable, Iterator, Sequence
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
 from filterpy.kalman import ExtendedKalmanFilter
 from scipy.stats import chi2
 
-from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180, wrap_360
+from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
 from estimators.base import CAUTION, Condition, EstimatorBase, Output, Publication
 from estimators.history import SampleHistory
 from estimators.params import param

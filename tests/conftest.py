@@ -141,20 +141,11 @@ class DemoReplay:
 
         files, cfg = demo_files()
         self.path = Path(files[0])
-        self.messages: list = []
-        keep = self
+        from tests.sinks import Keep
 
-        class _Keep:
-            def raw(self, line) -> None:
-                pass
-
-            def message(self, msg) -> None:
-                keep.messages.append(msg)
-
-            def close(self) -> None:
-                pass
-
-        self.summary = run_replay(files, load_config(cfg), extra_sinks=[_Keep()], progress=False)
+        keep = Keep()
+        self.summary = run_replay(files, load_config(cfg), extra_sinks=[keep], progress=False)
+        self.messages = keep.messages
         self.lines = [encode_line(m) for m in self.messages]
 
 

@@ -28,6 +28,7 @@ from daemon.recorder import export_tag_nmea, parse_tag_line
 from daemon.replay import run_replay
 from daemon.simulator import scenarios, simulate
 from daemon.simulator.nmea_writer import WriterOptions, write_nmea
+from tests.sinks import Keep as Collect
 from tests.shared import REPO, SHARED, shared_path
 
 UNDER_WAY = ("real-captures", "under-way-94min-hdg-hdt-rmc.nmea")
@@ -171,22 +172,6 @@ def interface_problems(lines: list[str], prefix: str = "offwatch") -> list[str]:
         if len(bad) > 20:
             break
     return bad
-
-
-class Collect:
-    """A sink that keeps every message (a replay's extra sink)."""
-
-    def __init__(self) -> None:
-        self.messages = []
-
-    def raw(self, line) -> None:
-        pass
-
-    def message(self, msg) -> None:
-        self.messages.append(msg)
-
-    def close(self) -> None:
-        pass
 
 
 def topic_payloads(messages: list[dict], name: str) -> list[dict]:

@@ -336,20 +336,9 @@ def test_real_survey_with_a_mild_gradient_gives_no_front():
     #       MIT; see SOURCES.md): SDMTW every 2 s, 20.5–21.5 °C in 0.1 °C steps, a mild gradient, no sharp front
     path = shared_path("real-captures", "sounder-survey-43min-dpt-mtw.nmea")
 
-    class Collect:
-        def __init__(self) -> None:
-            self.messages = []
+    from tests.sinks import Keep
 
-        def raw(self, line) -> None:
-            pass
-
-        def message(self, msg) -> None:
-            self.messages.append(msg)
-
-        def close(self) -> None:
-            pass
-
-    sink = Collect()
+    sink = Keep()
     # WHEN it is replayed through the whole pipeline
     run_replay([str(path)], load_config(None), extra_sinks=[sink], progress=False)
     # THEN the detector followed the water along the track (temperatures in the range the source states,

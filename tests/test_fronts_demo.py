@@ -38,22 +38,6 @@ def utc(h: int, m: int, s: int = 0) -> float:
 EDGES = ((utc(7, 18, 27), 4.0), (utc(9, 11, 54), -4.0))
 
 
-class Keep:
-    """A sink that keeps every message."""
-
-    def __init__(self) -> None:
-        self.messages = []
-
-    def raw(self, line) -> None:
-        pass
-
-    def message(self, msg) -> None:
-        self.messages.append(msg)
-
-    def close(self) -> None:
-        pass
-
-
 @pytest.fixture(scope="module")
 def replayed(demo_replay):
     """(front_crossing events as Messages, front alert payloads), from the session's replay of the demo."""
