@@ -8,6 +8,7 @@ from daemon.pipeline import Pipeline
 from daemon.readings import Message, RawLine, Reading
 from estimators.base import Condition, EstimatorBase, Publication
 from estimators.samples import Heading, Pressure
+from tests.sinks import Keep
 
 
 class Echo(EstimatorBase):
@@ -44,26 +45,12 @@ class FakeAlerts:
         return [Message(t_s, "boat/alerts/" + alert_id, {"id": alert_id}, True, 1, "alert")]
 
 
-class Collect:
-    def __init__(self):
-        self.raws, self.msgs, self.closed = [], [], False
-
-    def raw(self, line):
-        self.raws.append(line)
-
-    def message(self, msg):
-        self.msgs.append(msg)
-
-    def close(self):
-        self.closed = True
-
-
 def reading(sample):
     return Reading("compass", sample, sample.t_s, "HDT")
 
 
 def make():
-    est, alerts, sink = Echo(), FakeAlerts(), Collect()
+    est, alerts, sink = Echo(), FakeAlerts(), Keep()
     return Pipeline([est], [sink], alerts, prefix="boat"), est, alerts, sink
 
 
@@ -75,7 +62,7 @@ def test_samples_reach_only_the_estimators_that_accept_them_and_payloads_start_w
     pipe.feed(reading(Pressure(1000.7, 1012.0)))
     pipe.feed(reading(Heading(1000.9, 1.0)))
     # THEN only headings are echoed, with the full topic and time first
-    echoes = [m for m in sink.msgs if m.topic == "boat/echo"]
+    echoes = [m for m in sink.messages if m.topic == "boat/echo"]
     assert [m.payload["deg"] for m in echoes] == [359.0, 1.0]
     assert list(echoes[0].payload)[0] == "time"
     assert echoes[0].payload["time"] == "1970-01-01T00:16:40.500Z"
@@ -88,12 +75,12 @@ def test_ticks_once_per_data_second_and_status_every_ten_seconds():
     for i in range(250):  # 25 s at 10 Hz
         pipe.feed(reading(Heading(1000.0 + i * 0.1, 90.0)))
     assert est.ticks == [float(t) for t in range(1001, 1025)]
-    status = [m for m in sink.msgs if m.kind == "status"]
+    status = [m for m in sink.messages if m.kind == "status"]
     assert [round(m.t_s) for m in status] == [1000, 1010, 1020]
     assert status[-1].payload["sensors"]["heading"] < 1.0
     assert status[-1].retain
     # conditions go to the alert manager, not out as messages
-    assert any(c.active for c in alerts.conditions) and not any(m.topic.endswith("sensor_stale") for m in sink.msgs)
+    assert any(c.active for c in alerts.conditions) and not any(m.topic.endswith("sensor_stale") for m in sink.messages)
 
 
 def test_a_long_gap_is_crossed_without_a_tick_for_every_second():
@@ -119,11 +106,11 @@ def test_acknowledgements_from_another_thread_are_handled_in_the_loop():
     assert alerts.acks == []  # not yet: only the loop touches the alert manager
     pipe.feed(reading(Heading(1000.2, 0.0)))
     assert alerts.acks == [("pressure_fall", 1000.0)]
-    assert any(m.topic == "boat/alerts/pressure_fall" for m in sink.msgs)
+    assert any(m.topic == "boat/alerts/pressure_fall" for m in sink.messages)
 
 
 def test_close_publishes_a_last_status_and_closes_sinks():
     pipe, est, alerts, sink = make()
     pipe.feed(reading(Heading(1000.0, 0.0)))
     pipe.close()
-    assert sink.closed and sink.msgs[-1].kind == "status"
+    assert sink.closed and sink.messages[-1].kind == "status"
