@@ -74,7 +74,9 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
-    logging.basicConfig(level=logging.DEBUG if args.verbose else logging.INFO,
+    # the service logs its life to the journal; a replay's account is its summary
+    quiet = logging.INFO if args.command == "run" else logging.WARNING
+    logging.basicConfig(level=logging.DEBUG if args.verbose else quiet,
                         format="%(levelname)s %(name)s: %(message)s")
     if args.command is None:
         parser.print_help()
