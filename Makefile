@@ -10,7 +10,7 @@ STAMP := $(VENV)/.installed
 $(STAMP): pyproject.toml
 	$(PY) -m venv $(VENV)
 	$(BIN)/python -m pip install -q --upgrade pip
-	$(BIN)/python -m pip install -q -e '.[demo,test,report]'
+	$(BIN)/python -m pip install -q -e '.[demo,test]'
 	touch $(STAMP)
 
 demo: $(STAMP)
