@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import re
 from functools import lru_cache, reduce
 from operator import xor
 
@@ -82,6 +83,22 @@ class Line:
 def checksum(body: str) -> int:
     """XOR of every character of ``body`` (the text between the start char and ``*``)."""
     return reduce(xor, body.encode("ascii"), 0)
+
+
+def checksum_hex(body: str) -> str:
+    """The checksum as a sentence or TAG block writes it: two upper-case hex digits."""
+    return f"{checksum(body):02X}"
+
+
+_TAG_UNSAFE_RE = re.compile(r"[^\x21-\x7e]|[,*\\$!^~]")  # NMEA 0183 reserved characters (from memory)
+
+
+def tag_block(t_s: float, source: str) -> str:
+    """``\\c:<UNIX ms>,s:<source>*hh\\`` (NMEA 0183 v4.10 TAG block); a character a TAG
+    value cannot hold becomes '_'."""
+    ms = round(t_s * 1000) if math.isfinite(t_s) else 0
+    body = f"c:{ms},s:{_TAG_UNSAFE_RE.sub('_', source)}"
+    return f"\\{body}*{checksum_hex(body)}\\"
 
 
 def _check_star(text: str, start: int, allow_no_checksum: bool) -> tuple[str, int]:

@@ -95,6 +95,7 @@ from typing import Any
 
 from daemon import __version__
 from daemon.errors import InputError, OutputError
+from daemon.nmea import checksum_hex, tag_block
 from daemon.readings import Message, RawLine
 from estimators.params import param
 
@@ -868,21 +869,6 @@ def read_meta(path: str | Path) -> dict[str, Any]:
 # UNIX time (s, or ms when larger than 10^11, as offwatch reads it), s: the source;
 # the checksum is the XOR of the characters between the leading backslash and '*'.
 _TAG_RE = re.compile(r"\\([^\\*]*)\*([0-9A-Fa-f]{2})\\")
-_SOURCE_UNSAFE_RE = re.compile(r"[^\x21-\x7e]|[,*\\$!^~]")  # NMEA 0183 reserved characters
-
-
-def _nmea_checksum(body: str) -> str:
-    value = 0
-    for ch in body:
-        value ^= ord(ch)
-    return f"{value & 0xFF:02X}"
-
-
-def tag_block(t_s: float, source: str) -> str:
-    """``\\c:<ms>,s:<source>*hh\\``; characters a TAG value cannot hold become '_'."""
-    ms = round(t_s * 1000) if math.isfinite(t_s) else 0
-    body = f"c:{ms},s:{_SOURCE_UNSAFE_RE.sub('_', source)}"
-    return f"\\{body}*{_nmea_checksum(body)}\\"
 
 
 def export_tag_nmea(db_path: str | Path, out_path: str | Path) -> int:
@@ -914,7 +900,7 @@ def parse_tag_line(line: str) -> RawLine:
     back whole as the text, with NaN time and an empty source.
     """
     m = _TAG_RE.match(line)
-    if m is None or _nmea_checksum(m.group(1)) != m.group(2).upper():
+    if m is None or checksum_hex(m.group(1)) != m.group(2).upper():
         return RawLine(source="", t_s=math.nan, recv_utc=math.nan, text=line)
     fields = dict(part.split(":", 1) for part in m.group(1).split(",") if ":" in part)
     t = math.nan

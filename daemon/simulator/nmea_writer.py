@@ -33,6 +33,7 @@ from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 
+from daemon.nmea import checksum_hex, tag_block
 from estimators.angles import wrap_360
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, Heading, Pressure, SeaTemperature, WaterSpeed, WaterWind,
@@ -61,22 +62,9 @@ class WriterOptions:
 # --------------------------------------------------------------------------- formatting
 
 
-def checksum(body: str) -> str:
-    """XOR of the characters of ``body`` (the text between ``$``/``\\`` and ``*``), two hex digits."""
-    x = 0
-    for ch in body:
-        x ^= ord(ch)
-    return f"{x:02X}"
-
-
 def sentence(talker: str, kind: str, fields: Iterable[str]) -> str:
     body = ",".join([talker + kind, *fields])
-    return f"${body}*{checksum(body)}"
-
-
-def tag_block(t_s: float, source: str) -> str:
-    body = f"c:{int(round(t_s * 1000.0))},s:{source}"
-    return f"\\{body}*{checksum(body)}\\"
+    return f"${body}*{checksum_hex(body)}"
 
 
 def _num(x: float | None, decimals: int) -> str:
