@@ -21,6 +21,7 @@ from estimators.current import Calibration, CurrentEstimator
 from estimators.fronts import FrontDetector
 from estimators.position import PositionEstimator
 from estimators.pressure import PressureTendency
+from estimators.samples import KIND_NAMES
 from estimators.staleness import StalenessWatch
 
 log = logging.getLogger(__name__)
@@ -89,7 +90,9 @@ def build(cfg: Config, sinks: list[Sink], *, live: bool, calibration: Calibratio
     prefix = cfg.mqtt.prefix
     alerts = (AlertManager.restore(params, alert_snapshot, prefix=prefix) if alert_snapshot
               else AlertManager(params, prefix=prefix))
-    selector = PrioritySelector(cfg.priority, {})
+    # one table says when a feed has gone silent: for the sensor_stale caution and for falling back
+    staleness = cfg.section("staleness")
+    selector = PrioritySelector(cfg.priority, {k: staleness.interval_s(k) for k in KIND_NAMES.values()})
     pipeline = Pipeline(estimators, sinks, alerts, prefix=prefix, selector=selector, counters=counters,
                         extra_status=extra_status)
     return Parts(pipeline, counters, variation, make_ingest, estimators[0])

@@ -71,24 +71,24 @@ def _num(x: float | None, decimals: int) -> str:
     return "" if x is None or not math.isfinite(x) else f"{x:.{decimals}f}"
 
 
-def lat_field(lat: float) -> tuple[str, str]:
-    """(ddmm.mmmmm, N|S)"""
-    a = abs(lat)
+def _angle_field(value: float, width: int, positive: str, negative: str) -> tuple[str, str]:
+    """(d..dmm.mmmmm, hemisphere) with ``width`` digits of whole degrees."""
+    a = abs(value)
     d = int(a)
     m = round((a - d) * 60.0, 5)
     if m >= 60.0:
         d, m = d + 1, 0.0
-    return f"{d:02d}{m:08.5f}", "N" if lat >= 0 else "S"
+    return f"{d:0{width}d}{m:08.5f}", positive if value >= 0 else negative
+
+
+def lat_field(lat: float) -> tuple[str, str]:
+    """(ddmm.mmmmm, N|S)"""
+    return _angle_field(lat, 2, "N", "S")
 
 
 def lon_field(lon: float) -> tuple[str, str]:
     """(dddmm.mmmmm, E|W)"""
-    a = abs(lon)
-    d = int(a)
-    m = round((a - d) * 60.0, 5)
-    if m >= 60.0:
-        d, m = d + 1, 0.0
-    return f"{d:03d}{m:08.5f}", "E" if lon >= 0 else "W"
+    return _angle_field(lon, 3, "E", "W")
 
 
 def _utc(t_s: float) -> datetime:
