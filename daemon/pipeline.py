@@ -115,6 +115,8 @@ class Pipeline:
         self._commands.put(("status", None))
 
     def _run_commands(self) -> None:
+        if self._commands.empty():  # the common case, on every item: no exception raised and caught
+            return
         while True:
             try:
                 cmd, arg = self._commands.get_nowait()
