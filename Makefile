@@ -20,10 +20,10 @@ test: $(STAMP)
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
-	$(BIN)/python -m daemon.bench_current
-	$(BIN)/python -m daemon.bench_fronts_pressure
-	$(BIN)/python -m daemon.bench_recording
-	$(BIN)/python -m daemon.bench_replay
+	$(BIN)/python -m tools.bench.current
+	$(BIN)/python -m tools.bench.fronts_pressure
+	$(BIN)/python -m tools.bench.recording
+	$(BIN)/python -m tools.bench.replay
 
 clean:
 	rm -rf $(VENV) demo-out

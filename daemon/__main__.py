@@ -1,5 +1,5 @@
 import sys
 
-from daemon.cli import main
+from daemon.commands.cli import main
 
 sys.exit(main())

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from daemon.broker import broker_answers
+from daemon.outlets.broker import broker_answers
 
 MOSQUITTO = shutil.which("mosquitto") or "/usr/sbin/mosquitto"
 
@@ -134,10 +134,10 @@ class DemoReplay:
     """The demo passage replayed once for the whole session (about a minute)."""
 
     def __init__(self, tmp: Path) -> None:
-        from daemon.demo import demo_files
-        from daemon.jsonl import encode_line
-        from daemon.config import load_config
-        from daemon.replay import run_replay
+        from daemon.commands.demo import demo_files
+        from daemon.outlets.jsonl import encode_line
+        from daemon.core.config import load_config
+        from daemon.commands.replay import run_replay
 
         files, cfg = demo_files()
         self.path = Path(files[0])

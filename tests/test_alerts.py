@@ -15,7 +15,7 @@ from dataclasses import replace
 
 import pytest
 
-from daemon.alerts import AlertManager, AlertParams
+from daemon.core.alerts import AlertManager, AlertParams
 from daemon.errors import ConfigError
 from estimators.base import ADVISORY, ALARM, CAUTION, WARNING, Condition, iso_utc
 from estimators.params import check

@@ -27,7 +27,8 @@ def _modules_after_import(names: list[str]) -> set[str]:
 
 
 def _all(pkg) -> list[str]:
-    return [f"{pkg.__name__}.{m.name}" for m in pkgutil.walk_packages(pkg.__path__) if not m.name.startswith("_")]
+    return [m.name for m in pkgutil.walk_packages(pkg.__path__, pkg.__name__ + ".")
+            if not m.name.rsplit(".", 1)[-1].startswith("_")]
 
 
 def test_estimators_bring_no_io_module_along():
@@ -53,6 +54,20 @@ def test_estimators_source_imports_nothing_that_does_io():
 
 
 def test_the_daemon_never_loads_plotting_code():
-    names = [n for n in _all(daemon) if not n.startswith("daemon.bench")]
-    loaded = _modules_after_import(names)
+    loaded = _modules_after_import(_all(daemon))
     assert not any(m == "matplotlib" or m.startswith("matplotlib.") for m in loaded)
+
+
+def test_the_daemon_and_estimators_never_load_the_tools():
+    # tools/ (simulator, benchmarks) is not installed: nothing that ships may need it
+    loaded = _modules_after_import(_all(daemon) + _all(estimators))
+    assert sorted(m for m in loaded if m == "tools" or m.startswith("tools.")) == []
+
+
+def test_the_daemon_is_in_rooms():
+    # the tree shows the architecture: no module left loose beside the rooms
+    from pathlib import Path
+
+    loose = sorted(p.name for p in Path(daemon.__path__[0]).glob("*.py")
+                   if p.name not in ("__init__.py", "__main__.py", "errors.py"))
+    assert loose == []

@@ -15,7 +15,7 @@ import paho.mqtt.client as paho
 import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
-from daemon.broker import EmbeddedBroker, _connect_packet, _remaining_length, broker_answers
+from daemon.outlets.broker import EmbeddedBroker, _connect_packet, _remaining_length, broker_answers
 from tests.conftest import free_port
 
 

@@ -7,7 +7,7 @@ import logging
 
 import pytest
 
-from daemon.calibration_store import calibration_path, load_calibration, save_calibration
+from daemon.core.calibration_store import calibration_path, load_calibration, save_calibration
 from daemon.errors import OutputError
 from estimators.current import Calibration, CurrentEstimator, CurrentParams, run
 from tests.test_current_synth import synth_passage, tacking_legs

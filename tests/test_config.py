@@ -7,7 +7,7 @@ import sys
 
 import pytest
 
-from daemon.config import build_config, load_config
+from daemon.core.config import build_config, load_config
 from daemon.errors import ConfigError
 
 

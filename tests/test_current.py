@@ -193,8 +193,8 @@ def test_current_strong_with_hysteresis():
 def test_dead_log_in_the_real_capture_is_rejected():
     # GIVEN the real capture with a dead log (VHW 0.00 kn while SOG is 5 kn), through the whole pipeline
     path = shared_path("real-captures", "robustness", "nmea-reader", "two-gps-dead-log-garbage-truncated.nmea")
-    from daemon.config import load_config
-    from daemon.replay import run_replay
+    from daemon.core.config import load_config
+    from daemon.commands.replay import run_replay
 
     class Collect:
         def __init__(self):

@@ -1,6 +1,6 @@
 """The current estimator over the demo passage, against the simulator's truth.
 
-The passage is made sample by sample with ``daemon.simulator.simulate`` from
+The passage is made sample by sample with ``tools.simulator.simulate`` from
 ``scenarios.demo_passage()`` and the seed that made
 ``recorded_runs/tern-of-haldane.nmea.gz`` (the simulator's ``DEMO_SEED``, the
 default of the regenerating command in recorded_runs/README.md): the same
@@ -23,8 +23,8 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from daemon.simulator import scenarios, simulate
-from daemon.simulator.__main__ import DEMO_SEED
+from tools.simulator import scenarios, simulate
+from tools.simulator.__main__ import DEMO_SEED
 from estimators.base import Publication
 from estimators.current import IE, IN, CurrentEstimator, CurrentParams, run
 from estimators.samples import Fix

@@ -30,10 +30,10 @@ RECEIVED = re.compile(r"received (\d+) messages on (\d+) topics")
 @pytest.fixture
 def short_demo(monkeypatch, short_passage):  # noqa: F811
     """The demo, with the short simulated passage in place of the 7.5-hour one."""
-    import daemon.demo
+    import daemon.commands.demo
 
-    monkeypatch.setattr(daemon.demo, "demo_files", lambda: ([str(short_passage["nmea"])], str(short_passage["cfg"])))
-    return daemon.demo.demo_command
+    monkeypatch.setattr(daemon.commands.demo, "demo_files", lambda: ([str(short_passage["nmea"])], str(short_passage["cfg"])))
+    return daemon.commands.demo.demo_command
 
 
 def check_outputs(out: Path, text: str) -> tuple[int, int]:

@@ -4,7 +4,7 @@
 replayed once for the module through the very pipeline ``run`` uses; what it
 publishes is checked against ``tern-of-haldane.truth.csv.gz``, one truth row
 every 5 s, and against the scenario the simulator made it from
-(``daemon.simulator.scenarios.demo_passage``: sensor errors, dropout times).
+(``tools.simulator.scenarios.demo_passage``: sensor errors, dropout times).
 
 Outside references: distances on the WGS84 ellipsoid with geographiclib
 (Karney 2013, ``Geodesic.WGS84.Inverse``); the 3-hour pressure tendency and its
@@ -27,8 +27,8 @@ import numpy as np
 import pytest
 from geographiclib.geodesic import Geodesic
 
-from daemon.simulator import scenarios
-from daemon.simulator.__main__ import DEMO_MALFORMED
+from tools.simulator import scenarios
+from tools.simulator.__main__ import DEMO_MALFORMED
 from tests.shared import REPO
 from tests.test_end_to_end_replay import interface_problems
 
@@ -46,7 +46,7 @@ DROPOUT = (utc(8, 40), utc(8, 42, 30))  # recorded_runs/README.md and the scenar
 
 
 class Truth:
-    """The truth CSV as columns, linearly interpolated in time (fields of daemon.simulator.TRUTH_FIELDS)."""
+    """The truth CSV as columns, linearly interpolated in time (fields of tools.simulator.TRUTH_FIELDS)."""
 
     def __init__(self, path) -> None:
         with gzip.open(path, "rt", encoding="utf-8", newline="") as f:
@@ -183,7 +183,7 @@ def test_sensor_stale_only_in_the_dropout(demo):
     msgs, _, _ = demo
     stale = on(msgs, "alerts/sensor_stale")
     assert stale, "the dropout silences the GNSS fix: sensor_stale is expected"
-    clear_after_s = 30.0 + 10.0  # the caution's clear time (daemon.alerts.AlertParams) and a tick or two
+    clear_after_s = 30.0 + 10.0  # the caution's clear time (daemon.core.alerts.AlertParams) and a tick or two
     for m in stale:
         assert DROPOUT[0] <= m["t"] <= DROPOUT[1] + clear_after_s, m["payload"]["time"]
     assert stale[-1]["payload"]["state"] == "cleared"

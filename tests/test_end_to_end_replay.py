@@ -22,12 +22,12 @@ from pathlib import Path
 
 import pytest
 
-from daemon.config import load_config
-from daemon.jsonl import encode_line
-from daemon.recorder import export_tag_nmea, parse_tag_line
-from daemon.replay import run_replay
-from daemon.simulator import scenarios, simulate
-from daemon.simulator.nmea_writer import WriterOptions, write_nmea
+from daemon.core.config import load_config
+from daemon.outlets.jsonl import encode_line
+from daemon.outlets.recorder import export_tag_nmea, parse_tag_line
+from daemon.commands.replay import run_replay
+from tools.simulator import scenarios, simulate
+from tools.simulator.nmea_writer import WriterOptions, write_nmea
 from tests.sinks import Keep as Collect
 from tests.shared import REPO, SHARED, shared_path
 
@@ -340,7 +340,7 @@ def _capture_files() -> list[str]:
 
 
 LINE_OUTCOMES = ("good", "bad_checksum", "no_checksum", "unparseable", "unknown", "proprietary", "ais",
-                 "not_sentence")  # one per line (daemon/counters.py); implausible/empty/no_variation sit beside good
+                 "not_sentence")  # one per line (daemon/intake/counters.py); implausible/empty/no_variation sit beside good
 
 
 def _is_text(data: bytes) -> bool:
@@ -360,7 +360,7 @@ def test_every_real_capture_replays_with_counters_and_interface_lines(name):
     assert list(snap) == [path.name[:-3].rsplit(".", 1)[0] if path.name.endswith(".gz") else path.stem]
     (source, counts), = snap.items()
     assert summary.raw_lines > 0
-    # every line the framer passed has exactly one outcome (daemon/counters.py)
+    # every line the framer passed has exactly one outcome (daemon/intake/counters.py)
     assert sum(counts["totals"][k] for k in LINE_OUTCOMES) == summary.raw_lines
     if _is_text(path.read_bytes()):
         # an independent count: the file's non-empty lines (CR LF, LF or CR endings), each either read or

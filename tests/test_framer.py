@@ -5,7 +5,7 @@ from __future__ import annotations
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from daemon.framer import MAX_LINE, LineFramer
+from daemon.intake.framer import MAX_LINE, LineFramer
 
 RMC = b"$GPRMC,190105.41,A,3747.772,N,12220.041,W,5.2,218.2,100520,013.2,E,D*20"
 HDT = b"$APHDT,340.5,T*31"

@@ -306,7 +306,7 @@ def _fronts_on(run, params: FrontParams | None = None) -> list[Publication]:
 
 @pytest.mark.parametrize("seed", [1, 2])
 def test_simulated_front_crossing_one_event_for_the_main_front_none_for_the_weak_one(seed):
-    from daemon.simulator import scenarios, simulate
+    from tools.simulator import scenarios, simulate
 
     # GIVEN the simulator's front_crossing scenario: a +3 °C front at 5 nm, patchiness of ±0.3 °C,
     #       a −0.8 °C front at 14 nm (under the 2 °C threshold), sensor noise, sun on the hull
@@ -328,8 +328,8 @@ def test_simulated_front_crossing_one_event_for_the_main_front_none_for_the_weak
 
 
 def test_real_survey_with_a_mild_gradient_gives_no_front():
-    from daemon.config import load_config
-    from daemon.replay import run_replay
+    from daemon.core.config import load_config
+    from daemon.commands.replay import run_replay
     from tests.shared import shared_path
 
     # GIVEN a real 43-minute sounder survey from a small boat (paleolimbot/nmea, inst/extdata/depths.nmea,

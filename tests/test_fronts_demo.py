@@ -1,7 +1,7 @@
 """The demo passage's two sea-temperature fronts, through the whole pipeline, against the truth.
 
 ``recorded_runs/tern-of-haldane.nmea.gz`` (invented boat, invented water) is
-replayed once for the module with ``daemon.replay.run_replay`` and an extra
+replayed once for the module with ``daemon.commands.replay.run_replay`` and an extra
 sink that keeps what is published. The warm band's near edge (mid-edge
 07:18:27 UTC) and far edge (09:11:54) are given in ``recorded_runs/README.md``;
 the positions and the water temperature along the track come from the truth

@@ -8,9 +8,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from daemon.counters import Counters
-from daemon.ingest import Ingest
-from daemon.readings import RawLine, Reading
+from daemon.intake.counters import Counters
+from daemon.intake.ingest import Ingest
+from daemon.core.readings import RawLine, Reading
 from estimators.samples import Fix, Heading, SeaTemperature
 from tests.test_nmea_sentences import StandInVariation, s, xor_hex
 

@@ -20,9 +20,9 @@ from pathlib import Path
 import pytest
 from geographiclib.geodesic import Geodesic
 
-from daemon.counters import SENTENCE_COUNTS, Counters
-from daemon.ingest import Ingest
-from daemon.readings import RawLine, Reading
+from daemon.intake.counters import SENTENCE_COUNTS, Counters
+from daemon.intake.ingest import Ingest
+from daemon.core.readings import RawLine, Reading
 from estimators.samples import Depth, Fix, Pressure, SeaTemperature, WaterSpeed
 from tests.shared import SHARED, shared_path
 from tests.test_nmea_sentences import StandInVariation
@@ -235,7 +235,7 @@ def test_berth_week_rollover_with_the_files_epoch_as_reference():
     assert utc(2025, 8, 4, 5, 12, 14) <= t[0] and t[-1] <= utc(2025, 8, 4, 5, 25, 32)
     # the APGLL stuck at 04:59:59 (SOURCES.md) never moves the clock: counted as outliers
     assert ing.time_events["outlier"] == counters.get("cap", "GLL", "good") == independent_type_counts(BERTH)["GLL"]
-    # without a reference the receiver's date stands (the rule needs one; see daemon/timing.py)
+    # without a reference the receiver's date stands (the rule needs one; see daemon/intake/timing.py)
     first, _, plain = run(BERTH)
     assert "week_rollover" not in plain.time_events and item_time(first[0]) < utc(2006, 1, 1)
 

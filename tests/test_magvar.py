@@ -6,7 +6,7 @@ import calendar
 
 import pytest
 
-from daemon.magvar import VariationProvider, decimal_year, model_declination_deg
+from daemon.intake.magvar import VariationProvider, decimal_year, model_declination_deg
 from tests.shared import shared_path
 
 

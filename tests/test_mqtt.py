@@ -24,9 +24,9 @@ import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
 from daemon.errors import ConfigError
-from daemon.mqtt import (BrokerUrl, MqttSettings, MqttSink, encode_payload, parse_ack,
+from daemon.outlets.mqtt import (BrokerUrl, MqttSettings, MqttSink, encode_payload, parse_ack,
                          parse_broker_url)
-from daemon.readings import Message
+from daemon.core.readings import Message
 
 REPO = Path(__file__).resolve().parents[1]
 PREFIX = "testboat"
@@ -193,8 +193,8 @@ def test_retained_states_reach_a_late_subscriber(mosquitto, sinks, watchers):
 KILLED_PUBLISHER = """
 import sys, time
 sys.path.insert(0, {repo!r})
-from daemon.mqtt import MqttSink, MqttSettings
-from daemon.readings import Message
+from daemon.outlets.mqtt import MqttSink, MqttSettings
+from daemon.core.readings import Message
 sink = MqttSink(MqttSettings(url="mqtt://{host}:{port}", prefix={prefix!r}, client_id="doomed"))
 sink.message(Message(0.0, {prefix!r} + "/status", {{"time": "2026-05-04T06:30:00.000Z", "state": "online",
                                                      "sensors": {{}}}}, retain=True, kind="status"))

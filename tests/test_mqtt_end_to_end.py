@@ -1,6 +1,6 @@
 """``offwatch replay --mqtt`` against a real Mosquitto: what a display app on the boat receives.
 
-A short simulated passage (invented boat, invented water; daemon.simulator)
+A short simulated passage (invented boat, invented water; tools.simulator)
 with a strong steady current (3 kn), a +3 °C sea-temperature front, a steep
 pressure fall (12 hPa/h) and a 40-s GNSS outage, so in half an hour of data it
 produces every state topic the pipeline has, an event and several alert
@@ -35,10 +35,10 @@ STATE_TOPICS = ("status", "position", "current", "pressure", "sea_temperature")
 @pytest.fixture(scope="module")
 def short_passage(tmp_path_factory) -> dict:
     """The simulated file, a config for it, and its start time."""
-    from daemon.simulator import (Front, Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
+    from tools.simulator import (Front, Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
                                   SteadyCurrent, WindField, simulate)
-    from daemon.simulator.nmea_writer import WriterOptions, write_nmea
-    from daemon.simulator.scenarios import MIN, along, utc
+    from tools.simulator.nmea_writer import WriterOptions, write_nmea
+    from tools.simulator.scenarios import MIN, along, utc
 
     t0, lat, lon = utc(2026, 6, 1, 6), 43.3, -30.7
     front = Front(*along(lat, lon, 90.0, 1.6), along_deg=0.0, delta_c=3.0, width_nm=0.3)

@@ -15,11 +15,11 @@ import math
 
 import pytest
 
-from daemon.counters import Counters
+from daemon.intake.counters import Counters
 from daemon.errors import ConfigError
-from daemon.ingest import Ingest
-from daemon.nmea import extract, parse_line, parse_tag_block
-from daemon.readings import RawLine, Reading
+from daemon.intake.ingest import Ingest
+from daemon.nmea0183.codec import extract, parse_line, parse_tag_block
+from daemon.core.readings import RawLine, Reading
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Heading, Pressure,
     SeaTemperature, WaterSpeed, WaterWind,
@@ -27,7 +27,7 @@ from estimators.samples import (
 
 
 def xor_hex(body: str) -> str:
-    """The checksum, computed here independently of daemon.nmea: a plain loop over ord()."""
+    """The checksum, computed here independently of daemon.nmea0183.codec: a plain loop over ord()."""
     x = 0
     for ch in body:
         x ^= ord(ch)
@@ -39,7 +39,7 @@ def s(body: str, start: str = "$") -> str:
 
 
 class StandInVariation:
-    """A tiny stand-in for daemon.magvar.VariationProvider("sentence"): the latest noted value."""
+    """A tiny stand-in for daemon.intake.magvar.VariationProvider("sentence"): the latest noted value."""
 
     def __init__(self, fixed: float | None = None) -> None:
         self.value = fixed

@@ -18,8 +18,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from daemon.simulator import nmea_writer as nw
-from daemon.simulator import scenarios, simulate
+from tools.simulator import nmea_writer as nw
+from tools.simulator import scenarios, simulate
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, Heading, Pressure, SeaTemperature, WaterSpeed, WaterWind,
 )

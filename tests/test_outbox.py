@@ -6,7 +6,7 @@ import sqlite3
 
 import pytest
 
-from daemon.outbox import Outbox, Outgoing
+from daemon.outlets.outbox import Outbox, Outgoing
 
 
 def test_latest_state_is_an_upsert_per_topic(tmp_path):

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import threading
 
-from daemon.pipeline import Pipeline
-from daemon.readings import Message, RawLine, Reading
+from daemon.core.pipeline import Pipeline
+from daemon.core.readings import Message, RawLine, Reading
 from estimators.base import Condition, EstimatorBase, Publication
 from estimators.samples import Heading, Pressure
 from tests.sinks import Keep

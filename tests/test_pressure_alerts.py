@@ -9,9 +9,9 @@ from __future__ import annotations
 import math
 import random
 
-from daemon.alerts import AlertManager, AlertParams
-from daemon.pipeline import Pipeline
-from daemon.readings import Reading
+from daemon.core.alerts import AlertManager, AlertParams
+from daemon.core.pipeline import Pipeline
+from daemon.core.readings import Reading
 from estimators.pressure import PressureParams, PressureTendency
 from estimators.samples import Fix, Pressure
 from tests.test_pressure import HEIGHT_M, LAT, LON, T0, H, station_from_msl

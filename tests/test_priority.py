@@ -7,8 +7,8 @@ import logging
 import pytest
 
 from daemon.errors import ConfigError
-from daemon.priority import PrioritySelector
-from daemon.readings import Reading
+from daemon.intake.priority import PrioritySelector
+from daemon.core.readings import Reading
 from estimators.samples import Fix, Heading, Pressure
 
 
@@ -17,7 +17,7 @@ def fix(source: str, t_s: float) -> Reading:
 
 
 def test_configured_order_falls_back_when_stale_and_returns(caplog):
-    caplog.set_level(logging.INFO, logger="daemon.priority")
+    caplog.set_level(logging.INFO, logger="daemon.intake.priority")
     sel = PrioritySelector({"fix": ["gps_mast", "gps_chart"]}, {"fix": 5.0})
     # GIVEN both receivers at 1 Hz
     for t in range(0, 10):

@@ -14,10 +14,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from daemon import recorder
+from daemon.outlets import recorder
 from daemon.errors import InputError
-from daemon.readings import Message, RawLine
-from daemon.recorder import (Recorder, RecordingParams, RecordingPolicy, RecordingWriter, export_tag_nmea,
+from daemon.core.readings import Message, RawLine
+from daemon.outlets.recorder import (Recorder, RecordingParams, RecordingPolicy, RecordingWriter, export_tag_nmea,
                              iter_messages, iter_raw, read_meta, read_tag_nmea, recording_name)
 from estimators.params import check
 

@@ -9,8 +9,8 @@ import shutil
 import pytest
 
 from daemon.errors import InputError
-from daemon.readings import RawLine
-from daemon.replayfiles import ProgressBar, detect_format, item_time, iter_replay, source_names
+from daemon.core.readings import RawLine
+from daemon.intake.replayfiles import ProgressBar, detect_format, item_time, iter_replay, source_names
 
 
 def nmea_checksum(body: str) -> str:
@@ -28,7 +28,7 @@ def tagged(t_s: float, body: str) -> str:
 
 
 class LineIngest:
-    """A stand-in for daemon.ingest.Ingest that frames lines and reads the TAG c: time.
+    """A stand-in for daemon.intake.ingest.Ingest that frames lines and reads the TAG c: time.
 
     It lets these tests check what replayfiles does (chunks, merging, names) apart from parsing.
     """
@@ -123,7 +123,7 @@ def test_missing_or_unreadable_file_is_one_clear_input_error(tmp_path):
 
 
 def test_a_recording_replays_each_stored_source_with_its_stored_times(tmp_path):
-    from daemon.recorder import RecordingWriter
+    from daemon.outlets.recorder import RecordingWriter
 
     db = tmp_path / "passage-copy"  # no suffix: told by the SQLite header
     writer = RecordingWriter(db, now_utc=1000.0)
@@ -179,9 +179,9 @@ def test_iter_replay_counts_sentences_for_a_progress_bar(tmp_path):
 
 
 def real_ingest_factory():
-    from daemon.counters import Counters
-    from daemon.ingest import Ingest
-    from daemon.magvar import VariationProvider
+    from daemon.intake.counters import Counters
+    from daemon.intake.ingest import Ingest
+    from daemon.intake.magvar import VariationProvider
 
     counters, variation = Counters(), VariationProvider("sentence")
     return lambda source: Ingest(source, counters=counters, variation=variation, live=False)

@@ -13,7 +13,7 @@ import uuid
 
 import pytest
 
-from daemon.sdnotify import Notifier
+from daemon.outlets.sdnotify import Notifier
 
 
 @pytest.fixture

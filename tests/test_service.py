@@ -182,10 +182,10 @@ def simulated_lines(minutes: float = 6.0, seed: int = 11) -> list[tuple[float, s
 
     Sources are the instruments' TAG-block names of the simulator's writer.
     """
-    from daemon.simulator import (Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
+    from tools.simulator import (Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
                                   SteadyCurrent, WindField, simulate)
-    from daemon.simulator.nmea_writer import WriterOptions, run_lines
-    from daemon.simulator.scenarios import MIN, utc
+    from tools.simulator.nmea_writer import WriterOptions, run_lines
+    from tools.simulator.scenarios import MIN, utc
 
     t0, lat, lon = utc(2026, 6, 2, 9), 44.1, -31.2
     ocean = Ocean(currents=(SteadyCurrent(80.0, 0.6),), sea_temp=SeaTemperatureField(15.2, lat, lon),
@@ -497,7 +497,7 @@ def test_kill9_leaves_the_last_will_and_a_sound_recording(live, tmp_path):
     recordings = sorted((live["state"] / "recordings").glob("offwatch-*.sqlite"))
     assert len(recordings) == 1
     assert integrity(recordings[0]) == "ok"
-    from daemon.recorder import iter_raw
+    from daemon.outlets.recorder import iter_raw
     assert sum(1 for _ in iter_raw(recordings[0])) > 20
     out = tmp_path / "killed.jsonl"
     replay = run_cli("replay", str(recordings[0]), "--jsonl", str(out))
@@ -695,7 +695,7 @@ def test_sigterm_with_half_a_sentence_received_stops_cleanly(tmp_path, mosquitto
     try:
         conn, _ = server.accept()
         # GIVEN one whole sentence and the first half of the next (NMEA 0183 RMC, checksum computed)
-        from daemon.simulator.nmea_writer import sentence
+        from tools.simulator.nmea_writer import sentence
         whole = sentence("GP", "RMC", "120000.00,A,4406.000,N,03112.000,W,5.5,100.0,020626,,,A".split(","))
         conn.sendall((whole + "\r\n").encode() + whole[:20].encode())
         assert wait_until(lambda: notify.times_of("READY=1"), 30), daemon.log()
@@ -715,7 +715,7 @@ def test_sigterm_with_half_a_sentence_received_stops_cleanly(tmp_path, mosquitto
 def test_status_line_for_a_current_not_yet_estimable():
     """The STATUS= text (sd_notify(3): free text) for every shape of the current payload; a None
     drift once ended the whole service with a TypeError."""
-    from daemon.service import status_text
+    from daemon.commands.service import status_text
 
     assert status_text(None) == "running"
     assert status_text({"drift_kn": None, "set_deg": None, "quality": "unavailable"}) == "running; current unavailable"

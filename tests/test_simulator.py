@@ -17,12 +17,12 @@ import numpy as np
 import pytest
 from geographiclib.geodesic import Geodesic
 
-from daemon.simulator import (
+from tools.simulator import (
     CurrentBand, Ocean, PressureField, SeaTemperatureField, SensorSpec, Steer, SteadyCurrent, TidalStream,
     WindField, scenarios, simulate,
 )
-from daemon.simulator.ocean import step_position
-from daemon.simulator.run import Scenario, magnetic_variation_deg
+from tools.simulator.ocean import step_position
+from tools.simulator.run import Scenario, magnetic_variation_deg
 from estimators.angles import KN_TO_MPS, NM_M, circular_mean_deg, from_east_north, to_east_north, wrap_180
 from estimators.samples import Fix, Heading, Pressure, SeaTemperature, WaterSpeed
 
@@ -301,7 +301,7 @@ def test_waypoint_leg_arrives_and_box_closes_in_still_water():
     ocean = Ocean((), SeaTemperatureField(15.0, 45.0, -30.0), PressureField(((t0, 1013.0),)),
                   WindField(((t0, 0.0, 5.0),)))
     wp = WGS84.Direct(45.0, -30.0, 45.0, 2 * NM_M)
-    from daemon.simulator import Waypoint, box
+    from tools.simulator import Waypoint, box
     legs = (Waypoint(wp["lat2"], wp["lon2"], 6.0, 3600.0, arrive_nm=0.05),) + box(90.0, 600.0, 6.0)
     run = simulate(Scenario("wp", t0, 3 * 3600.0, 45.0, -30.0, legs, ocean), seed=3)
     arrive = next(e for e in run.events if e.kind == "leg_start" and e.detail["leg"] == 1)

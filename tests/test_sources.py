@@ -13,7 +13,7 @@ import time
 import pytest
 
 from daemon.errors import ConfigError
-from daemon.sources import (Chunk, InputSpec, SourceSupervisor, make_reader, specs_from_config,
+from daemon.intake.sources import (Chunk, InputSpec, SourceSupervisor, make_reader, specs_from_config,
                             start_sources)
 
 
@@ -60,7 +60,7 @@ def new_pty_at(link: str) -> tuple[int, int]:
 
 
 def test_serial_bytes_arrive_and_an_unplugged_adapter_is_reopened(tmp_path, stop, caplog):
-    caplog.set_level(logging.INFO, logger="daemon.sources")
+    caplog.set_level(logging.INFO, logger="daemon.intake.sources")
     link = str(tmp_path / "ttyNMEA")
     master, slave = new_pty_at(link)
     q: queue.Queue = queue.Queue(maxsize=100)
@@ -122,7 +122,7 @@ class DroppingServer:
 
 
 def test_tcp_client_reconnects_after_the_server_drops_it(stop, caplog):
-    caplog.set_level(logging.INFO, logger="daemon.sources")
+    caplog.set_level(logging.INFO, logger="daemon.intake.sources")
     first = b"$IIMTW,18.5,C*00\r\n"
     rng = random.Random(7)
     garbage = bytes(rng.randrange(256) for _ in range(5000))  # every byte value, binary noise

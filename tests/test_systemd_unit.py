@@ -94,7 +94,7 @@ def test_systemd_analyze_verify_accepts_the_unit(tmp_path):
 
 
 def test_sample_config_loads():
-    from daemon.config import load_config
+    from daemon.core.config import load_config
 
     cfg = load_config(SAMPLE)
     assert cfg.mqtt.url.startswith("mqtt://")

@@ -9,10 +9,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from daemon.counters import Counters
-from daemon.ingest import Ingest
-from daemon.readings import RawLine, Reading
-from daemon.timing import GPS_WEEK_ROLLOVER_S, GnssDate, ReplayClock
+from daemon.intake.counters import Counters
+from daemon.intake.ingest import Ingest
+from daemon.core.readings import RawLine, Reading
+from daemon.intake.timing import GPS_WEEK_ROLLOVER_S, GnssDate, ReplayClock
 from tests.test_nmea_sentences import StandInVariation, s, xor_hex
 
 

@@ -1,0 +1,110 @@
+"""The ``offwatch`` command line."""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+
+from daemon import __version__
+from daemon.errors import OffwatchError
+
+DESCRIPTION = """\
+offwatch keeps watch on the boat's instruments while the crew is off watch:
+it works out the set and drift of the current and how sure that is, checks the
+speed log and compass, notices sea-temperature fronts and a falling barometer,
+and publishes all of it, with cautions, on MQTT for the displays aboard.
+
+Its cautions are advisory, not for navigation: they never replace official
+forecasts, charts or your own seamanship.
+"""
+
+EPILOG = """\
+examples:
+  offwatch demo                                   replay the demo passage end to end
+  offwatch replay passage.nmea.gz --jsonl out.jsonl
+  offwatch replay a.nmea b.nmea --mqtt mqtt://127.0.0.1:1883 --record passage.sqlite
+  offwatch run --config /etc/offwatch/offwatch.toml
+"""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="offwatch", description=DESCRIPTION, epilog=EPILOG,
+                                formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--version", action="version", version=f"offwatch {__version__}")
+    p.add_argument("-v", "--verbose", action="store_true", help="log more detail")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    run = sub.add_parser("run", help="the always-on service: read the instruments, publish, record")
+    run.add_argument("--config", metavar="FILE", help="TOML config (inputs, broker, installation)")
+    run.add_argument("--mqtt", metavar="URL", help="broker, mqtt://host:port or mqtts://host:port (overrides the config)")
+
+    rep = sub.add_parser("replay", help="feed recorded files through the same pipeline as run",
+                         description="Replay NMEA files (plain, TAG blocks, gzipped) or a recording (.sqlite) "
+                                     "through the very same pipeline as run, as fast as it can.")
+    rep.add_argument("files", nargs="+", metavar="FILE")
+    rep.add_argument("--config", metavar="FILE")
+    rep.add_argument("--jsonl", metavar="OUT", help="write every published message to OUT, one JSON object a line")
+    rep.add_argument("--record", metavar="DB", help="keep the passage in a recording, as run does")
+    rep.add_argument("--mqtt", metavar="URL", help="publish to this broker as well, exactly as run would")
+    rep.add_argument("--speed", type=float, metavar="X", help="pace the replay at X times real time (default: as fast as it can)")
+    rep.add_argument("--quiet", action="store_true", help="no summary at the end")
+
+    demo = sub.add_parser("demo", help="replay the demo passage end to end, with a broker, and summarise")
+    demo.add_argument("--mqtt", metavar="URL", help="broker to use (default: 127.0.0.1:1883, or an embedded one)")
+    demo.add_argument("--out", metavar="DIR", default="demo-out", help="where the JSONL and recording go")
+
+    exp = sub.add_parser("export", help="the track and the estimates as CSV, GPX or GeoJSON; a recording's raw NMEA",
+                         description="csv, gpx, geojson: the track with the estimates beside each point, from a "
+                                     "recording or any replayable file. nmea: a recording's raw sentences as "
+                                     "TAG-block NMEA 0183 text, which replays to the same output.")
+    exp.add_argument("source", metavar="SOURCE", help="a recording or any replayable file")
+    exp.add_argument("--format", choices=("csv", "gpx", "geojson", "nmea"), required=True)
+    exp.add_argument("--out", metavar="FILE", required=True)
+    exp.add_argument("--config", metavar="FILE")
+
+    watch = sub.add_parser("watch", help="a live terminal view of what the service publishes")
+    watch.add_argument("--mqtt", metavar="URL", default="mqtt://127.0.0.1:1883")
+    watch.add_argument("--prefix", default="offwatch")
+    watch.add_argument("--once", action="store_true", help="print one view after a few seconds and exit")
+
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    # the service logs its life to the journal; a replay's account is its summary
+    quiet = logging.INFO if args.command == "run" else logging.WARNING
+    logging.basicConfig(level=logging.DEBUG if args.verbose else quiet,
+                        format="%(levelname)s %(name)s: %(message)s")
+    if args.command is None:
+        parser.print_help()
+        return 2
+    try:
+        if args.command == "replay":
+            from daemon.commands.replay import replay_command
+            return replay_command(args)
+        if args.command == "run":
+            from daemon.commands.service import run_command
+            return run_command(args)
+        if args.command == "export":
+            from daemon.outlets.export import export_command
+            return export_command(args)
+        if args.command == "watch":
+            from daemon.commands.watch import watch_command
+            return watch_command(args)
+        if args.command == "demo":
+            from daemon.commands.demo import demo_command
+            return demo_command(args)
+    except OffwatchError as e:
+        print(f"offwatch: {e}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+    parser.error(f"unknown command {args.command}")
+    return 2
+
+
+if __name__ == "__main__":
+    sys.exit(main())

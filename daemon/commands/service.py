@@ -1,0 +1,199 @@
+"""``offwatch run``: the always-on service under systemd.
+
+One reading loop: chunks from every live source (one supervisor thread each)
+arrive on one bounded queue; each source's Ingest frames and parses them; the
+pipeline steps the estimators; MQTT and the recorder only ever enqueue, so a
+dead broker or a slow SD card never delays an input. The loop also ticks the
+pipeline with the wall clock once a second (a silent feed is noticed even when
+nothing at all arrives), pings the systemd watchdog only while the loop and
+the MQTT thread are alive, and saves the learnt calibration and the alert
+states in the state directory.
+"""
+
+from __future__ import annotations
+
+import logging
+import queue
+import signal
+import threading
+import time
+from pathlib import Path
+
+from daemon.outlets import sdnotify
+from daemon.core.assembly import build
+from daemon.core.calibration_store import load_calibration, save_calibration
+from daemon.core.config import Config, client_id_for, load_config
+from daemon.errors import ConfigError, OffwatchError
+from daemon.core.statefiles import read_json, write_json_atomic
+
+log = logging.getLogger(__name__)
+
+CALIBRATION_SAVE_EVERY_S = 600.0
+ALERTS_FILE = "alerts.json"
+QUEUE_SIZE = 10000
+DRAIN_SLICE_S = 0.5  # longest the loop feeds queued input before it ticks and pings again
+
+
+class Service:
+    def __init__(self, cfg: Config, mqtt_url: str | None = None) -> None:
+        self.cfg = cfg
+        self.stop = threading.Event()
+        self.state_dir = cfg.state_dir()
+        self.state_dir.mkdir(parents=True, exist_ok=True)
+        self.chunks: queue.Queue = queue.Queue(maxsize=QUEUE_SIZE)
+        self.notifier = sdnotify.Notifier()
+        self.mqtt = None
+        self.recorder = None
+        self._open_outputs(mqtt_url or cfg.mqtt.url)
+        self.alerts_changed = _AlertWatch()
+        sinks = [s for s in (self.recorder, self.mqtt, self.alerts_changed) if s is not None]
+        self.parts = build(cfg, sinks, live=True, calibration=load_calibration(self.state_dir),
+                           alert_snapshot=read_json(self.state_dir / ALERTS_FILE),
+                           extra_status=self._health)
+        self.ingests = {name: self.parts.make_ingest(name) for name in cfg.inputs}
+        self.source_threads: list = []
+
+    def _open_outputs(self, url: str) -> None:
+        from daemon.outlets.recorder import Recorder
+        self.recorder = Recorder.open_passage(self.cfg.section("recording"), self.state_dir / "recordings")
+        self.recorder.record_config(self.cfg.effective())
+        if url:
+            from daemon.outlets.mqtt import MqttSink
+            self.mqtt = MqttSink.from_config(client_id_for(self.cfg.mqtt, "run"), url=url, state_dir=self.state_dir,
+                                             on_ack=lambda i: self.parts.pipeline.acknowledge(i),
+                                             on_connected=lambda: self.parts.pipeline.request_status())
+
+    def _health(self) -> dict:
+        out = {"sources": {h.name: h.snapshot() for h in getattr(self, "health", [])}}
+        if self.mqtt is not None:
+            out["mqtt"] = self.mqtt.snapshot()
+        return out
+
+    def run(self) -> int:
+        from daemon.intake.sources import start_sources, specs_from_config
+        self.source_threads, self.health = start_sources(specs_from_config(self.cfg.inputs), self.chunks, self.stop)
+        pipe = self.parts.pipeline
+        pipe.republish_alerts(time.time())
+        self.notifier.ready()
+        log.info("offwatch running: %d inputs, state in %s", len(self.cfg.inputs), self.state_dir)
+        next_tick = time.monotonic()
+        next_save = time.monotonic() + CALIBRATION_SAVE_EVERY_S
+        clean = False
+        try:
+            while not self.stop.is_set():
+                self._drain(timeout=0.2)
+                now = time.monotonic()
+                if now >= next_tick:
+                    pipe.tick(time.time())
+                    self._watchdog()
+                    if self.alerts_changed.take():
+                        self._save_alerts()
+                    next_tick = now + 1.0
+                if now >= next_save:
+                    self._save_state()
+                    next_save = now + CALIBRATION_SAVE_EVERY_S
+            clean = True
+        finally:
+            self.notifier.stopping()
+            self.stop.set()
+            for ingest in self.ingests.values():
+                pipe.feed_all(ingest.flush())  # a line cut off by the stop ends here
+            self._save_state()
+            pipe.close()
+            if clean:
+                log.info("offwatch stopped cleanly")
+            else:
+                log.error("offwatch stopped after an error (traceback below); systemd restarts it")
+        return 0
+
+    def _drain(self, timeout: float) -> None:
+        """Feed queued chunks for at most DRAIN_SLICE_S, so a flooding input cannot starve
+        the tick, the watchdog or a stop request (the bounded queue then drops and counts)."""
+        try:
+            chunk = self.chunks.get(timeout=timeout)
+        except queue.Empty:
+            return
+        pipe = self.parts.pipeline
+        until = time.monotonic() + DRAIN_SLICE_S
+        while True:
+            ingest = self.ingests.get(chunk.source)
+            if ingest is not None:
+                pipe.feed_all(ingest.feed(chunk.data, chunk.recv_utc))
+            if time.monotonic() >= until or self.stop.is_set():
+                return
+            try:
+                chunk = self.chunks.get_nowait()
+            except queue.Empty:
+                return
+
+    def _watchdog(self) -> None:
+        """Ping only while everything that must run does: a hung part gets us restarted."""
+        if self.mqtt is not None and not self.mqtt.healthy():
+            log.error("MQTT network thread is not healthy; withholding the watchdog ping")
+            return
+        self.notifier.watchdog()
+        cur = self.parts.pipeline.ctx.latest("current")
+        self.notifier.status(status_text(cur.payload if cur is not None else None))
+
+    def _save_state(self) -> None:
+        try:
+            save_calibration(self.state_dir, self.parts.current.calibration(), time.time())
+        except OffwatchError as e:
+            log.error("%s", e)
+        self._save_alerts()
+
+    def _save_alerts(self) -> None:
+        """The listed alerts, so a restart shows them again (saved at most once a second)."""
+        try:
+            write_json_atomic(self.state_dir / ALERTS_FILE, self.parts.pipeline.alerts.snapshot())
+        except OSError as e:
+            log.error("cannot save the alert states in %s: %s", self.state_dir, e)
+
+
+def status_text(current: dict | None) -> str:
+    """The one line for ``systemctl status``; a current not yet estimable (fields None) says so."""
+    if not current:
+        return "running"
+    drift, set_deg = current.get("drift_kn"), current.get("set_deg")
+    if not isinstance(drift, (int, float)) or not isinstance(set_deg, (int, float)):
+        return f"running; current {current.get('quality') or 'unavailable'}"
+    return f"current {drift:.1f} kn toward {set_deg:.0f}°, {current.get('quality')}"
+
+
+class _AlertWatch:
+    """A sink that only notes that an alert changed, so the loop saves the alert states."""
+
+    def __init__(self) -> None:
+        self._changed = False
+
+    def raw(self, line) -> None:
+        pass
+
+    def message(self, msg) -> None:
+        if msg.kind == "alert":
+            self._changed = True
+
+    def close(self) -> None:
+        pass
+
+    def take(self) -> bool:
+        changed, self._changed = self._changed, False
+        return changed
+
+
+def run_command(args) -> int:
+    cfg = load_config(args.config)
+    if not cfg.inputs:
+        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" device = \"/dev/ttyUSB0\"")
+    service = Service(cfg, mqtt_url=args.mqtt)
+
+    def on_signal(signum, frame):
+        log.info("signal %d: stopping", signum)
+        service.stop.set()
+
+    signal.signal(signal.SIGTERM, on_signal)
+    signal.signal(signal.SIGINT, on_signal)
+    return service.run()
+
+
+__all__ = ["Service", "run_command", "Path"]

@@ -1,0 +1,273 @@
+"""The TOML configuration: one typed table per section, defaults for everything.
+
+``offwatch replay FILE`` needs no config at all. Every problem is reported as
+one line that names the section and key, what was found and what is expected,
+and ends the program with a non-zero status (``ConfigError``).
+
+Sections (all optional):
+  [installation]   facts of this boat's installation (barometer height, compass kind,
+                   magnetic variation source, the initial speed-log calibration)
+  [inputs.NAME]    one table per live input (serial, tcp, udp)
+  [priority]       kind = ["source", ...]: which source wins where two give the same kind
+  [mqtt] [recording] [state] [alerts]      the service's outputs
+  [current] [position] [staleness] [front] [pressure]   estimator parameters
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import tomllib
+import typing
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from daemon.errors import ConfigError
+from estimators.params import check, param
+
+
+@dataclass(frozen=True)
+class InstallationConfig:
+    barometer_height_m: float = param(1.5, "m", -10.0, 200.0, "barometer height above the sea surface")
+    heading_sensor: str = param("auto", choices=("auto", "magnetic", "true"),
+                                doc="auto: as each sentence says; magnetic/true: force it")
+    variation_source: str = param("sentence", choices=("sentence", "fixed", "model"),
+                                  doc="magnetic variation: from RMC/HDG, a fixed value, or the World Magnetic Model")
+    variation_fixed_deg: float = param(0.0, "deg east", -180.0, 180.0, "used when variation_source = fixed")
+    stw_scale: float = param(1.0, "", 0.5, 1.5, "initial speed-log calibration: true STW = log x stw_scale")
+    heading_offset_deg: float = param(0.0, "deg", -45.0, 45.0, "initial compass offset: true heading = heading + offset")
+    gnss_not_before: str = param("", doc="ISO date the data is known to be after; a GNSS date ~1024 weeks "
+                                         "earlier is a week rollover and is corrected. Empty: this release's date")
+
+
+@dataclass(frozen=True)
+class MqttConfig:
+    url: str = param("", doc="mqtt://host:port or mqtts://host:port; empty: no broker")
+    client_id: str = param("", doc="empty: offwatch-<hostname> for run, offwatch-replay-<pid> for replay")
+    prefix: str = param("offwatch", doc="topic prefix, e.g. fleet/<boat> for a fleet")
+    username: str = param("")
+    password: str = param("")
+    ca_file: str = param("", doc="CA certificate for mqtts://")
+    cert_file: str = param("", doc="client certificate for mqtts:// (optional)")
+    key_file: str = param("", doc="client key for mqtts:// (optional)")
+    protocol: str = param("3.1.1", choices=("3.1.1", "5"))
+
+
+def client_id_for(mqtt: MqttConfig, role: str) -> MqttConfig:
+    """The config with a client id that a run and a replay on one broker never share."""
+    if mqtt.client_id:
+        return mqtt
+    import socket
+
+    cid = f"offwatch-{socket.gethostname()}" if role == "run" else f"offwatch-replay-{os.getpid()}"
+    return dataclasses.replace(mqtt, client_id=cid)
+
+
+@dataclass(frozen=True)
+class StateConfig:
+    dir: str = param("", doc="state directory (calibration, outbox, alerts); default $STATE_DIRECTORY or ~/.local/state/offwatch")
+
+
+@dataclass(frozen=True)
+class InputConfig:
+    kind: str = param("serial", choices=("serial", "tcp", "udp", "file"))
+    device: str = param("", doc="serial device, e.g. /dev/serial/by-id/...")
+    baud: int = param(4800, "baud", 300, 921600)
+    host: str = param("")
+    port: int = param(10110, "", 1, 65535)
+    bind: str = param("0.0.0.0", doc="UDP listen address")
+    path: str = param("")
+    allow_no_checksum: bool = param(False, doc="accept sentences without *hh from this source")
+
+
+@dataclass(frozen=True)
+class Config:
+    installation: InstallationConfig
+    mqtt: MqttConfig
+    state: StateConfig
+    inputs: dict[str, InputConfig]
+    priority: dict[str, list[str]]
+    sections: dict[str, Any]  # estimator and service parameter objects by section name
+    path: str = ""
+
+    def section(self, name: str) -> Any:
+        return self.sections[name]
+
+    def state_dir(self) -> Path:
+        if self.state.dir:
+            return Path(self.state.dir).expanduser()
+        env = os.environ.get("STATE_DIRECTORY")  # set by systemd's StateDirectory=
+        if env:
+            return Path(env.split(":")[0])
+        return Path.home() / ".local" / "state" / "offwatch"
+
+    def effective(self) -> dict[str, Any]:
+        """Every value in force, for the recording and for `--help`-style listings."""
+        out: dict[str, Any] = {
+            "installation": dataclasses.asdict(self.installation),
+            "mqtt": {k: ("***" if k == "password" and v else v) for k, v in dataclasses.asdict(self.mqtt).items()},
+            "state": dataclasses.asdict(self.state),
+            "inputs": {n: dataclasses.asdict(c) for n, c in self.inputs.items()},
+            "priority": self.priority,
+        }
+        for name, obj in self.sections.items():
+            out[name] = dataclasses.asdict(obj)
+        return out
+
+
+def parameter_sections() -> dict[str, type]:
+    """Section name -> parameter class, for the estimators and service parts."""
+    from daemon.core.alerts import AlertParams
+    from daemon.outlets.recorder import RecordingParams
+    from estimators.current import CurrentParams
+    from estimators.fronts import FrontParams
+    from estimators.position import PositionParams
+    from estimators.pressure import PressureParams
+    from estimators.staleness import StalenessParams
+
+    return {
+        "alerts": AlertParams,
+        "recording": RecordingParams,
+        "current": CurrentParams,
+        "position": PositionParams,
+        "staleness": StalenessParams,
+        "front": FrontParams,
+        "pressure": PressureParams,
+    }
+
+
+_FIXED = {"installation": InstallationConfig, "mqtt": MqttConfig, "state": StateConfig}
+
+
+def load_config(path: str | os.PathLike[str] | None = None) -> Config:
+    """Read and check a config file; None gives the defaults."""
+    table: dict[str, Any] = {}
+    where = str(path) if path else "defaults"
+    if path is not None:
+        try:
+            with open(path, "rb") as f:
+                table = tomllib.load(f)
+        except FileNotFoundError:
+            raise ConfigError(f"config file {path} not found: give an existing file with --config, or none for the defaults") from None
+        except OSError as e:
+            raise ConfigError(f"config file {path} cannot be read: {e.strerror}") from None
+        except tomllib.TOMLDecodeError as e:
+            raise ConfigError(f"config file {path} is not valid TOML: {e}") from None
+    return build_config(table, where)
+
+
+def build_config(table: dict[str, Any], where: str = "config") -> Config:
+    sections_cls = parameter_sections()
+    known = set(_FIXED) | set(sections_cls) | {"inputs", "priority"}
+    for key in table:
+        if key not in known:
+            raise ConfigError(f"{where}: unknown section [{key}]: expected one of {', '.join(sorted(known))}")
+    fixed = {name: fill(cls, table.get(name, {}), f"{where}: [{name}]") for name, cls in _FIXED.items()}
+    _check_date(fixed["installation"].gnss_not_before, f"{where}: [installation] gnss_not_before")
+    inputs = _inputs(table.get("inputs", {}), where)
+    priority = _priority(table.get("priority", {}), where, inputs)
+    sections = {name: fill(cls, table.get(name, {}), f"{where}: [{name}]") for name, cls in sections_cls.items()}
+    return Config(inputs=inputs, priority=priority, sections=sections, path=where, **fixed)
+
+
+def fill(cls: type, values: Any, where: str) -> Any:
+    """An instance of the frozen dataclass ``cls`` from a TOML table, checked."""
+    if not isinstance(values, dict):
+        raise ConfigError(f"{where} must be a table of keys, found {type(values).__name__}")
+    hints = typing.get_type_hints(cls)
+    names = {f.name for f in dataclasses.fields(cls)}
+    kwargs = {}
+    for key, value in values.items():
+        if key not in names:
+            raise ConfigError(f"{where} unknown key {key!r}: expected one of {', '.join(sorted(names))}")
+        kwargs[key] = _coerce(value, hints[key], f"{where} {key}")
+    obj = cls(**kwargs)
+    problems = check(obj)
+    if problems:
+        raise ConfigError(f"{where} {problems[0]}")
+    return obj
+
+
+def _coerce(value: Any, hint: Any, where: str) -> Any:
+    origin = typing.get_origin(hint)
+    if hint is float:
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            return float(value)
+        raise ConfigError(f"{where} = {value!r}: expected a number")
+    if hint is bool:
+        if isinstance(value, bool):
+            return value
+        raise ConfigError(f"{where} = {value!r}: expected true or false")
+    if hint is int:
+        if isinstance(value, int) and not isinstance(value, bool):
+            return value
+        raise ConfigError(f"{where} = {value!r}: expected a whole number")
+    if hint is str:
+        if isinstance(value, str):
+            return value
+        raise ConfigError(f"{where} = {value!r}: expected a quoted string")
+    if origin in (tuple, list):
+        if not isinstance(value, list):
+            raise ConfigError(f"{where} = {value!r}: expected a list [...]")
+        args = typing.get_args(hint) or (Any,)
+        items = [_coerce(v, args[0], where) for v in value] if args[0] is not Any else list(value)
+        return tuple(items) if origin is tuple else items
+    if origin is dict:
+        if not isinstance(value, dict):
+            raise ConfigError(f"{where} = {value!r}: expected a table {{...}}")
+        _, vt = typing.get_args(hint) or (str, Any)
+        return {str(k): (_coerce(v, vt, f"{where}.{k}") if vt is not Any else v) for k, v in value.items()}
+    if hint is Any:
+        return value
+    if origin is typing.Union or str(origin) == "types.UnionType" or origin is getattr(__import__("types"), "UnionType", None):
+        for arg in typing.get_args(hint):
+            if arg is type(None) and value is None:
+                return None
+            try:
+                return _coerce(value, arg, where)
+            except ConfigError:
+                continue
+        raise ConfigError(f"{where} = {value!r}: expected {hint}")
+    return value
+
+
+def _check_date(text: str, where: str) -> None:
+    from datetime import date
+
+    if text:
+        try:
+            date.fromisoformat(text)
+        except ValueError:
+            raise ConfigError(f"{where} = {text!r}: expected an ISO date like \"2019-04-07\"") from None
+
+
+def _inputs(table: Any, where: str) -> dict[str, InputConfig]:
+    if not isinstance(table, dict):
+        raise ConfigError(f"{where}: [inputs] must hold one table per input, e.g. [inputs.gps]")
+    inputs = {}
+    for name, values in table.items():
+        cfg = fill(InputConfig, values, f"{where}: [inputs.{name}]")
+        need = {"serial": "device", "tcp": "host", "file": "path"}.get(cfg.kind)
+        if need and not getattr(cfg, need):
+            raise ConfigError(f"{where}: [inputs.{name}] kind = {cfg.kind!r} needs {need} = \"...\"")
+        inputs[name] = cfg
+    return inputs
+
+
+def _priority(table: Any, where: str, inputs: dict[str, InputConfig]) -> dict[str, list[str]]:
+    from estimators.samples import KIND_NAMES
+
+    kinds = set(KIND_NAMES.values())
+    if not isinstance(table, dict):
+        raise ConfigError(f"{where}: [priority] must be a table of kind = [\"source\", ...]")
+    out = {}
+    for kind, names in table.items():
+        if kind not in kinds:
+            raise ConfigError(f"{where}: [priority] unknown kind {kind!r}: expected one of {', '.join(sorted(kinds))}")
+        names = _coerce(names, list[str], f"{where}: [priority] {kind}")
+        unknown = [n for n in names if inputs and n not in inputs]
+        if unknown:
+            raise ConfigError(f"{where}: [priority] {kind} names {unknown[0]!r}, which is not an [inputs.*] table")
+        out[kind] = names
+    return out

@@ -1,0 +1,240 @@
+"""One source's bytes to time-stamped raw lines and readings: framer -> parser -> clock.
+
+``Ingest.feed(data, recv_utc)`` frames the bytes (:mod:`daemon.intake.framer`), checks
+and parses every line (:mod:`daemon.nmea0183.codec`), gives it a data time
+(:mod:`daemon.intake.timing`) and returns, in time order, a :class:`RawLine` for every
+framed line (valid or not) followed by the :class:`Reading` items it produced.
+Every rejected line and every dropped value is counted in the shared
+:class:`daemon.intake.counters.Counters`.
+
+Headings: HDT and THS are true, HDM magnetic, HDG magnetic with its own
+deviation (applied) and variation (given to the variation provider, like
+RMC's). A magnetic direction becomes true with the provider's variation at
+the data time; with none known it is counted ``no_variation`` and dropped.
+``heading_sensor`` states the installation: ``"true"`` (a GNSS compass that
+labels its true heading HDG/HDM: taken as true, deviation ignored, its
+variation field not trusted), ``"magnetic"`` (every heading sentence is
+magnetic, HDT included) or ``"auto"`` (as each sentence says).
+
+MWV theoretical wind gives an angle off the bow; it is turned into a
+direction with the latest true heading when one is at most
+``HEADING_FOR_WIND_MAX_AGE_S`` old, else the angle alone is passed on.
+Every fix goes to the provider as the latest position.
+
+Public API:
+
+- ``Ingest(source, *, counters, variation, live, allow_no_checksum=False,
+  heading_sensor="auto", not_before_utc=None, default_date=None)``:
+  ``not_before_utc`` is the week-rollover reference (and the time given to a
+  replay with no time at all); ``default_date`` dates GGA/GLL times of a
+  replay that never sends RMC/ZDA.
+- ``feed(data, recv_utc)``: bytes as they came. Live: every line's data time
+  is ``recv_utc``. Replay (``recv_utc`` may be None): data time from the
+  data; lines wait in the clock until the next fix time, so output lags input
+  by up to one fix interval.
+- ``feed_timed_line(text, t_s, recv_utc)``: one line with its time given (our
+  own recording), no clock.
+- ``flush()``: end of stream: the framer's last unterminated line and all the
+  clock still holds.
+- ``time_events``: what the clock did (also in the counters, per source).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Protocol
+
+from daemon.intake.counters import Counters
+from daemon.errors import ConfigError
+from daemon.intake.framer import LineFramer
+from daemon.nmea0183.codec import (
+    HDG, HEADING, SAMPLE, VARIATION, WIND_ANGLE_WATER, WIND_FROM_MAGNETIC, Extract, extract,
+    parse_line,
+)
+from daemon.core.readings import RawLine, Reading
+from daemon.intake.timing import GnssDate, ReplayClock, monotonic_guard
+from estimators.angles import wrap_360
+from estimators.samples import Fix, Heading, WaterWind
+
+HEADING_SENSORS = ("auto", "magnetic", "true")
+HEADING_FOR_WIND_MAX_AGE_S = 10.0
+
+Item = RawLine | Reading
+
+
+class VariationSource(Protocol):
+    """What ingest needs of daemon.intake.magvar.VariationProvider."""
+
+    def note_sentence_variation(self, east_deg: float, t_s: float) -> None: ...
+
+    def note_position(self, lat_deg: float, lon_deg: float, t_s: float) -> None: ...
+
+    def east_deg(self, t_s: float) -> float | None: ...
+
+
+class Ingest:
+    """Frames, parses and times one source's input; see the module docstring."""
+
+    def __init__(self, source: str, *, counters: Counters, variation: VariationSource, live: bool,
+                 allow_no_checksum: bool = False, heading_sensor: str = "auto",
+                 not_before_utc: float | None = None, default_date: dt.date | None = None) -> None:
+        if heading_sensor not in HEADING_SENSORS:
+            raise ConfigError(f"installation.heading_sensor = {heading_sensor!r}: use one of "
+                              + ", ".join(HEADING_SENSORS))
+        self.source = source
+        self.counters = counters
+        self.variation = variation
+        self.live = live
+        self.allow_no_checksum = allow_no_checksum
+        self.heading_sensor = heading_sensor
+        self._framer = LineFramer()
+        self._framer_seen = (-1, -1)
+        self.time_events: dict[str, int] = {}
+        default_day = (default_date - dt.date(1970, 1, 1)).days if default_date else None
+        self._dates = GnssDate(not_before_utc=not_before_utc, default_day=default_day, events=self.time_events)
+        self._clock = ReplayClock(self._dates, events=self.time_events)
+        self._guard = monotonic_guard(self.time_events)
+        self._fallback_t = not_before_utc if not_before_utc is not None else 0.0
+        self._last_recv: float | None = None  # receive time of the latest chunk
+        self._true_heading: tuple[float, float] | None = None  # (t_s, deg) of the latest true heading
+        self._true_sensor = heading_sensor == "true"
+        self._all_magnetic = heading_sensor == "magnetic"
+
+    # --- the three doors ---------------------------------------------------------------------
+
+    def feed(self, data: bytes, recv_utc: float | None) -> list[Item]:
+        """Bytes as they came; ``recv_utc`` is when (required live, may be None in replay)."""
+        if self.live and recv_utc is None:
+            raise ValueError("live ingest needs the receive time of each chunk")
+        out: list[Item] = []
+        self._last_recv = recv_utc
+        for raw in self._framer.feed(data):
+            self._line(raw.decode("ascii"), recv_utc, out)
+        self._sync_counts()
+        return out
+
+    def feed_timed_line(self, text: str, t_s: float, recv_utc: float) -> list[Item]:
+        """One line of our own recording: its data time is given (no clock involved)."""
+        out: list[Item] = []
+        item = self._parse(text, recv_utc)
+        self._emit(t_s, item, out)
+        self._sync_counts()
+        return out
+
+    def flush(self) -> list[Item]:
+        """End of stream: release what the replay clock still holds (live: the framer's
+        last unterminated line, stamped with the last receive time)."""
+        out: list[Item] = []
+        for raw in self._framer.flush():
+            self._line(raw.decode("ascii"), self._last_recv, out)
+        for t, item in self._clock.flush():
+            self._emit(t, item, out)
+        self._sync_counts()
+        return out
+
+    # --- per line ----------------------------------------------------------------------------
+
+    def _parse(self, text: str, recv_utc: float | None) -> tuple:
+        """Parse one line; its counts travel with it and are made when it is emitted,
+        so the counters at any moment match the lines that have left (the same in a
+        replay of our own recording, whose lines arrive one by one)."""
+        line = parse_line(text, self.allow_no_checksum)
+        key = line.key
+        ex: Extract | None = None
+        gnss: float | None = None
+        tod: float | None = None
+        counts: list[tuple[str, int]] = []
+        if line.status == "ok":
+            ex = extract(key, line.fields)
+            if ex is None:
+                counts.append(("unparseable", 1))
+            else:
+                counts.append(("good", 1))
+                if ex.implausible:
+                    counts.append(("implausible", ex.implausible))
+                if ex.tod_s is not None:
+                    gnss = (self._dates.dated(ex.tod_s, ex.day) if ex.day is not None
+                            else self._dates.undated(ex.tod_s))
+                    tod = ex.tod_s if gnss is None else None
+                elif not ex.values and not ex.implausible:
+                    counts.append(("empty", 1))
+        else:
+            counts.append((line.status, 1))
+        return (text, recv_utc, key, ex, gnss, tod, line.tag_time, counts)
+
+    def _line(self, text: str, recv_utc: float | None, out: list[Item]) -> None:
+        item = self._parse(text, recv_utc)
+        if self.live:
+            assert recv_utc is not None
+            self._emit(recv_utc, item, out)
+            return
+        tag_time = item[6]
+        released = (self._clock.push_tagged(item, tag_time) if tag_time is not None
+                    else self._clock.push(item, item[4], item[5]))
+        for t, it in released:
+            self._emit(t, it, out)
+
+    def _emit(self, t: float | None, item: tuple, out: list[Item]) -> None:
+        text, recv, key, ex, gnss, _tod, _tag, counts = item
+        if t is None:
+            t = recv if recv is not None else self._fallback_t
+        t = self._guard(t)
+        if recv is None:
+            recv = t
+        source = self.source
+        readings: list[Reading] = []
+        if ex is not None:
+            for v in ex.values:
+                sample = self._sample(v, t, key, counts)
+                if sample is not None:
+                    readings.append(Reading(source, sample, recv, key, gnss))
+        out.append(RawLine(source, t, recv, text, key, tuple(counts), ex is not None))
+        out.extend(readings)
+
+    def _sample(self, v: tuple, t: float, key: str, counts: list):
+        code = v[0]
+        if code == SAMPLE:
+            sample = v[1](t, *v[2])
+            if v[1] is Fix:
+                self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
+            return sample
+        if code == HEADING:
+            return self._heading(v[1], v[2] == "T" and not self._all_magnetic, t, key, counts)
+        if code == HDG:
+            deg = v[1] if self._true_sensor or v[2] is None else v[1] + v[2]
+            return self._heading(deg, False, t, key, counts)
+        if code == VARIATION:
+            if not (self._true_sensor and key == "HDG"):
+                self.variation.note_sentence_variation(v[1], t)
+            return None
+        if code == WIND_ANGLE_WATER:
+            th = self._true_heading
+            if th is not None and 0.0 <= t - th[0] <= HEADING_FOR_WIND_MAX_AGE_S:
+                return WaterWind(t, v[2], wrap_360(th[1] + v[1]), v[1])
+            return WaterWind(t, v[2], None, v[1])
+        if code == WIND_FROM_MAGNETIC:
+            var = self._variation(t, counts)
+            return None if var is None else WaterWind(t, v[2], wrap_360(v[1] + var), None)
+        raise AssertionError(code)
+
+    def _heading(self, deg: float, is_true: bool, t: float, key: str, counts: list) -> Heading | None:
+        if not (is_true or self._true_sensor):
+            var = self._variation(t, counts)
+            if var is None:
+                return None
+            deg = wrap_360(deg + var)
+        self._true_heading = (t, deg)
+        return Heading(t, deg)
+
+    def _variation(self, t: float, counts: list) -> float | None:
+        var = self.variation.east_deg(t)
+        if var is None:
+            counts.append(("no_variation", 1))
+        return var
+
+    def _sync_counts(self) -> None:
+        f = self._framer
+        if (f.overlong, f.bad_bytes) != self._framer_seen:
+            self._framer_seen = (f.overlong, f.bad_bytes)
+            self.counters.set_framer(self.source, overlong=f.overlong, bad_bytes=f.bad_bytes)
+        self.counters.set_time(self.source, self.time_events)

@@ -1,0 +1,126 @@
+"""Which source feeds the estimators when two give the same kind of sample.
+
+For every sample kind (``estimators.samples.kind_of``) the sources are ranked:
+first those named in the configured order for that kind, then any others in
+the order they were first seen. So with no configuration the first GNSS heard
+is preferred, and two interleaved receivers never both feed the filters.
+
+A reading is accepted when its source is the best-ranked *fresh* one: a source
+is fresh while its newest reading of that kind is at most ``stale_s[kind]``
+seconds older than the newest data time seen by the selector. When the
+preferred source goes stale the next fresh one takes over; when the preferred
+one speaks again it takes back over at once. All times are data times
+(``sample.t_s``), so replay decides exactly as the live run did.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Mapping, Sequence
+
+from daemon.errors import ConfigError
+from daemon.core.readings import Reading
+from estimators.samples import KIND_NAMES, kind_of
+
+log = logging.getLogger(__name__)
+
+# Seconds of silence after which a source no longer counts as fresh for a kind.
+DEFAULT_STALE_S: dict[str, float] = {
+    "fix": 5.0,
+    "ground_velocity": 5.0,
+    "heading": 5.0,
+    "water_speed": 10.0,
+    "pressure": 60.0,
+}
+OTHER_STALE_S = 30.0
+KINDS = frozenset(KIND_NAMES.values())
+
+
+class PrioritySelector:
+    """Accept or refuse each reading so that one source per kind feeds the estimators.
+
+    ``order`` maps a kind name to source names, best first; ``stale_s`` maps a
+    kind name to seconds (added to, and overriding, ``DEFAULT_STALE_S``).
+    """
+
+    def __init__(self, order: Mapping[str, Sequence[str]] | None = None,
+                 stale_s: Mapping[str, float] | None = None) -> None:
+        order = dict(order or {})
+        stale_s = dict(stale_s or {})
+        _check_kinds(order, "priority")
+        _check_kinds(stale_s, "priority.stale_s")
+        for kind, seconds in stale_s.items():
+            if not (isinstance(seconds, (int, float)) and seconds > 0):
+                raise ConfigError(f"priority.stale_s.{kind} = {seconds!r}: give a number of seconds > 0")
+        self._order = {kind: list(names) for kind, names in order.items()}
+        self._stale_s = {**DEFAULT_STALE_S, **{k: float(v) for k, v in stale_s.items()}}
+        self._seen: dict[str, dict[str, float]] = {}  # kind -> source -> newest t_s (first-seen order)
+        self._active: dict[str, str] = {}
+        self._switches: dict[str, int] = {}
+        self._accepted: dict[str, dict[str, int]] = {}
+        self._refused: dict[str, dict[str, int]] = {}
+        self._now = float("-inf")
+
+    def stale_after_s(self, kind: str) -> float:
+        return self._stale_s.get(kind, OTHER_STALE_S)
+
+    def accept(self, reading: Reading) -> bool:
+        """True when ``reading`` comes from the source that should feed the estimators now."""
+        kind = kind_of(reading.sample)
+        t_s = reading.sample.t_s
+        self._now = max(self._now, t_s)
+        seen = self._seen.setdefault(kind, {})
+        seen[reading.source] = max(t_s, seen.get(reading.source, t_s))
+        best = self._best_fresh(kind, seen)
+        if best != self._active.get(kind):
+            self._switch(kind, best, seen)
+        ok = reading.source == best
+        tally = self._accepted if ok else self._refused
+        per_source = tally.setdefault(kind, {})
+        per_source[reading.source] = per_source.get(reading.source, 0) + 1
+        return ok
+
+    def _ranked(self, kind: str, seen: Mapping[str, float]) -> list[str]:
+        configured = self._order.get(kind, [])
+        return configured + [s for s in seen if s not in configured]
+
+    def _best_fresh(self, kind: str, seen: Mapping[str, float]) -> str:
+        limit = self.stale_after_s(kind)
+        ranked = [s for s in self._ranked(kind, seen) if s in seen]
+        for source in ranked:
+            if self._now - seen[source] <= limit:
+                return source
+        return ranked[0]  # unreachable in practice: the reading's own source is fresh
+
+    def _switch(self, kind: str, best: str, seen: Mapping[str, float]) -> None:
+        previous = self._active.get(kind)
+        self._active[kind] = best
+        if previous is None:
+            log.info("priority: %s from %s", kind, best)
+            return
+        self._switches[kind] = self._switches.get(kind, 0) + 1
+        silent = self._now - seen.get(previous, self._now)
+        if self._ranked(kind, seen).index(best) < self._ranked(kind, seen).index(previous):
+            log.info("priority: %s back to %s (preferred source heard again)", kind, best)
+        else:
+            log.warning("priority: %s now from %s (%s silent for %.0f s)", kind, best, previous, silent)
+
+    def active(self, kind: str) -> str | None:
+        """The source currently feeding ``kind``, or None before any reading of it."""
+        return self._active.get(kind)
+
+    def snapshot(self) -> dict:
+        """Counters for status: active source, switches, accepted and refused readings per kind."""
+        return {
+            "active": dict(self._active),
+            "switches": dict(self._switches),
+            "accepted": {k: dict(v) for k, v in self._accepted.items()},
+            "refused": {k: dict(v) for k, v in self._refused.items()},
+        }
+
+
+def _check_kinds(table: Mapping[str, object], section: str) -> None:
+    for kind in table:
+        if kind not in KINDS:
+            raise ConfigError(
+                f"{section}.{kind}: unknown sample kind; use one of {', '.join(sorted(KINDS))}")

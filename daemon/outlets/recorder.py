@@ -1,0 +1,928 @@
+r"""The passage recording: every raw sentence and every published message, in SQLite.
+
+The pipeline hands each raw line and each message to ``Recorder`` (a Sink),
+which only puts it on a bounded queue (a full queue drops and counts, it never
+waits). One writer thread owns the one connection: it commits about once a
+second, so a power cut loses at most the last second, and SD-card writes stay
+few. Every connection runs in WAL mode with ``synchronous=FULL``: with NORMAL
+a power cut may take everything since the last checkpoint.
+
+Raw sentences and messages are kept in compressed blocks: each commit writes
+what arrived since the last one as a small zlib block; once the small blocks
+span about a minute of data (or 60 commits, or many lines) they are replaced,
+in the same transaction, by one lzma block. Alert changes are also kept in a
+plain table for plain SQL.
+
+## Recording file format (schema version 1)
+
+One SQLite file per recording, named by its UTC start time,
+`offwatch-YYYYMMDDTHHMMSSZ.sqlite`. Times are UNIX seconds (UTC).
+
+| table | column | meaning |
+| --- | --- | --- |
+| `meta` | `key`, `value` | text pairs: `schema_version` (`1`), `created_utc` (ISO 8601), `software` (`offwatch <version>`), `config` (the effective configuration as JSON, rewritten by each `record_config`), `config_utc` |
+| `raw_block` | `seq_first` | recording-wide number (from 0) of the block's first line; blocks follow each other without gaps |
+| | `n_lines` | lines in the block |
+| | `t_first`, `t_last` | earliest and latest data time in the block, s |
+| | `names` | JSON array of the source names; each line gives an index into it |
+| | `codec` | `zlib` (one commit's lines) or `lzma` (merged, about a minute) |
+| | `data` | the compressed lines |
+| `message_block` | as `raw_block` | `names` holds the full topics |
+| `alert` | `t` | data time of the change, s |
+| | `alert_id`, `priority`, `state`, `text`, `since` | as published on `offwatch/alerts/<id>` (`since` is ISO 8601 UTC) |
+| | `topic`, `payload` | the full topic and the payload as JSON |
+
+Indexes: `raw_block(t_first)`, `message_block(t_first)`, `alert(t)`; each
+block table is unique on `seq_first` (the order to read in).
+
+A block decompresses (`zlib.decompress` or `lzma.decompress`) to ASCII JSON
+arrays, one line each, in arrival order:
+- raw: `[time, recv, name_index, text]`
+- message: `[time, name_index, retain, qos, kind, payload]`
+
+`time` is exact, in one of three forms: an integer is the step in whole
+milliseconds from the previous line's time (the first line steps from 0, so
+it gives the whole time in ms); a string of digits is the step in ticks of
+2^-22 s (every double time from 2004 to 2106 is a whole number of them) from
+the previous line's tick count; a number with a fraction is the time itself.
+`recv` is `null` (same as the data time), an integer (ms after the data time)
+or the exact receive time. Decoding one raw block in Python:
+
+```python
+import json, lzma, sqlite3, zlib
+db = sqlite3.connect("offwatch-20260504T063000Z.sqlite")
+for codec, names, data in db.execute(
+        "SELECT codec, names, data FROM raw_block ORDER BY seq_first"):
+    names, ms, ticks = json.loads(names), 0, 0
+    text = (zlib if codec == "zlib" else lzma).decompress(data).decode("ascii")
+    for line in text.split("\n"):
+        t, recv, i, sentence = json.loads(line)
+        if isinstance(t, int):
+            t = (ms + t) / 1000
+        elif isinstance(t, str):
+            t = (ticks + int(t)) / 2**22
+        ms, ticks = round(t * 1000), int(t * 2**22)
+        recv = t if recv is None else (ms + recv) / 1000 if isinstance(recv, int) else recv
+        print(t, recv, names[i], sentence)
+```
+
+(`offwatch` itself reads them with `daemon.outlets.recorder.iter_raw` and
+`iter_messages`.)
+
+Plain SQL for the alerts: `SELECT datetime(t, 'unixepoch'), alert_id, state,
+text FROM alert ORDER BY t`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import logging
+import lzma
+import math
+import queue
+import re
+import shutil
+import sqlite3
+import threading
+import time
+import zlib
+from collections.abc import Callable, Iterator, Mapping
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from daemon import __version__
+from daemon.errors import InputError, OutputError
+from daemon.nmea0183.codec import checksum_hex, tag_block
+from daemon.core.readings import Message, RawLine
+from estimators.params import param
+
+log = logging.getLogger("offwatch.recorder")
+
+SCHEMA_VERSION = 1
+NAME_PREFIX = "offwatch-"
+NAME_SUFFIX = ".sqlite"
+_SQLITE_MAGIC = b"SQLite format 3\x00"
+_MB = 1024 * 1024
+
+
+@dataclass(frozen=True, slots=True)
+class RecordingParams:
+    """The [recording] section: where recordings go, when a new one starts, how much is kept."""
+
+    directory: str = param("", doc="directory holding the recordings (empty: recordings/ in the state directory)")
+    per: str = param("day", choices=("start", "day"),
+                     doc="a new recording on each start, or one per UTC day (continued after a restart)")
+    max_total_mb: float = param(2000.0, "MB", 0.1, 10_000_000.0,
+                                doc="all recordings together; the oldest go first, never the current one")
+    min_free_mb: float = param(200.0, "MB", 0.0, 10_000_000.0,
+                               doc="free disk space to keep; below it the oldest recordings are removed")
+    commit_interval_s: float = param(1.0, "s", 0.05, 10.0,
+                                     doc="commit period: a power cut loses at most about this much")
+    block_span_s: float = param(60.0, "s", 1.0, 3600.0,
+                                doc="data time one merged compressed block covers")
+    queue_size: int = param(20000, "items", 100, 1_000_000,
+                            doc="items waiting for the writer; beyond it new items are dropped and counted")
+
+
+# --------------------------------------------------------------------------- connection
+
+def connect(path: str | Path) -> sqlite3.Connection:
+    """Open a recording database the one way offwatch does: WAL, synchronous=FULL, autocommit.
+
+    ``synchronous`` is per connection (SQLite keeps no memory of it), so every
+    reader and writer comes through here.
+    """
+    try:
+        conn = sqlite3.connect(str(path), isolation_level=None, timeout=10.0)
+        mode = conn.execute("PRAGMA journal_mode=WAL").fetchone()[0]
+        conn.execute("PRAGMA synchronous=FULL")
+    except sqlite3.Error as exc:
+        raise OutputError(f"cannot open recording {path}: {exc}") from exc
+    if str(mode).lower() != "wal":
+        conn.close()
+        raise OutputError(f"recording {path}: the file system refuses WAL mode (got {mode!r}); "
+                          "put the recordings on a local disk")
+    return conn
+
+
+def connection_pragmas(conn: sqlite3.Connection) -> dict[str, Any]:
+    """The journal mode and synchronous level a connection really runs with (FULL is 2)."""
+    return {"journal_mode": conn.execute("PRAGMA journal_mode").fetchone()[0],
+            "synchronous": conn.execute("PRAGMA synchronous").fetchone()[0]}
+
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS raw_block (
+    id INTEGER PRIMARY KEY, seq_first INTEGER NOT NULL UNIQUE, n_lines INTEGER NOT NULL,
+    t_first REAL, t_last REAL, names TEXT NOT NULL, codec TEXT NOT NULL, data BLOB NOT NULL);
+CREATE INDEX IF NOT EXISTS raw_block_t ON raw_block (t_first);
+CREATE TABLE IF NOT EXISTS message_block (
+    id INTEGER PRIMARY KEY, seq_first INTEGER NOT NULL UNIQUE, n_lines INTEGER NOT NULL,
+    t_first REAL, t_last REAL, names TEXT NOT NULL, codec TEXT NOT NULL, data BLOB NOT NULL);
+CREATE INDEX IF NOT EXISTS message_block_t ON message_block (t_first);
+CREATE TABLE IF NOT EXISTS alert (
+    id INTEGER PRIMARY KEY, t REAL NOT NULL, alert_id TEXT NOT NULL, priority TEXT,
+    state TEXT, text TEXT, since TEXT, topic TEXT NOT NULL, payload TEXT NOT NULL);
+CREATE INDEX IF NOT EXISTS alert_t ON alert (t);
+"""
+
+
+# --------------------------------------------------------------------------- block codec
+
+_TICK = 4194304  # 2**22 ticks a second: every double in [2**30, 2**32) s (years 2004-2106) is whole ticks
+
+
+def _ticks(t: float) -> int | None:
+    """``t`` in whole ticks of 2**-22 s when exactly so (and small enough to stay exact), else None."""
+    scaled = t * _TICK  # exact: a power of two
+    return int(scaled) if scaled.is_integer() and abs(scaled) < 2 ** 53 else None
+
+
+def _encode_time(t: float, prev: tuple[int, int | None]) -> tuple[int | str | float, tuple[int, int | None]]:
+    """A line's time as (field, new state); the state is (ms, ticks) of the previous line.
+
+    An int is a step in whole ms; a string is a step in ticks of 2**-22 s; a
+    float is the exact time itself. All three give the time back exactly.
+    """
+    prev_ms, prev_ticks = prev
+    if isinstance(t, float) and not math.isfinite(t):
+        return t, prev
+    ms = round(t * 1000)
+    ticks = _ticks(float(t))
+    if ms / 1000 == t:
+        return ms - prev_ms, (ms, ticks)
+    if ticks is not None and prev_ticks is not None:
+        return str(ticks - prev_ticks), (ms, ticks)
+    return float(t), (ms, ticks)
+
+
+def _decode_time(value: int | str | float, prev: tuple[int, int | None]) -> tuple[float, tuple[int, int | None]]:
+    prev_ms, prev_ticks = prev
+    if isinstance(value, int):
+        t = (prev_ms + value) / 1000
+    elif isinstance(value, str):
+        t = (prev_ticks + int(value)) / _TICK
+    elif not math.isfinite(value):
+        return value, prev
+    else:
+        t = value
+    return t, (round(t * 1000), _ticks(t))
+
+
+def _encode_recv(recv: float, t: float, t_ms: int) -> int | float | None:
+    if recv == t:
+        return None
+    ms = round(recv * 1000) if math.isfinite(recv) else None
+    if ms is not None and ms / 1000 == recv:
+        return ms - t_ms
+    return float(recv)
+
+
+def _decode_recv(value: int | float | None, t: float, t_ms: int) -> float:
+    if value is None:
+        return t
+    if isinstance(value, int):
+        return (t_ms + value) / 1000
+    return value
+
+
+def _json_default(obj: Any) -> Any:
+    """numpy scalars and other number-likes become plain numbers; mappings become dicts."""
+    if isinstance(obj, Mapping):
+        return dict(obj)
+    if hasattr(obj, "item"):
+        return obj.item()
+    if isinstance(obj, (set, frozenset, tuple)):
+        return list(obj)
+    return str(obj)
+
+
+def _dumps(value: Any) -> str:
+    return json.dumps(value, ensure_ascii=True, separators=(",", ":"), default=_json_default)
+
+
+_CODECS: dict[str, tuple[Callable[[bytes], bytes], Callable[[bytes], bytes]]] = {
+    "zlib": (lambda b: zlib.compress(b, 6), zlib.decompress),
+    "lzma": (lambda b: lzma.compress(b, preset=6), lzma.decompress),
+}
+
+
+@dataclass(slots=True)
+class _Item:
+    """One line of a block before encoding: its time and the JSON fields after the time."""
+
+    t: float
+    name: str
+    fields: tuple[Any, ...]  # raw: (recv, text); message: (retain, qos, kind, payload)
+
+
+def _pack(items: list[_Item], codec: str) -> tuple[str, bytes, float | None, float | None]:
+    """Encode items into (names JSON, compressed data, t_first, t_last)."""
+    names: dict[str, int] = {}
+    rows, prev = [], (0, 0)
+    finite = [it.t for it in items if math.isfinite(it.t)]
+    for it in items:
+        index = names.setdefault(it.name, len(names))
+        t_field, prev = _encode_time(it.t, prev)
+        if len(it.fields) == 2:  # raw line: recv relative to its own time
+            recv, text = it.fields
+            rows.append(_dumps([t_field, _encode_recv(recv, it.t, prev[0]), index, text]))
+        else:
+            rows.append(_dumps([t_field, index, *it.fields]))
+    data = _CODECS[codec][0]("\n".join(rows).encode("ascii"))
+    return (_dumps(list(names)), data, min(finite) if finite else None,
+            max(finite) if finite else None)
+
+
+def _unpack_rows(codec: str, names_json: str, data: bytes) -> Iterator[tuple[float, int, str, list]]:
+    """Decode one block into (time, ms, name, remaining fields) in order."""
+    try:
+        names = json.loads(names_json)
+        text = _CODECS[codec][1](data).decode("ascii")
+    except (KeyError, ValueError, zlib.error, lzma.LZMAError) as exc:
+        raise InputError(f"a recording block cannot be decoded ({codec}): {exc}") from exc
+    prev: tuple[int, int | None] = (0, 0)
+    for line in text.split("\n"):
+        row = json.loads(line)
+        t, prev = _decode_time(row[0], prev)
+        if len(row) == 4:  # raw: [t, recv, index, text]
+            yield t, prev[0], names[row[2]], [row[1], row[3]]
+        else:  # message: [t, index, retain, qos, kind, payload]
+            yield t, prev[0], names[row[1]], row[2:]
+
+
+# --------------------------------------------------------------------------- synchronous writer
+
+class _Stream:
+    """One block table: lines waiting for the next commit and committed small blocks to merge."""
+
+    def __init__(self, table: str, next_seq: int):
+        self.table = table
+        self.next_seq = next_seq
+        self.pending: list[_Item] = []
+        self.small: list[tuple[int, list[_Item]]] = []  # (seq_first, items) of committed zlib blocks
+
+    def write(self, conn: sqlite3.Connection, span_s: float, max_small: int, max_lines: int,
+              final: bool) -> int:
+        """Insert this commit's block, merging the small ones when due. Returns blocks merged away."""
+        if not self.pending and not (final and len(self.small) > 1):
+            return 0
+        merge_items = [it for _, items in self.small for it in items] + self.pending
+        times = [it.t for it in merge_items if math.isfinite(it.t)]
+        span = (max(times) - min(times)) if times else 0.0
+        due = final or span >= span_s or len(self.small) + 1 >= max_small or len(merge_items) >= max_lines
+        if not due:
+            self._insert(conn, self.next_seq, self.pending, "zlib")
+            self.small.append((self.next_seq, self.pending))
+            self.next_seq += len(self.pending)
+            self.pending = []
+            return 0
+        merged = len(self.small)
+        if self.small:
+            conn.execute(f"DELETE FROM {self.table} WHERE seq_first >= ?", (self.small[0][0],))
+        seq = self.small[0][0] if self.small else self.next_seq
+        for start in range(0, len(merge_items), max_lines):
+            chunk = merge_items[start:start + max_lines]
+            self._insert(conn, seq, chunk, "lzma")
+            seq += len(chunk)
+        self.next_seq = seq
+        self.pending, self.small = [], []
+        return merged
+
+    def rollback(self, small_before: list[tuple[int, list[_Item]]], seq_before: int,
+                 pending_before: list[_Item]) -> None:
+        self.small, self.next_seq, self.pending = small_before, seq_before, pending_before
+
+    def _insert(self, conn: sqlite3.Connection, seq: int, items: list[_Item], codec: str) -> None:
+        names, data, t_first, t_last = _pack(items, codec)
+        conn.execute(f"INSERT INTO {self.table} (seq_first, n_lines, t_first, t_last, names, codec, data) "
+                     "VALUES (?, ?, ?, ?, ?, ?, ?)", (seq, len(items), t_first, t_last, names, codec, data))
+
+
+@dataclass
+class RecorderStats:
+    """Counters of a Recorder (a snapshot is handed out; the writer thread owns the live one)."""
+
+    enqueued: int = 0
+    dropped: int = 0          # items refused because the queue was full
+    raw_lines: int = 0        # committed raw lines (this process)
+    messages: int = 0         # committed messages
+    alerts: int = 0           # committed alert rows
+    commits: int = 0
+    blocks_merged: int = 0    # small blocks replaced by merged ones
+    write_errors: int = 0     # commits that failed (their lines are lost)
+    removed_recordings: int = 0
+    last_commit_s: float = 0.0  # wall time the last commit took
+    path: str = ""
+    pragmas: dict[str, Any] = field(default_factory=dict)
+
+
+class RecordingWriter:
+    """One recording file and its one connection, driven by one thread (no locking here).
+
+    ``add_*`` collect in memory; ``commit()`` writes them in one transaction.
+    """
+
+    def __init__(self, path: str | Path, *, block_span_s: float = 60.0, max_small_blocks: int = 60,
+                 max_block_lines: int = 6000, now_utc: float | None = None):
+        self.path = Path(path)
+        self.block_span_s = block_span_s
+        self.max_small_blocks = max_small_blocks
+        self.max_block_lines = max_block_lines
+        self.conn = connect(self.path)
+        try:
+            self._prepare(now_utc if now_utc is not None else time.time())
+        except sqlite3.Error as exc:
+            self.conn.close()
+            raise OutputError(f"recording {self.path} cannot be prepared: {exc}") from exc
+        self.raw_stream = _Stream("raw_block", self._next_seq("raw_block"))
+        self.message_stream = _Stream("message_block", self._next_seq("message_block"))
+        self.pending_alerts: list[tuple] = []
+        self.pending_meta: dict[str, str] = {}
+        self.pragmas = connection_pragmas(self.conn)
+
+    def _prepare(self, now_utc: float) -> None:
+        self.conn.executescript("BEGIN IMMEDIATE;" + _SCHEMA + "COMMIT;")
+        found = self.conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
+        if found is None:
+            self.conn.execute("BEGIN IMMEDIATE")
+            self.conn.executemany("INSERT INTO meta (key, value) VALUES (?, ?)", [
+                ("schema_version", str(SCHEMA_VERSION)),
+                ("created_utc", _iso(now_utc)),
+                ("software", f"offwatch {__version__}")])
+            self.conn.execute("COMMIT")
+        elif int(found[0]) != SCHEMA_VERSION:
+            raise OutputError(f"recording {self.path} has schema version {found[0]}, this offwatch "
+                              f"writes {SCHEMA_VERSION}: record into a new file")
+
+    def _next_seq(self, table: str) -> int:
+        row = self.conn.execute(f"SELECT MAX(seq_first + n_lines) FROM {table}").fetchone()
+        return int(row[0] or 0)
+
+    def add_raw(self, line: RawLine) -> None:
+        self.raw_stream.pending.append(_Item(line.t_s, line.source, (line.recv_utc, line.text)))
+
+    def add_message(self, msg: Message) -> None:
+        payload = dict(msg.payload)
+        self.message_stream.pending.append(
+            _Item(msg.t_s, msg.topic, (int(bool(msg.retain)), int(msg.qos), msg.kind, payload)))
+        if msg.kind == "alert":
+            alert_id = payload.get("id") or msg.topic.rsplit("/", 1)[-1]
+            self.pending_alerts.append((msg.t_s, str(alert_id), payload.get("priority"), payload.get("state"),
+                                        payload.get("text"), payload.get("since"), msg.topic, _dumps(payload)))
+
+    def set_config(self, effective: Mapping[str, Any], now_utc: float | None = None) -> None:
+        self.pending_meta["config"] = _dumps(dict(effective))
+        self.pending_meta["config_utc"] = _iso(now_utc if now_utc is not None else time.time())
+
+    def has_pending(self) -> bool:
+        return bool(self.raw_stream.pending or self.message_stream.pending or self.pending_meta)
+
+    def commit(self, final: bool = False) -> tuple[int, int, int, int]:
+        """Write everything pending in one transaction; (raw lines, messages, alerts, merged blocks).
+
+        ``final`` also merges the small blocks left over, so a closed recording is compact.
+        On an SQLite error the transaction is rolled back, the pending lines are
+        dropped (so one bad batch cannot wedge the writer) and OutputError is raised.
+        """
+        streams = (self.raw_stream, self.message_stream)
+        if not self.has_pending() and not (final and any(len(s.small) > 1 for s in streams)):
+            return 0, 0, 0, 0
+        counts = (len(self.raw_stream.pending), len(self.message_stream.pending), len(self.pending_alerts))
+        saved = [(list(s.small), s.next_seq) for s in streams]
+        merged = 0
+        try:
+            self.conn.execute("BEGIN IMMEDIATE")
+            for stream in streams:
+                merged += stream.write(self.conn, self.block_span_s, self.max_small_blocks,
+                                       self.max_block_lines, final)
+            self.conn.executemany("INSERT INTO alert (t, alert_id, priority, state, text, since, topic, payload) "
+                                  "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", self.pending_alerts)
+            self.conn.executemany("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
+                                  list(self.pending_meta.items()))
+            self.conn.execute("COMMIT")
+        except (sqlite3.Error, ValueError, TypeError, OverflowError) as exc:  # SQLite, or a payload JSON refuses
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            for stream, (small, seq) in zip(streams, saved):
+                stream.rollback(small, seq, [])
+            self.pending_alerts, self.pending_meta = [], {}
+            raise OutputError(f"recording {self.path}: commit failed, {sum(counts[:2])} items lost: {exc}") from exc
+        self.pending_alerts, self.pending_meta = [], {}
+        return (*counts, merged)
+
+    def close(self) -> None:
+        """Merge what is left, checkpoint the WAL into the file and close."""
+        try:
+            self.commit(final=True)
+            self.conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+        finally:
+            self.conn.close()
+
+
+# --------------------------------------------------------------------------- where recordings go
+
+def recording_name(t_utc: float) -> str:
+    """File name of a recording started at ``t_utc`` (UNIX s): offwatch-YYYYMMDDTHHMMSSZ.sqlite."""
+    return NAME_PREFIX + datetime.fromtimestamp(t_utc, timezone.utc).strftime("%Y%m%dT%H%M%SZ") + NAME_SUFFIX
+
+
+_NAME_RE = re.compile(re.escape(NAME_PREFIX) + r"(\d{8})T(\d{6})Z(?:-\d+)?" + re.escape(NAME_SUFFIX) + "$")
+
+
+class RecordingPolicy:
+    """Names, rotation and the size cap / free-disk floor of the recordings directory.
+
+    ``free_bytes(directory)`` is injectable for tests; by default the file
+    system's free space.
+    """
+
+    def __init__(self, params: RecordingParams,
+                 free_bytes: Callable[[Path], int] | None = None):
+        self.params = params
+        self.directory = Path(params.directory)
+        self.free_bytes = free_bytes or (lambda d: shutil.disk_usage(d).free)
+        self._warned_floor = False
+
+    def recordings(self) -> list[Path]:
+        """The recordings in the directory, oldest first (by the start time in the name)."""
+        if not self.directory.is_dir():
+            return []
+        return sorted((p for p in self.directory.iterdir() if _NAME_RE.match(p.name)), key=lambda p: p.name)
+
+    def path_for_start(self, now_utc: float) -> Path:
+        """Where to record from ``now_utc``: today's recording when per="day" and it exists, else a new one."""
+        try:
+            self.directory.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputError(f"recording directory {self.directory} cannot be made: {exc}; "
+                              "set [recording] directory to a writable place") from exc
+        if self.params.per == "day":
+            today = _utc_day(now_utc)
+            same_day = [p for p in self.recordings() if _NAME_RE.match(p.name).group(1) == today]
+            if same_day:
+                return same_day[-1]
+        return self.new_path(now_utc)
+
+    def new_path(self, now_utc: float) -> Path:
+        path = self.directory / recording_name(now_utc)
+        n = 1
+        while path.exists():
+            path = self.directory / recording_name(now_utc).replace(NAME_SUFFIX, f"-{n}{NAME_SUFFIX}")
+            n += 1
+        return path
+
+    def needs_new(self, current: Path, now_utc: float) -> bool:
+        """True when per="day" and the UTC day has moved on past the current recording's day."""
+        if self.params.per != "day":
+            return False
+        m = _NAME_RE.match(current.name)
+        return m is not None and _utc_day(now_utc) > m.group(1)
+
+    def enforce(self, current: Path) -> list[Path]:
+        """Remove the oldest recordings (never ``current``) past the size cap or under the free floor."""
+        removed = []
+        cap = self.params.max_total_mb * _MB
+        floor = self.params.min_free_mb * _MB
+        for old in self.recordings():
+            if old == current:
+                continue
+            total = sum(_recording_bytes(p) for p in self.recordings())
+            free = self.free_bytes(self.directory)
+            if total <= cap and free >= floor:
+                break
+            reason = (f"all recordings {total / _MB:.1f} MB > cap {self.params.max_total_mb} MB" if total > cap
+                      else f"free disk {free / _MB:.1f} MB < floor {self.params.min_free_mb} MB")
+            size = _recording_bytes(old)
+            for part in _recording_files(old):
+                part.unlink(missing_ok=True)
+            log.warning("removed oldest recording %s (%.1f MB): %s", old.name, size / _MB, reason)
+            removed.append(old)
+        free = self.free_bytes(self.directory)
+        if free < floor and not self._warned_floor:
+            log.warning("free disk %.1f MB is under the floor %.1f MB and only the current recording is left",
+                        free / _MB, self.params.min_free_mb)
+        self._warned_floor = free < floor
+        return removed
+
+
+def _recording_files(path: Path) -> list[Path]:
+    return [path, path.with_name(path.name + "-wal"), path.with_name(path.name + "-shm")]
+
+
+def _recording_bytes(path: Path) -> int:
+    return sum(p.stat().st_size for p in _recording_files(path) if p.exists())
+
+
+def _utc_day(t_utc: float) -> str:
+    return datetime.fromtimestamp(t_utc, timezone.utc).strftime("%Y%m%d")
+
+
+def _iso(t_utc: float) -> str:
+    return datetime.fromtimestamp(t_utc, timezone.utc).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+# --------------------------------------------------------------------------- the Sink
+
+_CLOSE = object()
+
+
+class _Flush:
+    def __init__(self) -> None:
+        self.done = threading.Event()
+
+
+class _Config:
+    def __init__(self, effective: Mapping[str, Any]):
+        self.effective = dict(effective)
+
+
+class Recorder:
+    """The recording Sink: enqueue from the pipeline, write from one thread, commit about once a second.
+
+    Give it a file (``Recorder.open_file(path)``, as ``replay --record`` does:
+    it waits for the disk rather than drop, a replay may wait, a live input may
+    not) or a managed directory (``Recorder.open_passage(params, default_dir)``,
+    as ``run`` does). With ``overflow="drop"`` (the default) a full queue drops the
+    new item and counts it. ``on_commit(stats)`` is called in the writer thread
+    after each commit that wrote lines.
+    """
+
+    def __init__(self, path: str | Path | None = None, *, commit_interval_s: float = 1.0,
+                 block_span_s: float = 60.0, queue_size: int = 20000,
+                 policy: RecordingPolicy | None = None, clock: Callable[[], float] = time.time,
+                 on_commit: Callable[[RecorderStats], None] | None = None,
+                 enforce_every: int = 60, overflow: str = "drop"):
+        if (path is None) == (policy is None):
+            raise ValueError("give a recording path or a RecordingPolicy, not both")
+        if overflow not in ("drop", "wait"):
+            raise ValueError(f"overflow = {overflow!r}: expected 'drop' or 'wait'")
+        self._wait_when_full = overflow == "wait"
+        self.commit_interval_s = commit_interval_s
+        self.block_span_s = block_span_s
+        self._policy = policy
+        self._clock = clock
+        self._on_commit = on_commit
+        self._enforce_every = enforce_every
+        self._queue: queue.Queue = queue.Queue(maxsize=queue_size)
+        self._stats = RecorderStats()
+        self._lock = threading.Lock()  # guards _stats between the writer and callers
+        self._config: dict[str, Any] | None = None
+        self._closed = False
+        self._error: BaseException | None = None
+        self._started = threading.Event()
+        first_path = Path(path) if path is not None else policy.path_for_start(clock())
+        self._thread = threading.Thread(target=self._run, args=(first_path,), name="offwatch-recorder",
+                                        daemon=True)
+        self._thread.start()
+        self._started.wait()
+        if self._error is not None:
+            self._thread.join()
+            raise self._error
+
+    @classmethod
+    def open_file(cls, path: str | Path, **options: Any) -> Recorder:
+        """A recorder for ``replay --record FILE``: that one file (appended to if it exists), never dropping."""
+        options.setdefault("overflow", "wait")
+        return cls(path, **options)
+
+    @classmethod
+    def open_passage(cls, params: RecordingParams, default_directory: str | Path | None = None, *,
+                     free_bytes: Callable[[Path], int] | None = None, clock: Callable[[], float] = time.time,
+                     on_commit: Callable[[RecorderStats], None] | None = None) -> Recorder:
+        """A recorder for ``offwatch run``: a recording in params.directory (or ``default_directory``
+        when that is empty), a new one per start or per UTC day, the directory kept under the cap
+        and above the free-disk floor. A live input never waits: a full queue drops and counts."""
+        directory = params.directory or default_directory
+        if not directory:
+            raise OutputError("no recording directory: set [recording] directory")
+        params = dataclasses.replace(params, directory=str(Path(directory).expanduser()))
+        return cls(policy=RecordingPolicy(params, free_bytes), commit_interval_s=params.commit_interval_s,
+                   block_span_s=params.block_span_s, queue_size=params.queue_size, clock=clock,
+                   on_commit=on_commit)
+
+    # -- the Sink protocol (called from the pipeline: never blocks)
+    def raw(self, line: RawLine) -> None:
+        self._offer(line)
+
+    def message(self, msg: Message) -> None:
+        self._offer(msg)
+
+    def record_config(self, effective: Mapping[str, Any]) -> None:
+        """Keep the effective configuration/parameters (JSON) in meta; also copied into each new file."""
+        self._queue.put(_Config(effective), timeout=10.0)
+
+    def flush(self, timeout_s: float = 10.0) -> bool:
+        """Commit what is queued now and wait for it (tests, shutdown paths). False on timeout."""
+        marker = _Flush()
+        try:
+            self._queue.put(marker, timeout=timeout_s)
+        except queue.Full:
+            return False
+        return marker.done.wait(timeout_s)
+
+    def close(self) -> None:
+        """Commit the rest, merge the small blocks, checkpoint and stop the writer. Idempotent."""
+        if self._closed:
+            return
+        self._closed = True
+        self._queue.put(_CLOSE)
+        self._thread.join()
+
+    @property
+    def stats(self) -> RecorderStats:
+        with self._lock:
+            return RecorderStats(**{k: (dict(v) if isinstance(v, dict) else v)
+                                    for k, v in vars(self._stats).items()})
+
+    @property
+    def path(self) -> Path:
+        return Path(self.stats.path)
+
+    def _offer(self, item: RawLine | Message) -> None:
+        if self._closed:
+            return
+        try:
+            self._queue.put(item, block=self._wait_when_full)
+            counter = "enqueued"
+        except queue.Full:
+            counter = "dropped"
+        with self._lock:
+            setattr(self._stats, counter, getattr(self._stats, counter) + 1)
+
+    # -- the writer thread
+    def _open(self, path: Path) -> RecordingWriter:
+        writer = RecordingWriter(path, block_span_s=self.block_span_s,
+                                 max_small_blocks=max(2, round(self.block_span_s / self.commit_interval_s)),
+                                 now_utc=self._clock())
+        if self._config is not None:
+            writer.set_config(self._config, self._clock())
+        with self._lock:
+            self._stats.path = str(path)
+            self._stats.pragmas = dict(writer.pragmas)
+        log.info("recording to %s", path)
+        self._enforce(path)
+        return writer
+
+    def _enforce(self, current: Path) -> None:
+        if self._policy is None:
+            return
+        try:
+            removed = self._policy.enforce(current)
+        except OSError as exc:
+            log.warning("recording cleanup failed: %s", exc)
+            return
+        with self._lock:
+            self._stats.removed_recordings += len(removed)
+
+    def _run(self, path: Path) -> None:
+        try:
+            writer = self._open(path)
+        except BaseException as exc:  # handed to the constructor's thread
+            self._error = exc
+            self._started.set()
+            return
+        self._started.set()
+        deadline: float | None = None
+        failing = False
+        while True:
+            timeout = None if deadline is None else max(0.0, deadline - self._clock())
+            try:
+                item = self._queue.get(timeout=timeout)
+            except queue.Empty:
+                item = None
+            if item is _CLOSE:
+                break
+            try:
+                self._add(writer, item)
+            except (TypeError, ValueError, AttributeError) as exc:  # a malformed item: count, skip
+                log.warning("recording skipped an item it cannot keep (%s): %r", exc, item)
+                with self._lock:
+                    self._stats.write_errors += 1
+            if deadline is None and writer.has_pending():
+                deadline = self._clock() + self.commit_interval_s
+            if isinstance(item, _Flush) or (deadline is not None and self._clock() >= deadline):
+                writer, failing = self._commit(writer, failing)
+                deadline = None
+                if isinstance(item, _Flush):
+                    item.done.set()
+        try:
+            self._commit(writer, failing)
+            writer.close()
+        except (OutputError, sqlite3.Error) as exc:
+            log.error("recording %s: closing failed: %s", writer.path, exc)
+
+    def _add(self, writer: RecordingWriter, item: object) -> None:
+        if isinstance(item, RawLine):
+            writer.add_raw(item)
+        elif isinstance(item, Message):
+            writer.add_message(item)
+        elif isinstance(item, _Config):
+            self._config = item.effective
+            writer.set_config(item.effective, self._clock())
+
+    def _commit(self, writer: RecordingWriter, failing: bool) -> tuple[RecordingWriter, bool]:
+        started = time.perf_counter()
+        try:
+            raw_n, msg_n, alert_n, merged = writer.commit()
+        except OutputError as exc:
+            if not failing:
+                log.error("%s", exc)
+            with self._lock:
+                self._stats.write_errors += 1
+            return writer, True
+        if failing:
+            log.info("recording %s: commits work again", writer.path)
+        elapsed = time.perf_counter() - started
+        with self._lock:
+            s = self._stats
+            s.raw_lines += raw_n
+            s.messages += msg_n
+            s.alerts += alert_n
+            s.blocks_merged += merged
+            s.commits += 1 if (raw_n or msg_n) else 0
+            s.last_commit_s = elapsed
+            commits = s.commits
+        if self._on_commit is not None and (raw_n or msg_n):
+            self._on_commit(self.stats)
+        if self._policy is not None:
+            now = self._clock()
+            if self._policy.needs_new(writer.path, now):
+                writer.close()
+                writer = self._open(self._policy.new_path(now))
+            elif commits % self._enforce_every == 0:
+                self._enforce(writer.path)
+        return writer, False
+
+
+# --------------------------------------------------------------------------- reading back
+
+def is_recording(path: str | Path) -> bool:
+    """True when the file is an SQLite database (the program's own recording format)."""
+    try:
+        with open(path, "rb") as f:
+            return f.read(16) == _SQLITE_MAGIC
+    except OSError:
+        return False
+
+
+def _open_for_reading(path: str | Path) -> sqlite3.Connection:
+    if not is_recording(path):
+        raise InputError(f"{path} is not an offwatch recording (no SQLite database there)")
+    try:
+        conn = connect(path)
+    except OutputError as exc:
+        raise InputError(str(exc)) from exc
+    try:
+        found = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
+    except sqlite3.Error as exc:
+        conn.close()
+        raise InputError(f"{path} is an SQLite database but not an offwatch recording: {exc}") from exc
+    if found is None or int(found[0]) > SCHEMA_VERSION:
+        conn.close()
+        raise InputError(f"{path}: recording schema version {found and found[0]} is not readable by "
+                         f"this offwatch (reads up to {SCHEMA_VERSION})")
+    return conn
+
+
+def _iter_block_rows(path: str | Path, table: str) -> Iterator[tuple[float, int, str, list]]:
+    conn = _open_for_reading(path)
+    try:
+        for codec, names, data in conn.execute(f"SELECT codec, names, data FROM {table} ORDER BY seq_first"):
+            yield from _unpack_rows(codec, names, data)
+    finally:
+        conn.close()
+
+
+def iter_raw(path: str | Path) -> Iterator[RawLine]:
+    """The raw sentences of a recording in the order they were recorded, times exact."""
+    for t, t_ms, source, (recv, text) in _iter_block_rows(path, "raw_block"):
+        yield RawLine(source=source, t_s=t, recv_utc=_decode_recv(recv, t, t_ms), text=text)
+
+
+def iter_messages(path: str | Path) -> Iterator[Message]:
+    """The published messages of a recording in the order they were published."""
+    for t, _, topic, (retain, qos, kind, payload) in _iter_block_rows(path, "message_block"):
+        yield Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+
+
+def read_meta(path: str | Path) -> dict[str, Any]:
+    """The meta table: schema_version as int, config parsed from JSON, the rest as text."""
+    conn = _open_for_reading(path)
+    try:
+        meta: dict[str, Any] = dict(conn.execute("SELECT key, value FROM meta").fetchall())
+    finally:
+        conn.close()
+    meta["schema_version"] = int(meta["schema_version"])
+    if "config" in meta:
+        meta["config"] = json.loads(meta["config"])
+    return meta
+
+
+# --------------------------------------------------------------------------- TAG-block NMEA export
+
+# TAG blocks (NMEA 0183 v4.10): \<param>:<value>,...*hh\ before the sentence; c: is
+# UNIX time (s, or ms when larger than 10^11, as offwatch reads it), s: the source;
+# the checksum is the XOR of the characters between the leading backslash and '*'.
+_TAG_RE = re.compile(r"\\([^\\*]*)\*([0-9A-Fa-f]{2})\\")
+
+
+def export_tag_nmea(db_path: str | Path, out_path: str | Path) -> int:
+    """Write the raw sentences as TAG-block NMEA text (CRLF lines); returns the lines written.
+
+    A line that already carries a TAG block is written as stored, byte for
+    byte (so a recording of a TAG-block file exports as that file). Every other
+    line gets ``\\c:<ms>,s:<source>*hh\\`` in front: the data time to the
+    millisecond and the source, the stored line unchanged after it.
+    """
+    n = 0
+    try:
+        with open(out_path, "w", encoding="utf-8", errors="surrogateescape", newline="") as out:
+            for line in iter_raw(db_path):
+                if _TAG_RE.match(line.text):
+                    out.write(line.text + "\r\n")
+                else:
+                    out.write(tag_block(line.t_s, line.source) + line.text + "\r\n")
+                n += 1
+    except OSError as exc:
+        raise OutputError(f"cannot write {out_path}: {exc}") from exc
+    return n
+
+
+def parse_tag_line(line: str) -> RawLine:
+    """One TAG-block line split: c: gives the time, s: the source, the rest after the block is the text.
+
+    A line without a well-formed TAG block (or with a wrong TAG checksum) comes
+    back whole as the text, with NaN time and an empty source.
+    """
+    m = _TAG_RE.match(line)
+    if m is None or checksum_hex(m.group(1)) != m.group(2).upper():
+        return RawLine(source="", t_s=math.nan, recv_utc=math.nan, text=line)
+    fields = dict(part.split(":", 1) for part in m.group(1).split(",") if ":" in part)
+    t = math.nan
+    if fields.get("c", "").isdigit():
+        c = int(fields["c"])
+        t = c / 1000 if c > 10**11 else float(c)
+    return RawLine(source=fields.get("s", ""), t_s=t, recv_utc=t, text=line[m.end():])
+
+
+def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
+    """The lines of a TAG-block NMEA file (CRLF or LF), each through ``parse_tag_line``."""
+    with open(path, "r", encoding="utf-8", errors="surrogateescape", newline="") as f:
+        text = f.read()
+    lines = text.replace("\r\n", "\n").split("\n")
+    if lines[-1] == "":
+        lines.pop()
+    for line in lines:
+        yield parse_tag_line(line)
+
+
+__all__ = ["RecordingParams", "RecordingPolicy", "Recorder", "RecorderStats", "RecordingWriter",
+           "SCHEMA_VERSION", "connect", "connection_pragmas", "recording_name", "is_recording",
+           "iter_raw", "iter_messages", "read_meta", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
+           "tag_block"]
+

@@ -1,0 +1,2 @@
+"""Development tools, not installed with offwatch: the simulator and the benchmarks.
+``daemon`` and ``estimators`` never import them."""

@@ -1,0 +1,1 @@
+"""Benchmarks whose figures go into the README (never into tests)."""
