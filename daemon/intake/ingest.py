@@ -41,6 +41,8 @@ Public API:
 
 from __future__ import annotations
 
+import dataclasses
+
 import datetime as dt
 from typing import Protocol
 
@@ -185,18 +187,20 @@ class Ingest:
         readings: list[Reading] = []
         if ex is not None:
             for v in ex.values:
-                sample = self._sample(v, t, key, counts)
+                sample = self._sample(v, t, key, counts, gnss)
                 if sample is not None:
                     readings.append(Reading(source, sample, recv, key, gnss))
         out.append(RawLine(source, t, recv, text, key, tuple(counts), ex is not None))
         out.extend(readings)
 
-    def _sample(self, v: tuple, t: float, key: str, counts: list):
+    def _sample(self, v: tuple, t: float, key: str, counts: list, gnss: float | None = None):
         code = v[0]
         if code == SAMPLE:
             sample = v[1](t, *v[2])
             if v[1] is Fix:
                 self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
+                if gnss is not None:
+                    sample = dataclasses.replace(sample, gnss_time_s=gnss)  # a receiver clock that stops shows
             return sample
         if code == HEADING:
             return self._heading(v[1], v[2] == "T" and not self._all_magnetic, t, key, counts)
