@@ -719,4 +719,23 @@ def test_status_line_for_a_current_not_yet_estimable():
 
     assert status_text(None) == "running"
     assert status_text({"drift_kn": None, "set_deg": None, "quality": "unavailable"}) == "running; current unavailable"
-    assert status_text({"drift_kn": 1.26, "set_deg": 44.6, "quality": "valid"}) == "current 1.3 kn toward 45°, valid"
+    assert status_text({"drift_kn": 1.26, "set_deg": 44.6, "quality": "valid"}) == "current 1.3 kn toward 045°, valid"
+
+
+def test_status_line_leads_with_trouble():
+    """GNSS lost, every feed silent: the line said "current 0.7 kn toward 179°, degraded" as if all were well."""
+    from daemon.commands.service import status_text
+
+    cur = {"drift_kn": 0.72, "set_deg": 179.4, "quality": "degraded"}
+    alerts = [
+        {"id": "sensor_stale", "priority": "caution", "state": "active"},
+        {"id": "pressure_fall", "priority": "warning", "state": "acknowledged"},
+        {"id": "gnss_lost", "priority": "warning", "state": "active"},
+        {"id": "front", "priority": "caution", "state": "active"},
+        {"id": "rapid_deepening", "priority": "warning", "state": "rectified"},
+        {"id": "junk", "priority": {"x": 1}, "state": "active"},  # data, never trusted
+    ]
+    assert status_text(cur, alerts) == ("WARNING gnss_lost, CAUTION front, CAUTION sensor_stale, +2 more | "
+                                        "current 0.7 kn toward 179°, degraded")
+    assert status_text(cur, alerts[4:5]) == "WARNING rapid_deepening (rectified) | current 0.7 kn toward 179°, degraded"
+    assert status_text(cur, []) == "current 0.7 kn toward 179°, degraded"
