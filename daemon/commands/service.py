@@ -214,7 +214,8 @@ class _AlertWatch:
 def run_command(args) -> int:
     cfg = load_config(args.config)
     if not cfg.inputs:
-        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" device = \"/dev/ttyUSB0\"")
+        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" "
+                          f"device = \"/dev/serial/by-id/usb-...\" (the stable name: ls -l /dev/serial/by-id/)")
     service = Service(cfg, mqtt_url=args.mqtt)
 
     def on_signal(signum, frame):
