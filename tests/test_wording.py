@@ -68,3 +68,19 @@ def test_calibration_in_words_the_right_way_round():
     assert wording.calibration(0.95, 3.0) == \
         "log reads 5.3 % high (correction ×0.950); compass reads 3.0° low (correction +3.0°)"
     assert wording.calibration(1.0, 0.0) == "log reads true; compass reads true"
+
+
+def test_no_text_writes_positions_or_times_its_own_way():
+    """One position format and no ISO times inside texts: a source check over the estimators and the
+    alert machinery (payload fields keep ISO times and decimal degrees; texts go through wording)."""
+    import re
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    files = [*root.glob("estimators/*.py"), *root.glob("daemon/core/*.py"), root / "daemon/commands/summary.py"]
+    own_position = re.compile(r":\.[3-6]f\}°")  # e.g. f"{lat:.4f}°N"
+    iso_in_text = re.compile(r"f\"[^\"]*\{iso_utc\(")  # an ISO stamp inside an f-string
+    offenders = [f"{p.name}:{i}" for p in files if p.name != "wording.py"
+                 for i, line in enumerate(p.read_text(encoding="utf-8").splitlines(), 1)
+                 if own_position.search(line) or iso_in_text.search(line)]
+    assert offenders == []
