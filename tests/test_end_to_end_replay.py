@@ -131,7 +131,7 @@ def _payload_problems(topic: str, p: dict) -> list[str]:
             bad.append(f"alert id {p.get('id')!r} on {topic}")
         if p.get("priority") not in PRIORITIES or p.get("state") not in STATES:
             bad.append(f"alert priority/state {p.get('priority')!r}/{p.get('state')!r}")
-        # every alert text carries the advisory wording (the project's rules; estimators.base.ADVISORY)
+        # every alert text carries the advisory wording (the project's rules; daemon.core.payloads.ADVISORY)
         if "not for navigation" not in str(p.get("text", "")).lower():
             bad.append(f"alert {alert_id} text without the advisory: {p.get('text')!r}")
         since = p.get("since")

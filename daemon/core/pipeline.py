@@ -20,11 +20,12 @@ from __future__ import annotations
 
 import logging
 import queue
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Sequence
 from typing import Any
 
-from daemon.core.readings import Message, RawLine, Reading, Sink, json_safe
-from estimators.base import Condition, Publication, iso_utc
+from daemon.core.payloads import payload as make_payload
+from daemon.core.readings import Message, RawLine, Reading, Sink
+from estimators.base import Condition, Publication
 from estimators.runner import Runner
 from estimators.samples import kind_of
 
@@ -142,7 +143,7 @@ class Pipeline:
         for out in outputs:
             if isinstance(out, Publication):
                 kind = "event" if out.topic == "events" else "state"
-                self._emit(Message(out.t_s, self._topic(out.topic), _payload(out.t_s, out.payload),
+                self._emit(Message(out.t_s, self._topic(out.topic), make_payload(out.t_s, out.payload),
                                    retain=out.retain and kind != "event", qos=1 if kind == "event" else 0, kind=kind))
             else:
                 self._emit_all(self.alerts.on_condition(out))
@@ -162,7 +163,7 @@ class Pipeline:
     def _publish_status(self, t_s: float) -> None:
         payload: dict[str, Any] = {
             "state": "online",
-            "sensors": {k: round(t_s - seen, 1) for k, seen in sorted(self._last_seen.items())},
+            "sensors": {k: t_s - seen for k, seen in sorted(self._last_seen.items())},
         }
         if self.counters is not None:
             payload["inputs"] = self.counters.line_snapshot()
@@ -170,13 +171,4 @@ class Pipeline:
             payload["priority"] = self.selector.snapshot()
         if self.extra_status is not None:
             payload.update(self.extra_status())
-        self._emit(Message(t_s, self._topic("status"), _payload(t_s, payload), retain=True, qos=1, kind="status"))
-
-
-def _payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
-    """``time`` first, then the fields; floats rounded so output is stable and compact."""
-    out: dict[str, Any] = {"time": iso_utc(t_s)}
-    for k, v in fields.items():
-        if k != "time":
-            out[k] = json_safe(v)
-    return out
+        self._emit(Message(t_s, self._topic("status"), make_payload(t_s, payload), retain=True, qos=1, kind="status"))

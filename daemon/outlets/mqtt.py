@@ -50,8 +50,8 @@ from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 
 from daemon.errors import ConfigError
 from daemon.outlets.outbox import DEFAULT_MAX_QUEUED, Outbox, Outgoing
+from daemon.core.payloads import clean, iso_utc
 from daemon.core.readings import Message, RawLine
-from estimators.base import iso_utc
 
 log = logging.getLogger(__name__)
 
@@ -115,22 +115,13 @@ class MqttSettings:
 # -- payloads -----------------------------------------------------------------
 
 def encode_payload(payload: Mapping[str, Any]) -> bytes:
-    """Compact UTF-8 JSON; a non-finite number (not JSON) becomes null."""
+    """Compact UTF-8 JSON. Payloads come cleaned from the payload layer; one that is not JSON
+    (a non-finite number from elsewhere) is cleaned there, never sent as NaN."""
     try:
         text = json.dumps(payload, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
     except ValueError:
-        text = json.dumps(_finite_or_null(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
+        text = json.dumps(clean(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
     return text.encode("utf-8")
-
-
-def _finite_or_null(value: Any) -> Any:
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, Mapping):
-        return {k: _finite_or_null(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_finite_or_null(v) for v in value]
-    return value
 
 
 def offline_payload(reason: str, now_s: float | None = None) -> bytes:
