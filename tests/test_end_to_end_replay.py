@@ -28,7 +28,7 @@ from daemon.outlets.recorder import export_tag_nmea, parse_tag_line
 from daemon.commands.replay import run_replay
 from tools.simulator import scenarios, simulate
 from tools.simulator.nmea_writer import WriterOptions, write_nmea
-from tests.sinks import Keep as Collect
+from tests.helpers import Keep as Collect
 from tests.shared import REPO, SHARED, shared_path
 
 UNDER_WAY = ("real-captures", "under-way-94min-hdg-hdt-rmc.nmea")
