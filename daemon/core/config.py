@@ -49,12 +49,12 @@ class MqttSettings:
     url: str = param("", doc="mqtt://host:port or mqtts://host:port; empty: no broker")
     client_id: str = param("", doc="empty: offwatch-<hostname> for run, offwatch-replay-<pid> for replay")
     prefix: str = param("offwatch", doc="topic prefix, e.g. fleet/<boat> for a fleet")
-    username: str = param("")
-    password: str = param("")
+    username: str = param("", doc="broker user (or in the URL); empty: none")
+    password: str = param("", doc="broker password; shown as *** in the recording")
     ca_file: str = param("", doc="CA certificate for mqtts://; empty: the system's CAs")
     cert_file: str = param("", doc="client certificate for mqtts:// (optional)")
     key_file: str = param("", doc="client key for mqtts:// (optional)")
-    protocol: str = param("3.1.1", choices=("3.1.1", "5"))
+    protocol: str = param("3.1.1", choices=("3.1.1", "5"), doc="MQTT protocol version")
     keepalive_s: int = param(30, "s", 5, 3600, "MQTT keep-alive: how soon the broker notices offwatch is gone")
     max_queued: int = param(DEFAULT_MAX_QUEUED, "messages", 100, 10_000_000, "outbox bound while the broker is away")
     window: int = param(10, "messages", 1, 1000, "messages in flight to the broker at once")
@@ -89,13 +89,14 @@ class StateConfig:
 class InputConfig:
     """One [inputs.NAME] table, and all a live source takes (checked by ``input_problems``)."""
 
-    kind: str = param("serial", choices=("serial", "tcp", "udp", "file"))
+    kind: str = param("serial", choices=("serial", "tcp", "udp", "file"),
+                      doc="serial port, TCP client (a multiplexer), UDP listener, or a followed file")
     device: str = param("", doc="serial device, e.g. /dev/serial/by-id/...")
-    baud: int = param(4800, "baud", 300, 921600)
-    host: str = param("")
-    port: int = param(10110, "", 1, 65535)
+    baud: int = param(4800, "baud", 300, 921600, "serial: 4800 for NMEA 0183, 38400 for high speed and AIS")
+    host: str = param("", doc="tcp: the multiplexer's address")
+    port: int = param(10110, "", 1, 65535, "tcp/udp port (10110 is customary for NMEA 0183 over IP)")
     bind: str = param("0.0.0.0", doc="UDP listen address")
-    path: str = param("")
+    path: str = param("", doc="file: a file or FIFO to follow as it grows")
     allow_no_checksum: bool = param(False, doc="accept sentences without *hh from this source")
 
 
