@@ -258,10 +258,8 @@ def test_alerts_arrive_in_order_across_a_broker_restart(mosquitto, sinks, watche
     mosquitto.stop()
     assert wait_until(lambda: not sink.connected)
     # WHEN alert changes come while it is away (more than the in-flight window)
-    started = time.monotonic()
     for n in range(5, 25):
-        sink.message(alert(n))
-    assert time.monotonic() - started < 1.0  # message() only enqueues (a generous bound, not a benchmark)
+        sink.message(alert(n))  # only enqueues, never waits for the broker (its cost: tools/bench/handoffs.py)
     assert wait_until(lambda: sink.outbox.queued_count() == 20)
     mosquitto.start()
     # THEN every change arrives once reconnected, in order, and the outbox empties

@@ -70,10 +70,8 @@ def test_serial_bytes_arrive_and_an_unplugged_adapter_is_reopened(tmp_path, stop
     time.sleep(0.5)  # a few failed attempts while it is out
     # WHEN it is plugged back in under the same name
     master, slave = new_pty_at(link)
-    plugged = time.monotonic()
-    # THEN it is reopened within 5 s and data flows again
+    # THEN it is reopened (the wait is a limit to give up, not a figure) and data flows again
     assert wait_until(lambda: sup.health.state == "open", 5.0)
-    assert time.monotonic() - plugged < 5.0
     os.write(master, line)
     assert collect(q, len(line)) == line
     snap = sup.health.snapshot()
