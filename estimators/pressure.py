@@ -526,11 +526,12 @@ class PressureTendency(EstimatorBase):
         step = self._recent_step(t_s)
         payload = {
             "msl_hpa": round(level + tide, 2),
-            "tendency_3h_hpa": None if tend is None else round(tend[1], 2),  # observed: what the barometer did
-            "tendency_3h_tide_corrected_hpa": None if tend is None else round(tend[0], 2),
+            # to the 0.1 hPa a barometer shows, the figure the descriptor is judged on
+            "tendency_3h_hpa": None if tend is None else round(tend[1], 1),  # observed: what the barometer did
+            "tendency_3h_tide_corrected_hpa": None if tend is None else round(tend[0], 1),
             "rate_hpa_per_h": round(rate, 3),
             "rate_sigma_hpa_per_h": round(math.sqrt(max(self.kf.P[1][1], 0.0)), 3),
-            "descriptor": descriptor(None if tend is None else round(tend[1], 2)),  # from the figure shown
+            "descriptor": descriptor(None if tend is None else round(tend[1], 1)),  # from the figure shown
             "characteristic": char,
             "characteristic_text": None if char is None else CHARACTERISTIC_WORDS[char],
             "sensor_step_hpa": None if step is None else round(step[1], 1),

@@ -47,9 +47,10 @@ from dataclasses import dataclass
 from typing import Any
 
 from daemon.errors import ConfigError
-from daemon.core.readings import Message, json_safe
-from estimators.base import ADVISORY, ALARM, CAUTION, PRIORITIES, WARNING, Condition, iso_utc
+from daemon.core.payloads import clean, iso_utc, with_advisory
+from daemon.core.readings import Message
 from estimators import wording
+from estimators.base import ALARM, CAUTION, PRIORITIES, WARNING, Condition
 from estimators.params import param
 
 log = logging.getLogger(__name__)
@@ -206,7 +207,7 @@ class AlertManager:
             if rec.listed:
                 alerts.append({
                     "id": rec.alert_id, "priority": rec.priority, "state": rec.state, "text": rec.text,
-                    "values": json_safe(dict(rec.values or {})), "condition": rec.condition,
+                    "values": clean(dict(rec.values or {})), "condition": rec.condition,
                     "since_s": rec.since_s, "last_announced_s": rec.last_announced_s,
                     "gone_text": rec.gone_text, "gone_s": rec.gone_s,
                 })
@@ -318,10 +319,10 @@ class AlertManager:
             "id": rec.alert_id,
             "priority": rec.priority,
             "state": rec.state,
-            "text": f"{text} {ADVISORY}" if text else ADVISORY,
+            "text": with_advisory(text),
             "since": iso_utc(rec.since_s) if rec.since_s is not None else None,
             "condition": rec.condition,
-            "values": json_safe(dict(values or {})),
+            "values": clean(dict(values or {})),
         }
 
 
