@@ -94,6 +94,7 @@ class StalenessWatch(EstimatorBase):
         self.params = params or StalenessParams()
         self._last: dict[str, float] = {}
         self._active = False
+        self._longest: dict[str, float] = {}  # this episode's longest silence per kind, s
 
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
         kind = kind_of(sample)
@@ -107,10 +108,19 @@ class StalenessWatch(EstimatorBase):
             if not self._active:
                 return ()
             self._active = False
-            return (Condition(t_s, ALERT_ID, CAUTION, False, "Feeds fell silent; every feed seen is fresh again",
-                              {"feeds": []}),)
+            return (self._closing(t_s),)
         self._active = True
+        for kind, age in stale.items():
+            self._longest[kind] = max(age, self._longest.get(kind, 0.0))
         return (self._condition(t_s, stale),)
+
+    def _closing(self, t_s: float) -> Condition:
+        """The all-clear with the last figures: which feeds were silent, for how long at most."""
+        longest, self._longest = self._longest, {}
+        parts = [f"{_WHAT[k]} silent up to {wording.duration(age)}" for k, age in longest.items()]
+        text = ("; ".join(parts) + "; every feed fresh again") if parts else "Every feed fresh again"
+        return Condition(t_s, ALERT_ID, CAUTION, False, text[0].upper() + text[1:],
+                         {"feeds": [], "longest_s": {k: round(a) for k, a in longest.items()}})
 
     def stale_kinds(self, t_s: float) -> dict[str, float]:
         """Kind -> age (s) for every present kind silent beyond its interval that no other alert

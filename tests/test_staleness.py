@@ -73,6 +73,9 @@ def test_a_vanished_heading_is_reported_after_its_interval_and_clears_when_it_re
     back = ticks(watch, ctx, 32, 36)
     # THEN one inactive condition, then nothing while it is fresh (one sample: until 36.5 s)
     assert [(t, c.active) for t, c in back] == [(32, False)]
+    # AND the all-clear reports the last figure: the longest silence of the episode
+    assert back[0][1].text == "Heading silent up to 12 s; every feed fresh again"
+    assert back[0][1].values["longest_s"] == {"heading": 12}
     assert [(t, c.active) for t, c in ticks(watch, ctx, 37, 37)] == [(37, True)]
 
 
