@@ -421,3 +421,20 @@ def test_hysteresis_refuses_thresholds_the_wrong_way_round():
         Hysteresis(-1.0, -2.0, above=False)
     with pytest.raises(ValueError, match="finite"):
         Hysteresis(float("inf"), 1.0)
+
+
+def test_a_figure_that_only_wavers_is_not_news():
+    # GIVEN a caution raised on a 4.2 kn current whose estimate then wavers 4.2 <-> 4.3 kn (2 %)
+    mgr = AlertManager(FAST)
+    out = []
+    for t in range(0, 900):
+        kn = 4.2 if (t // 30) % 2 == 0 else 4.3
+        out += mgr.on_condition(Condition(T0 + t, "current_strong", CAUTION, True, f"Current of {kn:.1f} kn.", {}))
+        out += mgr.tick(T0 + t)
+    # THEN it was raised once and not re-published with every wobble (update_min_change_pct 5 %)
+    assert len(out) == 1
+    # WHEN a figure moves by 5 % or more, or the words change, it is news (at most once a minute)
+    out = mgr.on_condition(Condition(T0 + 900, "current_strong", CAUTION, True, "Current of 4.5 kn.", {}))
+    assert [m.payload["text"].split(" Advisory")[0] for m in out] == ["Current of 4.5 kn."]
+    out = mgr.on_condition(Condition(T0 + 970, "current_strong", CAUTION, True, "Current of 4.5 kn, easing.", {}))
+    assert len(out) == 1

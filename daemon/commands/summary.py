@@ -85,9 +85,9 @@ def _day(t_s: float) -> str:
     return f"{d.day} {d:%b %Y}"
 
 
-def _word(v: Any) -> str:
-    """A payload field that should be a short word; anything else (it is data) shows as '?'."""
-    return v if isinstance(v, str) and v.isprintable() and len(v) <= 40 else "?"
+def _word(v: Any, longest: int = 40) -> str:
+    """A payload field that should be a short text; anything else (it is data) shows as '?'."""
+    return v if isinstance(v, str) and v.isprintable() and len(v) <= longest else "?"
 
 
 def _describe(ev: Message) -> str:
@@ -117,9 +117,11 @@ def _fields(payload: dict[str, Any]) -> str:
 
 
 def _fmt(v: Any) -> str:
-    if isinstance(v, float):
-        return wording.fixed(v, 2)
-    return str(v) if _number(v) else _word(v)
+    """A payload value as published (the payload layer chose its decimals), with a true minus sign."""
+    if isinstance(v, float) and _number(v):
+        text = repr(v + 0.0)  # + 0.0: no negative zero
+        return wording.MINUS + text[1:] if text.startswith("-") else text
+    return str(v) if _number(v) else _word(v, 120)
 
 
 def _calibration_line(msg: Message | None) -> str | None:

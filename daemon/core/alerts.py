@@ -20,9 +20,10 @@ acknowledged, rectified, cleared):
   every ``reannounce_warning_s``; a rectified one never is. If the condition
   comes back while rectified, the alert is active again.
 - Figures follow the condition. While an alert is listed and its condition
-  holds, an estimator's new text (its figures are written to the precision
-  worth telling, so a new text is a change worth telling) is published, at
-  most once per ``update_min_s``. When the condition goes, the text is the
+  holds, an estimator's new text is published when it is a change worth
+  telling (its words changed, or one of its figures by ``update_min_change_pct``
+  or more: 2.0 -> 2.8 kn is news, 4.2 <-> 4.3 kn is not), at most once per
+  ``update_min_s``. When the condition goes, the text is the
   estimator's closing words (the last value) after the time span.
 - Caution. Never acknowledged (an acknowledgement is logged and ignored): it
   shows as ``active`` while its condition lasts and is ``cleared`` when it goes.
@@ -42,6 +43,7 @@ from __future__ import annotations
 import json
 import logging
 import math
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -81,6 +83,8 @@ class AlertParams:
     clear_after_by_id: dict[str, float] = param({}, "s", doc="per alert id, overrides the priority's clear time")
     update_min_s: float = param(60.0, "s", 5.0, 3600.0,
                                 "an active alert's new figures are published at most this often")
+    update_min_change_pct: float = param(5.0, "%", 0.0, 100.0,
+                                         "a figure in an active alert's text must change by this much to be told")
     restore_confirm_s: float = param(120.0, "s", 1.0, 3600.0,
                                      "a restored alert whose condition is not re-asserted within this time is taken as gone")
     max_payload_bytes: int = param(4096, "bytes", 512, 262144,
@@ -269,7 +273,8 @@ class AlertManager:
 
     def _update(self, rec: _Alert, t_s: float) -> list[Message]:
         """New figures for a listed alert whose condition holds, at most once per ``update_min_s``."""
-        if not rec.listed or not rec.condition or rec.text == rec.published_text:
+        if not rec.listed or not rec.condition or not _worth_telling(rec.published_text, rec.text,
+                                                                      self.params.update_min_change_pct):
             return []
         last = rec.last_announced_s if rec.last_announced_s is not None else rec.since_s
         if last is not None and t_s - last < self.params.update_min_s - _EPS_S:
@@ -324,6 +329,22 @@ class AlertManager:
             "condition": rec.condition,
             "values": clean(dict(values or {})),
         }
+
+
+_NUMBER = re.compile(r"\d+(?:\.\d+)?")
+
+
+def _worth_telling(old: str, new: str, min_change_pct: float) -> bool:
+    """A new text is news when its words changed or one of its figures moved by ``min_change_pct``."""
+    if old == new:
+        return False
+    if _NUMBER.sub("#", old) != _NUMBER.sub("#", new):
+        return True  # other words, or another number of figures
+    for a, b in zip(_NUMBER.findall(old), _NUMBER.findall(new)):
+        x, y = float(a), float(b)
+        if abs(y - x) > 0.0 and abs(y - x) >= min_change_pct / 100.0 * abs(x):
+            return True
+    return False
 
 
 def _text_now(rec: _Alert) -> str:
