@@ -514,7 +514,7 @@ class PositionEstimator(EstimatorBase):
             seen = f"GNSS frozen: the receiver's clock has stood still since {wording.clock(fix.t_s)}"
         else:
             seen = f"No GNSS fix for {wording.duration(gap_s)}, the last at {wording.clock(fix.t_s)} near {where}"
-        text = (f"{seen}; the position shown is dead reckoning ({dr.basis.replace('_', ' ')}), "
+        text = (f"{seen}; the position shown is dead reckoning {_BASIS_WORDS.get(dr.basis, '')}".rstrip() + ", "
                 f"uncertain by about {_metres(dr.sigma_m)} and growing. "
                 f"Check the GNSS receiver, its antenna and its cable.")
         values = {"since_last_fix_s": round(gap_s), "last_fix_lat": round(fix.lat_deg, 5),
@@ -546,6 +546,14 @@ def _num(payload: Mapping[str, Any] | None, key: str, default: float) -> float:
         return default
     v = payload.get(key)
     return float(v) if _finite(v) else default
+
+
+_BASIS_WORDS = {
+    "water_and_current": "from the log, the compass and the current",
+    "water_no_current": "from the log and the compass (no current known)",
+    "last_water_and_current": "from the last log, compass and current (those feeds are silent too)",
+    "last_ground_velocity": "from the last course and speed over ground",
+}
 
 
 def _metres(m: float) -> str:
