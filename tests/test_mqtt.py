@@ -383,7 +383,7 @@ def test_a_subscriber_to_the_prefix_sees_everything(mosquitto, sinks, watchers):
     watcher = watchers(host, port)
     connected = threading.Event()
     sink = sinks(settings(host, port), on_connected=connected.set)
-    assert connected.wait(5)  # the pipeline's hook to republish its status at once
+    assert connected.wait(5)  # the notice of a connect
     sent = [state("status", state="online", sensors={"gnss": 0.4}),
             state("position", lat=48.1, lon=-4.9, source="gnss", sigma_m=4.0),
             Message(0.0, f"{PREFIX}/events", {"kind": "front_crossing", "delta_c": 1.2}, retain=False, kind="event"),

@@ -34,8 +34,7 @@ def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url
     if url:
         from daemon.outlets.mqtt import MqttSink
         sinks.append(MqttSink.from_config(client_id_for(cfg.mqtt, "replay"), url=url, state_dir=None,
-                                          on_ack=lambda i: pipeline_hooks["ack"](i),
-                                          on_connected=lambda: pipeline_hooks["status"]()))
+                                          on_ack=lambda i: pipeline_hooks["ack"](i)))
     return sinks
 
 
@@ -51,7 +50,7 @@ def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, r
     parts = build(cfg, sinks, live=False)
     pipe = parts.pipeline
     summary.counters = parts.counters
-    hooks["ack"], hooks["status"] = pipe.acknowledge, pipe.request_status
+    hooks["ack"] = pipe.acknowledge
     bar = ProgressBar() if progress and sys.stderr.isatty() else None
     pacer = _Pacer(speed) if speed else None
     try:

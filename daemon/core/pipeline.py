@@ -104,15 +104,11 @@ class Pipeline:
         for sink in self.sinks:
             sink.close()
 
-    # -- commands from other threads (MQTT ack, a new connection) --------------
+    # -- commands from other threads (an MQTT ack) -------------------------------
 
     def acknowledge(self, alert_id: str) -> None:
         """Thread-safe: queue an acknowledgement to be handled in the loop."""
         self._commands.put(("ack", alert_id))
-
-    def request_status(self) -> None:
-        """Thread-safe: publish the status at the next chance (a broker just connected)."""
-        self._commands.put(("status", None))
 
     def _run_commands(self) -> None:
         if self._commands.empty():  # the common case, on every item: no exception raised and caught
@@ -126,8 +122,6 @@ class Pipeline:
                 continue
             if cmd == "ack":
                 self._emit_all(self.alerts.acknowledge(arg, self.now_s))
-            elif cmd == "status":
-                self._publish_status(self.now_s)
 
     # -- time --------------------------------------------------------------
 

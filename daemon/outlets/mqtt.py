@@ -13,9 +13,13 @@ How it is built (paho-mqtt 2.x, callback API version 2):
   while disconnected. So paho only ever holds a small window (``window``) of
   queued messages; the rest wait in the outbox, and an entry leaves the outbox
   only once paho reports it published (PUBACK for QoS 1).
-* On (re)connect: the latest state of every topic is published again, the
-  ``on_connected`` hook runs (the pipeline republishes its status), then the
-  queued alert changes follow in order. Messages paho already held when the
+* On (re)connect the link republishes, on its own, the latest retained
+  message of every topic (states, the status, each listed alert) unless a
+  newer one of that topic still waits in the queue; then the queued alert
+  changes follow in order. So a broker that lost its retained messages, or a
+  will that said "offline", is put right without the pipeline knowing: the
+  data-time stream (JSONL, recording) depends on the input alone, never on
+  when a broker came and went. Messages paho already held when the
   connection dropped are resent by paho itself; new ones wait until those are
   acknowledged, so the order holds across a broker restart.
 * ``<prefix>/status`` carries a retained last will ``{"state": "offline"}``; a
@@ -164,7 +168,8 @@ class MqttSink:
 
     ``on_ack(alert_id)`` is called from paho's network thread for each valid
     acknowledgement; it may return False to say the id is unknown (counted).
-    ``on_connected()`` is called from the worker thread after each connect.
+    ``on_connected()`` is called from the worker thread after each connect (a
+    notice only: whatever the link republishes, it does itself).
     """
 
     def __init__(self, settings: MqttSettings, outbox_path: str | os.PathLike[str] | None = None, *,
@@ -186,7 +191,8 @@ class MqttSink:
         self.counters: Counter[str] = Counter()
         self.outbox = Outbox(outbox_path, max_queued=settings.max_queued)
         self._work: queue.Queue[tuple] = queue.Queue()
-        self._dirty_states: set[str] = {s.topic for s in self.outbox.latest_states()}
+        self.outbox.forget_latest(self.status_topic)  # an earlier process's status is not ours to repeat
+        self._dirty_states: set[str] = set()       # topics whose latest retained message is due
         self._inflight: dict[int, Outgoing] = {}   # paho mid -> queued entry paho holds
         self._held: set[int] = set()               # mids paho resends after a reconnect
         self._hold_until = 0.0
@@ -427,7 +433,7 @@ class MqttSink:
         self.connected_at = at
         self.counters["connects"] += 1
         self._log_change("connected", f"MQTT: connected to {self.broker.host}:{self.broker.port}", logging.INFO)
-        self._dirty_states = {s.topic for s in self.outbox.latest_states()}
+        self._dirty_states = self._republishable()
         # paho resends what it held at the drop; new queued messages wait for those
         self._held = {mid for mid, o in self._inflight.items() if o.qos > 0}
         self._hold_until = time.monotonic() + HOLD_RESENT_S
@@ -439,6 +445,11 @@ class MqttSink:
                 self.counters["callback_errors"] += 1
                 self._last_callback_failure = time.monotonic()
                 log.exception("MQTT: error in the on_connected hook")
+
+    def _republishable(self) -> set[str]:
+        """Retained topics whose latest message is not still on its way (queued or in paho's hands)."""
+        waiting = self.outbox.queued_topics() | {o.topic for o in self._inflight.values()}
+        return {s.topic for s in self.outbox.latest_states()} - waiting
 
     def _on_disconnect_event(self, at: float) -> None:
         if self._connected:
