@@ -21,10 +21,11 @@ from pathlib import Path
 
 import paho.mqtt.client as paho
 import pytest
+from hypothesis import given, settings as settings_h, strategies as st
 from paho.mqtt.enums import CallbackAPIVersion
 
 from daemon.errors import ConfigError
-from daemon.outlets.mqtt import (BrokerUrl, MqttSettings, MqttSink, encode_payload, parse_ack,
+from daemon.outlets.mqtt import (BrokerUrl, MqttSettings, MqttSink, encode_payload, nesting_depth, parse_ack,
                          parse_broker_url)
 from daemon.core.readings import Message
 
@@ -150,11 +151,37 @@ def test_payload_is_compact_json_and_non_finite_becomes_null():
     (b"not json", None),
     (b"\xff\xfe", None),
     (json.dumps({"id": "front", "pad": "x" * 1100}).encode(), None),  # over 1 KiB
+    (b"[" * 1000 + b"]" * 1000, None),  # issue 13 item 5: 1000 deep, under 1 KiB each way
+    (b"[" * 1020, None),                 # deep and never closed
+    (b'{"id": "front", "a": [[[[[[[[[]]]]]]]]]}', None),  # 10 deep: past the bound
+    (b'{"id": "front", "note": "[[[[[[[[[[[[ \\" {{{{{{{{{"}', "front"),  # brackets inside a string count for nothing
 ])
 def test_parse_ack(payload, accepted):
     alert_id, why = parse_ack(payload)
     assert alert_id == accepted
     assert (why == "") == (accepted is not None)
+
+
+def _depth_of(value) -> int:
+    """Nesting of a parsed JSON value, counted the plain recursive way (the independent check)."""
+    if isinstance(value, dict):
+        return 1 + max((_depth_of(v) for v in value.values()), default=0)
+    if isinstance(value, list):
+        return 1 + max((_depth_of(v) for v in value), default=0)
+    return 0
+
+
+_json_values = st.recursive(st.none() | st.booleans() | st.integers() | st.text(alphabet='[]{}"\\ab,:'),
+                            lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=3), inner, max_size=3),
+                            max_leaves=12)
+
+
+@settings_h(max_examples=300, deadline=None)
+@given(_json_values)
+def test_nesting_depth_agrees_with_the_parsed_value(value):
+    # the byte scan that runs before the parser agrees with the depth of what the parser builds,
+    # brackets and escaped quotes inside strings included
+    assert nesting_depth(json.dumps(value).encode()) == _depth_of(value)
 
 
 def test_bad_settings_name_the_key(tmp_path):
@@ -323,9 +350,9 @@ def test_acks_good_and_bad(mosquitto, sinks):
     got: list[str] = []
     known = {"front", "pressure_fall"}
 
-    def on_ack(alert_id: str) -> bool:
+    def on_ack(alert_id: str, reply) -> None:
         got.append(alert_id)
-        return alert_id in known
+        reply(alert_id, alert_id in known)  # as the pipeline answers, once the alert manager has seen it
 
     ack = f"{PREFIX}/ack"
     app = paho.Client(CallbackAPIVersion.VERSION2, client_id="display")
@@ -339,27 +366,27 @@ def test_acks_good_and_bad(mosquitto, sinks):
         # WHEN a display sends good and bad payloads
         for payload in (b'{"id": "front"}', b"{not json", b'{"id": 7}', b'"front"',
                         json.dumps({"id": "front", "x": "y" * 2000}).encode(), b'{"id": "nope"}',
-                        b'{"id": "pressure_fall"}'):
+                        b"[" * 1000 + b"]" * 1000, b'{"id": "pressure_fall"}'):
             app.publish(ack, payload, qos=1).wait_for_publish(2)
         assert wait_until(lambda: len(got) == 3)
         app.publish(ack, b"", qos=1, retain=True).wait_for_publish(2)  # clears the retained one
-        assert wait_until(lambda: sink.counters["ack_ignored"] == 7)
+        assert wait_until(lambda: sink.counters["ack_ignored"] == 8)
     finally:
         app.disconnect()
         app.loop_stop()
     # THEN only well-formed ids reach on_ack, in order; the rest is counted, nothing is fatal
     assert got == ["front", "nope", "pressure_fall"]
     assert sink.counters["ack_accepted"] == 2
-    # ignored: the retained one, 4 malformed, 1 unknown, the empty clear
-    assert sink.counters["ack_ignored"] == 7
-    assert sink.healthy()
+    # ignored: the retained one, 4 malformed, 1 unknown, 1000 deep, the empty clear
+    assert sink.counters["ack_ignored"] == 8
+    assert sink.counters["callback_errors"] == 0 and sink.healthy()  # the deep one raised nothing
 
 
 def test_a_failing_callback_is_caught_and_reported(mosquitto, sinks, watchers):
     host, port = mosquitto
     watcher = watchers(host, port)
 
-    def broken(alert_id: str) -> None:
+    def broken(alert_id: str, reply) -> None:
         raise RuntimeError("bug in the pipeline")
 
     sink = sinks(settings(host, port), on_ack=broken)

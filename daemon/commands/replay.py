@@ -34,7 +34,7 @@ def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url
     if url:
         from daemon.outlets.mqtt import MqttSink
         sinks.append(MqttSink.from_config(client_id_for(cfg.mqtt, "replay"), url=url, state_dir=None,
-                                          on_ack=lambda i: pipeline_hooks["ack"](i)))
+                                          on_ack=lambda i, reply: pipeline_hooks["ack"](i, reply)))
     return sinks
 
 

@@ -19,7 +19,7 @@ from __future__ import annotations
 import logging
 import math
 import queue
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import Any
 
 from daemon.core.readings import Message, RawLine, Reading, Sink, json_safe
@@ -106,9 +106,13 @@ class Pipeline:
 
     # -- commands from other threads (an MQTT ack) -------------------------------
 
-    def acknowledge(self, alert_id: str) -> None:
-        """Thread-safe: queue an acknowledgement to be handled in the loop."""
-        self._commands.put(("ack", alert_id))
+    def acknowledge(self, alert_id: str, reply: Callable[[str, bool], object] | None = None) -> None:
+        """Thread-safe: queue an acknowledgement to be handled in the loop.
+
+        ``reply(alert_id, acknowledged)`` is called from the loop once it is
+        handled: True only when it acknowledged a listed alarm or warning.
+        """
+        self._commands.put(("ack", (alert_id, reply)))
 
     def _run_commands(self) -> None:
         if self._commands.empty():  # the common case, on every item: no exception raised and caught
@@ -118,10 +122,12 @@ class Pipeline:
                 cmd, arg = self._commands.get_nowait()
             except queue.Empty:
                 return
-            if self.now_s is None:
-                continue
             if cmd == "ack":
-                self._emit_all(self.alerts.acknowledge(arg, self.now_s))
+                alert_id, reply = arg
+                changes = self.alerts.acknowledge(alert_id, self.now_s) if self.now_s is not None else []
+                self._emit_all(changes)
+                if reply is not None:
+                    reply(alert_id, bool(changes))
 
     # -- time --------------------------------------------------------------
 

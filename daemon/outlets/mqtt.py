@@ -61,6 +61,7 @@ log = logging.getLogger(__name__)
 
 OUTBOX_FILE = "mqtt-outbox.sqlite"
 MAX_ACK_BYTES = 1024          # a larger payload on <prefix>/ack is ignored unread
+MAX_PAYLOAD_DEPTH = 8         # nesting of arrays/objects allowed in a payload we read (an ack needs 1)
 MAX_WORK_ITEMS = 20_000       # bound of the in-memory work queue (messages not yet in the outbox)
 HOLD_RESENT_S = 10.0          # after a reconnect, how long new queued messages wait for paho's resends
 CALLBACK_FAILURE_HOLD_S = 60.0  # healthy() stays False this long after a callback failed
@@ -143,14 +144,56 @@ def offline_payload(reason: str, now_s: float | None = None) -> bytes:
     return encode_payload({"time": iso_utc(now_s), "state": "offline", "sensors": {}, "reason": reason})
 
 
+class PayloadRefused(ValueError):
+    """A received payload that is not read: too large, too deep, or not UTF-8 JSON."""
+
+
+def decode_json_payload(payload: bytes, max_bytes: int, max_depth: int = MAX_PAYLOAD_DEPTH) -> Any:
+    """Parse a received payload as JSON only once it is known to be small and shallow.
+
+    Size and nesting are checked on the raw bytes before the parser runs, so a
+    ``[[[[…`` of any depth costs one linear scan and never a RecursionError in
+    the JSON parser (which recurses once per level). Raises PayloadRefused.
+    """
+    if len(payload) > max_bytes:
+        raise PayloadRefused(f"payload of {len(payload)} bytes (more than {max_bytes})")
+    depth = nesting_depth(payload)
+    if depth > max_depth:
+        raise PayloadRefused(f"nested more than {max_depth} levels deep")
+    try:
+        return json.loads(payload.decode("utf-8"))
+    except (UnicodeDecodeError, ValueError, RecursionError):
+        raise PayloadRefused("not UTF-8 JSON") from None
+
+
+def nesting_depth(payload: bytes) -> int:
+    """The deepest nesting of ``[`` and ``{`` outside JSON strings, in one pass over the bytes."""
+    depth = deepest = 0
+    in_string = escaped = False
+    for byte in payload:
+        if in_string:
+            if escaped:
+                escaped = False
+            elif byte == 0x5C:      # backslash
+                escaped = True
+            elif byte == 0x22:      # closing quote
+                in_string = False
+        elif byte == 0x22:
+            in_string = True
+        elif byte in (0x5B, 0x7B):  # [ {
+            depth += 1
+            deepest = max(deepest, depth)
+        elif byte in (0x5D, 0x7D):  # ] }
+            depth -= 1
+    return deepest
+
+
 def parse_ack(payload: bytes) -> tuple[str | None, str]:
     """``{"id": "<alert id>"}`` -> (id, ""); anything else -> (None, why it was refused)."""
-    if len(payload) > MAX_ACK_BYTES:
-        return None, f"payload of {len(payload)} bytes (more than {MAX_ACK_BYTES})"
     try:
-        doc = json.loads(payload.decode("utf-8"))
-    except (UnicodeDecodeError, ValueError):
-        return None, "not UTF-8 JSON"
+        doc = decode_json_payload(payload, MAX_ACK_BYTES)
+    except PayloadRefused as e:
+        return None, str(e)
     if not isinstance(doc, dict):
         return None, "not a JSON object"
     alert_id = doc.get("id")
@@ -166,14 +209,17 @@ def parse_ack(payload: bytes) -> tuple[str | None, str]:
 class MqttSink:
     """A Sink that publishes to an MQTT broker through a persistent outbox.
 
-    ``on_ack(alert_id)`` is called from paho's network thread for each valid
-    acknowledgement; it may return False to say the id is unknown (counted).
+    ``on_ack(alert_id, reply)`` is called from paho's network thread for each
+    well-formed acknowledgement. It answers by calling ``reply(alert_id,
+    acknowledged)`` (from any thread, at once or later), or by returning
+    True/False; ``ack_accepted`` counts only the acks that acknowledged a listed
+    alarm or warning, ``ack_ignored`` everything else.
     ``on_connected()`` is called from the worker thread after each connect (a
     notice only: whatever the link republishes, it does itself).
     """
 
     def __init__(self, settings: MqttSettings, outbox_path: str | os.PathLike[str] | None = None, *,
-                 on_ack: Callable[[str], object] | None = None,
+                 on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
                  on_connected: Callable[[], object] | None = None) -> None:
         self.settings = settings
         self.broker = parse_broker_url(settings.url)
@@ -214,7 +260,7 @@ class MqttSink:
 
     @classmethod
     def from_config(cls, cfg: Any, *, url: str | None = None, state_dir: str | os.PathLike[str] | None = None,
-                    on_ack: Callable[[str], object] | None = None,
+                    on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
                     on_connected: Callable[[], object] | None = None) -> MqttSink:
         """Build from the [mqtt] config section; the outbox lives in ``state_dir`` (memory when None)."""
         names = ("prefix", "client_id", "username", "password", "ca_file", "cert_file", "key_file", "protocol")
@@ -354,12 +400,23 @@ class MqttSink:
         if alert_id is None:
             self._ack_refused(why)
             return
-        answer = self._on_ack(alert_id) if self._on_ack is not None else None
-        if answer is False:
-            self._ack_refused(f"unknown or not acknowledgeable id {alert_id!r}")
-        else:
+        if self._on_ack is None:
+            self._ack_refused("nothing here takes acknowledgements")
+            return
+        answer = self._on_ack(alert_id, self._ack_answered)
+        if isinstance(answer, bool):
+            self._ack_answered(alert_id, answer)
+
+    def _ack_answered(self, alert_id: str, acknowledged: bool) -> None:
+        """The answer to one ack (any thread): counted by the worker, which owns the counters' writes."""
+        self._work.put(("ack_answer", alert_id, acknowledged))
+
+    def _count_ack_answer(self, alert_id: str, acknowledged: bool) -> None:
+        if acknowledged:
             self.counters["ack_accepted"] += 1
             log.info("MQTT: acknowledgement for %r", alert_id)
+        else:
+            self._ack_refused(f"{alert_id!r} is not a listed alarm or warning waiting for an acknowledgement")
 
     def _ack_refused(self, why: str) -> None:
         self.counters["ack_ignored"] += 1
@@ -424,6 +481,8 @@ class MqttSink:
                 self._on_disconnect_event(it[1])
             elif kind == "published":
                 self._on_published(it[1], it[2])
+            elif kind == "ack_answer":
+                self._count_ack_answer(it[1], it[2])
             elif kind == "close":
                 closing = True
         return closing
