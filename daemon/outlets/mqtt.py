@@ -52,6 +52,7 @@ from urllib.parse import unquote, urlsplit
 import paho.mqtt.client as paho
 from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 
+from daemon.core.config import mask_url_password
 from daemon.errors import ConfigError
 from daemon.outlets.outbox import DEFAULT_MAX_QUEUED, Outbox, Outgoing
 from daemon.core.readings import Message, RawLine
@@ -83,7 +84,7 @@ class BrokerUrl:
 
 def parse_broker_url(url: str, key: str = "mqtt.url") -> BrokerUrl:
     """Parse a broker URL; a bad one raises ConfigError naming ``key`` and the expected form."""
-    expected = f"{key} = {url!r}: expected mqtt://host:port or mqtts://host:port"
+    expected = f"{key} = {mask_url_password(url)!r}: expected mqtt://host:port or mqtts://host:port"
     try:
         parts = urlsplit(url.strip())
         port = parts.port
