@@ -528,3 +528,40 @@ def test_mqtts_refuses_a_broker_signed_by_another_ca(tls_mosquitto, sinks, tmp_p
     # the certificate check fails: never connected, the alert waits in the outbox, nothing is fatal
     assert not sink.connected
     assert sink.pending() == 1
+
+
+# -- the end of a replay with the broker away (issue 13 item 12) ---------------------------------
+
+def test_close_waits_for_a_broker_that_comes_back_within_the_bound(mosquitto, watchers):
+    host, port = mosquitto
+    watcher = watchers(host, port, topic=f"{PREFIX}/#", persistent=True)
+    time.sleep(1.5)  # mosquitto saves the watcher's session every second (autosave_interval 1)
+    mosquitto.stop()
+    # GIVEN alert changes queued while the broker is away, and a close that may wait 20 s
+    sink = MqttSink(settings(host, port, close_timeout_s=20.0))
+    for n in range(4):
+        sink.message(alert(n))
+    closer = threading.Thread(target=sink.close)
+    closer.start()
+    # WHEN the broker comes back during the wait
+    mosquitto.start()
+    closer.join(40)
+    # THEN everything was delivered before the sink let go, and it says so
+    assert not closer.is_alive()
+    assert sink.undelivered() == {}
+    assert wait_until(lambda: len({m["text"] for m in watcher.on(f"{PREFIX}/alerts/pressure_fall")}) == 4)
+
+
+def test_close_with_the_broker_gone_tells_what_was_not_delivered(mosquitto):
+    host, port = mosquitto
+    mosquitto.stop()
+    # GIVEN three alert changes, an event and a state for a broker that never comes back
+    sink = MqttSink(settings(host, port, close_timeout_s=0.5))
+    for n in range(3):
+        sink.message(alert(n))
+    sink.message(Message(0.0, f"{PREFIX}/events", {"kind": "front_crossing"}, retain=False, qos=1, kind="event"))
+    sink.message(state("position", lat=48.1, lon=-4.9))
+    # WHEN it closes after its bounded wait
+    sink.close()
+    # THEN it accounts for each of them, by kind
+    assert sink.undelivered() == {"alerts": 3, "events": 1, "states": 1}

@@ -275,3 +275,17 @@ def test_the_data_stream_does_not_depend_on_the_broker(short_passage, forgetful_
         assert late.latest(f"{PREFIX}/status").payload["state"] == "offline"  # the replay ended cleanly
     finally:
         late.close()
+
+
+def test_replay_with_the_broker_gone_at_the_end_says_what_was_not_delivered(short_passage, tmp_path):
+    """Issue 13 item 12: nothing undelivered is dropped in silence; exit status 3 (README, replay)."""
+    from tests.conftest import free_port
+    # GIVEN a broker address where nothing answers (a broker that went and does not come back)
+    out = tmp_path / "gone.jsonl"
+    done = subprocess.run(replay_args(short_passage, out, f"mqtt://127.0.0.1:{free_port()}", "--mqtt-wait", "1"),
+                          cwd=REPO, capture_output=True, text=True, timeout=120)
+    # THEN the replay finishes its outputs, waits its bound, and says what the broker never got
+    assert done.returncode == 3, done.stderr[-2000:]
+    n_alerts = len(alert_changes(read_jsonl(out)))
+    line = next(ln for ln in done.stderr.splitlines() if "not delivered" in ln)
+    assert f"{n_alerts} alert changes" in line and "after waiting 1 s" in line, line

@@ -66,6 +66,7 @@ MAX_PAYLOAD_DEPTH = 8         # nesting of arrays/objects allowed in a payload w
 MAX_WORK_ITEMS = 20_000       # bound of the in-memory work queue (messages not yet in the outbox)
 HOLD_RESENT_S = 10.0          # after a reconnect, how long new queued messages wait for paho's resends
 CALLBACK_FAILURE_HOLD_S = 60.0  # healthy() stays False this long after a callback failed
+DEFAULT_CLOSE_TIMEOUT_S = 2.0  # the service's stop: a bounded wait for the broker to take what is queued
 WORKER_STALL_S = 15.0         # healthy() is False when the worker has not looped for this long
 
 
@@ -115,7 +116,7 @@ class MqttSettings:
     keepalive_s: int = 30
     max_queued: int = DEFAULT_MAX_QUEUED
     window: int = 10         # queued messages paho may hold at once
-    close_timeout_s: float = 2.0
+    close_timeout_s: float = DEFAULT_CLOSE_TIMEOUT_S  # how long close() waits for delivery
 
 
 # -- payloads -----------------------------------------------------------------
@@ -250,6 +251,7 @@ class MqttSink:
         self._stored = 0     # of those, stored in the outbox (worker thread)
         self._last_callback_failure = -math.inf
         self._heartbeat = time.monotonic()
+        self._left_at_close: dict[str, int] | None = None  # undelivered, counted as the worker ends
         self.connected_at: float | None = None      # monotonic time of the latest CONNACK
         self.disconnected_at: float | None = None   # monotonic time of the latest loss
         self._client = self._make_client()
@@ -262,10 +264,12 @@ class MqttSink:
     @classmethod
     def from_config(cls, cfg: Any, *, url: str | None = None, state_dir: str | os.PathLike[str] | None = None,
                     on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
-                    on_connected: Callable[[], object] | None = None) -> MqttSink:
+                    on_connected: Callable[[], object] | None = None,
+                    close_timeout_s: float = DEFAULT_CLOSE_TIMEOUT_S) -> MqttSink:
         """Build from the [mqtt] config section; the outbox lives in ``state_dir`` (memory when None)."""
         names = ("prefix", "client_id", "username", "password", "ca_file", "cert_file", "key_file", "protocol")
-        settings = MqttSettings(url=url or cfg.url, **{n: getattr(cfg, n) for n in names if hasattr(cfg, n)})
+        settings = MqttSettings(url=url or cfg.url, close_timeout_s=close_timeout_s,
+                                **{n: getattr(cfg, n) for n in names if hasattr(cfg, n)})
         path = Path(state_dir) / OUTBOX_FILE if state_dir is not None else None
         return cls(settings, path, on_ack=on_ack, on_connected=on_connected)
 
@@ -320,7 +324,9 @@ class MqttSink:
         self._work.put(item)
 
     def close(self) -> None:
-        """Keep what is pending in the outbox, say offline, disconnect; waits at most ~close_timeout_s."""
+        """Wait at most ``close_timeout_s`` for the broker to take what is queued (paho keeps
+        reconnecting meanwhile), say offline, disconnect. What was not delivered stays in a
+        file outbox for the next start, and is told by ``undelivered()``."""
         if self._closing:
             return
         self._closing = True
@@ -330,6 +336,24 @@ class MqttSink:
         if not self._worker.is_alive():
             self.outbox.close()
             self._outbox_closed = True
+
+    def undelivered(self) -> dict[str, int]:
+        """After ``close()``: what the broker never took, by kind (alerts, events, status, states,
+        dropped). Empty when everything arrived."""
+        left = self._left_at_close if self._left_at_close is not None else self._count_left()
+        return {k: v for k, v in left.items() if v}
+
+    def _count_left(self) -> dict[str, int]:
+        left = {"alerts": 0, "events": 0, "status": 0, "states": 0, "dropped": 0}
+        if not self._outbox_closed:
+            for entry in self.outbox.queued(limit=self.outbox.max_queued):
+                kind = "alerts" if "/alerts/" in entry.topic else "status" if entry.topic == self.status_topic \
+                    else "events" if not entry.retain else "states"
+                left[kind] += 1
+            left["states"] += len(self._dirty_states)
+            left["dropped"] = self.outbox.dropped
+        left["dropped"] += self.counters["dropped_work_queue_full"] + (self._accepted - self._stored)
+        return left
 
     # -- health -----------------------------------------------------------------
 
@@ -442,7 +466,9 @@ class MqttSink:
             try:
                 closing |= self._handle(items)
                 if closing and close_deadline == math.inf:
-                    close_deadline = time.monotonic() + (self.settings.close_timeout_s if self._connected else 0.0)
+                    # wait even when disconnected: paho goes on reconnecting, and a broker back
+                    # within the bound still gets everything
+                    close_deadline = time.monotonic() + self.settings.close_timeout_s
                 self._pump()
                 if closing and (time.monotonic() >= close_deadline or self._drained()):
                     break
@@ -453,6 +479,10 @@ class MqttSink:
                 log.exception("MQTT: error in the outbox worker")
                 if closing:
                     break
+        try:
+            self._left_at_close = self._count_left()
+        except Exception:
+            log.exception("MQTT: could not count what was not delivered")
         self._say_offline()
 
     def _take_work(self) -> list[tuple]:
