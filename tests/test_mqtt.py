@@ -10,6 +10,7 @@ delivered in order (4.6); and from interface.md for topics and payloads.
 from __future__ import annotations
 
 import json
+import logging
 import os
 import signal
 import subprocess
@@ -463,8 +464,9 @@ def test_snapshot_reports_counters(mosquitto, sinks):
 
 
 @pytest.fixture
-def tls_mosquitto(tmp_path):
-    """A Mosquitto with a TLS listener, its server certificate signed by a CA of the test's own."""
+def tls_mosquitto(tmp_path, request):
+    """A Mosquitto with a TLS listener, its server certificate signed by a CA of the test's own
+    (indirect parametrisation adds listener lines, e.g. require_certificate)."""
     import shutil as _shutil
 
     from tests.conftest import MOSQUITTO, Mosquitto
@@ -484,7 +486,8 @@ def tls_mosquitto(tmp_path):
     (d / "san.ext").write_text("subjectAltName=IP:127.0.0.1\n")
     openssl("x509", "-req", "-in", "server.csr", "-CA", "ca.crt", "-CAkey", "ca.key", "-CAcreateserial",
             "-out", "server.crt", "-days", "2", "-extfile", "san.ext")
-    broker = Mosquitto(tmp_path, f"cafile {d / 'ca.crt'}\ncertfile {d / 'server.crt'}\nkeyfile {d / 'server.key'}\n")
+    broker = Mosquitto(tmp_path, f"cafile {d / 'ca.crt'}\ncertfile {d / 'server.crt'}\nkeyfile {d / 'server.key'}\n"
+                                 f"{getattr(request, 'param', '')}")
     broker.start()
     yield broker, d / "ca.crt"
     broker.stop()
@@ -528,6 +531,79 @@ def test_mqtts_refuses_a_broker_signed_by_another_ca(tls_mosquitto, sinks, tmp_p
     # the certificate check fails: never connected, the alert waits in the outbox, nothing is fatal
     assert not sink.connected
     assert sink.pending() == 1
+    # and it says why, naming the key to check (issue 13 item 13: it used to read "does not answer")
+    assert wait_until(lambda: sink.link_fault is not None, 10)
+    assert "does not verify" in sink.link_fault and "mqtt.ca_file" in sink.link_fault
+    assert sink.snapshot()["fault"] == sink.link_fault
+
+
+# -- link faults said once, in words (issue 13 item 13) ---------------------------------------------
+
+def _fault_logs(caplog) -> list[str]:
+    return [r.getMessage() for r in caplog.records if r.name == "daemon.outlets.mqtt" and r.levelname == "WARNING"]
+
+
+def _said_once_and_retrying(sink, caplog, words: str) -> None:
+    """The fault is named in the log once, in the status, and paho keeps trying (attempts counted)."""
+    assert wait_until(lambda: sink.link_fault is not None and words in sink.link_fault, 15), sink.link_fault
+    attempts = sink.counters["connect_failed"] + sink.counters["connect_refused"]
+    assert wait_until(lambda: sink.counters["connect_failed"] + sink.counters["connect_refused"] >= attempts + 2, 20)
+    said = [m for m in _fault_logs(caplog) if words in m]
+    assert len(said) == 1, _fault_logs(caplog)
+    assert not sink.connected and sink.healthy()
+
+
+@pytest.mark.parametrize("tls_mosquitto", ["require_certificate true\n"], indirect=True)
+def test_a_broker_that_demands_a_client_certificate_is_named(tls_mosquitto, sinks, caplog):
+    broker, ca = tls_mosquitto
+    caplog.set_level(logging.INFO, logger="daemon.outlets.mqtt")
+    sink = sinks(MqttSettings(url=f"mqtts://{broker.host}:{broker.port}", prefix=PREFIX,
+                              client_id="offwatch-no-cert", ca_file=str(ca)))
+    _said_once_and_retrying(sink, caplog, "demands a client certificate")
+    assert "mqtt.cert_file" in sink.link_fault
+
+
+def test_a_plain_client_on_a_tls_port_is_told_to_use_mqtts(tls_mosquitto, sinks, caplog):
+    broker, _ = tls_mosquitto
+    caplog.set_level(logging.INFO, logger="daemon.outlets.mqtt")
+    sink = sinks(MqttSettings(url=f"mqtt://{broker.host}:{broker.port}", prefix=PREFIX, client_id="offwatch-plain"))
+    _said_once_and_retrying(sink, caplog, "use mqtts://")
+
+
+def test_tls_to_a_plain_port_is_named(mosquitto, sinks, caplog):
+    host, port = mosquitto
+    caplog.set_level(logging.INFO, logger="daemon.outlets.mqtt")
+    sink = sinks(MqttSettings(url=f"mqtts://{host}:{port}", prefix=PREFIX, client_id="offwatch-tls-plain"))
+    _said_once_and_retrying(sink, caplog, "does not speak TLS")
+
+
+def test_nothing_listening_is_named(sinks, caplog):
+    from tests.conftest import free_port
+    caplog.set_level(logging.INFO, logger="daemon.outlets.mqtt")
+    sink = sinks(MqttSettings(url=f"mqtt://127.0.0.1:{free_port()}", prefix=PREFIX, client_id="offwatch-none"))
+    _said_once_and_retrying(sink, caplog, "nothing listens")
+
+
+def test_bad_credentials_are_named_with_the_keys_to_check(tmp_path, sinks, caplog):
+    import shutil as _shutil
+
+    from tests.conftest import MOSQUITTO, Mosquitto
+    if not _shutil.which("mosquitto_passwd") or not Path(MOSQUITTO).exists():
+        pytest.skip("needs mosquitto and mosquitto_passwd")
+    passwords = tmp_path / "passwords"
+    subprocess.run(["mosquitto_passwd", "-b", "-c", str(passwords), "crew", "right-one"], check=True,
+                   capture_output=True)
+    broker = Mosquitto(tmp_path, f"password_file {passwords}\n")
+    broker.start()
+    try:
+        caplog.set_level(logging.INFO, logger="daemon.outlets.mqtt")
+        sink = sinks(MqttSettings(url=f"mqtt://{broker.host}:{broker.port}", prefix=PREFIX, client_id="offwatch-pw",
+                                  username="crew", password="wrong-one"))
+        _said_once_and_retrying(sink, caplog, "refused the connection")
+        assert "mqtt.password" in sink.link_fault
+        assert "wrong-one" not in " ".join(_fault_logs(caplog))
+    finally:
+        broker.stop()
 
 
 # -- the end of a replay with the broker away (issue 13 item 12) ---------------------------------

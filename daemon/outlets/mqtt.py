@@ -66,6 +66,8 @@ MAX_PAYLOAD_DEPTH = 8         # nesting of arrays/objects allowed in a payload w
 MAX_WORK_ITEMS = 20_000       # bound of the in-memory work queue (messages not yet in the outbox)
 HOLD_RESENT_S = 10.0          # after a reconnect, how long new queued messages wait for paho's resends
 CALLBACK_FAILURE_HOLD_S = 60.0  # healthy() stays False this long after a callback failed
+DIAGNOSE_EVERY_S = 30.0       # a failing link is probed for its reason at most this often
+DIAGNOSE_TIMEOUT_S = 3.0      # each step of that probe (TCP, TLS, CONNACK)
 DEFAULT_CLOSE_TIMEOUT_S = 2.0  # the service's stop: a bounded wait for the broker to take what is queued
 WORKER_STALL_S = 15.0         # healthy() is False when the worker has not looped for this long
 
@@ -251,6 +253,8 @@ class MqttSink:
         self._stored = 0     # of those, stored in the outbox (worker thread)
         self._last_callback_failure = -math.inf
         self._heartbeat = time.monotonic()
+        self.link_fault: str | None = None          # why the link is down, in words (None: no known fault)
+        self._last_diagnosis = -math.inf
         self._left_at_close: dict[str, int] | None = None  # undelivered, counted as the worker ends
         self.connected_at: float | None = None      # monotonic time of the latest CONNACK
         self.disconnected_at: float | None = None   # monotonic time of the latest loss
@@ -275,6 +279,7 @@ class MqttSink:
 
     def _make_client(self) -> paho.Client:
         s, b = self.settings, self.broker
+        self._tls_context: ssl.SSLContext | None = None
         protocol = paho.MQTTv5 if s.protocol == "5" else paho.MQTTv311
         client = paho.Client(CallbackAPIVersion.VERSION2, client_id=s.client_id, protocol=protocol,
                              **({} if protocol == paho.MQTTv5 else {"clean_session": True}))
@@ -302,10 +307,14 @@ class MqttSink:
         if bool(s.cert_file) != bool(s.key_file):
             raise ConfigError("mqtt.cert_file and mqtt.key_file: give both for a client certificate, or neither")
         try:
-            client.tls_set(ca_certs=s.ca_file or None, certfile=s.cert_file or None, keyfile=s.key_file or None,
-                           cert_reqs=ssl.CERT_REQUIRED, tls_version=ssl.PROTOCOL_TLS_CLIENT)
+            # our own context (certificate and host name checked), so the fault diagnosis uses the very same
+            ctx = ssl.create_default_context(cafile=s.ca_file or None)
+            if s.cert_file:
+                ctx.load_cert_chain(s.cert_file, s.key_file)
+            client.tls_set_context(ctx)
         except (ssl.SSLError, OSError, ValueError) as e:
             raise ConfigError(f"mqtt.ca_file/cert_file/key_file: cannot use them for TLS: {e}") from None
+        self._tls_context = ctx
 
     # -- the Sink protocol (pipeline thread) ----------------------------------
 
@@ -374,6 +383,7 @@ class MqttSink:
     def snapshot(self) -> dict[str, Any]:
         """Counters and state for the health report and the status topic."""
         return {"connected": self._connected, "healthy": self.healthy(), "pending": self.pending(),
+                "fault": self.link_fault,
                 "dropped_outbox_full": self.outbox.dropped if not self._outbox_closed else None,
                 **dict(self.counters)}
 
@@ -398,15 +408,19 @@ class MqttSink:
     def _cb_connect(self, client: paho.Client, userdata: Any, flags: Any, reason: Any, properties: Any) -> None:
         if reason.is_failure:
             self.counters["connect_refused"] += 1
-            self._log_change("refused", f"MQTT: broker {self.broker.host}:{self.broker.port} refused: {reason}")
+            words = str(reason)
+            hint = (" (check mqtt.username and mqtt.password or mqtt.password_file)"
+                    if any(k in words.lower() for k in ("user name", "password", "authori")) else "")
+            self.link_fault = f"the broker refused the connection: {words}{hint}"
+            self._log_change(f"refused:{words}", f"MQTT: broker {self.broker.host}:{self.broker.port} refused the "
+                                                 f"connection: {words}{hint}; retrying")
             return
         client.subscribe(self.ack_topic, qos=1)
         self._work.put(("connected", time.monotonic()))
 
     def _cb_connect_fail(self, client: paho.Client, userdata: Any) -> None:
         self.counters["connect_failed"] += 1
-        self._log_change("unreachable", f"MQTT: broker {self.broker.host}:{self.broker.port} does not answer;"
-                                        " retrying, keeping messages in the outbox")
+        self._work.put(("diagnose",))  # paho does not say why: the worker finds out
 
     def _cb_disconnect(self, client: paho.Client, userdata: Any, flags: Any, reason: Any, properties: Any) -> None:
         self._work.put(("disconnected", time.monotonic()))
@@ -512,6 +526,8 @@ class MqttSink:
                 self._on_disconnect_event(it[1])
             elif kind == "published":
                 self._on_published(it[1], it[2])
+            elif kind == "diagnose":
+                self._diagnose()
             elif kind == "ack_answer":
                 self._count_ack_answer(it[1], it[2])
             elif kind == "close":
@@ -520,6 +536,8 @@ class MqttSink:
 
     def _on_connect_event(self, at: float) -> None:
         self._connected = True
+        self.link_fault = None
+        self._last_diagnosis = -math.inf
         self.connected_at = at
         self.counters["connects"] += 1
         self._log_change("connected", f"MQTT: connected to {self.broker.host}:{self.broker.port}", logging.INFO)
@@ -541,8 +559,26 @@ class MqttSink:
         waiting = self.outbox.queued_topics() | {o.topic for o in self._inflight.values()}
         return {s.topic for s in self.outbox.latest_states()} - waiting
 
+    def _diagnose(self) -> None:
+        """Name why connecting fails (TLS, certificates, a plain client on a TLS port...): logged once per
+        state, kept for the status; at most one probe of our own every DIAGNOSE_EVERY_S."""
+        now = time.monotonic()
+        if self._connected or self._closing or now - self._last_diagnosis < DIAGNOSE_EVERY_S:
+            return
+        self._last_diagnosis = now
+        from daemon.outlets.broker import diagnose_broker
+        state, text = diagnose_broker(self.broker.host, self.broker.port, self._tls_context,
+                                      cert_given=bool(self.settings.cert_file), timeout=DIAGNOSE_TIMEOUT_S)
+        if state == "answers":
+            return  # the transport works: a refusal, if any, is reported from the CONNACK
+        self.link_fault = text
+        self._log_change(state, f"MQTT: {text}; retrying, keeping messages in the outbox")
+
     def _on_disconnect_event(self, at: float) -> None:
-        if self._connected:
+        if not self._connected:
+            self.counters["connect_failed"] += 1
+            self._diagnose()  # lost before the CONNACK: a TLS alert, a plain client on a TLS port...
+        else:
             self.counters["disconnects"] += 1
             self.disconnected_at = at
             self._log_change("lost", f"MQTT: lost the broker {self.broker.host}:{self.broker.port};"
