@@ -144,3 +144,15 @@ def test_a_world_readable_config_holding_a_password_is_warned_about(tmp_path, ca
     load_config(p)
     warned = [r.getMessage() for r in caplog.records if "chmod 600" in r.getMessage()]
     assert warned and str(p) in warned[0] and "hunter2" not in warned[0]
+
+
+# -- what listens on the boat's network (issue 13 item 6) -------------------------------------
+
+def test_a_udp_input_must_say_where_it_listens():
+    # a listener on every network is a choice the config states, never a default
+    with pytest.raises(ConfigError, match=r"\[inputs.wifi\] bind is missing.*127.0.0.1.*0.0.0.0"):
+        build_config({"inputs": {"wifi": {"kind": "udp", "port": 10110}}})
+    with pytest.raises(ConfigError, match=r"bind = 'boat.lan': expected an IP address"):
+        build_config({"inputs": {"wifi": {"kind": "udp", "bind": "boat.lan"}}})
+    assert build_config({"inputs": {"wifi": {"kind": "udp", "bind": "0.0.0.0"}}}).inputs["wifi"].bind == "0.0.0.0"
+    assert build_config({"inputs": {"lo": {"kind": "udp", "bind": "127.0.0.1"}}}).inputs["lo"].bind == "127.0.0.1"

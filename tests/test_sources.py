@@ -179,10 +179,10 @@ def test_start_sources_builds_every_kind_and_refuses_an_incomplete_spec(tmp_path
     log_file.write_bytes(b"$SDDPT,4.1,0.0*00\r\n")
 
     class Cfg:  # the config loader's InputConfig has these field names
-        kind, device, baud, host, port, bind, path, allow_no_checksum = "file", "", 4800, "", 10110, "0.0.0.0", str(log_file), False
+        kind, device, baud, host, port, bind, path, allow_no_checksum = "file", "", 4800, "", 10110, "", str(log_file), False
 
     specs = specs_from_config({"log": Cfg()})
-    assert specs == [InputSpec("log", "file", path=str(log_file))]
+    assert specs == [InputSpec("log", "file", path=str(log_file), bind="")]
     q: queue.Queue = queue.Queue(maxsize=10)
     threads, health = start_sources(specs, q, stop)
     assert collect(q, 19) == b"$SDDPT,4.1,0.0*00\r\n"
@@ -197,3 +197,13 @@ def test_start_sources_builds_every_kind_and_refuses_an_incomplete_spec(tmp_path
         start_sources([InputSpec("gps", "serial")], q, threading.Event())
     with pytest.raises(ConfigError, match=r"\[inputs.x\].*kind"):
         make_reader(InputSpec("x", "can"))
+
+
+def test_a_udp_input_made_without_a_bind_listens_on_loopback_only():
+    from daemon.intake.sources import UdpReader
+    reader = UdpReader(InputSpec("wifi", "udp", port=0).bind, 0)
+    reader.open()
+    try:
+        assert reader.address[0] == "127.0.0.1"
+    finally:
+        reader.close()

@@ -82,7 +82,8 @@ class InputConfig:
     baud: int = param(4800, "baud", 300, 921600)
     host: str = param("")
     port: int = param(10110, "", 1, 65535)
-    bind: str = param("0.0.0.0", doc="UDP listen address")
+    bind: str = param("", doc="udp: the address to listen on, stated on purpose: 127.0.0.1 (this computer "
+                              "only) or 0.0.0.0 (every network it is on, e.g. a Wi-Fi multiplexer's broadcasts)")
     path: str = param("")
     allow_no_checksum: bool = param(False, doc="accept sentences without *hh from this source")
 
@@ -262,8 +263,24 @@ def _inputs(table: Any, where: str) -> dict[str, InputConfig]:
         need = {"serial": "device", "tcp": "host", "file": "path"}.get(cfg.kind)
         if need and not getattr(cfg, need):
             raise ConfigError(f"{where}: [inputs.{name}] kind = {cfg.kind!r} needs {need} = \"...\"")
+        if cfg.kind == "udp":
+            _check_bind(cfg.bind, f"{where}: [inputs.{name}] bind")
         inputs[name] = cfg
     return inputs
+
+
+def _check_bind(bind: str, where: str) -> None:
+    """A listener on the boat's network is a choice the config states, never a default."""
+    import ipaddress
+
+    fix = ('"127.0.0.1" (this computer only) or "0.0.0.0" (every network this computer is on, as a Wi-Fi '
+           'multiplexer needs), or one interface\'s own address')
+    if not bind:
+        raise ConfigError(f"{where} is missing: a UDP input must say where it listens: bind = {fix}")
+    try:
+        ipaddress.ip_address(bind)
+    except ValueError:
+        raise ConfigError(f"{where} = {bind!r}: expected an IP address, {fix}") from None
 
 
 def _priority(table: Any, where: str, inputs: dict[str, InputConfig]) -> dict[str, list[str]]:

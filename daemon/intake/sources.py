@@ -14,6 +14,7 @@ never blocks a reader for ever (the OS buffers of a serial port are small).
 
 from __future__ import annotations
 
+import ipaddress
 import logging
 import os
 import queue
@@ -47,7 +48,7 @@ class InputSpec:
     baud: int = 4800                # serial: 4800 (NMEA 0183) and 38400 (high speed, AIS) are usual
     host: str = ""                  # tcp: the multiplexer's address
     port: int = 10110               # tcp/udp (10110 is the port customary for NMEA 0183 over IP)
-    bind: str = "0.0.0.0"           # udp: address to listen on (0.0.0.0 also receives broadcasts)
+    bind: str = "127.0.0.1"         # udp: address to listen on; the config makes 0.0.0.0 (every network) a stated choice
     path: str = ""                  # file: a file or FIFO to follow
     allow_no_checksum: bool = False
 
@@ -203,7 +204,7 @@ class UdpReader:
         self._sock: socket.socket | None = None
 
     def describe(self) -> str:
-        return f"udp {self.bind or '0.0.0.0'}:{self.port}"
+        return f"udp {self.bind}:{self.port}"
 
     def open(self) -> None:
         sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
@@ -216,6 +217,9 @@ class UdpReader:
             raise
         sock.settimeout(READ_TIMEOUT_S)
         self._sock = sock
+        if not ipaddress.ip_address(self.bind).is_loopback:
+            log.info("udp input listens on %s:%d: anything on that network can send it sentences "
+                     "(the checked, bounded parsers are all that stands between)", self.bind, self.port)
 
     @property
     def address(self) -> tuple[str, int] | None:
