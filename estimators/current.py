@@ -92,6 +92,7 @@ import numpy as np
 from filterpy.kalman import ExtendedKalmanFilter
 from scipy.stats import chi2
 
+from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
 from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
 from estimators.base import CAUTION, Condition, EstimatorBase, Output, Publication
 from estimators.history import SampleHistory
@@ -370,14 +371,14 @@ class CurrentEstimator(EstimatorBase):
             self.health.bad_inputs += 1
             return ()
         if isinstance(sample, Heading):
-            self._input_seen("heading", t, sample.true_deg, 0.0, 360.0)
+            self._input_seen("heading", t, sample.true_deg, *DIRECTION_DEG)
             return ()
         if isinstance(sample, WaterSpeed):
-            self._input_seen("water_speed", t, sample.speed_kn, 0.0, 60.0)
+            self._input_seen("water_speed", t, sample.speed_kn, 0.0, STW_MAX_KN)
             return ()
         if isinstance(sample, Attitude):
             if sample.heel_deg is not None:
-                self._input_seen("heel", t, sample.heel_deg, -90.0, 90.0)
+                self._input_seen("heel", t, sample.heel_deg, -ATTITUDE_MAX_DEG, ATTITUDE_MAX_DEG)
             return ()
         return self._ground_velocity_epoch(sample, ctx)
 

@@ -29,6 +29,7 @@ from estimators.samples import KIND_NAMES, kind_of
 
 log = logging.getLogger(__name__)
 
+LAST_COUNTABLE_S = 2.0 ** 52  # from here on t + 1 s == t in a float: the tick loop would never end
 MAX_TICKS_PER_GAP = 600  # a data gap longer than this is crossed in one tick, not one per second
 
 
@@ -132,7 +133,7 @@ class Pipeline:
     # -- time --------------------------------------------------------------
 
     def _advance(self, t_s: float) -> None:
-        if not math.isfinite(t_s) or (self.now_s is not None and t_s <= self.now_s):
+        if not math.isfinite(t_s) or t_s >= LAST_COUNTABLE_S or (self.now_s is not None and t_s <= self.now_s):
             return
         if self.now_s is None:
             self._next_tick_s = math.floor(t_s) + 1.0

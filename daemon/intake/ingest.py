@@ -42,6 +42,7 @@ Public API:
 from __future__ import annotations
 
 import datetime as dt
+import logging
 from typing import Protocol
 
 from daemon.intake.counters import Counters
@@ -55,6 +56,8 @@ from daemon.core.readings import RawLine, Reading
 from daemon.intake.timing import GnssDate, ReplayClock, monotonic_guard
 from estimators.angles import wrap_360
 from estimators.samples import Fix, Heading, WaterWind
+
+log = logging.getLogger(__name__)
 
 HEADING_SENSORS = ("auto", "magnetic", "true")
 HEADING_FOR_WIND_MAX_AGE_S = 10.0
@@ -99,6 +102,7 @@ class Ingest:
         self._true_heading: tuple[float, float] | None = None  # (t_s, deg) of the latest true heading
         self._true_sensor = heading_sensor == "true"
         self._all_magnetic = heading_sensor == "magnetic"
+        self._parser_faults: set[str] = set()  # exception types already logged
 
     # --- the three doors ---------------------------------------------------------------------
 
@@ -138,6 +142,21 @@ class Ingest:
         """Parse one line; its counts travel with it and are made when it is emitted,
         so the counters at any moment match the lines that have left (the same in a
         replay of our own recording, whose lines arrive one by one)."""
+        try:
+            return self._parse_checked(text, recv_utc)
+        except Exception as exc:  # a parser bug must not end a watch: the line is data, counted
+            self._note_parser_fault(exc)
+            return (text, recv_utc, "-", None, None, None, None, [("unparseable", 1)])
+
+    def _note_parser_fault(self, exc: Exception) -> None:
+        """Log once per exception type: a flood of one bad line must not flood the log."""
+        name = type(exc).__name__
+        if name not in self._parser_faults:
+            self._parser_faults.add(name)
+            log.warning("%s: a line broke the parser (%s), counted as unparseable; "
+                        "further ones are counted only", self.source, name)
+
+    def _parse_checked(self, text: str, recv_utc: float | None) -> tuple:
         line = parse_line(text, self.allow_no_checksum)
         key = line.key
         ex: Extract | None = None
@@ -145,7 +164,11 @@ class Ingest:
         tod: float | None = None
         counts: list[tuple[str, int]] = []
         if line.status == "ok":
-            ex = extract(key, line.fields)
+            try:
+                ex = extract(key, line.fields)
+            except Exception as exc:  # a parser bug must not end a watch: the line is data, counted
+                self._note_parser_fault(exc)
+                ex = None
             if ex is None:
                 counts.append(("unparseable", 1))
             else:
@@ -185,7 +208,12 @@ class Ingest:
         readings: list[Reading] = []
         if ex is not None:
             for v in ex.values:
-                sample = self._sample(v, t, key, counts)
+                try:
+                    sample = self._sample(v, t, key, counts)
+                except Exception as exc:  # as in _parse: one value is never fatal
+                    self._note_parser_fault(exc)
+                    counts.append(("implausible", 1))
+                    continue
                 if sample is not None:
                     readings.append(Reading(source, sample, recv, key, gnss))
         out.append(RawLine(source, t, recv, text, key, tuple(counts), ex is not None))

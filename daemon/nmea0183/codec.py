@@ -37,6 +37,11 @@ from operator import xor
 
 import pynmea2
 
+# Plausible ranges: one table for the parser and the estimators.
+from estimators.limits import (
+    AIR_TEMP_C, ATTITUDE_MAX_DEG, DATA_TIME_S, DEPTH_MAX_M, HDOP_MAX, LAT_MAX_DEG, LON_MAX_DEG,
+    PRESSURE_HPA, SEA_TEMP_C, SOG_MAX_KN, STW_MAX_KN, VARIATION_MAX_DEG, WIND_MAX_KN, within,
+)
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Pressure,
     SeaTemperature, WaterSpeed, WaterWind,
@@ -50,17 +55,6 @@ FATHOM_TO_M = 1.8288  # 6 ft
 INHG_TO_HPA = 33.8639  # 1 inHg = 3386.39 Pa (standard conversion, from memory)
 TAG_MS_THRESHOLD = 1e11  # a TAG c: above this is milliseconds (interface.md)
 _EPOCH_ORDINAL = dt.date(1970, 1, 1).toordinal()
-
-# Plausible ranges (lo, hi): outside them a value is dropped and counted.
-SOG_MAX_KN = 60.0
-STW_MAX_KN = 40.0
-WIND_MAX_KN = 250.0  # above the strongest gust on record (113 m/s, about 220 kn; from memory)
-PRESSURE_HPA = (870.0, 1085.0)  # lowest and highest sea-level pressures on record, rounded out
-SEA_TEMP_C = (-3.0, 40.0)
-AIR_TEMP_C = (-60.0, 60.0)
-DEPTH_MAX_M = 12000.0  # deeper than any ocean
-ATTITUDE_MAX_DEG = 90.0
-
 
 # --- step 1: the frame of one line -------------------------------------------------
 
@@ -143,23 +137,40 @@ def parse_tag_block(tag: str) -> tuple[str, float | None, str | None]:
                 return "unparseable", None, None
             if t > TAG_MS_THRESHOLD:
                 t /= 1000.0
+            if not within(t, DATA_TIME_S):  # no logger's clock: 1e19 hung the tick loop, 3e14 crashed dates
+                return "unparseable", None, None
         elif code == "s":
             src = value
     return "ok", t, src
 
 
+def has_tag_block(text: str) -> bool:
+    """True when a line starts with something shaped like a TAG block (``\\...\\``)."""
+    return text.startswith("\\") and text.find("\\", 1) > 0
+
+
+def split_tag(text: str) -> tuple[str, float | None, str | None, str]:
+    """(status, c: time, s: source, what follows) of a line that may open with a TAG block.
+
+    A line with no TAG block is ``("ok", None, None, text)``; one whose TAG block
+    fails gives that block's status and the whole line.
+    """
+    if not text.startswith("\\"):
+        return "ok", None, None, text
+    close = text.find("\\", 1)
+    if close < 0:
+        return "unparseable", None, None, text
+    status, tag_time, tag_source = parse_tag_block(text[1:close])
+    if status != "ok":
+        return status, None, None, text
+    return "ok", tag_time, tag_source, text[close + 1:]
+
+
 def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
     """Check the frame of one line (no line ending) and sort it into one counter."""
-    tag_time = tag_source = None
-    sentence = text
-    if text.startswith("\\"):
-        close = text.find("\\", 1)
-        if close < 0:
-            return Line("unparseable", "TAG")
-        status, tag_time, tag_source = parse_tag_block(text[1:close])
-        if status != "ok":
-            return Line(status, "TAG")
-        sentence = text[close + 1:]
+    status, tag_time, tag_source, sentence = split_tag(text)
+    if status != "ok":
+        return Line(status, "TAG")
     if not sentence or sentence[0] not in "$!":
         return Line("not_sentence", "-", tag_time=tag_time)
     status, end = _check_star(sentence, 1, allow_no_checksum)
@@ -299,7 +310,7 @@ def day_number(year: int, month: int, day: int) -> int:
     """Days since 1970-01-01 of a calendar date; Unparseable when it is no date."""
     try:
         return dt.date(year, month, day).toordinal() - _EPOCH_ORDINAL
-    except ValueError:
+    except (ValueError, OverflowError):  # OverflowError: a day of 20 digits (a ZDA seen in fuzzing)
         raise Unparseable(f"{year}-{month}-{day}") from None
 
 
@@ -327,7 +338,7 @@ def _east(value: float | None, hemi: str) -> float | None:
 def _fix(ex: Extract, lat: float | None, lon: float | None, **extra: float | None) -> None:
     if lat is None or lon is None:
         return
-    if not (_in(lat, -90.0, 90.0) and _in(lon, -180.0, 180.0)):
+    if not (_in(lat, -LAT_MAX_DEG, LAT_MAX_DEG) and _in(lon, -LON_MAX_DEG, LON_MAX_DEG)):
         ex.drop()
         return
     ex.add(Fix, lat, lon, extra.get("sog"), extra.get("cog"), extra.get("hdop"))
@@ -353,7 +364,7 @@ def ext_rmc(f: list[str]) -> Extract:
     var = _east(num(_get(f, 9)), _get(f, 10)) if _get(f, 9) and _get(f, 10) in ("E", "W") else None
     ex.tod_s, ex.day = tod, day
     if var is not None:
-        if _in(var, -180.0, 180.0):
+        if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
             ex.values.append((VARIATION, var))
         else:
             ex.drop()
@@ -378,7 +389,7 @@ def ext_gga(f: list[str]) -> Extract:
     lat, lon = latlon(_get(f, 1), _get(f, 2), True), latlon(_get(f, 3), _get(f, 4), False)
     hdop = num(_get(f, 7))
     ex.tod_s = tod
-    if hdop is not None and not _in(hdop, 0.0, 50.0):
+    if hdop is not None and not _in(hdop, 0.0, HDOP_MAX):
         hdop = None  # 99.9 and the like mean "unknown", not a bad fix
     _fix(ex, lat, lon, hdop=hdop)
     return ex
@@ -478,11 +489,11 @@ def ext_hdg(f: list[str]) -> Extract:
     dev = _east(num(_get(f, 1)), _get(f, 2)) if _get(f, 1) else None
     var = _east(num(_get(f, 3)), _get(f, 4)) if _get(f, 3) else None
     if var is not None:
-        if _in(var, -180.0, 180.0):
+        if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
             ex.values.append((VARIATION, var))
         else:
             ex.drop()
-    if deg is False or (dev is not None and not _in(dev, -180.0, 180.0)):
+    if deg is False or (dev is not None and not _in(dev, -VARIATION_MAX_DEG, VARIATION_MAX_DEG)):
         ex.drop()
     elif deg is not None:
         ex.values.append((HDG, deg, dev))
@@ -683,6 +694,17 @@ EXTRACTORS = {
     "MWV": ext_mwv, "MWD": ext_mwd, "DBT": ext_dbt, "DPT": ext_dpt,
 }
 TIME_SENTENCES = frozenset({"RMC", "GGA", "GLL", "ZDA"})
+
+# The approved sentence formatters of NMEA 0183 (v4.10 and earlier, from memory): the
+# types a well-behaved talker may send. Any other three letters are made up (or a
+# corrupted address); counters give those a bounded number of rows of their own.
+STANDARD_FORMATTERS = frozenset(EXTRACTORS) | frozenset("""
+    AAM ABK ABM ACA ACK ACS AIR AKD ALA ALC ALF ALM ALR APA APB ARC BBM BEC BOD BWC BWR BWW CUR
+    DBK DBS DCN DDC DOR DSC DSE DSI DSR DTM ETL EVE FIR FSI GBS GEN GFA GLC GMP GNS GRS GSA GST GSV
+    GTD HBT HDG HMR HMS HSC HTC HTD LCD LRF LRI LR1 LR2 LR3 MLA MSK MSS MWH NRM NRX OLN OSD RLM RMA
+    RMB ROO ROR ROT RPM RSA RSD RTE SFI SSD STN TDS TFI TLB TLL TPC TPR TPT TRF TTD TTM TUT TXT VDM
+    VDO VDR VLW VPW VSD VTA VWR VWT WCV WDC WDR WNC WPL XTE XTR ZDL ZFO ZTG
+""".split())
 
 
 def extract(key: str, fields: list[str]) -> Extract | None:
