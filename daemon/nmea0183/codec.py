@@ -14,14 +14,21 @@ Two steps, both pure:
    plausible range. An implausible value (out of range, NaN, infinite, a void
    fix) is counted and dropped, never passed on.
 
-Fields are split with pynmea2 for the types it knows (it parses their framing
-correctly); its typed attributes are not used because they mislead for real
-data (an empty position comes back as 0.0, 0.0; ``RMC.is_valid`` ignores the
-NMEA 4.1 mode indicator; numbers come as Decimal, float or str). THS, which
-pynmea2 does not know, is split by hand, and every value is extracted here by
-field position. Field layouts follow NMEA 0183 v4.10, from memory of the
-standard and checked against real devices' sentences in the tests (marked
-where older layouts are accepted too).
+The hot path is written by hand: the fields are the text between the address
+and the checksum split on commas (no regular expression, no foreign parser), and
+every value is taken by field position, as each ``ext_*`` docstring lays out.
+Field layouts follow NMEA 0183 v4.10, from memory of the standard and checked
+against real devices' sentences in the tests (marked where older layouts are
+accepted too). pynmea2 is the tests' oracle: every sentence of these types in
+the real captures and the simulator's output is read by both, field by field
+(its typed attributes are not used here because they mislead for real data: an
+empty position comes back as 0.0, 0.0; ``RMC.is_valid`` ignores the NMEA 4.1
+mode indicator; numbers come as Decimal, float or str).
+
+Each understood sentence gives an :class:`Extract`: typed values
+(:class:`Measured`, :class:`LabelledHeading`, :class:`SensorHeading`,
+:class:`Variation`, :class:`WindOffBow`, :class:`WindFromMagnetic`), the count
+of dropped ones, and its own GNSS time where it carries one.
 
 The talker (``GP``, ``GN``, ``II``, ``HC``, ``AP``...) is never checked against
 a list: any two letters or digits will do.
@@ -32,10 +39,9 @@ from __future__ import annotations
 import datetime as dt
 import math
 import re
+from dataclasses import dataclass
 from functools import lru_cache, reduce
 from operator import xor
-
-import pynmea2
 
 # Plausible ranges: one table for the parser and the estimators.
 from estimators.limits import (
@@ -190,31 +196,62 @@ def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
         return Line("ais", key, talker, tag_time=tag_time)
     if key not in EXTRACTORS:
         return Line("unknown", key, talker, tag_time=tag_time)
-    return Line("ok", key, talker, _split(key, sentence, rest), tag_time, tag_source, sentence)
-
-
-def _split(key: str, sentence: str, rest: str) -> list[str]:
-    """The data fields: pynmea2 where it knows the type, our own split otherwise."""
-    if key in _PYNMEA2_TYPES:
-        try:
-            return pynmea2.parse(sentence, check=False).data
-        except (pynmea2.ParseError, ValueError, AttributeError):
-            pass
-    return rest.split(",")
-
-
-_PYNMEA2_TYPES = frozenset(pynmea2.TalkerSentence.sentence_types) - {"THS"}
+    return Line("ok", key, talker, rest.split(","), tag_time, tag_source, sentence)
 
 
 # --- step 2: typed values -----------------------------------------------------------
 
-# Value codes in Extract.values (the ingest turns them into samples at data time):
-SAMPLE = 0  # (SAMPLE, cls, args): cls(t_s, *args)
-HEADING = 1  # (HEADING, deg, "T" | "M"): as the sentence labels it
-HDG = 2  # (HDG, sensor_deg, deviation_east | None)
-VARIATION = 3  # (VARIATION, east_deg)
-WIND_ANGLE_WATER = 4  # (WIND_ANGLE_WATER, angle_off_bow_deg, speed_kn): MWV theoretical
-WIND_FROM_MAGNETIC = 5  # (WIND_FROM_MAGNETIC, from_magnetic_deg, speed_kn): MWD without true
+# What an understood sentence gives: typed values (the ingest turns them into samples
+# once the line has its data time, applying variation and the installation's settings).
+
+@dataclass(frozen=True, slots=True)
+class Measured:
+    """A sample the estimators take as it is: ``kind(t_s, *args)`` at the line's data time."""
+
+    kind: type
+    args: tuple
+
+
+@dataclass(frozen=True, slots=True)
+class LabelledHeading:
+    """HDT, HDM, THS: a heading, degrees, as the sentence labels it (``"T"`` true, ``"M"`` magnetic)."""
+
+    deg: float
+    reference: str
+
+
+@dataclass(frozen=True, slots=True)
+class SensorHeading:
+    """HDG: the magnetic sensor's heading, degrees, and its own deviation (east positive) if sent."""
+
+    deg: float
+    deviation_east_deg: float | None
+
+
+@dataclass(frozen=True, slots=True)
+class Variation:
+    """Magnetic variation a sentence states (RMC, HDG), degrees east positive."""
+
+    east_deg: float
+
+
+@dataclass(frozen=True, slots=True)
+class WindOffBow:
+    """MWV theoretical (reference T): wind over the water, angle off the bow (degrees) and knots."""
+
+    angle_deg: float
+    speed_kn: float
+
+
+@dataclass(frozen=True, slots=True)
+class WindFromMagnetic:
+    """MWD with only a magnetic direction: the wind comes from (degrees magnetic), knots."""
+
+    from_magnetic_deg: float
+    speed_kn: float
+
+
+Value = Measured | LabelledHeading | SensorHeading | Variation | WindOffBow | WindFromMagnetic
 
 
 class Extract:
@@ -223,7 +260,7 @@ class Extract:
     __slots__ = ("values", "implausible", "tod_s", "day")
 
     def __init__(self) -> None:
-        self.values: list[tuple] = []
+        self.values: list[Value] = []
         self.implausible = 0
         self.tod_s: float | None = None  # UTC seconds of day, when the sentence is a valid time source
         self.day: int | None = None  # days since 1970-01-01, when it also carries a date
@@ -232,7 +269,7 @@ class Extract:
         self.implausible += 1
 
     def add(self, cls: type, *args: object) -> None:
-        self.values.append((SAMPLE, cls, args))
+        self.values.append(Measured(cls, args))
 
 
 class Unparseable(ValueError):
@@ -365,7 +402,7 @@ def ext_rmc(f: list[str]) -> Extract:
     ex.tod_s, ex.day = tod, day
     if var is not None:
         if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
-            ex.values.append((VARIATION, var))
+            ex.values.append(Variation(var))
         else:
             ex.drop()
     if sog is False or cog is False:
@@ -450,7 +487,7 @@ def _heading(ex: Extract, s: str, ref: str) -> None:
     if deg is False:
         ex.drop()
     elif deg is not None:
-        ex.values.append((HEADING, deg, ref))
+        ex.values.append(LabelledHeading(deg, ref))
 
 
 def ext_hdt(f: list[str]) -> Extract:
@@ -477,7 +514,7 @@ def ext_ths(f: list[str]) -> Extract:
     if deg is False or _get(f, 1) not in ("A", "E"):
         ex.drop()
         return ex
-    ex.values.append((HEADING, deg, "T"))
+    ex.values.append(LabelledHeading(deg, "T"))
     return ex
 
 
@@ -490,13 +527,13 @@ def ext_hdg(f: list[str]) -> Extract:
     var = _east(num(_get(f, 3)), _get(f, 4)) if _get(f, 3) else None
     if var is not None:
         if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
-            ex.values.append((VARIATION, var))
+            ex.values.append(Variation(var))
         else:
             ex.drop()
     if deg is False or (dev is not None and not _in(dev, -VARIATION_MAX_DEG, VARIATION_MAX_DEG)):
         ex.drop()
     elif deg is not None:
-        ex.values.append((HDG, deg, dev))
+        ex.values.append(SensorHeading(deg, dev))
     return ex
 
 
@@ -637,7 +674,7 @@ def ext_mwv(f: list[str]) -> Extract:
     if ref == "R":
         ex.add(ApparentWind, angle, kn)
     else:
-        ex.values.append((WIND_ANGLE_WATER, angle, kn))
+        ex.values.append(WindOffBow(angle, kn))
     return ex
 
 
@@ -655,7 +692,7 @@ def ext_mwd(f: list[str]) -> Extract:
     elif true is not None:
         ex.add(WaterWind, speed, true, None)
     else:
-        ex.values.append((WIND_FROM_MAGNETIC, mag, speed))
+        ex.values.append(WindFromMagnetic(mag, speed))
     return ex
 
 
