@@ -113,7 +113,7 @@ def _check_star(text: str, start: int, allow_no_checksum: bool) -> tuple[str, in
         want = int(hh, 16)
     except ValueError:
         return "bad_checksum", star
-    if reduce(xor, text[start:star].encode("ascii"), 0) != want:
+    if reduce(xor, text[start:star].encode("ascii", "replace"), 0) != want:  # non-ASCII: never equal
         return "bad_checksum", star
     return "ok", star
 
@@ -174,6 +174,8 @@ def split_tag(text: str) -> tuple[str, float | None, str | None, str]:
 
 def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
     """Check the frame of one line (no line ending) and sort it into one counter."""
+    if not text.isascii():  # the framer never lets one through; a recording or a caller might
+        return Line("not_sentence", "-")
     status, tag_time, tag_source, sentence = split_tag(text)
     if status != "ok":
         return Line(status, "TAG")

@@ -24,8 +24,8 @@ TAG_TIMES = ("0", "1e19", "300000000000000", "-5", "nan", "inf", "1777867200000"
 
 
 def reframe(body: str, start: str = "$") -> str:
-    """A sentence from its body with a correct checksum."""
-    return f"{start}{body}*{checksum_hex(body)}"
+    """A sentence from its body with a correct checksum (any checksum where the body is not ASCII)."""
+    return f"{start}{body}*{checksum_hex(body) if body.isascii() else '00'}"
 
 
 def body_of(line: str) -> tuple[str, str, str]:
