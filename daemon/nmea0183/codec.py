@@ -39,6 +39,7 @@ from __future__ import annotations
 import datetime as dt
 import math
 import re
+from collections.abc import Iterable
 from dataclasses import dataclass
 from functools import lru_cache, reduce
 from operator import xor
@@ -90,6 +91,12 @@ def checksum_hex(body: str) -> str:
     return f"{checksum(body):02X}"
 
 
+def format_sentence(talker: str, formatter: str, fields: Iterable[str]) -> str:
+    """``$<talker><formatter>,<fields>*hh``: a sentence as a talker writes it (no line ending)."""
+    body = ",".join([talker + formatter, *fields])
+    return f"${body}*{checksum_hex(body)}"
+
+
 _TAG_UNSAFE_RE = re.compile(r"[^\x21-\x7e]|[,*\\$!^~]")  # NMEA 0183 reserved characters (from memory)
 
 
@@ -118,6 +125,7 @@ def _check_star(text: str, start: int, allow_no_checksum: bool) -> tuple[str, in
     return "ok", star
 
 
+@lru_cache(maxsize=64)  # the lines of one second share a TAG block: each is read once
 def parse_tag_block(tag: str) -> tuple[str, float | None, str | None]:
     """(status, c: time in s, s: source) of a TAG block's text between the backslashes.
 

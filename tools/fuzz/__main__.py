@@ -11,7 +11,6 @@ The config loader is fuzzed on the side (mutated TOML texts), one file per 1000 
 from __future__ import annotations
 
 import argparse
-import gzip
 import json
 import random
 import resource
