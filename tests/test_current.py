@@ -186,9 +186,15 @@ def test_current_strong_with_hysteresis():
     strong = [c for c in conds if c.alert_id == "current_strong"]
     # THEN raised once in the first part, kept through 1.85 kn, cleared after 1.2 kn
     assert strong[0].active and strong[0].t_s < T0 + 500
-    assert [c.active for c in strong] == [True, False]
-    assert strong[1].t_s > T0 + 1000
+    changes = [c for i, c in enumerate(strong) if i == 0 or c.active != strong[i - 1].active]
+    assert [c.active for c in changes] == [True, False]
+    assert changes[1].t_s > T0 + 1000
     assert "check" in strong[0].text
+    # AND while it lasts each estimate says its figure again (the alert follows the current), and the
+    # all-clear gives the last one
+    assert len({c.text for c in strong if c.active}) > 1
+    assert changes[1].values["drift_kn"] <= CurrentParams().current_strong_clear_kn
+    assert f"eased to {changes[1].values['drift_kn']:.1f} kn" in changes[1].text
 
 
 def test_dead_log_in_the_real_capture_is_rejected():

@@ -58,7 +58,7 @@ def read_jsonl(path: Path) -> list[dict]:
 ISO_Z = re.compile(r"^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d{1,6})?Z$")  # ISO 8601, UTC with Z (interface.md)
 QUALITIES = {"converging", "valid", "degraded", "unavailable"}        # interface.md, offwatch/current
 PRIORITIES = {"alarm", "warning", "caution"}                          # interface.md, alerts
-STATES = {"active", "acknowledged", "cleared"}                        # interface.md, alerts
+STATES = {"active", "acknowledged", "rectified", "cleared"}                       # interface.md, alerts
 CURRENT_FIELDS = ("set_deg", "drift_kn", "east_kn", "north_kn", "set_sigma_deg", "drift_sigma_kn", "quality",
                   "stw_scale", "heading_offset_deg")
 PRESSURE_FIELDS = ("msl_hpa", "tendency_3h_hpa", "rate_hpa_per_h", "descriptor", "characteristic")

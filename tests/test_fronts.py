@@ -289,8 +289,8 @@ def test_long_steps_fall_back_to_the_geodesic():
 
 
 def test_positions_in_degrees_and_minutes():
-    assert format_lat_lon(36.205, -12.5758) == "36°12.3'N 012°34.5'W"
-    assert format_lat_lon(-0.9999999, 0.0) == "01°00.0'S 000°00.0'E"
+    assert format_lat_lon(36.205, -12.5758) == "36°12.3′N 012°34.5′W"
+    assert format_lat_lon(-0.9999999, 0.0) == "01°00.0′S 000°00.0′E"
 
 
 # --------------------------------------------------------------------------- simulator scenario and a real capture

@@ -524,16 +524,17 @@ def test_ack_over_mqtt_acknowledges_a_warning_and_ignores_the_rest(live, tmp_pat
 
     try:
         assert wait_until(lambda: display.latest(f"{PREFIX}/position") is not None, 30), daemon.log()
-        # GIVEN the GNSS falls silent while the compass and the log go on
+        # GIVEN the GNSS and the depth sounder fall silent while the compass and the log go on
         t_silent = time.monotonic()
-        player.drop_sources = {"gnss"}
+        player.drop_sources = {"gnss", "sounder"}
         # THEN gnss_lost is raised as an active warning (after 10 s without a fix)
         assert wait_until(lambda: state_of(alert) == "active", 30), (display.topics(), daemon.log()[-2000:])
         raised_after = display.latest(alert).at - t_silent
         assert display.latest(alert).payload["priority"] == "warning"
-        # and the stale fix is a caution
-        assert wait_until(lambda: state_of(stale) == "active", 10), display.topics()
+        # and the silent sounder is a caution (the silent GNSS is gnss_lost's alone: one failure, one alert)
+        assert wait_until(lambda: state_of(stale) == "active", 40), display.topics()
         assert display.latest(stale).payload["priority"] == "caution"
+        assert display.latest(stale).payload["values"]["feeds"] == ["depth"]
 
         # WHEN a display sends junk to the ack topic: a huge payload naming gnss_lost, malformed JSON,
         # the wrong types, and a caution's id
@@ -645,7 +646,7 @@ def test_an_unacknowledged_warning_survives_a_kill_and_restart(live):
         assert wait_until(lambda: display.latest(alert).at > t_restart and
                           display.latest(alert).payload["condition"] is False, 40), \
             ([m.payload for m in display.on(alert)], second.log()[-2000:])
-        assert display.latest(alert).payload["state"] == "active"
+        assert display.latest(alert).payload["state"] == "rectified"
         display.publish(f"{PREFIX}/ack", b'{"id": "gnss_lost"}')
         assert wait_until(lambda: display.latest(alert).payload["state"] == "cleared", 10), \
             [m.payload for m in display.on(alert)]
@@ -719,4 +720,23 @@ def test_status_line_for_a_current_not_yet_estimable():
 
     assert status_text(None) == "running"
     assert status_text({"drift_kn": None, "set_deg": None, "quality": "unavailable"}) == "running; current unavailable"
-    assert status_text({"drift_kn": 1.26, "set_deg": 44.6, "quality": "valid"}) == "current 1.3 kn toward 45°, valid"
+    assert status_text({"drift_kn": 1.26, "set_deg": 44.6, "quality": "valid"}) == "current 1.3 kn toward 045°, valid"
+
+
+def test_status_line_leads_with_trouble():
+    """GNSS lost, every feed silent: the line said "current 0.7 kn toward 179°, degraded" as if all were well."""
+    from daemon.commands.service import status_text
+
+    cur = {"drift_kn": 0.72, "set_deg": 179.4, "quality": "degraded"}
+    alerts = [
+        {"id": "sensor_stale", "priority": "caution", "state": "active"},
+        {"id": "pressure_fall", "priority": "warning", "state": "acknowledged"},
+        {"id": "gnss_lost", "priority": "warning", "state": "active"},
+        {"id": "front", "priority": "caution", "state": "active"},
+        {"id": "rapid_deepening", "priority": "warning", "state": "rectified"},
+        {"id": "junk", "priority": {"x": 1}, "state": "active"},  # data, never trusted
+    ]
+    assert status_text(cur, alerts) == ("WARNING gnss_lost, CAUTION front, CAUTION sensor_stale, +2 more | "
+                                        "current 0.7 kn toward 179°, degraded")
+    assert status_text(cur, alerts[4:5]) == "WARNING rapid_deepening (rectified) | current 0.7 kn toward 179°, degraded"
+    assert status_text(cur, []) == "current 0.7 kn toward 179°, degraded"
