@@ -28,18 +28,8 @@ from daemon.core.config import MqttSettings, build_config
 from daemon.outlets.mqtt import (BrokerUrl, MqttSink, encode_payload, parse_ack,
                          parse_broker_url)
 from daemon.core.readings import Message
-
-REPO = Path(__file__).resolve().parents[1]
-PREFIX = "testboat"
-
-
-def wait_until(cond, timeout_s: float = 10.0, step_s: float = 0.02) -> bool:
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        if cond():
-            return True
-        time.sleep(step_s)
-    return cond()
+from tests.helpers import PREFIX, wait_until
+from tests.shared import REPO
 
 
 class Watcher:
@@ -441,7 +431,7 @@ def tls_mosquitto(tmp_path):
     """A Mosquitto with a TLS listener, its server certificate signed by a CA of the test's own."""
     import shutil as _shutil
 
-    from tests.conftest import MOSQUITTO, Mosquitto
+    from tests.helpers import MOSQUITTO, Mosquitto
 
     if not _shutil.which("openssl") or not Path(MOSQUITTO).exists():
         pytest.skip("needs openssl and mosquitto")

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import functools
 import logging
 import math
 import sqlite3
@@ -20,13 +19,9 @@ from daemon.core.readings import Message, RawLine
 from daemon.outlets.recorder import (Recorder, RecordingParams, RecordingPolicy, RecordingWriter, export_tag_nmea,
                              iter_messages, iter_raw, read_meta, read_tag_nmea, recording_name)
 from estimators.params import check
+from tests.helpers import nmea_checksum
 
 T0 = 1_777_000_000.0  # 2026-04-24 03:06:40 UTC
-
-
-def nmea_checksum(body: str) -> str:
-    """NMEA 0183 (v4.10, sentence and TAG block alike): XOR of the characters between the delimiters."""
-    return f"{functools.reduce(lambda a, c: a ^ ord(c), body, 0):02X}"
 
 
 def sample_lines(n: int, t0: float = T0) -> list[RawLine]:
