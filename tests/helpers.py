@@ -327,7 +327,9 @@ def _payload_problems(topic: str, p: dict) -> list[str]:
             s, d, e, n = p["set_deg"], p["drift_kn"], p["east_kn"], p["north_kn"]
             if not 0 <= s < 360 or d < 0:
                 bad.append(f"current set/drift {s}, {d}")
-            if abs(math.hypot(e, n) - d) > 0.011:
+            # each of drift, east, north is published to 0.01 kn (±0.005, and ±0.0005 more where the
+            # estimator rounded to 0.001 first): |(e, n)| and d may differ by 0.0055 (1 + √2) ≈ 0.0133
+            if abs(math.hypot(e, n) - d) > 0.0133:
                 bad.append(f"current drift {d} but |(east, north)| = {math.hypot(e, n):.3f}")
             if d > 0.05 and abs((math.degrees(math.atan2(e, n)) - s + 180) % 360 - 180) > 0.6 + 1.0 / d:
                 bad.append(f"current set {s} but atan2(east, north) = {math.degrees(math.atan2(e, n)) % 360:.1f}")
