@@ -250,6 +250,11 @@ class Display:
         with self._lock:
             self.messages.append(Received(msg.topic, payload, bool(msg.retain), time.monotonic()))
 
+    def received(self, since: int = 0) -> list[Received]:
+        """A copy of everything received (from the ``since``-th message on), safe against the network thread."""
+        with self._lock:
+            return self.messages[since:]
+
     def on(self, topic: str) -> list[Received]:
         with self._lock:
             return [m for m in self.messages if m.topic == topic]

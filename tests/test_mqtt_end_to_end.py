@@ -47,8 +47,7 @@ def alert_changes(messages) -> list[tuple[str, str]]:
 
 
 def received_alerts(display: Display) -> list[tuple[str, str]]:
-    with display._lock:
-        got = list(display.messages)
+    got = display.received()
     return [(m.topic, json.dumps(m.payload, sort_keys=True)) for m in got if "/alerts/" in m.topic]
 
 
@@ -141,8 +140,7 @@ def test_broker_killed_and_restarted_mid_replay_loses_no_alert_change(short_pass
 
         def first_new():
             """The first message offwatch sent after the restart (a retained one the broker kept is older)."""
-            with display._lock:
-                later = display.messages[n_before:]
+            later = display.received(n_before)
             return next((m for m in later if _unix(m.payload["time"]) > t_restart_data), None)
 
         assert wait_until(first_new, 20)
