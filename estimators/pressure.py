@@ -88,8 +88,8 @@ from collections import deque
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from estimators import wording
 from estimators.limits import PRESSURE_HPA, within
+from estimators import wording
 from estimators.base import CAUTION, WARNING, Condition, Context, EstimatorBase, Output, Publication
 from estimators.params import param
 from estimators.samples import AirTemperature, Fix, Pressure

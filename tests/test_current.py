@@ -12,7 +12,8 @@ from estimators.current import Calibration, CurrentEstimator, CurrentParams
 from estimators.runner import run
 from estimators.samples import Fix
 from tests.shared import shared_path
-from tests.test_current_synth import T0, synth_passage, tacking_legs
+from tests.helpers import Keep
+from tests.synth import T0, synth_passage, tacking_legs
 
 INTERFACE_FIELDS = ("set_deg", "drift_kn", "east_kn", "north_kn", "set_sigma_deg", "drift_sigma_kn", "quality",
                     "stw_scale", "heading_offset_deg")
@@ -203,23 +204,10 @@ def test_dead_log_in_the_real_capture_is_rejected():
     from daemon.core.config import load_config
     from daemon.commands.replay import run_replay
 
-    class Collect:
-        def __init__(self):
-            self.msgs = []
-
-        def raw(self, line):
-            pass
-
-        def message(self, msg):
-            self.msgs.append(msg)
-
-        def close(self):
-            pass
-
-    sink = Collect()
+    sink = Keep()
     run_replay([str(path)], load_config(None), progress=False, extra_sinks=[sink])
-    current = [m.payload for m in sink.msgs if m.topic.endswith("/current")]
-    alerts = [m.payload for m in sink.msgs if m.topic.endswith("/alerts/log_suspect")]
+    current = [m.payload for m in sink.messages if m.topic.endswith("/current")]
+    alerts = [m.payload for m in sink.messages if m.topic.endswith("/alerts/log_suspect")]
     # THEN no current of anything like 5 kn is reported, and the log is called suspect
     assert all((p.get("drift_kn") or 0.0) < 1.0 for p in current)
     assert alerts and alerts[0]["state"] == "active"

@@ -21,14 +21,14 @@ from pathlib import Path
 
 import pytest
 
-from tests.test_mqtt_end_to_end import short_passage  # noqa: F401  (the module fixture)
-from tests.test_service import PREFIX, REPO, Display, free_port, integrity, wait_until
+from tests.helpers import PREFIX, Display, free_port, integrity, wait_until
+from tests.shared import REPO
 
 RECEIVED = re.compile(r"received (\d+) messages on (\d+) topics")
 
 
 @pytest.fixture
-def short_demo(monkeypatch, short_passage):  # noqa: F811
+def short_demo(monkeypatch, short_passage):
     """The demo, with the short simulated passage in place of the 7.5-hour one."""
     import daemon.commands.demo
 

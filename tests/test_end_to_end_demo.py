@@ -31,7 +31,7 @@ from geographiclib.geodesic import Geodesic
 from tools.simulator import scenarios
 from tools.simulator.__main__ import DEMO_MALFORMED
 from tests.shared import REPO
-from tests.test_end_to_end_replay import interface_problems
+from tests.helpers import interface_problems
 
 DEMO = REPO / "recorded_runs" / "tern-of-haldane.nmea.gz"
 TRUTH = REPO / "recorded_runs" / "tern-of-haldane.truth.csv.gz"

@@ -25,7 +25,7 @@ from daemon.intake.ingest import Ingest
 from daemon.core.readings import RawLine, Reading
 from estimators.samples import Depth, Fix, Pressure, SeaTemperature, WaterSpeed
 from tests.shared import SHARED, shared_path
-from tests.test_nmea_sentences import StandInVariation
+from tests.helpers import StandInVariation
 
 CAPTURES = "real-captures"
 LINE_COUNTS = ("good", "bad_checksum", "no_checksum", "unparseable", "unknown", "proprietary", "ais", "not_sentence")

@@ -22,16 +22,12 @@ from estimators.pressure import (
     reduce_to_msl, sanders_gyakum_hpa, solar_tide_hpa,
 )
 from estimators.samples import AirTemperature, Fix, Pressure
+from tests.helpers import station_from_msl
 
 H = 3600.0
 T0 = 1_780_000_000.0  # 2026-05-28 20:26:40 UTC
 LAT, LON = 45.0, -20.0  # invented open water
 HEIGHT_M = 2.0
-
-
-def station_from_msl(msl_hpa: float, height_m: float) -> float:
-    """ISO 2533 standard atmosphere: p = p0 (1 - 2.25577e-5 h)^5.25588 (independent of the reduction)."""
-    return msl_hpa * (1.0 - 2.25577e-5 * height_m) ** 5.25588
 
 
 def sim_tide(t_s: float, lat: float, lon: float, amp: float = 1.16) -> float:

@@ -1,6 +1,6 @@
 """The pressure-fall alert through the real alert machinery and the pipeline:
 raised, upgraded, acknowledged, cleared — and no chatter while the fall hovers
-at the threshold. Synthetic barometer from tests/test_pressure.py (ISO 2533
+at the threshold. Synthetic barometer (tests/helpers.py station_from_msl: the ISO 2533
 standard atmosphere for the station pressure, seeded noise, gusts, 0.1 hPa steps).
 """
 
@@ -14,7 +14,12 @@ from daemon.core.pipeline import Pipeline
 from daemon.core.readings import Reading
 from estimators.pressure import PressureParams, PressureTendency
 from estimators.samples import Fix, Pressure
-from tests.test_pressure import HEIGHT_M, LAT, LON, T0, H, station_from_msl
+from tests.helpers import station_from_msl
+
+H = 3600.0
+T0 = 1_780_000_000.0  # 2026-05-28 20:26:40 UTC
+LAT, LON = 45.0, -20.0  # invented open water
+HEIGHT_M = 2.0
 
 
 class Alerts:

@@ -97,6 +97,8 @@ class SummarySink:
         return out
 
 
+_UNDELIVERED_NAMES = {"alerts": "alert changes", "events": "events", "status": "status messages",
+                      "states": "latest states", "dropped": "dropped (queue full)"}
 def _day(t_s: float) -> str:
     d = datetime.fromtimestamp(t_s, tz=timezone.utc)
     return f"{d.day} {d:%b %Y}"
@@ -105,10 +107,6 @@ def _day(t_s: float) -> str:
 def _word(v: Any, longest: int = 40) -> str:
     """A payload field that should be a short text; anything else (it is data) shows as '?'."""
     return v if isinstance(v, str) and v.isprintable() and len(v) <= longest else "?"
-
-
-_UNDELIVERED_NAMES = {"alerts": "alert changes", "events": "events", "status": "status messages",
-                      "states": "latest states", "dropped": "dropped (queue full)"}
 
 
 def _describe(ev: Message) -> str:

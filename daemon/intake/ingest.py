@@ -41,9 +41,10 @@ Public API:
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import logging
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Protocol
 
 from daemon.intake.counters import Counters
@@ -233,8 +234,8 @@ class Ingest:
                     self._note_parser_fault(exc)
                     counts.append(("implausible", 1))
                     continue
-                if isinstance(sample, Fix) and item.gnss_utc is not None:
-                    sample = replace(sample, gnss_time_s=item.gnss_utc)  # a receiver clock that stops shows
+                if type(sample) is Fix and item.gnss_utc is not None:
+                    sample = dataclasses.replace(sample, gnss_time_s=item.gnss_utc)  # a receiver clock that stops shows
                 if sample is not None:
                     readings.append(Reading(source, sample, recv, key, item.gnss_utc))
         out.append(RawLine(source, t, recv, item.text, key, tuple(counts), ex is not None))
