@@ -111,6 +111,7 @@ _GEOD = Geodesic.WGS84
 
 HDOP_KEEP_S = 5.0  # a fix without HDOP takes the receiver's latest this young
 GROUND_FROM_FIXES_MAX_S = 10.0  # two fixes at most this far apart give a ground velocity
+FROZEN_MAX_STEP_S = 10.0  # repeats further apart than this (a gap in the data) say nothing of a frozen receiver
 
 @dataclass(frozen=True)
 class PositionParams:
@@ -277,6 +278,11 @@ class PositionEstimator(EstimatorBase):
         """True when ``fix`` repeats a receiver that has frozen (see the module text); not to be used."""
         prev, self._prev_raw = self._prev_raw, fix
         if prev is None:
+            return False
+        if fix.t_s - prev.t_s > FROZEN_MAX_STEP_S:
+            # a gap in the data (a logger switched off) is no evidence either way: start counting afresh
+            self._same_pos_start = self._same_time_start = None
+            self._frozen = None
             return False
         if (fix.lat_deg, fix.lon_deg) == (prev.lat_deg, prev.lon_deg):
             if self._same_pos_start is None:
