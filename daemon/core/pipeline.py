@@ -93,6 +93,11 @@ class Pipeline:
         self._run_commands()
         self._advance(t_s)
 
+    def condition(self, cond: Condition) -> None:
+        """A condition judged outside the estimators (the recorder's health), handled as theirs.
+        Call it from the loop's own thread, as ``tick``."""
+        self._handle((cond,))
+
     def republish_alerts(self, t_s: float) -> None:
         """Announce the listed alerts again (after a restart restored them)."""
         self._emit_all(self.alerts.republish(t_s))
