@@ -486,7 +486,9 @@ def test_kill9_leaves_the_last_will_and_a_sound_recording(live, tmp_path):
     assert display.latest(f"{PREFIX}/status").payload["reason"] == "connection lost"
     late = Display(*live["broker"])  # a display that starts only now gets it as the retained state
     try:
-        assert wait_until(lambda: late.latest(f"{PREFIX}/status") is not None, 10)
+        # (the retained messages come in one burst, in no promised order: wait for both)
+        assert wait_until(lambda: late.latest(f"{PREFIX}/status") is not None
+                          and late.latest(f"{PREFIX}/position") is not None, 10)
         got = late.latest(f"{PREFIX}/status")
         assert got.retain and got.payload["state"] == "offline"
         assert late.latest(f"{PREFIX}/position").retain  # the last position stays for the display
