@@ -352,13 +352,14 @@ def _with_password(mqtt: MqttConfig, where: str) -> MqttConfig:
 
 
 def warn_if_others_can_read(path: Path, what: str, fix: str) -> bool:
-    """Warn (once, at start) when a file holding a password is readable by group or others."""
+    """Warn (once, at start) when a file holding a password is world-readable (a group of the service's
+    own, as the install notes set up with mode 0640, is fine)."""
     try:
         mode = path.stat().st_mode
     except OSError:
         return False
-    if not mode & (stat.S_IRGRP | stat.S_IROTH):
+    if not mode & stat.S_IROTH:
         return False
-    log.warning("%s %s holds the MQTT password and other users on this computer can read it: chmod 600 %s (%s)",
-                what, path, path, fix)
+    log.warning("%s %s holds the MQTT password and every user on this computer can read it: chmod 600 %s, "
+                "or 640 with the service's group (%s)", what, path, path, fix)
     return True
