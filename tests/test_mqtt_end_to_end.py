@@ -279,7 +279,7 @@ def test_the_data_stream_does_not_depend_on_the_broker(short_passage, forgetful_
 
 def test_replay_with_the_broker_gone_at_the_end_says_what_was_not_delivered(short_passage, tmp_path):
     """Issue 13 item 12: nothing undelivered is dropped in silence; exit status 3 (README, replay)."""
-    from tests.conftest import free_port
+    from tests.helpers import free_port
     # GIVEN a broker address where nothing answers (a broker that went and does not come back)
     out = tmp_path / "gone.jsonl"
     done = subprocess.run(replay_args(short_passage, out, f"mqtt://127.0.0.1:{free_port()}", "--mqtt-wait", "1"),

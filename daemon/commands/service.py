@@ -28,7 +28,8 @@ from daemon.core.calibration_store import load_calibration, save_calibration
 from daemon.core.config import Config, client_id_for, load_config
 from daemon.errors import ConfigError, OffwatchError
 from daemon.core.statefiles import read_json, write_json_atomic
-from estimators.base import Condition, iso_utc
+from daemon.core.payloads import iso_utc
+from estimators.base import Condition
 
 log = logging.getLogger(__name__)
 
@@ -85,8 +86,8 @@ class Service:
         return out
 
     def run(self) -> int:
-        from daemon.intake.sources import start_sources, specs_from_config
-        self.source_threads, self.health = start_sources(specs_from_config(self.cfg.inputs), self.chunks, self.stop)
+        from daemon.intake.sources import start_sources
+        self.source_threads, self.health = start_sources(self.cfg.inputs, self.chunks, self.stop)
         pipe = self.parts.pipeline
         pipe.republish_alerts(time.time())
         self.notifier.ready()
