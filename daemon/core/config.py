@@ -116,8 +116,6 @@ def input_problems(cfg: InputConfig) -> list[str]:
     need = _INPUT_NEEDS.get(cfg.kind)
     if need and not getattr(cfg, need[0]):
         problems.append(f"kind = {cfg.kind!r} needs {need[0]} = \"{need[1]}\"")
-    if cfg.kind == "udp":
-        problems.extend(_bind_problems(cfg.bind))
     return problems
 
 
@@ -297,23 +295,24 @@ def _inputs(table: Any, where: str) -> dict[str, InputConfig]:
         cfg = fill(InputConfig, values, f"{where}: [inputs.{name}]")
         for problem in input_problems(cfg)[:1]:
             raise ConfigError(f"{where}: [inputs.{name}] {problem}")
+        if cfg.kind == "udp":
+            _check_bind(cfg.bind, f"{where}: [inputs.{name}] bind")
         inputs[name] = cfg
     return inputs
 
 
-def _bind_problems(bind: str) -> list[str]:
+def _check_bind(bind: str, where: str) -> None:
     """A listener on the boat's network is a choice the config states, never a default."""
     import ipaddress
 
     fix = ('"127.0.0.1" (this computer only) or "0.0.0.0" (every network this computer is on, as a Wi-Fi '
            'multiplexer needs), or one interface\'s own address')
     if not bind:
-        return [f"bind is missing: a UDP input must say where it listens: bind = {fix}"]
+        raise ConfigError(f"{where} is missing: a UDP input must say where it listens: bind = {fix}")
     try:
         ipaddress.ip_address(bind)
     except ValueError:
-        return [f"bind = {bind!r}: expected an IP address, {fix}"]
-    return []
+        raise ConfigError(f"{where} = {bind!r}: expected an IP address, {fix}") from None
 
 
 def _priority(table: Any, where: str, inputs: dict[str, InputConfig]) -> dict[str, list[str]]:

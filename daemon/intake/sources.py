@@ -36,6 +36,7 @@ FIRST_RETRY_S = 0.25
 RETRY_CAP_S = {"serial": 1.0, "tcp": 3.0, "udp": 2.0, "file": 1.0}  # serial: replug seen within ~1 s
 TCP_SILENCE_S = 30.0       # a connected multiplexer silent this long is reconnected
 READ_SIZE = 65536
+LOOPBACK = "127.0.0.1"
 
 
 @dataclass(frozen=True, slots=True)
@@ -261,7 +262,7 @@ def make_reader(name: str, cfg: InputConfig) -> Reader:
     if cfg.kind == "tcp":
         return TcpReader(cfg.host, cfg.port)
     if cfg.kind == "udp":
-        return UdpReader(cfg.bind, cfg.port)
+        return UdpReader(cfg.bind or LOOPBACK, cfg.port)  # a LAN listener only when the config says so
     return FileFollowReader(cfg.path)
 
 

@@ -238,9 +238,9 @@ class MqttSink:
                     on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
                     on_connected: Callable[[], object] | None = None,
                     close_timeout_s: float | None = None) -> MqttSink:
-        """Build from the [mqtt] config section (``url`` in place of its own when given, and a replay's
-        own wait at the end); the outbox lives in ``state_dir`` (memory when None)."""
-        changes = {"url": url} if url else {}
+        """Build from the [mqtt] config section (``url`` and ``close_timeout_s`` in place of its own
+        when given); the outbox lives in ``state_dir`` (memory when None)."""
+        changes: dict[str, Any] = {"url": url} if url else {}
         if close_timeout_s is not None:
             changes["close_timeout_s"] = close_timeout_s
         settings = dataclasses.replace(cfg, **changes) if changes else cfg
