@@ -111,9 +111,8 @@ def bench_kills(passage: Path, cfg: Path, work: Path, kills: int, rng: random.Ra
 # -- broker restarts ---------------------------------------------------------------------------------
 
 def bench_restarts(passage: Path, cfg: Path, work: Path, restarts: int) -> dict:
-    from tests.conftest import Mosquitto
+    from tests.helpers import Display, Mosquitto, wait_until
     from tests.test_mqtt_end_to_end import alert_changes, missing_in_order, read_jsonl, received_alerts
-    from tests.test_service import Display, wait_until
 
     broker_dir = work / "broker"
     broker_dir.mkdir()
