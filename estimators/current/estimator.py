@@ -250,6 +250,11 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
 
     # -- for the smoother, the bench and tests ---------------------------------------------
 
+    def fusion_health(self) -> dict[str, dict]:
+        """Each fusion step's health for the status topic: the ground-velocity step's counters and last NIS."""
+        return {"ground_velocity": {**FusionHealth.as_dict(self.health), "held": self.health.held,
+                                    "turning": self.health.turning}}
+
     def state(self) -> dict[str, float] | None:
         """The filter's own state (not the reported one): current, k, offset and sigmas; None before the start."""
         if self.ekf is None:
