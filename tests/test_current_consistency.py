@@ -25,8 +25,9 @@ M, DUR = 8, 900
 
 
 def test_nees_and_nis_within_chi_square_bounds():
-    # GIVEN M seeded tacking runs whose truth follows the filter's model
-    p = CurrentParams()
+    # GIVEN M seeded tacking runs whose truth follows the filter's model: white noise, so the
+    # calibration fit's effective sample count is told the noise is uncorrelated (N_eff = T / 2 tau)
+    p = CurrentParams(noise_correlation_s=0.5)
     nees = np.zeros((M, DUR))
     nis = np.full((M, DUR), np.nan)
     for m in range(M):

@@ -3,8 +3,8 @@
 - inputs: the log speed and heading over each fix interval, and their
   low-passed values for the Jacobian (errors in variables, see ``_slow_inputs``);
 - turn hold: prediction only through a turn (``_turn_hold``);
-- when k and d may learn: only after a change of the water track's direction
-  or speed (``_track_manoeuvres``), else they are Schmidt consider states;
+- when k and d learn: from the batch fit over steady legs (``calibration``,
+  ``_learn_calibration``); in the 1-Hz step they are Schmidt consider states;
 - the speed log's health (``_check_log``): a dead or stepping log holds the
   filter and raises ``log_suspect``;
 - adaptation and the model check: the windowed NIS (``_adapt``).
@@ -22,8 +22,11 @@ import numpy as np
 from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
 from estimators.base import CAUTION, Condition, Output
 
-from .model import WaterInputs, unit
-from .params import MANOEUVRE_SAMPLE_S
+from estimators.fusion import FusionReport
+
+from .fusion import fuse
+from .model import WaterInputs, leeway_deg, unit
+from .params import ID, IK
 
 
 class Control:
@@ -117,6 +120,8 @@ class Control:
     def _fuse_or_hold(self, t: float, g: tuple[float, float], w: WaterInputs) -> None:
         if self._log_state == "suspect":
             self.health.held += 1
+            if self._calfit is not None:
+                self._calfit.interrupt()
             if self.ekf is not None:
                 self._predict(t)
                 self._record(t, restart=False)
@@ -125,12 +130,13 @@ class Control:
             self._start(t, g, w)
             return
         self._predict(t)
-        self._track_manoeuvres(t, w)
         if self._turn_hold(t, w):
             self.health.turning += 1
             self._record(t, restart=False)
+            self._calfit.interrupt()
             return
-        self._fuse_ground_velocity(t, g, w)
+        report = self._fuse_ground_velocity(t, g, w)
+        self._learn_calibration(t, g, w, report.fused)
 
     def _turn_hold(self, t: float, w: WaterInputs) -> bool:
         """Predict only through a turn (at most ``turn_hold_max_s``).
@@ -155,42 +161,51 @@ class Control:
         w.turning = True
         return t - self._turn_since <= p.turn_hold_max_s
 
-    def _track_manoeuvres(self, t: float, w: WaterInputs) -> None:
-        """Open the calibration window for ``calibration_window_s`` after a manoeuvre.
+    def _learn_calibration(self, t: float, g: tuple[float, float], w: WaterInputs, fused: bool) -> None:
+        """Feed the steady blocks; every ``calibration_fit_every_s`` refit k and d and fuse what the fit earned.
 
-        Only a change of the water velocity's direction (or, a little, its size)
-        separates k and d from the current. On a steady course the filter treats
-        k and d as Schmidt "consider" states: their covariance and their
-        correlation with the current are propagated exactly (Joseph form), but
-        their estimates are not moved. Otherwise a current that changes faster
-        than its random walk allows (a current's edge) would be explained away
-        as a compass offset or a log scale it had never observed.
+        See ``calibration``: the fit's (k, d) is fused as a measurement with
+        R = (Sigma^-1 - P_kd^-1)^-1 (only the information the filter lacks), in
+        the directions where the fit knows more than the filter; elsewhere R is
+        so large that the filter keeps what it has.
         """
-        p = self.params
-        hist = self._manoeuvre_hist
-        he, hn = to_east_north(1.0, w.slow_heading_deg)
-        changed = False
-        if not hist or t - hist[-1][0] >= MANOEUVRE_SAMPLE_S:  # the low-passed course needs no 1-s history
-            hist.append((t, he, hn, w.slow_speed_kn))
-            changed = True
-        while hist and hist[0][0] < t - p.calibration_window_s:
-            hist.popleft()
-            changed = True
-        if changed:  # every 10 s: the history as arrays, and its speed range
-            arr = np.array(hist)
-            top = float(arr[:, 3].max())
-            self._manoeuvre_arrays = (arr[:, 1].copy(), arr[:, 2].copy(), (top - float(arr[:, 3].min())) / max(0.5, top))
-        east, north, sped = self._manoeuvre_arrays
-        # turned by half the calibrating course change or more  <=>  cos(turn) = u_then . u_now <= cos(half)
-        cos_half = math.cos(math.radians(0.5 * p.min_course_change_deg))
-        turned = float((east * he + north * hn).min()) <= cos_half
-        if turned or sped >= p.calibration_speed_change_fraction:
-            self._calibrating_until = t + p.calibration_window_s
-        self._calibrating = t <= self._calibrating_until
+        fit = self._calfit
+        if not fused or w.turning:
+            fit.interrupt()
+        else:
+            k = float(self.ekf.x[IK, 0])
+            fit.add(t, g, w.speed_kn, w.heading_deg + leeway_deg(self.params, w.heel_deg, k * w.speed_kn))
+        if not fit.due(t):
+            return
+        x, P = self.ekf.x, self.ekf.P
+        result = fit.fit(t, float(x[IK, 0]), float(x[ID, 0]))
+        if result is None:
+            return
+        P_kd = P[IK:, IK:]
+        excess = np.linalg.inv(result.cov) - np.linalg.inv(P_kd)            # information the filter lacks
+        lam, V = np.linalg.eigh(0.5 * (excess + excess.T))
+        if lam.max() <= 0.0:
+            return                                                          # the filter knows it already
+        R = V @ np.diag(1.0 / np.maximum(lam, 1e-12 * lam.max())) @ V.T    # R = (Sigma^-1 - P_kd^-1)^-1
+        H = np.zeros((2, 4))
+        H[0, IK], H[1, ID] = 1.0, 1.0
+        y = np.array([[result.k - x[IK, 0]], [result.d_rad - x[ID, 0]]])
+        up = fuse(x, P, y, H, R, self._cal_gate)
+        report = FusionReport(t, (float(y[0, 0]), float(y[1, 0])), up.innovation_var, up.nis, self._cal_gate,
+                              up.fused, up.reason)
+        self.cal_health.count(report)
+        if up.fused:
+            self.ekf.x, self.ekf.P = up.x, up.P
+            self._record_update(t, x, P)
 
     def _adapt(self, nis: float) -> None:
-        """Windowed NIS above its expectation (2) -> the current changes faster than Q says: inflate Q."""
+        """Windowed NIS above its expectation (2) -> the current changes faster than Q says: inflate Q.
+
+        The same NIS feeds the consistency test (``nis_check``) that takes the
+        quality to 'degraded' while the innovations are larger than the model says.
+        """
         p = self.params
+        self.nis_check.add(nis)
         a = 1.0 / p.nis_window_fixes
         self.nis_avg += a * (nis - self.nis_avg)                               # exponential window mean
         if self.nis_avg > p.nis_trigger_ratio * 2.0:

@@ -16,10 +16,11 @@ from filterpy.kalman import ExtendedKalmanFilter
 from scipy.stats import chi2
 
 from estimators.base import EstimatorBase, Output
-from estimators.fusion import FusionHealth, FusionReport
+from estimators.fusion import FusionHealth, FusionReport, WindowedNis
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
 from estimators.thresholds import Hysteresis
 
+from .calibration import CalibrationFit
 from .control import Control
 from .fusion import fuse
 from .model import WaterInputs, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
@@ -94,10 +95,10 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._slow: tuple[float, float, float, float] | None = None  # t, speed, heading unit vector (e, n)
         self._fast: tuple[float, float, float, float] | None = None
         self._turn_since: float | None = None
-        self._manoeuvre_hist: deque[tuple[float, float, float, float]] = deque()  # t, heading unit e/n, speed
-        self._manoeuvre_arrays: tuple[np.ndarray, np.ndarray, float] = (np.ones(1), np.zeros(1), 0.0)
-        self._calibrating = False
-        self._calibrating_until = -math.inf
+        self._calfit: CalibrationFit | None = None
+        self._cal_gate = float(chi2.ppf(self.params.calibration_fit_probability, 2))
+        self.cal_health = FusionHealth()  # the calibration fit's fusion step
+        self.nis_check = WindowedNis(self.params.nis_check_fixes, 2, self.params.nis_check_probability)
 
     # -- the protocol ---------------------------------------------------------------
 
@@ -193,6 +194,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._restart_next = False
         self.consecutive_rejects = 0
         self.q_inflation, self.nis_avg = 1.0, 2.0
+        self.nis_check.reset()
+        self._calfit = CalibrationFit(self.params, (k, d, sk, sd))  # blocks of a log trusted again start afresh
         self._record(t, restart=True)
 
     def _predict(self, t: float) -> None:
@@ -215,8 +218,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         H = jacobian(p, w, k, d)
         y = np.array([[g[0] - ce - k * s * math.sin(theta)],                    # y = z - h(x),
                       [g[1] - cn - k * s * math.cos(theta)]])                   # h(x) = c + k s u(theta)
-        # k and d are Schmidt "consider" states on a steady course (see _track_manoeuvres)
-        consider = None if self._calibrating else IK
+        # k and d are Schmidt "consider" states: learnt from the calibration fit only (see calibration)
+        consider = IK
         up = fuse(x_prior, P_prior, y, H, R, self._gate, consider)
         nis = up.nis
         if math.isfinite(nis):
@@ -243,6 +246,11 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             self.records.append(FilterRecord(t, x_prior, P_prior, self.ekf.x.copy(), self.ekf.P.copy(), False))
         return report
 
+    def _record_update(self, t: float, x_prior: np.ndarray, P_prior: np.ndarray) -> None:
+        """A record of an update outside the ground-velocity step (the calibration fit), for the smoother."""
+        if self.records is not None:
+            self.records.append(FilterRecord(t, x_prior, P_prior, self.ekf.x.copy(), self.ekf.P.copy(), False))
+
     def _record(self, t: float, restart: bool) -> None:
         if self.records is not None:
             x, P = self.ekf.x.copy(), self.ekf.P.copy()
@@ -253,7 +261,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
     def fusion_health(self) -> dict[str, dict]:
         """Each fusion step's health for the status topic: the ground-velocity step's counters and last NIS."""
         return {"ground_velocity": {**FusionHealth.as_dict(self.health), "held": self.health.held,
-                                    "turning": self.health.turning}}
+                                    "turning": self.health.turning},
+                "calibration_fit": self.cal_health.as_dict()}
 
     def state(self) -> dict[str, float] | None:
         """The filter's own state (not the reported one): current, k, offset and sigmas; None before the start."""

@@ -53,8 +53,20 @@ class CurrentParams:
     min_course_change_deg: float = param(
         60.0, "deg", 10.0, 180.0, "course change that calibrates (quoted in the advice); half of it opens the calibration window")
     calibration_window_s: float = param(
-        900.0, "s", 60.0, 7200.0, "after a course or speed change, k and d are updated for this long")
-    calibration_speed_change_fraction: float = param(0.3, "", 0.05, 1.0, "a relative speed change that opens the window")
+        900.0, "s", 60.0, 7200.0, "no longer used (the calibration fit decides); kept so older configs load")
+    calibration_speed_change_fraction: float = param(
+        0.3, "", 0.05, 1.0, "no longer used (the calibration fit decides); kept so older configs load")
+    calibration_block_s: float = param(60.0, "s", 10.0, 900.0, "steady sailing is averaged over blocks this long for the calibration fit")
+    calibration_fit_window_h: float = param(3.0, "h", 0.5, 24.0, "the calibration fit uses the steady blocks of this many hours")
+    calibration_min_spread_deg: float = param(
+        10.0, "deg", 0.0, 180.0, "the fit runs only once the window's steady water tracks differ by this much")
+    calibration_fit_every_s: float = param(300.0, "s", 10.0, 7200.0, "how often the calibration is refitted")
+    calibration_fit_probability: float = param(
+        0.9995, "", 0.9, 0.999999, "chi-square gate between a calibration fit and the filter's calibration")
+    noise_correlation_s: float = param(
+        5.0, "s", 0.0, 120.0, "correlation time of the log's and compass's noise (effective sample count of a block)")
+    nis_check_fixes: int = param(120, "fixes", 10, 10000, "window of the NIS consistency test that decides 'degraded'")
+    nis_check_probability: float = param(0.999, "", 0.9, 0.999999, "two-sided probability of that test's bounds")
     gate_probability: float = param(0.9995, "", 0.9, 0.999999, "chi-square gate on the ground-velocity innovation")
     rejections_before_reset: int = param(8, "fixes", 1, 1000, "a run of this many rejections inflates and accepts")
     reset_current_sigma_kn: float = param(1.0, "kn", 0.05, 10.0, "current sigma added per axis on such a reset")

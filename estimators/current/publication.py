@@ -28,12 +28,23 @@ class Publisher:
     def _stale_inputs(self, t: float) -> list[str]:
         return [k for k in ("fix", "heading", "water_speed") if t - self._seen.get(k, -math.inf) > self.params.stale_s]
 
-    def _quality(self, t: float, sigma_vec: float) -> str:
-        if self.ekf is None or sigma_vec > self.params.unavailable_sigma_kn:
-            return "unavailable"
-        if self._stale_inputs(t) or self._log_state == "suspect":
-            return "degraded"
-        return "converging" if sigma_vec > self.params.valid_sigma_kn else "valid"
+    def _quality(self, t: float, sigma_vec: float) -> tuple[str, str]:
+        """(quality, why). 'valid' promises: sigma small, fresh inputs, a trusted log, and the filter's
+        innovations over the last ``nis_check_fixes`` as large as its model says (the windowed NIS test)."""
+        p = self.params
+        if self.ekf is None or sigma_vec > p.unavailable_sigma_kn:
+            return "unavailable", "no estimate yet" if self.ekf is None else "uncertainty too large"
+        stale = self._stale_inputs(t)
+        if stale:
+            return "degraded", "stale inputs: " + ", ".join(stale)
+        if self._log_state == "suspect":
+            return "degraded", "the speed log disagrees with the GNSS"
+        if self.nis_check.verdict() == "high":
+            return "degraded", (f"the ground velocity departs from the model more than its noise explains (mean NIS "
+                                f"{self.nis_check.mean:.1f} over {p.nis_check_fixes} fixes, bound {self.nis_check.high:.1f})")
+        if sigma_vec > p.valid_sigma_kn:
+            return "converging", "uncertainty above the valid threshold"
+        return "valid", ""
 
     def _publish(self, t: float) -> list[Output]:
         self._t_last_pub = t
@@ -47,13 +58,13 @@ class Publisher:
         drift, set_deg = from_east_north(e, n)
         sig_drift, sig_set = polar_sigmas(e, n, P[:2, :2])
         sigma_vec = math.sqrt(P[0, 0] + P[1, 1])
-        quality = self._quality(t, sigma_vec)
+        quality, why = self._quality(t, sigma_vec)
         cal = self.calibration()
         payload = {
             "set_deg": round(set_deg, 1), "drift_kn": round(drift, 3),
             "east_kn": round(e, 3), "north_kn": round(n, 3),
             "set_sigma_deg": round(sig_set, 1), "drift_sigma_kn": round(sig_drift, 3),
-            "quality": quality,
+            "quality": quality, "quality_reason": why,
             "stw_scale": round(cal.stw_scale, 4), "heading_offset_deg": round(cal.heading_offset_deg, 2),
             "stw_scale_sigma": round(cal.stw_scale_sigma, 4),
             "heading_offset_sigma_deg": round(cal.heading_offset_sigma_deg, 2),
