@@ -71,7 +71,8 @@ class Control:
         if heading is None or speed is None:
             return None
         heels = [v for (ts, v) in self._buf["heel"] if t0 < ts <= t]
-        w = WaterInputs(speed, heading, sum(heels) / len(heels) if heels else None, spread_deg=spread)
+        w = WaterInputs(speed, heading, sum(heels) / len(heels) if heels else None, spread_deg=spread,
+                        interval_s=p.averaging_window_s if self.t_prev_gv is None else t - self.t_prev_gv)
         self._slow_inputs(t, w)
         return w
 

@@ -40,6 +40,7 @@ class WaterInputs:
     speed_rate_kn_s: float = 0.0   # rate of the 3-s EMA log speed, kn/s
     manoeuvring: bool = False      # the readings depart from their low-passed values (see _slow_inputs)
     turning: bool = False          # a manoeuvre or a fast heading change (see _turn_hold)
+    interval_s: float = 1.0        # since the previous fix: the span of these means
 
 
 def unit(angle_rad: float) -> np.ndarray:
@@ -92,6 +93,11 @@ def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k:
     cross = (k * s) ** 2 * (math.radians(p.heading_sigma_deg) ** 2 + (p.leeway_sigma_fraction * lam) ** 2
                             + math.radians(w.spread_deg) ** 2 + math.radians(w.turn_rate_deg_s * lag) ** 2)
     along = k ** 2 * (p.log_sigma_kn ** 2 + (w.speed_rate_kn_s * lag) ** 2)
+    # the log's and compass's errors are correlated over noise_correlation_s: fixes closer than that are not
+    # independent samples of them. For the slow states, fusing n such fixes must give the information of
+    # n dt / (2 tau) independent ones (the effective sample count, see calibration): R x 2 tau / dt
+    corr = max(1.0, 2.0 * p.noise_correlation_s / max(w.interval_s, 1e-3))
+    along, cross = along * corr, cross * corr
     ue, un = math.sin(theta), math.cos(theta)                               # u = u(theta), n = (un, -ue)
     r2 = sg ** 2
     return np.array([[r2 + along * ue * ue + cross * un * un, (along - cross) * ue * un],   # sg^2 I + along u u'

@@ -64,7 +64,7 @@ class CurrentParams:
     calibration_fit_probability: float = param(
         0.9995, "", 0.9, 0.999999, "chi-square gate between a calibration fit and the filter's calibration")
     noise_correlation_s: float = param(
-        5.0, "s", 0.0, 120.0, "correlation time of the log's and compass's noise (effective sample count of a block)")
+        3.0, "s", 0.0, 120.0, "correlation time of the log's and compass's noise (effective sample count of a block)")
     nis_check_fixes: int = param(120, "fixes", 10, 10000, "window of the NIS consistency test that decides 'degraded'")
     nis_check_probability: float = param(0.999, "", 0.9, 0.999999, "two-sided probability of that test's bounds")
     gate_probability: float = param(0.9995, "", 0.9, 0.999999, "chi-square gate on the ground-velocity innovation")
