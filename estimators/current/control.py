@@ -199,14 +199,16 @@ class Control:
             self.ekf.x, self.ekf.P = up.x, up.P
             self._record_update(t, x, P)
 
-    def _adapt(self, nis: float) -> None:
+    def _adapt(self, nis_fix: float, nis: float) -> None:
         """Windowed NIS above its expectation (2) -> the current changes faster than Q says: inflate Q.
 
-        The same NIS feeds the consistency test (``nis_check``) that takes the
-        quality to 'degraded' while the innovations are larger than the model says.
+        ``nis_fix`` is the innovation against one fix's own noise (the detector),
+        ``nis`` against the covariance the filter uses, which feeds the consistency
+        test (``nis_check``) that takes the quality to 'degraded'.
         """
         p = self.params
         self.nis_check.add(nis)
+        nis = nis_fix
         a = 1.0 / p.nis_window_fixes
         self.nis_avg += a * (nis - self.nis_avg)                               # exponential window mean
         if self.nis_avg > p.nis_trigger_ratio * 2.0:

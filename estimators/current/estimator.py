@@ -22,7 +22,7 @@ from estimators.thresholds import Hysteresis
 
 from .calibration import CalibrationFit
 from .control import Control
-from .fusion import fuse
+from .fusion import fuse, nis2
 from .model import WaterInputs, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
 from .publication import Publisher
@@ -223,7 +223,10 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         up = fuse(x_prior, P_prior, y, H, R, self._gate, consider)
         nis = up.nis
         if math.isfinite(nis):
-            self._adapt(min(nis, 4.0 * self._gate))
+            # the change detector reads the innovation against one fix's own noise (no allowance for
+            # correlation: that would blunt it), the gate and the model check the covariance the filter uses
+            S_fix = H @ P_prior @ H.T + measurement_cov(p, g, w, k, theta, correlated=False)
+            self._adapt(min(nis2(y, S_fix), 4.0 * self._gate), nis)
         if up.reason == "gate":
             self.consecutive_rejects += 1
             if self.consecutive_rejects >= p.rejections_before_reset:

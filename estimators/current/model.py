@@ -80,7 +80,8 @@ def process_noise(p: CurrentParams, dt: float, q_inflation: float = 1.0) -> np.n
     return np.diag([qc * dt, qc * dt, qk * dt, qd * dt])                            # random walk: Q = q dt
 
 
-def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k: float, theta: float) -> np.ndarray:
+def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k: float, theta: float,
+                    correlated: bool = True) -> np.ndarray:
     """R: GNSS velocity noise plus the log's and the compass's noise through the Jacobian."""
     sg = p.gnss_velocity_sigma_kn * (p.low_sog_inflation if math.hypot(*g) < p.low_sog_kn else 1.0)
     s = w.speed_kn
@@ -96,7 +97,7 @@ def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k:
     # the log's and compass's errors are correlated over noise_correlation_s: fixes closer than that are not
     # independent samples of them. For the slow states, fusing n such fixes must give the information of
     # n dt / (2 tau) independent ones (the effective sample count, see calibration): R x 2 tau / dt
-    corr = max(1.0, 2.0 * p.noise_correlation_s / max(w.interval_s, 1e-3))
+    corr = max(1.0, 2.0 * p.noise_correlation_s / max(w.interval_s, 1e-3)) if correlated else 1.0
     along, cross = along * corr, cross * corr
     ue, un = math.sin(theta), math.cos(theta)                               # u = u(theta), n = (un, -ue)
     r2 = sg ** 2
