@@ -12,11 +12,14 @@ the 2 x 4 update are written out here, cheaper than the generic ones)::
         d         heading offset, rad: true heading = heading reading + d
 
 Process model: every state is a random walk (F = I). The current walks at
-``current_walk_kn_per_sqrt_h`` per axis (tidal streams turn over hours); the
-windowed normalised innovation squared (NIS) inflates that rate when the
-innovations say the current changes faster (a current's edge crossed within
-minutes), and decays it back when they agree again. k and d walk very slowly
-(fouling, a compass swung again).
+``current_walk_kn_per_sqrt_h`` per axis (tidal streams turn over hours). Fast
+at an edge, steady in between: an exponentially windowed NIS of each fix's
+innovation against that fix's own noise is the change detector; above twice its
+expectation it inflates the current's process noise step by step, and the
+inflation decays back once the innovations agree again (continuous noise level
+adjustment, Bar-Shalom, Li & Kirubarajan, "Estimation with Applications to
+Tracking and Navigation", 2001, sect. 11.2, from memory). k and d walk very
+slowly (fouling, a compass swung again).
 
 Measurement (one fusion step per ground-velocity epoch, from ``Fix`` SOG/COG or
 ``GroundVelocity``)::
@@ -40,13 +43,28 @@ positions but inflates the GNSS velocity variance below ``low_sog_kn``.
 
 Observability: the current, k and d are only separable when the water velocity
 changes direction (a tack, a 90 degree or reciprocal leg; a change of speed
-helps a little). On a steady course the filter keeps the cross-correlation
-that ties k and d to the current and adds no pseudo-measurements, so their
-variances stay near the prior: the filter reports stw_scale and
+helps a little). So in the 1-Hz step k and d are Schmidt "consider" states:
+their uncertainty and cross-correlation are carried into the current's, their
+estimates never moved by a fix. They are learnt by a batch least-squares fit
+over the steady legs of a sliding window (``calibration``: one-minute blocks
+with effective sample counts for correlated noise, the current as a slowly
+varying polynomial, the prior as two observations), fused into the filter with
+only the information the filter lacks. The filter reports stw_scale and
 heading_offset_deg as the prior values until it knows them better than the
 prior, and the status "calibrated" only once their sigmas fall below the
 ``calibrated_*`` thresholds (2 sigma: 2 % of STW, 1.5 deg); until then it says
 what would calibrate them.
+
+Correlated noise: the log's and the compass's errors are correlated over
+seconds (``noise_correlation_s``); fixes a second apart are not independent
+samples of them, so their part of R is multiplied by 2 tau / dt (the
+effective sample count) and the current's sigma holds under that noise.
+
+Honest quality: the NIS of the last ``nis_check_fixes`` fixes against the
+covariance the filter uses is tested against its two-sided chi-square bounds
+(``estimators.fusion.WindowedNis``, Bar-Shalom et al. 2001, sect. 5.4.2); above
+them the quality is 'degraded' with the reason, so 'valid' is said only while
+the filter's own statistics say its model fits.
 
 Turns: in a turn the fix's ground velocity and the fix interval's mean
 heading and log speed belong to instants up to a second apart (sample times,
