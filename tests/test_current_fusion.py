@@ -113,7 +113,7 @@ def test_windowed_nis_bounds_hold_white_chi2_and_catch_a_variance_twice_the_filt
 def test_each_fusing_estimator_reports_its_steps_health():
     # GIVEN the current and the pressure estimators fed a steady boat and a steady barometer
     cur, prs = CurrentEstimator(CurrentParams()), PressureTendency()
-    from estimators.replay import run
+    from estimators.runner import run
     samples = []
     for i in range(120):
         t = 1000.0 + i
@@ -133,7 +133,7 @@ def test_each_fusing_estimator_reports_its_steps_health():
 def test_the_status_topic_carries_each_filters_fusion_health():
     from daemon.core.pipeline import Pipeline
     from daemon.core.readings import Reading
-    from tests.sinks import Keep
+    from tests.helpers import Keep
     from tests.test_pipeline import FakeAlerts
     # GIVEN a pipeline with the current estimator
     sink = Keep()

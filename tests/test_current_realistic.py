@@ -15,7 +15,8 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from estimators.current import IE, IN, CurrentEstimator, CurrentParams, ReplayContext, run
+from estimators.current import IE, IN, CurrentEstimator, CurrentParams
+from estimators.runner import RunContext, run
 from estimators.samples import Fix
 from tools.simulator import Steer, simulate
 from tools.simulator.scenarios import H, beat, ordinary_passage, tidal_box_realistic
@@ -29,7 +30,7 @@ def true_calibration(sim) -> tuple[float, float]:
 
 def publications(sim, params: CurrentParams | None = None):
     est = CurrentEstimator(params or CurrentParams())
-    ctx = ReplayContext()
+    ctx = RunContext()
     pubs = []
     for s, outs in run(est, sim.samples, ctx):
         pubs += [o for o in outs if getattr(o, "topic", None) == "current" and o.payload["east_kn"] is not None]

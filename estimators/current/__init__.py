@@ -101,7 +101,6 @@ calibration states after one course change, tests/test_current_calibration_nees.
 from __future__ import annotations
 
 from estimators.fusion import FusionReport
-from estimators.replay import ReplayContext, run
 
 from .estimator import CurrentEstimator, FilterRecord
 from .model import WaterInputs, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
@@ -110,6 +109,6 @@ from .publication import polar_sigmas
 
 __all__ = [
     "Calibration", "CurrentEstimator", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",
-    "ReplayContext", "TOPIC", "WaterInputs", "d_unit", "ground_velocity_of", "jacobian", "leeway_deg",
-    "measurement_cov", "polar_sigmas", "process_noise", "run", "unit",
+    "TOPIC", "WaterInputs", "d_unit", "ground_velocity_of", "jacobian", "leeway_deg",
+    "measurement_cov", "polar_sigmas", "process_noise", "unit",
 ]

@@ -37,7 +37,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from estimators.angles import KN_TO_MPS, to_east_north
-from estimators.current import CurrentEstimator, CurrentParams, ReplayContext, run
+from estimators.current import CurrentEstimator, CurrentParams
+from estimators.runner import RunContext, run
 from estimators.samples import Fix, Heading, WaterSpeed
 from estimators.triangle import PlainTriangle
 from tools.simulator import simulate
@@ -89,7 +90,7 @@ def one_run(sim, params: CurrentParams, pooled: Pooled) -> None:
     bound = PlainTriangle(TRIANGLE_SMOOTHING_S, stw_scale=true_scale, heading_offset_deg=true_offset)
     outage = spec.gnss_outages[0] if spec.gnss_outages else None
     frozen: dict = {}
-    ctx = ReplayContext()
+    ctx = RunContext()
     t0 = sim.scenario.start_utc
     t_prev = None
     for s, _ in run(est, sim.samples, ctx):
