@@ -177,13 +177,34 @@ def rms(values: list[float]) -> float:
     return float(np.sqrt(np.mean(a * a))) if a.size else math.nan
 
 
+def per_fix_cost() -> str:
+    """CPU time per fix of the estimator alone (a 2-hour beat, 10-Hz compass, 1-Hz log and fix)."""
+    from dataclasses import replace
+
+    from tools.simulator.scenarios import H, beat
+    sc = beat()
+    sim = simulate(replace(sc, duration_s=2 * H, sensors=replace(sc.sensors, heading_hz=10.0)), 1)
+    est = CurrentEstimator(CurrentParams())
+    samples = [s for s in sim.samples if isinstance(s, est.accepts)]
+    t = time.process_time()
+    for _ in run(est, samples, tick=False):
+        pass
+    cpu = time.process_time() - t
+    n = sum(isinstance(s, Fix) for s in samples)
+    return f"{1000.0 * cpu / n:.2f} ms CPU per fix (10-Hz compass, 1-Hz log and fix; {n} fixes)"
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(prog="python -m tools.bench.current", description=__doc__.splitlines()[0])
     ap.add_argument("--seeds", type=int, default=10, help="seeds per scenario (default 10)")
     ap.add_argument("--quick", action="store_true", help="3 seeds: a check, not the README's figures")
     ap.add_argument("--scenario", action="append", choices=sorted(SCENARIOS), help="default: the current benchmark's five")
     ap.add_argument("--calibration", action="store_true", help="print each run's final calibration")
+    ap.add_argument("--per-fix", action="store_true", help="only the estimator's CPU time per fix")
     args = ap.parse_args(argv)
+    if args.per_fix:
+        print(per_fix_cost())
+        return 0
     seeds = range(1, (3 if args.quick else args.seeds) + 1)
     params = CurrentParams()
     t_all = time.perf_counter()
