@@ -147,3 +147,23 @@ def test_the_status_topic_carries_each_filters_fusion_health():
     status = [m for m in sink.messages if m.kind == "status"][-1].payload
     gv = status["fusion"]["current"]["ground_velocity"]
     assert gv["fused"] >= 10 and gv["rejected"] == 0 and gv["last_nis"] is not None
+
+
+def test_quality_is_degraded_with_a_reason_while_the_innovations_are_larger_than_the_model_says():
+    from estimators.runner import run
+    from tests.test_current_synth import synth_passage, tacking_legs
+    # GIVEN the same tacking passage read by a GNSS as noisy as configured, and by one four times noisier
+    qualities = {}
+    for gnss_sigma in (0.1, 0.4):
+        syn = synth_passage(5, 2400, tacking_legs(2400, 300), gnss_sigma=gnss_sigma)
+        est = CurrentEstimator(CurrentParams(gnss_velocity_sigma_kn=0.1, noise_correlation_s=0.5))
+        # WHEN the estimator runs, collect the published quality and its reason after 20 minutes
+        pubs = [o.payload for s, outs in run(est, syn.samples) for o in outs
+                if getattr(o, "topic", None) == "current" and o.t_s - syn.samples[0].t_s > 1200]
+        qualities[gnss_sigma] = pubs
+    # THEN with the configured noise the windowed NIS test never degrades it
+    assert not any(p["quality"] == "degraded" for p in qualities[0.1])
+    # and with four times the noise it is degraded most of the time, saying why
+    noisy = [p for p in qualities[0.4] if p["quality"] == "degraded"]
+    assert len(noisy) > 0.8 * len(qualities[0.4])
+    assert all("NIS" in p["quality_reason"] for p in noisy)
