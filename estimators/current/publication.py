@@ -40,8 +40,9 @@ class Publisher:
         if self._log_state == "suspect":
             return "degraded", "the speed log disagrees with the GNSS"
         if self.nis_check.verdict() == "high":
-            return "degraded", (f"the ground velocity departs from the model more than its noise explains (mean NIS "
-                                f"{self.nis_check.mean:.1f} over {p.nis_check_fixes} fixes, bound {self.nis_check.high:.1f})")
+            return "degraded", (f"GNSS, log and compass disagree more than their noise explains: the current may be "
+                                f"changing fast or an instrument misreading (mean NIS {self.nis_check.mean:.1f} over "
+                                f"the last {p.nis_check_fixes} fixes, expected at most {self.nis_check.high:.1f})")
         if sigma_vec > p.valid_sigma_kn:
             return "converging", "uncertainty above the valid threshold"
         return "valid", ""
