@@ -25,7 +25,7 @@ from collections import deque
 from dataclasses import dataclass
 from typing import Any
 
-from scipy.stats import chi2
+from statistics import NormalDist
 
 
 @dataclass(frozen=True, slots=True)
@@ -41,6 +41,17 @@ class FusionReport:
     reason: str = ""                   # why not fused: "gate", "numerical guard", ...
 
 
+def chi2_quantile(p: float, dof: int) -> float:
+    """Chi-square quantile by the Wilson-Hilferty cube-root normal approximation (Wilson & Hilferty,
+    "The distribution of chi-square", PNAS 17, 1931): dof (1 - 2/(9 dof) + z_p sqrt(2/(9 dof)))^3.
+
+    Within 0.1 % of the exact quantile from 60 degrees of freedom on (checked against scipy in the
+    tests); scipy.stats itself costs the service 45 MB and a second at start.
+    """
+    a = 2.0 / (9.0 * dof)
+    return dof * (1.0 - a + NormalDist().inv_cdf(p) * math.sqrt(a)) ** 3
+
+
 class WindowedNis:
     """Time-average NIS over the last ``window`` steps, with its chi-square bounds.
 
@@ -54,8 +65,8 @@ class WindowedNis:
         self.window, self.dof = int(window), int(dof)
         tail = 0.5 * (1.0 - probability)
         n = self.window * self.dof
-        self.low = float(chi2.ppf(tail, n)) / self.window     # bounds on the mean NIS
-        self.high = float(chi2.ppf(1.0 - tail, n)) / self.window
+        self.low = chi2_quantile(tail, n) / self.window       # bounds on the mean NIS
+        self.high = chi2_quantile(1.0 - tail, n) / self.window
         self._values: deque[float] = deque(maxlen=self.window)
         self._sum = 0.0
 

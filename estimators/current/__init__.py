@@ -3,8 +3,8 @@ the compass's offset, with the uncertainty it honestly has.
 
 Theory of operation
 -------------------
-State (extended Kalman filter; x and P live in a filterpy ``ExtendedKalmanFilter``, the predict and
-the 2 x 4 update are written out here, cheaper than the generic ones)::
+State (extended Kalman filter; x and P live in a small ``FilterState``, the predict and the 2 x 4
+update are written out here, cheaper than the generic ones)::
 
     x = [c_e, c_n, k, d]
         c_e, c_n  the current toward east / north, kn (ground frame)
@@ -103,12 +103,12 @@ from __future__ import annotations
 from estimators.fusion import FusionReport
 
 from .estimator import CurrentEstimator, FilterRecord
-from .model import WaterInputs, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
+from .model import FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
 from .params import ID, IE, IK, IN, TOPIC, Calibration, CurrentParams
 from .publication import polar_sigmas
 
 __all__ = [
-    "Calibration", "CurrentEstimator", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",
+    "Calibration", "CurrentEstimator", "FilterState", "chi2_quantile_2dof", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",
     "TOPIC", "WaterInputs", "d_unit", "ground_velocity_of", "jacobian", "leeway_deg",
     "measurement_cov", "polar_sigmas", "process_noise", "unit",
 ]

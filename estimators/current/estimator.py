@@ -12,18 +12,20 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from filterpy.kalman import ExtendedKalmanFilter
-from scipy.stats import chi2
 
 from estimators.base import EstimatorBase, Output
 from estimators.fusion import FusionHealth, FusionReport, WindowedNis
+from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
 from estimators.thresholds import Hysteresis
 
 from .calibration import CalibrationFit
 from .control import Control
 from .fusion import fuse, nis2
-from .model import WaterInputs, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
+from .model import (
+    FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov,
+    process_noise, unit,
+)
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
 from .publication import Publisher
 
@@ -67,7 +69,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.params = params or CurrentParams()
         self.saved = calibration
         self.health = _Health()
-        self.ekf: ExtendedKalmanFilter | None = None
+        self.ekf: FilterState | None = None
         self.t_filter: float | None = None
         self.t_prev_gv: float | None = None
         self.q_inflation = 1.0
@@ -77,7 +79,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
         self._seen: dict[str, float] = {}
         self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
-        self._gate = float(chi2.ppf(self.params.gate_probability, 2))  # chi-square, 2 dof
+        self._gate = chi2_quantile_2dof(self.params.gate_probability)  # chi-square, 2 dof
         self._t_last_pub: float | None = None
         self._prior: tuple[float, float, float, float] | None = None  # k, d_rad, sigma_k, sigma_d_rad
         self._strong = Hysteresis(self.params.current_strong_kn,
@@ -96,7 +98,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._fast: tuple[float, float, float, float] | None = None
         self._turn_since: float | None = None
         self._calfit: CalibrationFit | None = None
-        self._cal_gate = float(chi2.ppf(self.params.calibration_fit_probability, 2))
+        self._cal_gate = chi2_quantile_2dof(self.params.calibration_fit_probability)
         self.cal_health = FusionHealth()  # the calibration fit's fusion step
         self.nis_check = WindowedNis(self.params.nis_check_fixes, 2, self.params.nis_check_probability)
 
@@ -108,14 +110,14 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             self.health.bad_inputs += 1
             return ()
         if isinstance(sample, Heading):
-            self._input_seen("heading", t, sample.true_deg, 0.0, 360.0)
+            self._input_seen("heading", t, sample.true_deg, *DIRECTION_DEG)
             return ()
         if isinstance(sample, WaterSpeed):
-            self._input_seen("water_speed", t, sample.speed_kn, 0.0, 60.0)
+            self._input_seen("water_speed", t, sample.speed_kn, 0.0, STW_MAX_KN)
             return ()
         if isinstance(sample, Attitude):
             if sample.heel_deg is not None:
-                self._input_seen("heel", t, sample.heel_deg, -90.0, 90.0)
+                self._input_seen("heel", t, sample.heel_deg, -ATTITUDE_MAX_DEG, ATTITUDE_MAX_DEG)
             return ()
         return self._ground_velocity_epoch(sample, ctx)
 
@@ -174,7 +176,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             sd = max(math.sqrt(self.ekf.P[ID, ID]), self._prior[3])
         else:
             k, d, sk, sd = self._prior
-        ekf = ExtendedKalmanFilter(dim_x=4, dim_z=2)
+        ekf = FilterState()
         s = w.speed_kn
         theta = math.radians(w.heading_deg + leeway_deg(self.params, w.heel_deg, k * s)) + d
         u, n = unit(theta), d_unit(theta)

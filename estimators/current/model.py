@@ -43,6 +43,29 @@ class WaterInputs:
     interval_s: float = 1.0        # since the previous fix: the span of these means
 
 
+def chi2_quantile_2dof(p: float) -> float:
+    """Chi-square quantile with 2 degrees of freedom: -2 ln(1 - p), exact.
+
+    With 2 degrees of freedom the chi-square distribution is exponential with mean 2
+    (Abramowitz & Stegun 26.4.20; from memory): CDF 1 - exp(-x/2). p = 0.9973 gives 11.83.
+    """
+    return -2.0 * math.log1p(-p)
+
+
+class FilterState:
+    """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays.
+
+    filterpy's ``ExtendedKalmanFilter`` held them once, but importing it loads scipy.stats, about
+    45 MB and a second at start, for nothing (the predict and the update are written out here).
+    """
+
+    __slots__ = ("x", "P")
+
+    def __init__(self) -> None:
+        self.x = np.zeros((4, 1))
+        self.P = np.eye(4)
+
+
 def unit(angle_rad: float) -> np.ndarray:
     """(east, north) of a unit vector toward ``angle_rad`` (from north, clockwise)."""
     return np.array([[math.sin(angle_rad)], [math.cos(angle_rad)]])
