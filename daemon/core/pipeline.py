@@ -174,6 +174,10 @@ class Pipeline:
             payload["inputs"] = self.counters.line_snapshot()
         if self.selector is not None:
             payload["priority"] = self.selector.snapshot()
+        # each filter's fusion steps (fused, rejected, last NIS): which sensor a filter distrusts
+        fusion = {e.name: e.fusion_health() for e in self.estimators if hasattr(e, "fusion_health")}
+        if fusion:
+            payload["fusion"] = fusion
         if self.extra_status is not None:
             payload.update(self.extra_status())
         self._emit(Message(t_s, self._topic("status"), make_payload(t_s, payload), retain=True, qos=1, kind="status"))
