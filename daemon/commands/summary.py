@@ -6,7 +6,6 @@ from collections import Counter
 from datetime import datetime, timezone
 from typing import Any
 
-from daemon.core.payloads import iso_utc
 from daemon.core.readings import Message, RawLine
 from estimators import wording
 
@@ -73,7 +72,7 @@ class SummarySink:
         if not lost and not stats.failing:
             self.outputs.append(f"Recording: {stats.path}, every line and message kept.")
             return
-        span = (f" (data time {iso_utc(stats.loss_t_first)[:19]}Z to {iso_utc(stats.loss_t_last)[:19]}Z)"
+        span = (f" (data time {_day(stats.loss_t_first)} {wording.span(stats.loss_t_first, stats.loss_t_last)})"
                 if stats.loss_t_first is not None else "")
         unmarked = (f", {stats.gaps_unwritten} of them not marked in the file (the disk never freed)"
                     if stats.gaps_unwritten else "")
