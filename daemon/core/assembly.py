@@ -19,6 +19,7 @@ from daemon.intake.priority import PrioritySelector
 from daemon.core.readings import Sink
 from estimators.current import Calibration, CurrentEstimator
 from estimators.fronts import FrontDetector
+from estimators.instruments import InstrumentReadings
 from estimators.position import PositionEstimator
 from estimators.pressure import PressureTendency
 from estimators.samples import KIND_NAMES
@@ -41,6 +42,7 @@ def build_estimators(cfg: Config, calibration: Calibration | None = None) -> lis
         FrontDetector(cfg.section("front")),
         PressureTendency(cfg.section("pressure"), inst.barometer_height_m),
         StalenessWatch(cfg.section("staleness")),
+        InstrumentReadings(),
     ]
 
 
