@@ -27,6 +27,7 @@ PUBLISH_EVERY_S = 1.0  # the interface's "<= 1 Hz"
 class InstrumentReadings(EstimatorBase):
     name = "instruments"
     accepts = (Heading, WaterSpeed, Depth, WaterWind)
+    sees_distrusted = True  # the display shows what the instruments say; an alert says when not to believe it
 
     def __init__(self) -> None:
         self._latest: dict[str, tuple[float, dict[str, float | None]]] = {}

@@ -3,7 +3,10 @@ outputs published and recorded.
 
 Every item passes through ``Pipeline.feed``: a raw line goes to the sinks (the
 recorder keeps it), a reading is checked against the source priority, added to
-the history and handed to each estimator that accepts its kind. What the
+the history and handed to each estimator that accepts its kind. A kind that an
+estimator has said not to believe (``Distrust``: a frozen compass) is withheld
+from the history and from every estimator but those that watch the sensor
+(``sees_distrusted``), counted, and listed in the status. What the
 estimators return becomes Messages (publications) or alert changes (through the
 alert manager). Data time drives everything: once per data second every
 estimator and the alert manager get a tick, and every ``status_every_s`` the
@@ -23,7 +26,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
 from daemon.core.readings import Message, RawLine, Reading, Sink, json_safe
-from estimators.base import Condition, Publication, iso_utc
+from estimators.base import Condition, Distrust, Publication, iso_utc
 from estimators.history import SampleHistory
 from estimators.samples import KIND_NAMES, kind_of
 
@@ -63,6 +66,8 @@ class Pipeline:
         self._commands: queue.SimpleQueue[tuple[str, Any]] = queue.SimpleQueue()
         self._routes = self._route_table()
         self.messages_out = 0
+        # kinds an estimator said not to believe (a frozen compass): kind -> (since, reason, withheld)
+        self.distrusted: dict[str, list] = {}
 
     # -- the doorway -------------------------------------------------------
 
@@ -79,10 +84,16 @@ class Pipeline:
             return
         sample = item.sample
         self._advance(sample.t_s)
-        self.ctx.history.add(sample)
-        self._last_seen[kind_of(sample)] = sample.t_s
+        kind = kind_of(sample)
+        self._last_seen[kind] = sample.t_s
+        withheld = self.distrusted.get(kind)
+        if withheld is not None:  # recorded (as a raw line) and shown, not fused
+            withheld[2] += 1
+        else:
+            self.ctx.history.add(sample)
         for est in self._routes.get(type(sample), ()):
-            self._handle(est.step(sample, self.ctx))
+            if withheld is None or getattr(est, "sees_distrusted", False):
+                self._handle(est.step(sample, self.ctx))
 
     def feed_all(self, items: Iterable[RawLine | Reading]) -> None:
         for item in items:
@@ -159,13 +170,30 @@ class Pipeline:
 
     def _handle(self, outputs: Iterable[Publication | Condition]) -> None:
         for out in outputs:
-            if isinstance(out, Publication):
+            if isinstance(out, Distrust):
+                self._distrust(out)
+            elif isinstance(out, Publication):
                 self.ctx._latest[out.topic] = out
                 kind = "event" if out.topic == "events" else "state"
                 self._emit(Message(out.t_s, self._topic(out.topic), _payload(out.t_s, out.payload),
                                    retain=out.retain and kind != "event", qos=1 if kind == "event" else 0, kind=kind))
             else:
                 self._emit_all(self.alerts.on_condition(out))
+
+    def _distrust(self, d: Distrust) -> None:
+        """The one place a kind of sample stops (or starts again) reaching the fusing estimators."""
+        if d.active and d.kind not in self.distrusted:
+            self.distrusted[d.kind] = [d.t_s, d.reason, 0]
+            log.warning("%s samples withheld from the estimators: %s", d.kind, d.reason)
+        elif not d.active and d.kind in self.distrusted:
+            withheld = self.distrusted.pop(d.kind)[2]
+            log.warning("%s samples used again (%d withheld): %s", d.kind, withheld, d.reason)
+        else:
+            return
+        for est in self.estimators:  # an estimator may undo what it fused since the evidence began
+            hook = getattr(est, "on_distrust", None)
+            if hook is not None:
+                hook(d.kind, d.active, d.since_s)
 
     def _emit_all(self, messages: Iterable[Message]) -> None:
         for msg in messages:
@@ -184,6 +212,8 @@ class Pipeline:
             "state": "online",
             "sensors": {k: round(t_s - seen, 1) for k, seen in sorted(self._last_seen.items())},
         }
+        payload["distrusted"] = {k: {"since": iso_utc(since), "reason": why, "withheld": n}
+                                 for k, (since, why, n) in sorted(self.distrusted.items())}
         if self.counters is not None:
             payload["inputs"] = self.counters.line_snapshot()
         if self.selector is not None:
