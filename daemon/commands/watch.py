@@ -33,6 +33,7 @@ from typing import Any
 from daemon.core.untrusted import clean_text, finite_number, load_json_object
 from daemon.errors import ConfigError, InputError
 from estimators.base import ADVISORY, PRIORITIES
+from estimators.fronts import format_lat_lon  # the one position format of every text
 
 MAX_ALERTS = 64            # alerts kept; more (a flood of retained topics) are counted and dropped
 MAX_ID_CHARS = 40
@@ -187,15 +188,6 @@ def age_words(age_s: float | None) -> str:
     return f"{age_s / 86400:.0f}d"
 
 
-def lat_lon_words(lat: float, lon: float) -> str:
-    """Degrees and decimal minutes with hemisphere letters: 40°56.2′N 032°20.8′W."""
-    def one(value: float, width: int, pos: str, neg: str) -> str:
-        minutes = round(abs(value) * 60.0, 1)
-        deg, mins = divmod(minutes, 60.0)
-        return f"{int(deg):0{width}d}°{mins:04.1f}′{pos if value >= 0 else neg}"
-    return f"{one(lat, 2, 'N', 'S')} {one(lon, 3, 'E', 'W')}"
-
-
 def arrow_toward(deg: float) -> str:
     """One of eight arrows pointing the way the water goes (north up)."""
     return ARROWS[int(((deg % 360.0) + 22.5) // 45.0) % 8]
@@ -303,7 +295,7 @@ class Screen:
         pos, cur, sea, pr = (t.get(k, {}) for k in ("position", "current", "sea_temperature", "pressure"))
         ss, ins = t.get("sea_state", {}), t.get("instruments", {})
         lat, lon = finite_number(pos.get("lat")), finite_number(pos.get("lon"))
-        where = lat_lon_words(lat, lon) if lat is not None and lon is not None and abs(lat) <= 90 else None
+        where = format_lat_lon(lat, lon) if lat is not None and lon is not None and abs(lat) <= 90 else None
         source = {"gnss": "GNSS", "dead_reckoning": "DR"}.get(pos.get("source"), "?")
         rows = [
             ("Position", [(where and f"{where} {source} ±{num(pos.get('sigma_m'), '.0f', ' m') or '?'}", "position"),

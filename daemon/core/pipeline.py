@@ -164,6 +164,8 @@ class Pipeline:
     def _tick_all(self, t_s: float) -> None:
         for est in self.estimators:
             self._handle(est.tick(t_s, self.ctx))
+        if self.selector is not None:  # two receivers that disagree
+            self._handle(self.selector.tick(t_s))
         self._emit_all(self.alerts.tick(t_s))
 
     # -- outputs -------------------------------------------------------------
