@@ -256,7 +256,8 @@ class Screen:
         detail = self._detail(alerts, width) if self.details and alerts else []
         room = height - len(rows) - len(detail) - len(footer)
         rows += self._alert_rows(alerts, width, room, data_now)
-        return [_one_line(r, width) for r in rows] + detail + [_one_line(r, width) for r in footer]
+        pad = [Text("")] * max(0, height - len(rows) - len(detail) - len(footer))  # the keys stay at the bottom
+        return [_one_line(r, width) for r in rows] + detail + pad + [_one_line(r, width) for r in footer]
 
     def _offline(self, now_s: float) -> str:
         m = self.model
