@@ -38,7 +38,9 @@ def full_model() -> WatchModel:
     publish(m, "instruments", {"time": T0, "heading_deg": 118.2, "heading_age_s": 0.4, "stw_kn": 5.41,
                                "stw_age_s": 0.8, "depth_m": 43.2, "depth_age_s": 3.0})
     publish(m, "current", {"time": T0, "set_deg": 135.2, "drift_kn": 2.13, "set_sigma_deg": 8.1,
-                           "drift_sigma_kn": 0.31, "quality": "valid"})
+                           "drift_sigma_kn": 0.31, "quality": "valid", "stw_scale": 1.0526,
+                           "stw_scale_sigma": 0.0105, "heading_offset_deg": -2.5, "heading_offset_sigma_deg": 0.8,
+                           "calibration": {"status": "calibrated"}})
     publish(m, "sea_temperature", {"time": T0, "temp_c": 18.42, "gradient_c_per_nm": 0.42})
     publish(m, "pressure", {"time": T0, "msl_hpa": 1008.2, "tendency_3h_hpa": -4.1, "rate_hpa_per_h": -1.2,
                             "descriptor": "falling", "characteristic": 7})
@@ -91,6 +93,8 @@ def test_four_alerts_and_every_line_fit_80_by_24_with_details_open():
     assert "↘ 2.1 kn toward 135°" in text and "±0.3 kn ±8°" in text
     assert "1008.2 hPa" in text and "-4.1 hPa in 3 h" in text and "falling" in text
     assert "HDG 118°T" in text and "STW 5.4 kn" in text and "Depth 43.2 m" in text
+    # true STW = log x 1.0526: the log reads 1 - 1/1.0526 = 5.0 % low; true = compass - 2.5: it reads 2.5° high
+    assert "log 5.0 % low ±1.0, compass 2.5° high ±0.8  calibrated" in text
 
 
 def test_many_alerts_scroll_and_never_push_the_footer_off():
@@ -223,3 +227,14 @@ def test_untrusted_helpers():
     assert clean_text("a\x1b[2Jb\x1b]0;t\x07c\x9b31md") == "a b c d"
     assert clean_text({"text": 1}) == ""
     assert clean_text("x" * 1000, 10) == "x" * 9 + "…"
+
+
+def test_latest_events_fill_the_room_the_alerts_leave_and_bad_ones_are_refused():
+    m = full_model()
+    publish(m, "events", {"time": "2026-05-04T06:20:00.000Z", "kind": "front_crossing", "delta_c": 1.24,
+                          "lat": 40.9, "lon": -32.3, "warmer": True})
+    publish(m, "events", {"time": T0, "kind": {"x": 1}})
+    publish(m, "events", b"[" * 100)
+    text = "\n".join(draw(online_screen(m)))
+    assert "06:20 UTC  front crossing +1.2 °C (warmer) at 40°54.0'N 032°18.0'W  10m ago" in text
+    assert m.refused == 2 and len(m.events) == 1

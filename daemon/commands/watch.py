@@ -35,6 +35,7 @@ from daemon.errors import ConfigError, InputError
 from estimators.base import ADVISORY, PRIORITIES
 from estimators.fronts import format_lat_lon  # the one position format of every text
 
+MAX_EVENTS = 5             # the newest events (front crossings) shown where there is room
 MAX_ALERTS = 64            # alerts kept; more (a flood of retained topics) are counted and dropped
 MAX_ID_CHARS = 40
 MAX_TEXT_CHARS = 600
@@ -69,6 +70,15 @@ class Alert:
 
 
 @dataclass
+class Event:
+    kind: str
+    t_s: float | None
+    delta_c: float | None
+    lat: float | None
+    lon: float | None
+
+
+@dataclass
 class Topic:
     data: dict[str, Any]
     t_s: float | None  # the payload's data time
@@ -86,6 +96,7 @@ class WatchModel:
     last_refusal: str = ""
     last_received_s: float | None = None
     temp_history: deque = field(default_factory=lambda: deque(maxlen=2000))
+    events: deque = field(default_factory=lambda: deque(maxlen=MAX_EVENTS))
     lock: threading.Lock = field(default_factory=threading.Lock)
 
     def take(self, topic: str, payload: bytes, now_s: float) -> bool:
@@ -98,8 +109,10 @@ class WatchModel:
                     self.alerts.pop(rel[7:], None)  # a retained alert deleted
                     return True
                 return self._take_alert(rel[7:], payload, now_s)
+            if rel == "events":
+                return self._take_event(payload)
             if rel not in TOPICS:
-                return False  # events, ack, topics of other programs: not shown
+                return False  # ack, topics of other programs: not shown
             doc, why = load_json_object(payload)
             if doc is None:
                 return self._refuse(f"{rel}: {why}")
@@ -131,6 +144,17 @@ class WatchModel:
             since_s=parse_time(doc.get("since")),
             received_s=now_s,
         )
+        return True
+
+    def _take_event(self, payload: bytes) -> bool:
+        doc, why = load_json_object(payload)
+        if doc is None:
+            return self._refuse(f"event: {why}")
+        kind = clean_text(doc.get("kind"), 24)
+        if not kind:
+            return self._refuse("event: no kind")
+        self.events.append(Event(kind, parse_time(doc.get("time")), finite_number(doc.get("delta_c")),
+                                 finite_number(doc.get("lat")), finite_number(doc.get("lon"))))
         return True
 
     def _refuse(self, why: str) -> bool:
@@ -256,6 +280,7 @@ class Screen:
         detail = self._detail(alerts, width) if self.details and alerts else []
         room = height - len(rows) - len(detail) - len(footer)
         rows += self._alert_rows(alerts, width, room, data_now)
+        rows += self._event_rows(height - len(rows) - len(detail) - len(footer), data_now)
         pad = [Text("")] * max(0, height - len(rows) - len(detail) - len(footer))  # the keys stay at the bottom
         return [_one_line(r, width) for r in rows] + detail + pad + [_one_line(r, width) for r in footer]
 
@@ -305,6 +330,7 @@ class Screen:
             ("Boat", [(_pair("HDG", num(ins.get("heading_deg"), "03.0f", "°T")), "heading"),
                       (_pair("STW", num(ins.get("stw_kn"), ".1f", " kn")), "stw")]),
             ("Current", [(self._current_words(cur), "current")]),
+            ("Log/comp.", [(self._calibration_words(cur), "current")]),
             ("Sea temp", [(self._temp_words(sea), "sea_temperature")]),
             ("Barometer", [(self._pressure_words(pr), "pressure")]),
             ("Wind", [(self._wind_words(ss, ins), "sea_state" if "true_wind_kn" in ss else "wind"),
@@ -324,6 +350,28 @@ class Screen:
         quality = clean_text(cur.get("quality"), 20)
         return (f"{arrow_toward(set_deg)} {drift:.1f} kn toward {set_deg:03.0f}°"
                 f"  ±{sig_kn or '?'} kn ±{sig_deg or '?'}°  {quality}")
+
+    def _calibration_words(self, cur: dict) -> str | None:
+        """The speed log's and the compass's errors as the current filter has learnt them, the right way round.
+
+        true STW = log x stw_scale, so the log reads (1 - 1/stw_scale) low; true heading = compass +
+        heading_offset_deg, so the compass reads heading_offset_deg low (interface: current payload).
+        """
+        scale, offset = finite_number(cur.get("stw_scale")), finite_number(cur.get("heading_offset_deg"))
+        if scale is None or offset is None or scale <= 0:
+            return None
+        low_pct = (1.0 - 1.0 / scale) * 100.0
+        sigma_pct = finite_number(cur.get("stw_scale_sigma"))
+        sigma_deg = finite_number(cur.get("heading_offset_sigma_deg"))
+        log = f"log {abs(low_pct):.1f} % {'low' if low_pct >= 0 else 'high'}"
+        if sigma_pct is not None:
+            log += f" ±{sigma_pct / scale * 100.0:.1f}"
+        compass = f"compass {abs(offset):.1f}° {'low' if offset >= 0 else 'high'}"
+        if sigma_deg is not None:
+            compass += f" ±{sigma_deg:.1f}"
+        calibration = cur.get("calibration")
+        status = clean_text(calibration.get("status"), 20) if isinstance(calibration, dict) else ""
+        return f"{log}, {compass}" + (f"  {status}" if status else "")
 
     def _temp_words(self, sea: dict) -> str | None:
         temp = num(sea.get("temp_c"), ".1f", " °C")
@@ -421,6 +469,25 @@ class Screen:
             rows.append(row)
         if len(alerts) > room:
             rows.append(Text(f"  … {len(alerts) - room} more: ↑↓ to scroll", style="dim"))
+        return rows
+
+    def _event_rows(self, room: int, data_now: float | None) -> list[Any]:
+        """The newest events, where the alerts leave room (a rule and at least one line)."""
+        from rich.text import Text
+
+        events = list(self.model.events)[::-1][: max(0, room - 2)]
+        if not events:
+            return []
+        rows = [Text(""), Text("── Latest events " + "─" * 80, style="dim", overflow="crop")]
+        for e in events:
+            when = datetime.fromtimestamp(e.t_s, tz=timezone.utc).strftime("%H:%M UTC") if e.t_s else "--:--"
+            what = e.kind.replace("_", " ")
+            if e.delta_c is not None:
+                what += f" {e.delta_c:+.1f} °C ({'warmer' if e.delta_c > 0 else 'colder'})"
+            if e.lat is not None and e.lon is not None and abs(e.lat) <= 90:
+                what += f" at {format_lat_lon(e.lat, e.lon)}"
+            age = age_words(data_now - e.t_s) if data_now is not None and e.t_s else ""
+            rows.append(Text(f"  {when}  {what}" + (f"  {age} ago" if age else ""), style="dim"))
         return rows
 
     def _detail(self, alerts: list[Alert], width: int) -> list[Any]:
