@@ -186,3 +186,21 @@ def test_stuck_compass_scenario_through_the_service_pipeline(seed):
 
     assert after and max(error(m) for m in after) < 0.35
     assert sorted(error(m) for m in after)[len(after) // 2] < 0.3
+
+
+def test_a_real_compass_under_way_all_round_the_compass_is_never_suspect():
+    # GIVEN the shared 94-minute capture under way in a bay, headings all round the compass from an
+    # autopilot's HDG/HDT at ~1 Hz (SOURCES.md), WHEN it replays through the whole pipeline
+    from daemon.commands.replay import run_replay
+    from tests.shared import shared_path
+
+    path = shared_path("real-captures", "under-way-94min-hdg-hdt-rmc.nmea")
+    keep = Keep()
+    run_replay([str(path)], load_config(None), extra_sinks=[keep], progress=False)
+    # THEN the compass is believed throughout: no heading_suspect, nothing withheld
+    assert not [m for m in keep.messages if m.topic.endswith("/alerts/heading_suspect")]
+    statuses = [m.payload for m in keep.messages if m.topic.endswith("/status")]
+    assert len(statuses) > 500 and all(s["distrusted"] == {} for s in statuses)
+    # and the display topic carried the compass (HDT, true) and its age
+    shown = [m.payload for m in keep.messages if m.topic.endswith("/instruments") and "heading_deg" in m.payload]
+    assert len(shown) > 4000 and all(0.0 <= p["heading_age_s"] < 30.0 for p in shown[100:])
