@@ -238,3 +238,27 @@ def test_latest_events_fill_the_room_the_alerts_leave_and_bad_ones_are_refused()
     text = "\n".join(draw(online_screen(m)))
     assert "06:20 UTC  front crossing +1.2 °C (warmer) at 40°54.0'N 032°18.0'W  10m ago" in text
     assert m.refused == 2 and len(m.events) == 1
+
+
+def test_watch_takes_the_services_mqtt_settings_and_the_command_line_overrides(tmp_path):
+    import argparse
+
+    from daemon.commands.watch import make_client, watch_settings
+    from daemon.errors import ConfigError
+
+    cfg = tmp_path / "offwatch.toml"
+    cfg.write_text('[mqtt]\nurl = "mqtt://chart-table.local:1884"\nprefix = "fleet/tern"\n'
+                   'username = "crew"\npassword = "s3cret"\n')
+    s = watch_settings(argparse.Namespace(config=str(cfg), mqtt=None, prefix=None))
+    assert (s.host, s.port, s.tls, s.prefix, s.username, s.password) == (
+        "chart-table.local", 1884, False, "fleet/tern", "crew", "s3cret")
+    client = make_client(s, WatchModel(prefix=s.prefix), Screen(WatchModel(), broker=s.where()))
+    assert client.username == "crew" and client.password == "s3cret"
+    s = watch_settings(argparse.Namespace(config=str(cfg), mqtt="mqtts://10.0.0.2", prefix="other"))
+    assert (s.host, s.port, s.tls, s.prefix, s.username) == ("10.0.0.2", 8883, True, "other", "crew")
+    cfg.write_text('[mqtt]\nurl = "mqtts://b:8883"\nca_file = "/nonexistent/ca.pem"\n')
+    s = watch_settings(argparse.Namespace(config=str(cfg), mqtt=None, prefix=None))
+    with pytest.raises(ConfigError, match="mqtt.ca_file"):
+        make_client(s, WatchModel(), Screen(WatchModel(), broker=s.where()))
+    with pytest.raises(ConfigError, match="--mqtt"):
+        watch_settings(argparse.Namespace(config=None, mqtt="http://x", prefix=None))
