@@ -104,7 +104,10 @@ def test_many_alerts_scroll_and_never_push_the_footer_off():
     s = online_screen(m)
     for _ in range(25):
         handle_key("down", s, lambda: None)
+    publish(m, "current", {"time": T0, "set_deg": 47.0, "drift_kn": 4.2, "set_sigma_deg": 1.0,
+                           "drift_sigma_kn": 0.04, "quality": "valid"})
     lines = draw(s)
+    assert "±0.04 kn" in "\n".join(lines)  # a small sigma is not rounded to a false "±0.0"
     assert len(lines) <= 24
     assert "acknowledge" in lines[-1]
     assert any(line.startswith("▶") for line in lines), "the selected alert stays visible"

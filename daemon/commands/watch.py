@@ -346,7 +346,9 @@ class Screen:
         if drift is None or set_deg is None:
             quality = clean_text(cur.get("quality"), 20)
             return f"not yet known ({quality})" if quality else None
-        sig_kn, sig_deg = num(cur.get("drift_sigma_kn"), ".1f"), num(cur.get("set_sigma_deg"), ".0f")
+        sigma = finite_number(cur.get("drift_sigma_kn"))
+        sig_kn = num(sigma, ".2f" if sigma is not None and sigma < 0.095 else ".1f")  # never "±0.0 kn"
+        sig_deg = num(cur.get("set_sigma_deg"), ".0f")
         quality = clean_text(cur.get("quality"), 20)
         return (f"{arrow_toward(set_deg)} {drift:.1f} kn toward {set_deg:03.0f}°"
                 f"  ±{sig_kn or '?'} kn ±{sig_deg or '?'}°  {quality}")
