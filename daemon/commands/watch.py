@@ -280,9 +280,10 @@ class Screen:
         detail = self._detail(alerts, width) if self.details and alerts else []
         room = height - len(rows) - len(detail) - len(footer)
         rows += self._alert_rows(alerts, width, room, data_now)
-        rows += self._event_rows(height - len(rows) - len(detail) - len(footer), data_now)
-        pad = [Text("")] * max(0, height - len(rows) - len(detail) - len(footer))  # the keys stay at the bottom
-        return [_one_line(r, width) for r in rows] + detail + pad + [_one_line(r, width) for r in footer]
+        rows = [_one_line(r, width) for r in rows] + detail
+        rows += [_one_line(r, width) for r in self._event_rows(height - len(rows) - len(footer), data_now)]
+        pad = [Text("")] * max(0, height - len(rows) - len(footer))  # the keys stay on the bottom row
+        return rows + pad + [_one_line(r, width) for r in footer]
 
     def _offline(self, now_s: float) -> str:
         m = self.model
