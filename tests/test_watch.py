@@ -265,3 +265,11 @@ def test_watch_takes_the_services_mqtt_settings_and_the_command_line_overrides(t
         make_client(s, WatchModel(), Screen(WatchModel(), broker=s.where()))
     with pytest.raises(ConfigError, match="--mqtt"):
         watch_settings(argparse.Namespace(config=None, mqtt="http://x", prefix=None))
+
+
+def test_a_payload_dated_in_the_future_does_not_age_every_true_value():
+    m = full_model()
+    publish(m, "sea_state", {"time": "2099-01-01T00:00:00.000Z", "true_wind_kn": 5.0})
+    lines = draw(online_screen(m))
+    assert "06:30:00 UTC" in lines[0]
+    assert "Position" in lines[2] and lines[2].rstrip().endswith(" 0s")

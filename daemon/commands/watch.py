@@ -41,6 +41,7 @@ MAX_ID_CHARS = 40
 MAX_TEXT_CHARS = 600
 TEMP_TREND_S = 600.0       # the sea temperature's trend is its change over this long
 STATES = ("active", "acknowledged", "rectified", "cleared")
+STATUS_EVERY_S = 10.0      # the service publishes its status this often (interface)
 OFFLINE_AFTER_S = 30.0     # no message at all for this long (wall clock): the service is taken as gone
 
 # How old a topic's newest value may be (s of data time) before it is shown dimmed: a few times its interval.
@@ -171,6 +172,11 @@ class WatchModel:
     def data_now_s(self) -> float | None:
         """The service's newest data time: ages are measured against it (replay runs faster than the clock)."""
         times = [t.t_s for name, t in self.topics.items() if t.t_s is not None]
+        status = self.topics.get("status")
+        if status is not None and status.t_s is not None:
+            # a payload dated far past the service's own status (another app's, or a bad clock) must not make
+            # every true value look hours old
+            times = [t for t in times if t <= status.t_s + STATUS_EVERY_S * 6]
         return max(times) if times else None
 
     def temp_trend(self) -> tuple[float, float] | None:
