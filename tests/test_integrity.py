@@ -21,7 +21,7 @@ from daemon.core.readings import Reading
 from estimators.base import Condition, Distrust, EstimatorBase, Publication
 from estimators.integrity import HeadingIntegrity
 from estimators.samples import Fix, Heading, Pressure
-from tests.sinks import Keep
+from tests.helpers import Keep
 from tools.simulator import scenarios
 from tools.simulator.run import simulate
 

@@ -14,7 +14,7 @@ from daemon.core.pipeline import Pipeline
 from daemon.core.readings import Reading
 from daemon.intake.priority import PrioritySelector
 from estimators.samples import Fix
-from tests.sinks import Keep
+from tests.helpers import Keep
 
 LAT, LON = 50.0, -4.0
 ONE_MINUTE = 1.0 / 60.0

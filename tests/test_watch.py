@@ -19,7 +19,7 @@ from daemon.commands.watch import (
     Screen, WatchModel, acknowledge, age_words, arrow_toward, handle_key, short_text,
 )
 from daemon.core.untrusted import clean_text, json_depth_ok, load_json_object
-from estimators.base import ADVISORY
+from daemon.core.payloads import ADVISORY
 
 T0 = "2026-05-04T06:30:00.000Z"
 NOW = 1000.0  # monotonic wall time of the test

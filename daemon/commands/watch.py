@@ -32,7 +32,8 @@ from typing import Any
 
 from daemon.core.untrusted import clean_text, finite_number, load_json_object
 from daemon.errors import ConfigError, InputError
-from estimators.base import ADVISORY, PRIORITIES
+from daemon.core.payloads import ADVISORY
+from estimators.base import PRIORITIES
 from estimators.fronts import format_lat_lon  # the one position format of every text
 
 MAX_EVENTS = 5             # the newest events (front crossings) shown where there is room
