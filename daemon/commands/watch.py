@@ -563,49 +563,43 @@ def _console(width: int) -> Any:
 
 # -- the broker -------------------------------------------------------------------
 
-@dataclass(frozen=True)
-class WatchSettings:
-    host: str
-    port: int
-    tls: bool
-    prefix: str
-    username: str = ""
-    password: str = ""
-    ca_file: str = ""
-    cert_file: str = ""
-    key_file: str = ""
+def watch_settings(args: Any) -> tuple[Any, Any]:
+    """The service's own [mqtt] settings (``MqttSettings``: user, password, TLS files) from --config, with
+    --mqtt and --prefix over them, and the broker address -> (settings, BrokerUrl)."""
+    import dataclasses
 
-    def where(self) -> str:
-        return f"{'mqtts' if self.tls else 'mqtt'}://{self.host}:{self.port}"
-
-
-def watch_settings(args: Any) -> WatchSettings:
-    """The service's [mqtt] settings (user, password, TLS files) from --config; --mqtt and --prefix override."""
-    from daemon.core.config import load_config
+    from daemon.core.config import load_config, mqtt_problems
     from daemon.outlets.mqtt import parse_broker_url
 
     cfg = load_config(args.config) if getattr(args, "config", None) else load_config(None)
-    m = cfg.mqtt
-    url = args.mqtt or m.url or "mqtt://127.0.0.1:1883"
+    url = args.mqtt or cfg.mqtt.url or "mqtt://127.0.0.1:1883"
     broker = parse_broker_url(url, "--mqtt" if args.mqtt else "mqtt.url")
-    prefix = (args.prefix or m.prefix).strip("/")
-    if not prefix or any(c in prefix for c in "+#"):
-        raise ConfigError(f"prefix {prefix!r}: expected a topic without wildcards, e.g. offwatch")
-    return WatchSettings(host=broker.host, port=broker.port, tls=broker.tls, prefix=prefix,
-                         username=m.username or broker.username, password=m.password or broker.password,
-                         ca_file=m.ca_file, cert_file=m.cert_file, key_file=m.key_file)
+    settings = dataclasses.replace(cfg.mqtt, url=url, prefix=(args.prefix or cfg.mqtt.prefix).strip("/"),
+                                   client_id=f"offwatch-watch-{os.getpid()}")
+    problems = mqtt_problems(settings)
+    if problems:
+        raise ConfigError(f"mqtt.{problems[0]}")
+    return settings, broker
 
 
-def make_client(s: WatchSettings, model: WatchModel, screen: Screen) -> Any:
+def broker_words(broker: Any) -> str:
+    return f"{'mqtts' if broker.tls else 'mqtt'}://{broker.host}:{broker.port}"
+
+
+def make_client(s: Any, broker: Any, model: WatchModel, screen: Screen) -> Any:
+    """A paho client set up as the service's (user and password from the settings or the URL, TLS as
+    the service checks its files), subscribing to everything under the prefix."""
     import ssl
 
     import paho.mqtt.client as paho
     from paho.mqtt.enums import CallbackAPIVersion
 
-    client = paho.Client(CallbackAPIVersion.VERSION2, client_id=f"offwatch-watch-{os.getpid()}")
-    if s.username:
-        client.username_pw_set(s.username, s.password or None)
-    if s.tls:
+    protocol = paho.MQTTv5 if s.protocol == "5" else paho.MQTTv311
+    client = paho.Client(CallbackAPIVersion.VERSION2, client_id=s.client_id, protocol=protocol)
+    username = s.username or broker.username
+    if username:
+        client.username_pw_set(username, s.password or broker.password or None)
+    if broker.tls:
         for key in ("ca_file", "cert_file", "key_file"):
             path = getattr(s, key)
             if path and not os.path.isfile(path):
@@ -702,14 +696,14 @@ def watch_command(args: Any) -> int:
     from rich.console import Console
     from rich.live import Live
 
-    settings = watch_settings(args)
+    settings, broker = watch_settings(args)
     model = WatchModel(prefix=settings.prefix)
-    screen = Screen(model, broker=settings.where())
-    client = make_client(settings, model, screen)
+    screen = Screen(model, broker=broker_words(broker))
+    client = make_client(settings, broker, model, screen)
     try:
-        client.connect_async(settings.host, settings.port, keepalive=30)
+        client.connect_async(broker.host, broker.port, keepalive=settings.keepalive_s)
     except (OSError, ValueError) as e:
-        raise InputError(f"cannot reach the broker at {settings.where()}: {e}") from None
+        raise InputError(f"cannot reach the broker at {broker_words(broker)}: {e}") from None
     client.loop_start()
     try:
         if args.once or not sys.stdin.isatty():
