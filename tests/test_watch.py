@@ -128,11 +128,14 @@ def test_a_stale_value_is_dimmed_and_a_fresh_one_not():
 
 def test_offline_service_is_said_in_the_header_with_the_age_of_the_data():
     m = full_model()
-    publish(m, "status", {"time": T0, "state": "offline", "sensors": {}, "reason": "connection lost"}, now=NOW)
+    # the last will is stamped with the wall clock (months after a replayed passage's data time)
+    publish(m, "status", {"time": "2026-12-02T06:43:06.000Z", "state": "offline", "sensors": {},
+                          "reason": "connection lost"}, now=NOW)
     lines = draw(online_screen(m), now=NOW + 300)
     assert "SERVICE OFFLINE (connection lost)" in lines[0]
     assert "heard 5m ago" in lines[0]
     assert "06:30:00 UTC" in lines[0]
+    assert lines[2].rstrip().endswith(" 0s"), "ages stay measured against the data, not the will's stamp"
 
 
 def test_a_silent_service_and_a_missing_broker_are_said_too():

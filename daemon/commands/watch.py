@@ -172,8 +172,11 @@ class WatchModel:
 
     def data_now_s(self) -> float | None:
         """The service's newest data time: ages are measured against it (replay runs faster than the clock)."""
-        times = [t.t_s for name, t in self.topics.items() if t.t_s is not None]
         status = self.topics.get("status")
+        if status is not None and status.data.get("state") != "online":
+            status = None  # a last will or a clean stop is stamped with the wall clock, not data time
+        times = [t.t_s for name, t in self.topics.items()
+                 if t.t_s is not None and (name != "status" or status is not None)]
         if status is not None and status.t_s is not None:
             # a payload dated far past the service's own status (another app's, or a bad clock) must not make
             # every true value look hours old
