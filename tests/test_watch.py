@@ -10,6 +10,7 @@ the view or reach the terminal raw.
 from __future__ import annotations
 
 import json
+from datetime import datetime, timezone
 
 import pytest
 from rich.cells import cell_len
@@ -131,9 +132,11 @@ def test_offline_service_is_said_in_the_header_with_the_age_of_the_data():
     # the last will is stamped with the wall clock (months after a replayed passage's data time)
     publish(m, "status", {"time": "2026-12-02T06:43:06.000Z", "state": "offline", "sensors": {},
                           "reason": "connection lost"}, now=NOW)
-    lines = draw(online_screen(m), now=NOW + 300)
+    screen = online_screen(m)
+    screen.wall_clock = lambda: datetime(2026, 12, 2, 6, 48, 6, tzinfo=timezone.utc).timestamp()
+    lines = draw(screen, now=NOW + 300)
     assert "SERVICE OFFLINE (connection lost)" in lines[0]
-    assert "heard 5m ago" in lines[0]
+    assert "gone 5m" in lines[0]
     assert "06:30:00 UTC" in lines[0]
     assert lines[2].rstrip().endswith(" 0s"), "ages stay measured against the data, not the will's stamp"
 
@@ -141,7 +144,7 @@ def test_offline_service_is_said_in_the_header_with_the_age_of_the_data():
 def test_a_silent_service_and_a_missing_broker_are_said_too():
     m = full_model()
     s = online_screen(m)
-    assert "SERVICE SILENT" in draw(s, now=NOW + 120)[0]
+    assert "SERVICE SILENT" in draw(s, now=NOW + 120)[0] and "heard 2m ago" in draw(s, now=NOW + 120)[0]
     s.connected = False
     assert "no broker at mqtt://127.0.0.1:1883" in draw(s)[0]
 

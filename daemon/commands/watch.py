@@ -251,6 +251,7 @@ class Screen:
         self.details = False
         self.notice = ""
         self.connected = False
+        self.wall_clock: Callable[[], float] = time.time  # UTC now, for the offline status's own stamp
 
     # -- keys
     def move(self, step: int) -> None:
@@ -316,15 +317,24 @@ class Screen:
         stamp = datetime.fromtimestamp(data_now, tz=timezone.utc).strftime("%H:%M:%S UTC") if data_now else "--"
         if offline:
             head.append(f" {offline} ", style="bold white on red")
-            since = self.model.last_received_s
-            if since is not None:
-                head.append(f" data {stamp}, heard {age_words(now_s - since)} ago", style="bold")
+            head.append(f" data {stamp}" + self._gone_words(now_s), style="bold")
         else:
             head.append(" online ", style="bold black on green")
             head.append(f" data {stamp}")
         if self.model.refused:
             head.append(f"  refused {self.model.refused}", style="magenta")
         return head
+
+    def _gone_words(self, now_s: float) -> str:
+        """How long the service has been gone: from its offline status's stamp (wall clock, when it
+        stopped or connected), else from the last message heard live."""
+        status = self.model.topics.get("status")
+        if status is not None and status.data.get("state") == "offline" and status.t_s is not None:
+            gone_s = self.wall_clock() - status.t_s
+            if gone_s >= 0:
+                return f", gone {age_words(gone_s)}"
+        heard = self.model.last_received_s
+        return f", heard {age_words(now_s - heard)} ago" if heard is not None else ""
 
     def _instrument_rows(self) -> list[tuple[str, list[tuple[str | None, str]]]]:
         """(label, [(text or None, topic-or-kind for its age)...]) per line."""
