@@ -26,6 +26,13 @@ and H(t) the newest heading, over every earlier fix t0 in the window
     suspect  when  turn_cog >= turn_deg  and  turn_hdg <= follow_ratio * turn_cog
                    and  spread(H over [t0, t]) <= frozen_spread_deg
 
+The heading must have stayed within ``frozen_spread_deg`` for at least
+``min_frozen_s`` (a live compass on autopilot in a calm can read still for a
+few seconds), and the fix before must already show at least half of the
+track's turn, the same way (a turn builds up over fixes; one multipath COG
+does not, and waiting for a second convicting fix would let one more second
+of the frozen heading reach the current).
+
 The fault holds while the heading stays within ``frozen_spread_deg`` of the
 value it froze at; the first reading that departs from it (the compass is
 alive again) ends it. While it holds, the condition says so as the warning
@@ -61,6 +68,8 @@ class IntegrityParams:
     frozen_spread_deg: float = param(1.0, "deg", 0.0, 10.0,
                                      "heading readings all within this of their mean (a live compass yaws more)")
     min_sog_kn: float = param(2.0, "kn", 0.5, 20.0, "below this the course over ground is too noisy to judge")
+    min_frozen_s: float = param(10.0, "s", 2.0, 120.0,
+                                "the heading must have stayed within frozen_spread_deg at least this long")
 
 
 class HeadingIntegrity(EstimatorBase):
@@ -75,7 +84,6 @@ class HeadingIntegrity(EstimatorBase):
         self._headings: deque[tuple[float, float]] = deque()
         self._tracks: deque[tuple[float, float, float]] = deque()  # (t, cog, heading then)
         self._frozen_at: float | None = None  # the heading value it froze at, while suspect
-        self._evidence: dict[str, float] = {}
 
     @property
     def suspect(self) -> bool:
@@ -110,18 +118,33 @@ class HeadingIntegrity(EstimatorBase):
         self._forget(t_s)
         if self.suspect:
             return ()
-        matches = []  # (t0, track turn, heading turn) of every earlier fix that convicts the compass
-        for t0, cog0, heading0 in self._tracks:
-            turn_cog = abs(wrap_180(cog - cog0))
-            turn_hdg = abs(wrap_180(heading_now - heading0))
-            if turn_cog >= p.turn_deg and turn_hdg <= p.follow_ratio * turn_cog:
-                spread = self._heading_spread(t0)
-                if spread is not None and spread <= p.frozen_spread_deg:
-                    matches.append((t0, turn_cog, turn_hdg, spread))
+        matches = self._convicting(t_s, cog, heading_now)
         if not matches:
             return ()
         t0, turn_cog, turn_hdg, spread = matches[-1]  # the quickest turn tells it best
         return self._raise(t_s, heading_now, turn_cog, turn_hdg, t0, spread, since_s=matches[0][0])
+
+    def _convicting(self, t_s: float, cog: float, heading_now: float) -> list[tuple[float, float, float, float]]:
+        """(t0, track turn, heading turn, spread) of every earlier fix in the window that convicts the compass."""
+        p = self.params
+        matches = []
+        tracks = list(self._tracks)
+        before = tracks[-2][1] if len(tracks) >= 2 else None  # the fix before this one's COG
+        for i, (t0, cog0, heading0) in enumerate(tracks[:-1]):
+            if self._lone(tracks[i - 1][1] if i else tracks[i + 1][1], cog0, tracks[i + 1][1]):
+                continue  # one multipath COG is no place to measure a turn from
+            signed_turn = wrap_180(cog - cog0)
+            turn_cog, turn_hdg = abs(signed_turn), abs(wrap_180(heading_now - heading0))
+            if turn_cog < p.turn_deg or turn_hdg > p.follow_ratio * turn_cog:
+                continue
+            # a turn builds up: the fix before already shows half of it, the same way (one multipath COG does not)
+            turn_before = wrap_180(before - cog0) if before is not None else 0.0
+            if turn_before * signed_turn <= 0 or abs(turn_before) < 0.5 * turn_cog:
+                continue
+            spread = self._heading_spread(min(t0, t_s - p.min_frozen_s))
+            if spread is not None and spread <= p.frozen_spread_deg:
+                matches.append((t0, turn_cog, turn_hdg, spread))
+        return matches
 
     def _raise(self, t_s: float, heading: float, turn_cog: float, turn_hdg: float, t0: float,
                spread: float, since_s: float) -> Sequence[Output]:
@@ -135,6 +158,11 @@ class HeadingIntegrity(EstimatorBase):
                 f"held) until it moves again: check the compass, its feed, and any autopilot steering by it.")
         return (Condition(t_s, ALERT_ID, WARNING, True, text, values),
                 Distrust(t_s, KIND, True, "compass stuck while the ground track turns", since_s=since_s))
+
+    def _lone(self, cog_before: float, cog: float, cog_after: float) -> bool:
+        """A COG that leaves both neighbours by more than half a turn the same way: a spike, not a turn."""
+        a, b = wrap_180(cog - cog_before), wrap_180(cog - cog_after)
+        return a * b > 0 and min(abs(a), abs(b)) > 0.5 * self.params.turn_deg
 
     def _heading_spread(self, since_s: float) -> float | None:
         """Largest circular departure of the headings since ``since_s`` from their mean, degrees.

@@ -204,3 +204,11 @@ def test_a_real_compass_under_way_all_round_the_compass_is_never_suspect():
     # and the display topic carried the compass (HDT, true) and its age
     shown = [m.payload for m in keep.messages if m.topic.endswith("/instruments") and "heading_deg" in m.payload]
     assert len(shown) > 4000 and all(0.0 <= p["heading_age_s"] < 30.0 for p in shown[100:])
+
+
+def test_one_bad_course_over_ground_under_a_still_compass_is_not_a_fault():
+    # GIVEN a compass reading still (autopilot, calm) and one multipath fix with its COG 60 deg off
+    est = HeadingIntegrity()
+    samples = passage(lambda t, r: 20.0, lambda t: 80.0 if t == 150.0 else 20.0, 300)
+    # THEN one fix cannot convict it (two in a row must)
+    assert drive(est, samples) == []
