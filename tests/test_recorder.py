@@ -15,6 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from daemon.outlets import recorder
+from daemon.nmea0183 import codec
 from daemon.errors import InputError
 from daemon.core.readings import Message, RawLine
 from daemon.outlets.recorder import (Recorder, RecordingParams, RecordingPolicy, RecordingWriter, export_tag_nmea,
@@ -380,7 +381,7 @@ def test_recorder_starts_a_new_file_at_utc_midnight_and_copies_the_config(tmp_pa
 def test_checksum_against_the_classic_gga_example():
     # The GGA example sentence of common NMEA 0183 tutorials (checksum 47, from memory).
     body = "GPGGA,123519,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,"
-    assert recorder.checksum_hex(body) == nmea_checksum(body) == "47"
+    assert codec.checksum_hex(body) == nmea_checksum(body) == "47"
 
 
 def test_export_tag_nmea_round_trips_byte_for_byte(tmp_path):

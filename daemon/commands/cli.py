@@ -49,6 +49,9 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("--record", metavar="DB", help="keep the passage in a recording, as run does")
     rep.add_argument("--mqtt", metavar="URL", help="publish to this broker as well, exactly as run would")
     rep.add_argument("--speed", type=float, metavar="X", help="pace the replay at X times real time (default: as fast as it can)")
+    rep.add_argument("--mqtt-wait", type=float, metavar="S",
+                     help="at the end, wait at most S seconds for the broker to take what is queued (default 15); "
+                          "exit status 3 when something was not delivered or not recorded")
     rep.add_argument("--quiet", action="store_true", help="no summary at the end")
 
     demo = sub.add_parser("demo", help="replay the demo passage end to end, with a broker, and summarise")

@@ -11,9 +11,9 @@ cell width so a line never wraps, and never interprets the text it is given
 as markup); keys are read from the terminal in cbreak mode.
 
 Everything received is data from any app aboard: every payload is bounded in
-size and depth before it is parsed (``daemon.core.untrusted``), every field is
-type-checked before use, and every string is stripped of control characters
-before it can reach the terminal.
+size and depth before it is parsed (``decode_json_payload``, as the service
+reads its acks), every field is type-checked before use, and every string is
+stripped of control characters before it can reach the terminal.
 """
 
 from __future__ import annotations
@@ -30,12 +30,14 @@ from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Any
 
-from daemon.core.untrusted import clean_text, finite_number, load_json_object
+from daemon.core.untrusted import clean_text, finite_number
 from daemon.errors import ConfigError, InputError
 from daemon.core.payloads import ADVISORY
 from estimators.base import PRIORITIES
 from estimators.fronts import format_lat_lon  # the one position format of every text
 
+MAX_PAYLOAD_BYTES = 64 * 1024  # a state payload of the service is well under 4 KiB
+MAX_PAYLOAD_DEPTH = 6          # the service's payloads nest 3 deep at most (status: priority.accepted.fix)
 MAX_EVENTS = 5             # the newest events (front crossings) shown where there is room
 MAX_ALERTS = 64            # alerts kept; more (a flood of retained topics) are counted and dropped
 MAX_ID_CHARS = 40
@@ -192,6 +194,18 @@ class WatchModel:
             if t1 - t0 <= TEMP_TREND_S:
                 return (c1 - c0, t1 - t0) if t1 - t0 >= 60.0 else None
         return None
+
+
+def load_json_object(payload: bytes) -> tuple[dict[str, Any] | None, str]:
+    """A JSON object from a received payload, bounded in size and depth before it is parsed ->
+    (object, ""), or (None, why it was refused)."""
+    from daemon.outlets.mqtt import PayloadRefused, decode_json_payload
+
+    try:
+        doc = decode_json_payload(payload, MAX_PAYLOAD_BYTES, MAX_PAYLOAD_DEPTH)
+    except PayloadRefused as e:
+        return None, str(e)
+    return (doc, "") if isinstance(doc, dict) else (None, "not a JSON object")
 
 
 def parse_time(value: Any) -> float | None:

@@ -1,23 +1,19 @@
-"""Everything received is data: bounded JSON and terminal-safe text.
+"""Everything received is data: terminal-safe text and type-checked numbers.
 
-A payload from the broker may come from any app aboard. Before parsing, its
-size and its nesting depth are bounded (a 1000-deep ``[[[`` would make the
-JSON parser recurse until it fails); after parsing, a string that will reach a
-terminal loses every control character (ESC starts a sequence that can clear
-the screen, move the cursor or draw fake text; C1 controls 0x80-0x9F do the
-same on some terminals), and is cut to a bounded length.
+A payload from the broker may come from any app aboard (it is bounded in size
+and depth before parsing by ``daemon.outlets.mqtt.decode_json_payload``). A
+string from it that will reach a terminal loses every control character (ESC
+starts a sequence that can clear the screen, move the cursor or draw fake
+text; C1 controls 0x80-0x9F do the same on some terminals) and is cut to a
+bounded length; a number is used only when it is a finite int or float.
 """
 
 from __future__ import annotations
 
-import json
 import math
 import re
 import unicodedata
 from typing import Any
-
-MAX_PAYLOAD_BYTES = 64 * 1024
-MAX_JSON_DEPTH = 16
 
 # ECMA-48 control sequences, removed whole so no half of one is left to read:
 # CSI (ESC [ or C1 0x9B) parameters and a final byte; OSC, DCS, APC, PM, SOS strings up to BEL or ST;
@@ -26,45 +22,6 @@ _ESCAPE_SEQUENCE = re.compile(
     r"(?:\x1b\[|\x9b)[0-?]*[ -/]*[@-~]?"
     r"|(?:\x1b[\]PX^_]|[\x90\x98\x9d\x9e\x9f])[^\x07\x1b\x9c]*(?:\x07|\x1b\\|\x9c)?"
     r"|\x1b[ -~]?")
-
-
-def json_depth_ok(payload: bytes, max_depth: int = MAX_JSON_DEPTH) -> bool:
-    """True when no array or object nests deeper than ``max_depth`` (strings skipped)."""
-    depth = 0
-    in_string = escaped = False
-    for byte in payload:
-        if in_string:
-            if escaped:
-                escaped = False
-            elif byte == 0x5C:  # backslash
-                escaped = True
-            elif byte == 0x22:  # quote
-                in_string = False
-        elif byte == 0x22:
-            in_string = True
-        elif byte in (0x5B, 0x7B):  # [ {
-            depth += 1
-            if depth > max_depth:
-                return False
-        elif byte in (0x5D, 0x7D):  # ] }
-            depth -= 1
-    return True
-
-
-def load_json_object(payload: bytes, *, max_bytes: int = MAX_PAYLOAD_BYTES,
-                     max_depth: int = MAX_JSON_DEPTH) -> tuple[dict[str, Any] | None, str]:
-    """A JSON object from untrusted bytes -> (object, ""), or (None, why it was refused)."""
-    if len(payload) > max_bytes:
-        return None, f"{len(payload)} bytes (more than {max_bytes})"
-    if not json_depth_ok(payload, max_depth):
-        return None, f"nested deeper than {max_depth}"
-    try:
-        doc = json.loads(payload.decode("utf-8"))
-    except (UnicodeDecodeError, ValueError, RecursionError):
-        return None, "not UTF-8 JSON"
-    if not isinstance(doc, dict):
-        return None, "not a JSON object"
-    return doc, ""
 
 
 def clean_text(value: Any, max_len: int = 400) -> str:
