@@ -18,7 +18,6 @@ stripped of control characters before it can reach the terminal.
 
 from __future__ import annotations
 
-import math
 import os
 import select
 import sys
@@ -721,7 +720,6 @@ def handle_key(key: str, screen: Screen, ack: Callable[[], None]) -> bool:
 
 def watch_command(args: Any) -> int:
     from rich.console import Console
-    from rich.live import Live
 
     settings, broker = watch_settings(args)
     model = WatchModel(prefix=settings.prefix)
