@@ -42,7 +42,7 @@ def test_a_mile_apart_is_said_after_the_hold_with_the_receiver_followed():
     assert c.values["following"] == "gps_mast" and c.values["other"] == "gps_chart"
     assert abs(c.values["distance_m"] - 1852) < 12
     assert "following gps_mast" in c.text and "1.00 nm" in c.text
-    assert "50°01.0'N 004°00.0'W" in c.text
+    assert "50°01.0′N 004°00.0′W" in c.text
     snap = sel.snapshot()["disagreement"]
     assert snap == {"following": "gps_mast", "other": "gps_chart", "distance_m": c.values["distance_m"]}
     # WHEN they agree again, THEN one all-clear, and the status says no disagreement

@@ -33,7 +33,7 @@ from daemon.core.untrusted import clean_text, finite_number
 from daemon.errors import ConfigError, InputError
 from daemon.core.payloads import ADVISORY
 from estimators.base import PRIORITIES
-from estimators.fronts import format_lat_lon  # the one position format of every text
+from estimators import wording  # how figures read in every text: positions, signs, sigmas
 
 MAX_PAYLOAD_BYTES = 64 * 1024  # a state payload of the service is well under 4 KiB
 MAX_PAYLOAD_DEPTH = 6          # the service's payloads nest 3 deep at most (status: priority.accepted.fix)
@@ -241,12 +241,18 @@ def arrow_toward(deg: float) -> str:
 
 
 def num(value: Any, fmt: str, unit: str = "") -> str | None:
+    """A received number as text, or None when it is not a finite number. ``fmt``: ``.1f`` (true minus,
+    no negative zero), ``+.1f`` (signed, the same), or a zero-padded direction such as ``03.0f``."""
     f = finite_number(value)
     if f is None:
         return None
-    text = format(f, fmt)
-    if text.lstrip("+-").strip("0.") == "" and text[0] in "+-":
-        text = text[1:]  # no "-0.0"
+    decimals = int(fmt.rsplit(".", 1)[1].rstrip("f"))
+    if fmt.startswith("+"):
+        text = wording.signed(f, decimals)
+    elif fmt.startswith("0"):
+        text = format(f, fmt)
+    else:
+        text = wording.fixed(f, decimals)
     return text + unit
 
 
@@ -355,7 +361,7 @@ class Screen:
         pos, cur, sea, pr = (t.get(k, {}) for k in ("position", "current", "sea_temperature", "pressure"))
         ss, ins = t.get("sea_state", {}), t.get("instruments", {})
         lat, lon = finite_number(pos.get("lat")), finite_number(pos.get("lon"))
-        where = format_lat_lon(lat, lon) if lat is not None and lon is not None and abs(lat) <= 90 else None
+        where = wording.position(lat, lon) if lat is not None and lon is not None and abs(lat) <= 90 else None
         source = {"gnss": "GNSS", "dead_reckoning": "DR"}.get(pos.get("source"), "?")
         rows = [
             ("Position", [(where and f"{where} {source} ±{num(pos.get('sigma_m'), '.0f', ' m') or '?'}", "position"),
@@ -380,12 +386,12 @@ class Screen:
         if drift is None or set_deg is None:
             quality = clean_text(cur.get("quality"), 20)
             return f"not yet known ({quality})" if quality else None
-        sigma = finite_number(cur.get("drift_sigma_kn"))
-        sig_kn = num(sigma, ".2f" if sigma is not None and sigma < 0.095 else ".1f")  # never "±0.0 kn"
-        sig_deg = num(cur.get("set_sigma_deg"), ".0f")
+        sigma, sigma_deg = finite_number(cur.get("drift_sigma_kn")), finite_number(cur.get("set_sigma_deg"))
+        sig_kn = wording.plus_minus(sigma, 1, "kn") if sigma is not None else "±? kn"  # never "±0.0 kn"
+        sig_deg = wording.plus_minus(sigma_deg, 0) + "°" if sigma_deg is not None else "±?°"
         quality = clean_text(cur.get("quality"), 20)
         return (f"{arrow_toward(set_deg)} {drift:.1f} kn toward {set_deg:03.0f}°"
-                f"  ±{sig_kn or '?'} kn ±{sig_deg or '?'}°  {quality}")
+                f"  {sig_kn} {sig_deg}  {quality}")
 
     def _calibration_words(self, cur: dict) -> str | None:
         """The speed log's and the compass's errors as the current filter has learnt them, the right way round.
@@ -419,7 +425,7 @@ class Screen:
             words.append(grad)
         trend = self.model.temp_trend()
         if trend is not None:
-            words.append(f"{trend[0]:+.1f} °C in {trend[1] / 60:.0f} min".replace("+0.0", "0.0").replace("-0.0", "0.0"))
+            words.append(f"{wording.signed(trend[0], 1)} °C in {trend[1] / 60:.0f} min")
         return "  ".join(words)
 
     def _pressure_words(self, pr: dict) -> str | None:
@@ -519,9 +525,9 @@ class Screen:
             when = datetime.fromtimestamp(e.t_s, tz=timezone.utc).strftime("%H:%M UTC") if e.t_s else "--:--"
             what = e.kind.replace("_", " ")
             if e.delta_c is not None:
-                what += f" {e.delta_c:+.1f} °C ({'warmer' if e.delta_c > 0 else 'colder'})"
+                what += f" {wording.signed(e.delta_c, 1)} °C ({'warmer' if e.delta_c > 0 else 'colder'})"
             if e.lat is not None and e.lon is not None and abs(e.lat) <= 90:
-                what += f" at {format_lat_lon(e.lat, e.lon)}"
+                what += f" at {wording.position(e.lat, e.lon)}"
             age = age_words(data_now - e.t_s) if data_now is not None and e.t_s else ""
             rows.append(Text(f"  {when}  {what}" + (f"  {age} ago" if age else ""), style="dim"))
         return rows

@@ -34,7 +34,7 @@ from geographiclib.geodesic import Geodesic
 from daemon.errors import ConfigError
 from daemon.core.readings import Reading
 from estimators.base import WARNING, Condition
-from estimators.fronts import format_lat_lon
+from estimators import wording
 from estimators.samples import KIND_NAMES, Fix, kind_of
 
 log = logging.getLogger(__name__)
@@ -164,7 +164,7 @@ class PrioritySelector:
             followed, other, d_m = apart
             where = self._fixes[other]
             text = (f"GNSS receivers disagree by {d_m / NM_M:.2f} nm ({d_m:.0f} m): following {followed}; "
-                    f"{other} puts the boat at {format_lat_lon(where.lat_deg, where.lon_deg)}. Check both against "
+                    f"{other} puts the boat at {wording.position(where.lat_deg, where.lon_deg)}. Check both against "
                     f"another position (radar range, depth contour, a bearing) and the priority order.")
             if not self._said:
                 log.warning("priority: %s", text)
