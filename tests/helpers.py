@@ -31,6 +31,7 @@ import paho.mqtt.client as paho
 from paho.mqtt.enums import CallbackAPIVersion
 
 from daemon.outlets.broker import broker_answers
+from daemon.core.readings import Message
 
 PREFIX = "testboat"  # the topic prefix of the tests' own services
 MOSQUITTO = shutil.which("mosquitto") or "/usr/sbin/mosquitto"
@@ -413,3 +414,23 @@ def interface_problems(lines: list[str], prefix: str = "offwatch") -> list[str]:
         if len(bad) > 20:
             break
     return bad
+
+
+class FakeAlerts:
+    """An alert manager that keeps the conditions and acks it is given (pipeline tests)."""
+
+    def __init__(self):
+        self.conditions, self.acks = [], []
+
+    def on_condition(self, cond):
+        self.conditions.append(cond)
+        return []
+
+    def tick(self, t_s):
+        return []
+
+    def acknowledge(self, alert_id, t_s):
+        self.acks.append((alert_id, t_s))
+        if alert_id == "no_such_alert":  # as the real manager: an unknown id changes nothing
+            return []
+        return [Message(t_s, "boat/alerts/" + alert_id, {"id": alert_id}, True, 1, "alert")]
