@@ -846,8 +846,28 @@ def iter_raw(path: str | Path) -> Iterator[RawLine]:
 
 def iter_messages(path: str | Path) -> Iterator[Message]:
     """The published messages of a recording in the order they were published."""
-    for t, _, topic, (retain, qos, kind, payload) in _iter_block_rows(path, "message_block"):
-        yield Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+    for block in iter_message_blocks(path):
+        yield from block
+
+
+def iter_message_blocks(path: str | Path) -> Iterator[list[Message]]:
+    """The published messages a block at a time (about a minute of data each), in order."""
+    conn = _open_for_reading(path)
+    try:
+        for codec, names, data in conn.execute("SELECT codec, names, data FROM message_block ORDER BY seq_first"):
+            yield [Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+                   for t, _, topic, (retain, qos, kind, payload) in _unpack_rows(codec, names, data)]
+    finally:
+        conn.close()
+
+
+def count_message_blocks(path: str | Path) -> int:
+    """How many message blocks a recording holds (for a progress bar)."""
+    conn = _open_for_reading(path)
+    try:
+        return int(conn.execute("SELECT COUNT(*) FROM message_block").fetchone()[0])
+    finally:
+        conn.close()
 
 
 def read_meta(path: str | Path) -> dict[str, Any]:
@@ -923,6 +943,6 @@ def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
 
 __all__ = ["RecordingParams", "RecordingPolicy", "Recorder", "RecorderStats", "RecordingWriter",
            "SCHEMA_VERSION", "connect", "connection_pragmas", "recording_name", "is_recording",
-           "iter_raw", "iter_messages", "read_meta", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
+           "iter_raw", "iter_messages", "iter_message_blocks", "count_message_blocks", "read_meta", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
            "tag_block"]
 
