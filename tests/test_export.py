@@ -16,6 +16,7 @@ import gzip
 import json
 import math
 import os
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -48,8 +49,8 @@ def passage(tmp_path_factory) -> dict[str, Path]:
     nmea = d / "slice.nmea"
     with gzip.open(DEMO, "rt", encoding="ascii", newline="") as f, open(nmea, "w", encoding="ascii", newline="") as o:
         for line in f:
-            ms = int(line[3:line.index(",")])  # \c:<ms>,s:...  (recorded_runs/README.md)
-            if SLICE_MS[0] <= ms < SLICE_MS[1]:
+            m = re.search(r"\\c:(\d+),", line)  # \c:<ms>,s:...  (recorded_runs/README.md)
+            if m and SLICE_MS[0] <= int(m.group(1)) < SLICE_MS[1]:
                 o.write(line)
     db = d / "slice.sqlite"
     r = cli("replay", str(nmea), "--config", str(CONFIG), "--record", str(db), "--quiet")
@@ -123,12 +124,12 @@ def test_gpx_reads_back_with_gpxpy_with_times_and_waypoints(passage, messages):
     assert points[0].longitude == pytest.approx(first["lon"], abs=1e-7)
     assert points[0].time.timestamp() == pytest.approx(messages_time(first["time"]))
     assert all(b.time > a.time for a, b in zip(points, points[1:]))
-    # the front crossing (an event) and the strong-current caution (an alert) as waypoints with words
+    # the front crossing (an event) and its caution (an alert) as waypoints with words
     events = [m.payload for m in messages if m.kind == "event"]
     assert events, "the slice holds the warmer front"
     names = [w.name for w in gpx.waypoints]
     assert any("front crossing" in n for n in names)
-    assert any("current strong" in n for n in names)
+    assert any(n == "caution front active" for n in names)
     front = next(w for w in gpx.waypoints if "front crossing" in w.name)
     assert front.latitude == pytest.approx(events[0]["lat"], abs=1e-7)
     assert "°C" in front.description and front.time.timestamp() == pytest.approx(messages_time(events[0]["time"]))
