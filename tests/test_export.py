@@ -6,17 +6,16 @@ follows RFC 7946 geometry rules) and RFC 7946 itself (3.1.1 longitude first,
 3.1.4 a LineString has two or more positions); CSV with the csv module (RFC
 4180). The passage is a 40-minute slice of the invented demo passage
 (recorded_runs/README.md: the near edge of the stream at 07:14-07:22 UTC, a
-warmer front and the strong-current caution), replayed once into a recording.
+warmer front and its caution), replayed once into a recording (the
+``demo_slice`` fixture).
 """
 
 from __future__ import annotations
 
 import csv
-import gzip
 import json
 import math
 import os
-import re
 import subprocess
 import sys
 from pathlib import Path
@@ -24,7 +23,7 @@ from pathlib import Path
 import pytest
 
 from daemon.core.config import load_config
-from daemon.outlets.export import COLUMN_NAMES, LOGBOOK_COLUMNS, logbook_paths, parse_every, read_track
+from daemon.outlets.export import COLUMN_NAMES, LOGBOOK_COLUMNS, logbook_paths, parse_every
 from daemon.outlets.passage import iter_passage
 from daemon.outlets.recorder import iter_messages
 from daemon.errors import ConfigError
@@ -33,9 +32,7 @@ from tests.shared import REPO
 gpxpy = pytest.importorskip("gpxpy", reason="gpxpy (test extra) reads GPX back")
 geojson = pytest.importorskip("geojson", reason="geojson (test extra) checks RFC 7946")
 
-DEMO = REPO / "recorded_runs" / "tern-of-haldane.nmea.gz"
 CONFIG = REPO / "recorded_runs" / "demo.toml"
-SLICE_MS = (1777878000_000, 1777880400_000)  # 2026-05-04 07:00 to 07:40 UTC
 
 
 def cli(*args: str) -> subprocess.CompletedProcess:
@@ -44,18 +41,8 @@ def cli(*args: str) -> subprocess.CompletedProcess:
 
 
 @pytest.fixture(scope="module")
-def passage(tmp_path_factory) -> dict[str, Path]:
-    d = tmp_path_factory.mktemp("passage")
-    nmea = d / "slice.nmea"
-    with gzip.open(DEMO, "rt", encoding="ascii", newline="") as f, open(nmea, "w", encoding="ascii", newline="") as o:
-        for line in f:
-            m = re.search(r"\\c:(\d+),", line)  # \c:<ms>,s:...  (recorded_runs/README.md)
-            if m and SLICE_MS[0] <= int(m.group(1)) < SLICE_MS[1]:
-                o.write(line)
-    db = d / "slice.sqlite"
-    r = cli("replay", str(nmea), "--config", str(CONFIG), "--record", str(db), "--quiet")
-    assert r.returncode == 0, r.stderr
-    return {"nmea": nmea, "db": db, "dir": d}
+def passage(demo_slice, tmp_path_factory) -> dict[str, Path]:
+    return {**demo_slice, "dir": tmp_path_factory.mktemp("exports")}
 
 
 @pytest.fixture(scope="module")

@@ -21,7 +21,7 @@ import heapq
 import html
 import json
 import math
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -93,11 +93,17 @@ class Happening:
 class PassageTrack:
     """Collects thinned track points, events, alert changes and the hourly logbook from messages.
 
-    ``every_s`` <= 0 keeps every position message.
+    ``every_s`` <= 0 keeps every position message. With ``max_rows`` (for
+    plotting a long passage) the interval doubles, and every other kept point
+    goes, whenever the track grows past it: memory stays bounded whatever the
+    passage's length, and the points stay evenly spaced in time.
     """
 
-    def __init__(self, every_s: float = DEFAULT_EVERY_S) -> None:
+    def __init__(self, every_s: float = DEFAULT_EVERY_S, max_rows: int | None = None,
+                 row_extras: Callable[[float], dict[str, Any]] | None = None) -> None:
         self.every_s = every_s
+        self.max_rows = max_rows
+        self.row_extras = row_extras  # more columns for each kept point, from its data time
         self.rows: list[dict[str, Any]] = []
         self.happenings: list[Happening] = []
         self.logbook: list[dict[str, Any]] = []
@@ -145,7 +151,13 @@ class PassageTrack:
         self._latest["position"] = dict(msg.payload)
         if msg.t_s - self._last_row_t >= self.every_s or self.every_s <= 0:
             self._last_row_t = msg.t_s
-            self.rows.append(self._row(msg.payload))
+            row = self._row(msg.payload)
+            if self.row_extras is not None:
+                row.update(self.row_extras(msg.t_s))
+            self.rows.append(row)
+            if self.max_rows is not None and len(self.rows) > self.max_rows:
+                self.rows = self.rows[::2]
+                self.every_s = max(2.0 * self.every_s, 1.0)
         hour = int(msg.t_s // 3600)
         if hour != self._last_hour:
             if self._last_hour is not None:  # the first fix opens the log below, not as an hourly line
