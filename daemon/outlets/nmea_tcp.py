@@ -170,6 +170,7 @@ class NmeaTcpSink:
             lat, lon = p.get("lat"), p.get("lon")
             if isinstance(lat, (int, float)) and isinstance(lon, (int, float)):
                 self._variation.note_position(lat, lon, msg.t_s)
+            self._repeat_alerts(msg.t_s)
         elif name == "current" and msg.kind == "state":
             self._current(msg)
         elif msg.kind == "alert" and self.p.alerts:
