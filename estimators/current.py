@@ -84,7 +84,7 @@ from __future__ import annotations
 
 import math
 from collections import deque
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Sequence
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -94,7 +94,6 @@ from scipy.stats import chi2
 
 from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
 from estimators.base import CAUTION, Condition, EstimatorBase, Output, Publication
-from estimators.history import SampleHistory
 from estimators.params import param
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
 from estimators.thresholds import Hysteresis
@@ -938,39 +937,3 @@ def polar_sigmas(e: float, n: float, Pc: np.ndarray) -> tuple[float, float]:
     sig_d = math.sqrt(max(0.0, float(jd @ Pc @ jd)))
     sig_s = math.degrees(math.sqrt(max(0.0, float(js @ Pc @ js))))
     return sig_d, min(180.0, sig_s)
-
-
-class ReplayContext:
-    """A minimal, pure Context for running estimators over a list of samples (tests, bench, smoother)."""
-
-    def __init__(self, keep_s: float = 600.0) -> None:
-        self.history = SampleHistory(keep_s)
-        self._latest: dict[str, Publication] = {}
-
-    def latest(self, topic: str) -> Publication | None:
-        return self._latest.get(topic)
-
-    def note(self, outputs: Iterable[Output]) -> list[Output]:
-        outs = list(outputs)
-        for o in outs:
-            if isinstance(o, Publication):
-                self._latest[o.topic] = o
-        return outs
-
-
-def run(estimator: Any, samples: Iterable[Sample], ctx: ReplayContext | None = None,
-        tick: bool = True) -> Iterator[tuple[Sample | float, list[Output]]]:
-    """Drive ``estimator`` as the pipeline does: history first, then step; a tick each data second."""
-    ctx = ctx or ReplayContext()
-    next_tick: float | None = None
-    for s in samples:
-        if tick:
-            if next_tick is None:
-                next_tick = math.floor(s.t_s) + 1.0
-            while next_tick <= s.t_s:
-                yield next_tick, ctx.note(estimator.tick(next_tick, ctx))
-                next_tick += 1.0
-                if s.t_s - next_tick > 600.0:
-                    next_tick = math.floor(s.t_s)
-        ctx.history.add(s)
-        yield s, ctx.note(estimator.step(s, ctx) if isinstance(s, estimator.accepts) else ())

@@ -24,8 +24,8 @@ from typing import Any
 from daemon.core.config import Config
 from daemon.core.readings import Message
 from daemon.outlets.export import PassageTrack
-from daemon.outlets.passage import iter_passage, iter_readings
-from estimators.base import iso_utc
+from daemon.outlets.passage import Thinner, iter_passage, iter_readings, passage_span_s
+from daemon.core.payloads import iso_utc
 from estimators.samples import WaterSpeed, WaterWind
 
 MAX_TRACK_POINTS = 6000       # plotted points per series, whatever the passage's length
@@ -70,6 +70,7 @@ class Passage:
     strongest: dict[str, Any] | None = None
     smoothed: list[Any] = field(default_factory=list)        # SmoothedCurrent rows, when the smoother ran
     smoother_note: str = ""
+    thinned_note: str = ""
     sea_state: list[dict[str, Any]] = field(default_factory=list)
     wind: list[dict[str, Any]] = field(default_factory=list)  # per-minute true wind from the readings
     sea_state_step_s: float = 60.0
@@ -206,7 +207,15 @@ def collect(source: str | Path, cfg: Config, *, progress: Any = None, smooth: bo
             continue
     passage = Passage(str(source), PassageTrack(every_s=1.0, max_rows=MAX_TRACK_POINTS))
     collector = _Collector(passage, gap_after)
-    for msg in iter_passage(source, cfg, progress=progress):
+    span_s = passage_span_s(source)
+    keep = None
+    if span_s is not None and span_s > SMOOTH_MAX_HOURS * 3600.0:
+        # a long recording: read each state topic about as often as the plots can show it (the payloads
+        # skipped are never decoded); status once a minute, so a feed's gap shorter than that may not show
+        keep = Thinner(every_s=span_s / MAX_TRACK_POINTS, status_every_s=60.0)
+        passage.thinned_note = (f"a long passage: positions and estimates read every {keep.every_s:.0f} s, "
+                                f"status once a minute (sensor gaps under a minute may not show)")
+    for msg in iter_passage(source, cfg, progress=progress, keep=keep):
         collector.take(msg)
     collector.finish()
     hours = ((passage.last_s or 0) - (passage.first_s or 0)) / 3600.0

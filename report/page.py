@@ -63,6 +63,8 @@ def summary_lines(p: Passage) -> list[tuple[str, str]]:
     raised = [h for h in p.track.happenings if h.kind == "alert" and h.payload.get("state") == "active"]
     out.append(("Alerts raised", f"{len(raised)}" if raised else "none"))
     out.append(("Current shown", p.smoother_note or "as published"))
+    if p.thinned_note:
+        out.append(("Read", p.thinned_note))
     return out
 
 

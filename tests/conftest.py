@@ -141,7 +141,7 @@ class DemoReplay:
 
         files, cfg = demo_files()
         self.path = Path(files[0])
-        from tests.sinks import Keep
+        from tests.helpers import Keep
 
         keep = Keep()
         self.summary = run_replay(files, load_config(cfg), extra_sinks=[keep], progress=False)

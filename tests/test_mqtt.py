@@ -24,7 +24,8 @@ import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
 from daemon.errors import ConfigError
-from daemon.outlets.mqtt import (BrokerUrl, MqttSettings, MqttSink, encode_payload, parse_ack,
+from daemon.core.config import MqttSettings, build_config
+from daemon.outlets.mqtt import (BrokerUrl, MqttSink, encode_payload, parse_ack,
                          parse_broker_url)
 from daemon.core.readings import Message
 
@@ -158,10 +159,15 @@ def test_parse_ack(payload, accepted):
 
 
 def test_bad_settings_name_the_key(tmp_path):
-    with pytest.raises(ConfigError, match="mqtt.protocol"):
+    # one check for the [mqtt] section and for settings made in code
+    with pytest.raises(ConfigError, match=r"\[mqtt\] protocol = '4'"):
         MqttSink(MqttSettings(url="mqtt://127.0.0.1:1", protocol="4"))
-    with pytest.raises(ConfigError, match="mqtt.prefix"):
+    with pytest.raises(ConfigError, match=r"\[mqtt\] prefix = 'a/#'"):
         MqttSink(MqttSettings(url="mqtt://127.0.0.1:1", prefix="a/#"))
+    with pytest.raises(ConfigError, match=r"conf: \[mqtt\] prefix = 'a/\+'"):
+        build_config({"mqtt": {"prefix": "a/+"}}, "conf")
+    with pytest.raises(ConfigError, match=r"\[mqtt\] window = 0: expected at least 1"):
+        build_config({"mqtt": {"window": 0}})
     with pytest.raises(ConfigError, match="mqtt.ca_file"):
         MqttSink(MqttSettings(url="mqtts://127.0.0.1:1", ca_file=str(tmp_path / "none.pem")))
 
@@ -193,7 +199,8 @@ def test_retained_states_reach_a_late_subscriber(mosquitto, sinks, watchers):
 KILLED_PUBLISHER = """
 import sys, time
 sys.path.insert(0, {repo!r})
-from daemon.outlets.mqtt import MqttSink, MqttSettings
+from daemon.core.config import MqttSettings
+from daemon.outlets.mqtt import MqttSink
 from daemon.core.readings import Message
 sink = MqttSink(MqttSettings(url="mqtt://{host}:{port}", prefix={prefix!r}, client_id="doomed"))
 sink.message(Message(0.0, {prefix!r} + "/status", {{"time": "2026-05-04T06:30:00.000Z", "state": "online",
@@ -251,10 +258,8 @@ def test_alerts_arrive_in_order_across_a_broker_restart(mosquitto, sinks, watche
     mosquitto.stop()
     assert wait_until(lambda: not sink.connected)
     # WHEN alert changes come while it is away (more than the in-flight window)
-    started = time.monotonic()
     for n in range(5, 25):
-        sink.message(alert(n))
-    assert time.monotonic() - started < 1.0  # message() only enqueues (a generous bound, not a benchmark)
+        sink.message(alert(n))  # only enqueues, never waits for the broker (its cost: tools/bench/handoffs.py)
     assert wait_until(lambda: sink.outbox.queued_count() == 20)
     mosquitto.start()
     # THEN every change arrives once reconnected, in order, and the outbox empties
@@ -408,13 +413,9 @@ def test_mqtt5_on_request(mosquitto, sinks, watchers):
 
 
 def test_from_config_uses_the_state_dir(tmp_path):
-    class Section:  # the shape of the [mqtt] section
-        url = "mqtt://127.0.0.1:9"
-        client_id, prefix, username, password = "offwatch-t", "fleet/aurora", "", ""
-        ca_file = cert_file = key_file = ""
-        protocol = "3.1.1"
-
-    sink = MqttSink.from_config(Section(), state_dir=tmp_path)
+    section = build_config({"mqtt": {"url": "mqtt://127.0.0.1:9", "client_id": "offwatch-t",
+                                     "prefix": "fleet/aurora"}}).mqtt
+    sink = MqttSink.from_config(section, state_dir=tmp_path)
     try:
         assert sink.status_topic == "fleet/aurora/status" and sink.ack_topic == "fleet/aurora/ack"
         assert (tmp_path / "mqtt-outbox.sqlite").exists()

@@ -16,8 +16,6 @@ from __future__ import annotations
 import socket
 import threading
 import time
-from functools import reduce
-from operator import xor
 from pathlib import Path
 
 import pynmea2
@@ -27,13 +25,9 @@ from daemon.core.config import load_config
 from daemon.core.readings import Message
 from daemon.errors import ConfigError
 from daemon.outlets.nmea_tcp import NmeaOutParams, NmeaTcpSink, alr, clean_text, vdr
-from tests.conftest import free_port
+from tests.helpers import Keep, free_port, nmea_checksum, wait_until
 
 PREFIX = "offwatch"
-
-
-def xor_checksum(body: str) -> str:
-    return f"{reduce(xor, body.encode('ascii'), 0):02X}"
 
 
 def current(t: float, set_deg: float, drift: float, quality: str = "valid") -> Message:
@@ -48,15 +42,6 @@ def position(t: float, lat: float, lon: float) -> Message:
 def alert(t: float, aid: str, state: str, text: str) -> Message:
     return Message(t, f"{PREFIX}/alerts/{aid}", {"time": "", "id": aid, "priority": "warning", "state": state,
                                                   "text": text}, retain=True, qos=1, kind="alert")
-
-
-def deadline_loop(cond, timeout_s: float = 10.0) -> bool:
-    end = time.monotonic() + timeout_s
-    while time.monotonic() < end:
-        if cond():
-            return True
-        time.sleep(0.02)
-    return cond()
 
 
 class Reader:
@@ -110,7 +95,7 @@ def test_alr_stays_within_82_characters_without_reserved_characters():
     line = alr("II", 1777884009.0, 4, True, False, text)
     assert len(line) <= 82 and line.endswith("\r\n")
     body, cs = line[1:-2].split("*")
-    assert cs == xor_checksum(body)
+    assert cs == nmea_checksum(body)
     talker_kind, hhmmss, number, cond, ack, desc = body.split(",")
     assert (talker_kind, hhmmss, number, cond, ack) == ("IIALR", "084009.00", "004", "A", "V")
     assert not set(desc) & set("$*,!\\^~") and desc.startswith("No GNSS fix for 10 s near 40.9021 deg")
@@ -119,12 +104,12 @@ def test_alr_stays_within_82_characters_without_reserved_characters():
 
 def test_a_client_receives_vdr_at_most_once_a_data_second_and_only_when_known(sink):
     client = Reader(sink.port)
-    assert deadline_loop(lambda: sink.stats.clients == 1)
+    assert wait_until(lambda: sink.stats.clients == 1)
     sink.message(position(0.0, 40.9, -32.3))
     sink.message(current(1.0, 200.0, 0.5, quality="converging"))  # not yet trusted: nothing sent
     for i in range(10):
         sink.message(current(10.0 + 0.5 * i, 47.0, 4.2))  # 2 Hz of data: 1 Hz out
-    assert deadline_loop(lambda: len(client.lines()) >= 5)
+    assert wait_until(lambda: len(client.lines()) >= 5)
     time.sleep(0.2)
     lines = client.lines()
     assert len(lines) == 5
@@ -137,11 +122,11 @@ def test_a_client_receives_vdr_at_most_once_a_data_second_and_only_when_known(si
 
 def test_alerts_go_out_as_alr_on_each_change(sink):
     client = Reader(sink.port)
-    assert deadline_loop(lambda: sink.stats.clients == 1)
+    assert wait_until(lambda: sink.stats.clients == 1)
     sink.message(alert(100.0, "gnss_lost", "active", "No GNSS fix for 10 s."))
     sink.message(alert(160.0, "gnss_lost", "acknowledged", "No GNSS fix for 70 s."))
     sink.message(alert(200.0, "gnss_lost", "cleared", "GNSS fixes are back."))
-    assert deadline_loop(lambda: len(client.lines()) >= 3)
+    assert wait_until(lambda: len(client.lines()) >= 3)
     states = [tuple(x.split("*")[0].split(",")[2:5]) for x in client.lines()]
     assert states == [("004", "A", "V"), ("004", "A", "A"), ("004", "V", "A")]
     client.close()
@@ -152,7 +137,7 @@ def test_a_client_that_never_reads_cannot_stall_or_grow_the_service(sink):
     stuck.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 1024)
     stuck.connect(("127.0.0.1", sink.port))
     reader = Reader(sink.port)
-    assert deadline_loop(lambda: sink.stats.clients == 2)
+    assert wait_until(lambda: sink.stats.clients == 2)
     n = 3000
     for i in range(n):
         sink.message(current(float(i), 47.0, 4.2))  # never waits, whatever the clients do
@@ -164,7 +149,7 @@ def test_a_client_that_never_reads_cannot_stall_or_grow_the_service(sink):
         lost = next(c["dropped"] for c in sink.client_snapshot() if c["port"] == me)
         return len(reader.lines()) + lost + sink.stats.dropped_queue == n
 
-    assert deadline_loop(reader_accounted, 20)  # every sentence received or counted as lost
+    assert wait_until(reader_accounted, 20)  # every sentence received or counted as lost
     assert len(reader.lines()) > n // 2  # the reading client gets most of them
     stuck_port = stuck.getsockname()[1]
     stuck_info = next(c for c in sink.client_snapshot() if c["port"] == stuck_port)
@@ -180,12 +165,12 @@ def test_many_clients_and_one_too_many(tmp_path):
     s = NmeaTcpSink(NmeaOutParams(enabled=True, port=free_port(), max_clients=3))
     try:
         readers = [Reader(s.port) for _ in range(3)]
-        assert deadline_loop(lambda: s.stats.clients == 3)
+        assert wait_until(lambda: s.stats.clients == 3)
         extra = socket.create_connection(("127.0.0.1", s.port), timeout=5.0)
-        assert deadline_loop(lambda: s.stats.refused == 1)
+        assert wait_until(lambda: s.stats.refused == 1)
         assert extra.recv(10) == b""  # closed at once
         s.message(current(5.0, 120.0, 1.0))
-        assert deadline_loop(lambda: all(len(r.lines()) == 1 for r in readers))
+        assert wait_until(lambda: all(len(r.lines()) == 1 for r in readers))
         for r in readers:
             r.close()
         extra.close()
@@ -208,7 +193,6 @@ def test_it_binds_to_loopback_unless_told_and_names_a_busy_port():
 
 def test_a_live_replay_sends_the_current_it_publishes(demo_slice, tmp_path: Path):
     from daemon.commands.replay import run_replay
-    from tests.sinks import Keep
 
     port = free_port()
     toml = tmp_path / "out.toml"
@@ -220,7 +204,7 @@ def test_a_live_replay_sends_the_current_it_publishes(demo_slice, tmp_path: Path
     worker = threading.Thread(target=lambda: (run_replay([str(demo_slice["nmea"])], cfg, extra_sinks=[keep],
                                                          progress=False, speed=400.0), done.set()), daemon=True)
     worker.start()
-    assert deadline_loop(lambda: _connect(port) is not None, 10)
+    assert wait_until(lambda: _connect(port) is not None, 10)
     reader = Reader(port)
     worker.join(timeout=120)
     assert done.is_set()

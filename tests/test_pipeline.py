@@ -8,7 +8,7 @@ from daemon.core.pipeline import Pipeline
 from daemon.core.readings import Message, RawLine, Reading
 from estimators.base import Condition, EstimatorBase, Publication
 from estimators.samples import Heading, Pressure
-from tests.sinks import Keep
+from tests.helpers import Keep
 
 
 class Echo(EstimatorBase):

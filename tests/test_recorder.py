@@ -221,15 +221,15 @@ def test_full_queue_drops_and_counts_without_blocking(tmp_path):
     rec.raw(RawLine("s", T0, T0, "$first"))
     assert held.wait(10)
     # WHEN 1000 more lines are offered
-    started = time.monotonic()
-    for line in sample_lines(1000):
-        rec.raw(line)
-    offering_s = time.monotonic() - started
-    # THEN the surplus is dropped and counted, and offering never waited for the writer
+    offering = threading.Thread(target=lambda: [rec.raw(line) for line in sample_lines(1000)])
+    offering.start()
+    offering.join(10)  # a limit to give up waiting; the cost per line is in tools/bench/handoffs.py
+    # THEN offering finished while the writer was still held (it never waited for it),
+    # and the surplus is dropped and counted
+    assert not offering.is_alive() and not hold.is_set()
     stats = rec.stats
     assert stats.dropped > 0
     assert stats.enqueued + stats.dropped == 1001
-    assert offering_s < 5
     hold.set()
     rec.close()
     # AND what was queued is all recorded

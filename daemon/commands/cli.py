@@ -27,6 +27,7 @@ examples:
   offwatch run --config /etc/offwatch/offwatch.toml
   offwatch report passage.sqlite --out passage-report
   offwatch export passage.sqlite --format gpx --out passage.gpx
+  offwatch config                                 every config key: default, unit, range
 """
 
 
@@ -84,6 +85,13 @@ def build_parser() -> argparse.ArgumentParser:
     watch.add_argument("--prefix", default="offwatch")
     watch.add_argument("--once", action="store_true", help="print one view after a few seconds and exit")
 
+    conf = sub.add_parser("config", help="every config key with its unit, range and default; or check a file",
+                          description="Without options: every key of the TOML config with its default, unit, "
+                                      "range and meaning, from the parameter tables themselves.")
+    conf.add_argument("--keys", action="store_true", help="list every key (the default)")
+    conf.add_argument("--markdown", action="store_true", help="as Markdown tables (the README's reference)")
+    conf.add_argument("--check", metavar="FILE", help="read FILE as offwatch would and say whether it is valid")
+
     return p
 
 
@@ -122,6 +130,9 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "watch":
             from daemon.commands.watch import watch_command
             return watch_command(args)
+        if args.command == "config":
+            from daemon.commands.configref import config_command
+            return config_command(args)
         if args.command == "demo":
             from daemon.commands.demo import demo_command
             return demo_command(args)
@@ -130,6 +141,9 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except KeyboardInterrupt:
         return 130
+    except BrokenPipeError:  # the reader went away (`offwatch config | head`): nothing more to say
+        sys.stderr.close()
+        return 0
     parser.error(f"unknown command {args.command}")
     return 2
 

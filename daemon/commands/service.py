@@ -76,8 +76,8 @@ class Service:
         return out
 
     def run(self) -> int:
-        from daemon.intake.sources import start_sources, specs_from_config
-        self.source_threads, self.health = start_sources(specs_from_config(self.cfg.inputs), self.chunks, self.stop)
+        from daemon.intake.sources import start_sources
+        self.source_threads, self.health = start_sources(self.cfg.inputs, self.chunks, self.stop)
         pipe = self.parts.pipeline
         pipe.republish_alerts(time.time())
         self.notifier.ready()

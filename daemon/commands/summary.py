@@ -6,7 +6,7 @@ from collections import Counter
 from typing import Any
 
 from daemon.core.readings import Message, RawLine
-from estimators.base import iso_utc
+from daemon.core.payloads import iso_utc
 
 
 class SummarySink:

@@ -24,6 +24,7 @@ from pathlib import Path
 from typing import Any
 
 from daemon.errors import ConfigError
+from daemon.outlets.outbox import DEFAULT_MAX_QUEUED
 from estimators.params import check, param
 
 
@@ -42,19 +43,34 @@ class InstallationConfig:
 
 
 @dataclass(frozen=True)
-class MqttConfig:
+class MqttSettings:
+    """The [mqtt] section, and all the MQTT sink takes (one type for both, checked by ``mqtt_problems``)."""
+
     url: str = param("", doc="mqtt://host:port or mqtts://host:port; empty: no broker")
     client_id: str = param("", doc="empty: offwatch-<hostname> for run, offwatch-replay-<pid> for replay")
     prefix: str = param("offwatch", doc="topic prefix, e.g. fleet/<boat> for a fleet")
-    username: str = param("")
-    password: str = param("")
-    ca_file: str = param("", doc="CA certificate for mqtts://")
+    username: str = param("", doc="broker user (or in the URL); empty: none")
+    password: str = param("", doc="broker password; shown as *** in the recording")
+    ca_file: str = param("", doc="CA certificate for mqtts://; empty: the system's CAs")
     cert_file: str = param("", doc="client certificate for mqtts:// (optional)")
     key_file: str = param("", doc="client key for mqtts:// (optional)")
-    protocol: str = param("3.1.1", choices=("3.1.1", "5"))
+    protocol: str = param("3.1.1", choices=("3.1.1", "5"), doc="MQTT protocol version")
+    keepalive_s: int = param(30, "s", 5, 3600, "MQTT keep-alive: how soon the broker notices offwatch is gone")
+    max_queued: int = param(DEFAULT_MAX_QUEUED, "messages", 100, 10_000_000, "outbox bound while the broker is away")
+    window: int = param(10, "messages", 1, 1000, "messages in flight to the broker at once")
+    close_timeout_s: float = param(2.0, "s", 0.0, 60.0, "longest a clean stop waits to flush the outbox")
 
 
-def client_id_for(mqtt: MqttConfig, role: str) -> MqttConfig:
+def mqtt_problems(mqtt: MqttSettings) -> list[str]:
+    """What is wrong with MQTT settings, each naming the key: the ranges of the table and the prefix."""
+    problems = check(mqtt)
+    prefix = mqtt.prefix.strip("/")
+    if not prefix or any(c in prefix for c in "+#"):
+        problems.append(f"prefix = {mqtt.prefix!r}: expected a topic without wildcards, e.g. offwatch")
+    return problems
+
+
+def client_id_for(mqtt: MqttSettings, role: str) -> MqttSettings:
     """The config with a client id that a run and a replay on one broker never share."""
     if mqtt.client_id:
         return mqtt
@@ -71,20 +87,35 @@ class StateConfig:
 
 @dataclass(frozen=True)
 class InputConfig:
-    kind: str = param("serial", choices=("serial", "tcp", "udp", "file"))
+    """One [inputs.NAME] table, and all a live source takes (checked by ``input_problems``)."""
+
+    kind: str = param("serial", choices=("serial", "tcp", "udp", "file"),
+                      doc="serial port, TCP client (a multiplexer), UDP listener, or a followed file")
     device: str = param("", doc="serial device, e.g. /dev/serial/by-id/...")
-    baud: int = param(4800, "baud", 300, 921600)
-    host: str = param("")
-    port: int = param(10110, "", 1, 65535)
+    baud: int = param(4800, "baud", 300, 921600, "serial: 4800 for NMEA 0183, 38400 for high speed and AIS")
+    host: str = param("", doc="tcp: the multiplexer's address")
+    port: int = param(10110, "", 1, 65535, "tcp/udp port (10110 is customary for NMEA 0183 over IP)")
     bind: str = param("0.0.0.0", doc="UDP listen address")
-    path: str = param("")
+    path: str = param("", doc="file: a file or FIFO to follow as it grows")
     allow_no_checksum: bool = param(False, doc="accept sentences without *hh from this source")
+
+
+_INPUT_NEEDS = {"serial": ("device", "/dev/serial/by-id/..."), "tcp": ("host", "..."), "file": ("path", "...")}
+
+
+def input_problems(cfg: InputConfig) -> list[str]:
+    """What is wrong with one input, each naming the key: the ranges of the table and what its kind needs."""
+    problems = check(cfg)
+    need = _INPUT_NEEDS.get(cfg.kind)
+    if need and not getattr(cfg, need[0]):
+        problems.append(f"kind = {cfg.kind!r} needs {need[0]} = \"{need[1]}\"")
+    return problems
 
 
 @dataclass(frozen=True)
 class Config:
     installation: InstallationConfig
-    mqtt: MqttConfig
+    mqtt: MqttSettings
     state: StateConfig
     inputs: dict[str, InputConfig]
     priority: dict[str, list[str]]
@@ -139,7 +170,7 @@ def parameter_sections() -> dict[str, type]:
     }
 
 
-_FIXED = {"installation": InstallationConfig, "mqtt": MqttConfig, "state": StateConfig}
+_FIXED = {"installation": InstallationConfig, "mqtt": MqttSettings, "state": StateConfig}
 
 
 def load_config(path: str | os.PathLike[str] | None = None) -> Config:
@@ -167,6 +198,8 @@ def build_config(table: dict[str, Any], where: str = "config") -> Config:
             raise ConfigError(f"{where}: unknown section [{key}]: expected one of {', '.join(sorted(known))}")
     fixed = {name: fill(cls, table.get(name, {}), f"{where}: [{name}]") for name, cls in _FIXED.items()}
     _check_date(fixed["installation"].gnss_not_before, f"{where}: [installation] gnss_not_before")
+    for problem in mqtt_problems(fixed["mqtt"])[:1]:
+        raise ConfigError(f"{where}: [mqtt] {problem}")
     inputs = _inputs(table.get("inputs", {}), where)
     priority = _priority(table.get("priority", {}), where, inputs)
     sections = {name: fill(cls, table.get(name, {}), f"{where}: [{name}]") for name, cls in sections_cls.items()}
@@ -250,9 +283,8 @@ def _inputs(table: Any, where: str) -> dict[str, InputConfig]:
     inputs = {}
     for name, values in table.items():
         cfg = fill(InputConfig, values, f"{where}: [inputs.{name}]")
-        need = {"serial": "device", "tcp": "host", "file": "path"}.get(cfg.kind)
-        if need and not getattr(cfg, need):
-            raise ConfigError(f"{where}: [inputs.{name}] kind = {cfg.kind!r} needs {need} = \"...\"")
+        for problem in input_problems(cfg)[:1]:
+            raise ConfigError(f"{where}: [inputs.{name}] {problem}")
         inputs[name] = cfg
     return inputs
 

@@ -31,11 +31,10 @@ from daemon.core.config import load_config
 from daemon.core.readings import Message, Reading
 from daemon.errors import ConfigError, InputError, OutputError
 from daemon.outlets.passage import iter_passage, iter_readings, terminal_progress
-from estimators.base import iso_utc
+from daemon.core.payloads import ADVISORY, iso_utc
 from estimators.samples import Heading, WaterSpeed, WaterWind
 
 DEFAULT_EVERY_S = 60.0
-ADVISORY = "Advisory only, not for navigation: check official forecasts, charts and your own seamanship."
 
 # (column, unit, meaning): the CSV header is the first item; README's table says the same
 COLUMNS: tuple[tuple[str, str, str], ...] = (
@@ -460,12 +459,17 @@ def read_track(source: str | Path, cfg: Any, *, every_s: float = DEFAULT_EVERY_S
                progress: Any = None) -> PassageTrack:
     """The passage's messages (and, for the logbook, its readings) gathered into a PassageTrack."""
     track = PassageTrack(every_s)
-    stream: Iterable[Message | Reading] = iter_passage(source, cfg, progress=progress)
+    # the status messages (the largest, every 10 s) carry nothing an export writes: never decoded
+    stream: Iterable[Message | Reading] = iter_passage(source, cfg, progress=progress, keep=_not_status)
     if with_readings:
         stream = heapq.merge(stream, iter_readings(source, cfg), key=_item_time)
     for item in stream:
         track.take(item)
     return track
+
+
+def _not_status(topic: str, t_s: float) -> bool:
+    return not topic.endswith("/status")
 
 
 def _item_time(item: Message | Reading) -> float:

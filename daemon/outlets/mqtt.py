@@ -30,6 +30,7 @@ How it is built (paho-mqtt 2.x, callback API version 2):
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 import math
@@ -49,9 +50,10 @@ import paho.mqtt.client as paho
 from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 
 from daemon.errors import ConfigError
-from daemon.outlets.outbox import DEFAULT_MAX_QUEUED, Outbox, Outgoing
+from daemon.outlets.outbox import Outbox, Outgoing
+from daemon.core.config import MqttSettings, mqtt_problems
+from daemon.core.payloads import clean, iso_utc
 from daemon.core.readings import Message, RawLine
-from estimators.base import iso_utc
 
 log = logging.getLogger(__name__)
 
@@ -93,44 +95,16 @@ def parse_broker_url(url: str, key: str = "mqtt.url") -> BrokerUrl:
                      username=unquote(parts.username or ""), password=unquote(parts.password or ""))
 
 
-@dataclass(frozen=True, slots=True)
-class MqttSettings:
-    """Everything the sink needs to reach a broker (the [mqtt] section plus tuning)."""
-
-    url: str = "mqtt://127.0.0.1:1883"
-    prefix: str = "offwatch"
-    client_id: str = "offwatch"
-    username: str = ""
-    password: str = ""
-    ca_file: str = ""        # mqtts://: CA certificate file; empty: the system's CAs
-    cert_file: str = ""      # mqtts://: client certificate (optional)
-    key_file: str = ""       # mqtts://: client key (optional)
-    protocol: str = "3.1.1"  # or "5"
-    keepalive_s: int = 30
-    max_queued: int = DEFAULT_MAX_QUEUED
-    window: int = 10         # queued messages paho may hold at once
-    close_timeout_s: float = 2.0
-
-
 # -- payloads -----------------------------------------------------------------
 
 def encode_payload(payload: Mapping[str, Any]) -> bytes:
-    """Compact UTF-8 JSON; a non-finite number (not JSON) becomes null."""
+    """Compact UTF-8 JSON. Payloads come cleaned from the payload layer; one that is not JSON
+    (a non-finite number from elsewhere) is cleaned there, never sent as NaN."""
     try:
         text = json.dumps(payload, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
     except ValueError:
-        text = json.dumps(_finite_or_null(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
+        text = json.dumps(clean(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
     return text.encode("utf-8")
-
-
-def _finite_or_null(value: Any) -> Any:
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, Mapping):
-        return {k: _finite_or_null(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_finite_or_null(v) for v in value]
-    return value
 
 
 def offline_payload(reason: str, now_s: float | None = None) -> bytes:
@@ -172,13 +146,9 @@ class MqttSink:
                  on_connected: Callable[[], object] | None = None) -> None:
         self.settings = settings
         self.broker = parse_broker_url(settings.url)
+        for problem in mqtt_problems(settings)[:1]:  # the config's own check: settings made in code too
+            raise ConfigError(f"[mqtt] {problem}")
         prefix = settings.prefix.strip("/")
-        if not prefix or any(c in prefix for c in "+#"):
-            raise ConfigError(f"mqtt.prefix = {settings.prefix!r}: expected a topic without wildcards, e.g. offwatch")
-        if settings.protocol not in ("3.1.1", "5"):
-            raise ConfigError(f"mqtt.protocol = {settings.protocol!r}: expected '3.1.1' or '5'")
-        if settings.window < 1:
-            raise ConfigError(f"mqtt.window = {settings.window!r}: expected at least 1")
         self.status_topic = f"{prefix}/status"
         self.ack_topic = f"{prefix}/ack"
         self._on_ack = on_ack
@@ -210,9 +180,9 @@ class MqttSink:
     def from_config(cls, cfg: Any, *, url: str | None = None, state_dir: str | os.PathLike[str] | None = None,
                     on_ack: Callable[[str], object] | None = None,
                     on_connected: Callable[[], object] | None = None) -> MqttSink:
-        """Build from the [mqtt] config section; the outbox lives in ``state_dir`` (memory when None)."""
-        names = ("prefix", "client_id", "username", "password", "ca_file", "cert_file", "key_file", "protocol")
-        settings = MqttSettings(url=url or cfg.url, **{n: getattr(cfg, n) for n in names if hasattr(cfg, n)})
+        """Build from the [mqtt] config section (``url`` in place of its own when given); the outbox
+        lives in ``state_dir`` (memory when None)."""
+        settings = dataclasses.replace(cfg, url=url) if url else cfg
         path = Path(state_dir) / OUTBOX_FILE if state_dir is not None else None
         return cls(settings, path, on_ack=on_ack, on_connected=on_connected)
 

@@ -47,17 +47,20 @@ class _Keeper:
         pass
 
 
-def iter_passage(source: str | Path, cfg: Config, *, progress: Progress | None = None) -> Iterator[Message]:
+def iter_passage(source: str | Path, cfg: Config, *, progress: Progress | None = None,
+                 keep: Callable[[str, float], bool] | None = None) -> Iterator[Message]:
     """Every message of the passage in the order it was published.
 
     ``progress(done, total)`` is called as the source is read (blocks of a
-    recording, bytes of a text file).
+    recording, bytes of a text file). ``keep(topic, t)``, when given, may
+    refuse messages of a recording before they are decoded (thinning a long
+    passage for a plot); a replayed file's messages all come through.
     """
     source = Path(source)
     if not source.is_file():
         raise InputError(f"{source} not found (a recording or an NMEA file)")
     if is_recording_file(source):
-        yield from _recorded_messages(source, progress)
+        yield from _recorded_messages(source, progress, keep)
         return
     keeper = _Keeper()
     parts = build(cfg, [keeper], live=False)
@@ -74,11 +77,12 @@ def iter_passage(source: str | Path, cfg: Config, *, progress: Progress | None =
     keeper.pending.clear()
 
 
-def _recorded_messages(source: Path, progress: Progress | None) -> Iterator[Message]:
+def _recorded_messages(source: Path, progress: Progress | None,
+                       keep: Callable[[str, float], bool] | None) -> Iterator[Message]:
     from daemon.outlets.recorder import count_message_blocks, iter_message_blocks
 
     total = count_message_blocks(source)
-    for done, block in enumerate(iter_message_blocks(source), start=1):
+    for done, block in enumerate(iter_message_blocks(source, keep), start=1):
         yield from block
         if progress is not None:
             progress(done, total)
@@ -92,6 +96,35 @@ def iter_readings(source: str | Path, cfg: Config) -> Iterator[Reading]:
             yield item
 
 
+def passage_span_s(source: str | Path) -> float | None:
+    """A recording's length in seconds from its block index; None for a text file (not known before reading)."""
+    if not is_recording_file(source):
+        return None
+    from daemon.outlets.recorder import message_time_span
+    span = message_time_span(source)
+    return None if span is None else span[1] - span[0]
+
+
+class Thinner:
+    """A ``keep`` for ``iter_passage``: each state topic at most once every ``every_s`` of data time
+    (``status`` at most once every ``status_every_s``); events and alerts always."""
+
+    def __init__(self, every_s: float, status_every_s: float) -> None:
+        self.every_s = every_s
+        self.status_every_s = status_every_s
+        self._next: dict[str, float] = {}
+
+    def __call__(self, topic: str, t: float) -> bool:
+        name = topic.rsplit("/", 1)[-1]
+        if "/alerts/" in topic or name == "events":
+            return True
+        due = self._next.get(topic)
+        if due is not None and t < due:
+            return False
+        self._next[topic] = t + (self.status_every_s if name == "status" else self.every_s)
+        return True
+
+
 def terminal_progress(label: str) -> ProgressBar | None:
     """A progress bar on stderr when it is a terminal, else None (no output at all)."""
     if not sys.stderr.isatty():
@@ -99,4 +132,4 @@ def terminal_progress(label: str) -> ProgressBar | None:
     return ProgressBar(label=label)
 
 
-__all__ = ["iter_passage", "iter_readings", "is_recording_file", "terminal_progress"]
+__all__ = ["iter_passage", "iter_readings", "is_recording_file", "terminal_progress", "passage_span_s", "Thinner"]

@@ -850,15 +850,52 @@ def iter_messages(path: str | Path) -> Iterator[Message]:
         yield from block
 
 
-def iter_message_blocks(path: str | Path) -> Iterator[list[Message]]:
-    """The published messages a block at a time (about a minute of data each), in order."""
+def iter_message_blocks(path: str | Path, keep: Callable[[str, float], bool] | None = None
+                        ) -> Iterator[list[Message]]:
+    """The published messages a block at a time (about a minute of data each), in order.
+
+    ``keep(topic, t)`` (optional) is asked for each message before its payload
+    is decoded: a long recording read for a plot skips most of its JSON.
+    """
     conn = _open_for_reading(path)
     try:
         for codec, names, data in conn.execute("SELECT codec, names, data FROM message_block ORDER BY seq_first"):
+            rows = _unpack_rows(codec, names, data) if keep is None else _unpack_kept(codec, names, data, keep)
             yield [Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
-                   for t, _, topic, (retain, qos, kind, payload) in _unpack_rows(codec, names, data)]
+                   for t, _, topic, (retain, qos, kind, payload) in rows]
     finally:
         conn.close()
+
+
+def _unpack_kept(codec: str, names_json: str, data: bytes, keep: Callable[[str, float], bool]
+                 ) -> Iterator[tuple[float, int, str, list]]:
+    """As ``_unpack_rows`` for message blocks, reading only the time and topic of a line ``keep`` refuses.
+
+    A message line starts ``[<time>,<topic index>,``: both are plain JSON
+    numbers or a string of digits, never holding a comma.
+    """
+    try:
+        names = json.loads(names_json)
+        text = _CODECS[codec][1](data).decode("ascii")
+    except (KeyError, ValueError, zlib.error, lzma.LZMAError) as exc:
+        raise InputError(f"a recording block cannot be decoded ({codec}): {exc}") from exc
+    prev: tuple[int, int | None] = (0, 0)
+    for line in text.split("\n"):
+        t_text, index_text, _ = line[1:].split(",", 2)
+        t, prev = _decode_time(json.loads(t_text), prev)
+        topic = names[int(index_text)]
+        if keep(topic, t):
+            yield t, prev[0], topic, json.loads(line)[2:]
+
+
+def message_time_span(path: str | Path) -> tuple[float, float] | None:
+    """(first, last) data time of a recording's messages from the block index, without decoding a block."""
+    conn = _open_for_reading(path)
+    try:
+        first, last = conn.execute("SELECT MIN(t_first), MAX(t_last) FROM message_block").fetchone()
+    finally:
+        conn.close()
+    return None if first is None else (float(first), float(last))
 
 
 def count_message_blocks(path: str | Path) -> int:
@@ -943,6 +980,6 @@ def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
 
 __all__ = ["RecordingParams", "RecordingPolicy", "Recorder", "RecorderStats", "RecordingWriter",
            "SCHEMA_VERSION", "connect", "connection_pragmas", "recording_name", "is_recording",
-           "iter_raw", "iter_messages", "iter_message_blocks", "count_message_blocks", "read_meta", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
+           "iter_raw", "iter_messages", "iter_message_blocks", "count_message_blocks", "message_time_span", "read_meta", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
            "tag_block"]
 

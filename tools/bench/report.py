@@ -30,7 +30,7 @@ from daemon.core.config import load_config
 from daemon.core.readings import Message
 from daemon.outlets.export import read_track, write_csv
 from daemon.outlets.recorder import RecordingWriter
-from estimators.base import iso_utc
+from daemon.core.payloads import iso_utc
 
 T0 = 1777867200.0  # 2026-05-04 04:00 UTC, as the invented demo passage
 SENTENCES = ("RMC", "GGA", "VTG", "ZDA", "HDG", "VHW", "MTW", "MDA", "MWV", "DPT", "XDR")
@@ -81,8 +81,8 @@ def synthetic_messages(hours: float, seed: int = 1):
             yield Message(t, "offwatch/events", {"time": iso, "kind": "front_crossing", "lat": lat, "lon": lon,
                                                  "delta_c": delta, "gradient_c_per_nm": 5.0, "warmer": delta > 0},
                           retain=False, kind="event")
-            for state, dt in (("active", 0), ("cleared", 900)):
-                yield Message(t + dt * 0, "offwatch/alerts/front", {
+            for state in ("active", "cleared"):
+                yield Message(t, "offwatch/alerts/front", {
                     "time": iso, "id": "front", "priority": "caution", "state": state,
                     "text": "Sea temperature changed at a front.", "since": iso}, retain=True, qos=1, kind="alert")
         if k % 10 == 0:
@@ -99,12 +99,13 @@ def synthetic_messages(hours: float, seed: int = 1):
 
 
 def write_recording(path: Path, hours: float) -> int:
-    w = RecordingWriter(path)
+    w = RecordingWriter(path, block_span_s=600.0)
+    w.conn.execute("PRAGMA synchronous=OFF")  # a throw-away file: no power-cut safety needed, only speed
     n, next_commit = 0, T0 + 1.0
     for msg in synthetic_messages(hours):
         if msg.t_s >= next_commit:
             w.commit()
-            next_commit = msg.t_s + 10.0
+            next_commit = msg.t_s + 600.0
         w.add_message(msg)
         n += 1
     w.close()
