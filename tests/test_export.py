@@ -173,3 +173,22 @@ def test_every_takes_units_and_names_the_fix_when_wrong():
     assert parse_every("0") == 0
     with pytest.raises(ConfigError, match="--every"):
         parse_every("often")
+
+
+def test_a_thinned_read_decodes_the_same_messages_it_keeps(passage, messages):
+    from daemon.outlets.passage import Thinner
+    from daemon.outlets.recorder import iter_message_blocks
+
+    kept = [m for block in iter_message_blocks(passage["db"], Thinner(every_s=300.0, status_every_s=60.0))
+            for m in block]
+    expected, due = [], -math.inf  # the rule written out: the first position, then the first 300 s after
+    for m in messages:
+        if m.topic.endswith("/position") and m.t_s >= due:
+            expected.append(m)
+            due = m.t_s + 300.0
+    assert len(expected) == 8  # 40 minutes
+    assert [m for m in kept if m.topic.endswith("/position")] == expected
+    # events and alerts always come through, whole
+    assert [m for m in kept if m.kind in ("event", "alert")] == [m for m in messages if m.kind in ("event", "alert")]
+    status = [m.t_s for m in kept if m.topic.endswith("/status")]
+    assert all(b - a >= 60.0 for a, b in zip(status, status[1:]))

@@ -138,11 +138,12 @@ class PassageTrack:
         """Heading, STW and the wind over the water for the logbook (no message carries them)."""
         s = r.sample
         if isinstance(s, Heading):
-            self._heading = s.true_deg
+            self._heading = round(s.true_deg % 360.0, 1)
         elif isinstance(s, WaterSpeed):
-            self._stw = s.speed_kn
+            self._stw = round(s.speed_kn, 2)
         elif isinstance(s, WaterWind):
-            self._water_wind = (s.from_true_deg, s.speed_kn)
+            frm = None if s.from_true_deg is None else round(s.from_true_deg % 360.0, 1)
+            self._water_wind = (frm, round(s.speed_kn, 1))
 
     # -- what is kept -------------------------------------------------------------
     def _position(self, msg: Message) -> None:
