@@ -55,7 +55,7 @@ def summary_lines(p: Passage) -> list[tuple[str, str]]:
     out.append(("Calibration", calibration_words(p)))
     if p.strongest:
         s = p.strongest
-        out.append(("Strongest current", f"{s['drift_kn']:.1f} kn (± {s.get('drift_sigma_kn') or 0:.1f}) setting "
+        out.append(("Strongest current", f"{s['drift_kn']:.1f} kn (± {s.get('drift_sigma_kn') or 0:.2f}) setting "
                                          f"toward {s['set_deg']:03.0f}°T at {iso_minute(s['t_s'])}, "
                                          f"{position_text(s['lat'], s['lon'])}"))
     fronts = [h for h in p.track.happenings if h.kind == "event" and h.name == "front_crossing"]
@@ -82,9 +82,9 @@ def calibration_words(p: Passage) -> str:
     cmp_ = ("the compass reads about right" if abs(d) < 1.0 else
             f"the compass reads {abs(d):.1f}° {'low' if d > 0 else 'high'} (add {d:+.1f}°"
             + (f" ± {ds:.1f}°" if ds is not None else "") + ")")
-    status = last.get("calibration") or "unknown"
-    when = f", calibrated from {iso_minute(p.calibrated_s)}" if p.calibrated_s is not None else ""
-    return f"{log}; {cmp_} [{status}{when}]"
+    status = last.get("calibration") or "status unknown"
+    when = f" since {iso_minute(p.calibrated_s)[11:]}" if p.calibrated_s is not None and status == "calibrated" else ""
+    return f"{log}; {cmp_}. At the end: {status}{when}."
 
 
 def _img(path: Path) -> str:
