@@ -7,7 +7,7 @@ import time
 from pathlib import Path
 
 from daemon.core.config import load_config
-from daemon.errors import OutputError
+from daemon.errors import InputError, OutputError
 from daemon.outlets.passage import terminal_progress
 from report.collect import Passage, collect
 from report.page import write_page
@@ -32,6 +32,8 @@ CAPTIONS = {
 def make_report(source: str | Path, out_dir: str | Path, cfg, *, progress=None, smooth: bool | None = None,
                 log=None) -> tuple[Path, Passage]:
     """Collect, plot and write; returns the page's path and what was collected."""
+    if not Path(source).is_file():
+        raise InputError(f"{source} not found (a recording or an NMEA file)")
     out = Path(out_dir)
     try:
         out.mkdir(parents=True, exist_ok=True)

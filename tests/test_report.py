@@ -98,3 +98,12 @@ def test_the_daemon_never_imports_matplotlib():
            "print('matplotlib' in sys.modules)"
     r = subprocess.run([sys.executable, "-c", code], cwd=REPO, capture_output=True, text=True, timeout=120)
     assert r.stdout.strip() == "False", r.stderr
+
+
+def test_a_missing_source_is_one_line_and_creates_nothing(tmp_path, capsys):
+    from daemon.commands import cli
+    out = tmp_path / "report"
+    status = cli.main(["report", str(tmp_path / "absent.sqlite"), "--out", str(out)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status != 0 and len(err) == 1 and "absent.sqlite not found" in err[0]  # interface.md: one line
+    assert not out.exists()
