@@ -140,8 +140,10 @@ def plot_track(p: Passage, path: Path) -> Path:
     if unknown.sum() >= 2:
         ax.plot(np.where(unknown, lon, np.nan), np.where(unknown, lat, np.nan), color="0.6", lw=3.0, zorder=3,
                 label="current not yet known")
-    cb = fig.colorbar(lc, ax=ax, shrink=0.75, pad=0.02)
-    cb.set_label("drift: speed of the current (kn)")
+    known = bool(np.isfinite(drift).any())
+    if known:
+        cb = fig.colorbar(lc, ax=ax, shrink=0.6, pad=0.02)
+        cb.set_label("drift: speed of the current (kn)")
     # arrows at even distances run, pointing where the water flows (set, toward)
     dist = _column(rows, "distance_nm")
     total = float(np.nanmax(dist)) if len(dist) else 0.0
@@ -165,41 +167,46 @@ def plot_track(p: Passage, path: Path) -> Path:
     _mark_happenings(ax, p)
     ax.plot(lon[0], lat[0], "o", color="k", ms=8, zorder=5, label="start " + rows[0]["time"][11:16] + "Z")
     ax.plot(lon[-1], lat[-1], "s", color="k", ms=8, zorder=5, label="end " + rows[-1]["time"][11:16] + "Z")
-    _scale_bar(ax, lon, lat, coslat)
-    pad = 0.08 * span_deg
+    pad = 0.12 * span_deg
     ax.set_xlim(np.nanmin(lon) - pad / coslat, np.nanmax(lon) + pad / coslat)
     ax.set_ylim(np.nanmin(lat) - pad, np.nanmax(lat) + pad)
-    ax.xaxis.set_major_formatter(plt.FuncFormatter(lambda v, _: _deg_min(v, "EW")))
-    ax.yaxis.set_major_formatter(plt.FuncFormatter(lambda v, _: _deg_min(v, "NS")))
+    _scale_bar(ax, coslat)
+    decimals = 1 if span_deg < 0.25 else 0  # a small chart needs tenths of a minute to tell its ticks apart
+    ax.xaxis.set_major_formatter(plt.FuncFormatter(lambda v, _: _deg_min(v, "EW", decimals)))
+    ax.yaxis.set_major_formatter(plt.FuncFormatter(lambda v, _: _deg_min(v, "NS", decimals)))
     ax.set_xlabel("longitude")
     ax.set_ylabel("latitude")
     ax.grid(True, color="0.85", lw=0.6)
     src = "smoothed over the whole passage" if how == "smoothed" else "as published live"
-    ax.set_title(f"Track coloured by drift; current arrows every {every:g} nm run ({src})\n{_date_note(p)}; "
+    what = (f"Track coloured by drift; current arrows every {every:g} nm run ({src})" if known else
+            "Track (the current was never estimated: it needs GNSS, a heading and the speed log)")
+    ax.set_title(f"{what}\n{_date_note(p)}; "
                  f"north up, true proportions at {abs(mid_lat):.1f}°{'N' if mid_lat >= 0 else 'S'}", loc="left",
                  fontsize=10)
     ax.legend(loc="upper right", fontsize=8, framealpha=0.9)
     return _save(fig, path)
 
 
-def _deg_min(v: float, hemis: str) -> str:
+def _deg_min(v: float, hemis: str, decimals: int = 0) -> str:
     h = hemis[0] if v >= 0 else hemis[1]
     a = abs(v)
     d = int(a)
-    m = (a - d) * 60
-    if round(m) >= 60:
-        d, m = d + 1, 0
-    return f"{d}°{m:02.0f}′{h}"
+    m = round((a - d) * 60, decimals)
+    if m >= 60:
+        d, m = d + 1, 0.0
+    return f"{d}°{m:0{3 + decimals if decimals else 2}.{decimals}f}′{h}"
 
 
-def _scale_bar(ax, lon: np.ndarray, lat: np.ndarray, coslat: float) -> None:
-    width_nm = (np.nanmax(lon) - np.nanmin(lon)) * 60.0 * coslat
-    length = _nice_length(max(width_nm / 4.0, 0.05))
-    x0 = float(np.nanmin(lon))
-    y0 = float(np.nanmin(lat)) - 0.04 * max(np.nanmax(lat) - np.nanmin(lat), 0.01)
+def _scale_bar(ax, coslat: float) -> None:
+    """A bar of a round number of nautical miles in the lower left corner (1' of latitude = 1 nm)."""
+    x_lo, x_hi = ax.get_xlim()
+    width_nm = (x_hi - x_lo) * 60.0 * coslat
+    length = _nice_length(max(width_nm / 5.0, 0.05))
+    x0 = x_lo + 0.04 * (x_hi - x_lo)
     dx = length / (60.0 * coslat)  # nm to degrees of longitude at this latitude
-    ax.plot([x0, x0 + dx], [y0, y0], color="k", lw=3, solid_capstyle="butt", zorder=5)
-    ax.text(x0 + dx / 2, y0, f"{length:g} nm", ha="center", va="bottom", fontsize=9, zorder=5)
+    trans = ax.get_xaxis_transform()  # x in degrees, y as a fraction of the axes
+    ax.plot([x0, x0 + dx], [0.04, 0.04], color="k", lw=3, solid_capstyle="butt", zorder=5, transform=trans)
+    ax.text(x0 + dx / 2, 0.05, f"{length:g} nm", ha="center", va="bottom", fontsize=9, zorder=5, transform=trans)
 
 
 def _mark_happenings(ax, p: Passage) -> None:
