@@ -107,3 +107,49 @@ def test_a_missing_source_is_one_line_and_creates_nothing(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert status != 0 and len(err) == 1 and "absent.sqlite not found" in err[0]  # interface.md: one line
     assert not out.exists()
+
+
+def _png_height(path) -> int:
+    return struct.unpack(">II", path.read_bytes()[16:24])[1]  # PNG IHDR: width, height
+
+
+def test_wind_against_current_gets_its_own_panel_once_sea_state_is_recorded(tmp_path):
+    """offwatch/sea_state (interface.md) in a recording: the wind plot adds the opposing current and the
+    steepness factor, and shades the wind_against_current alert; without it, the plot says so."""
+    from daemon.core.readings import Message
+    from daemon.outlets.recorder import RecordingWriter
+    from report.collect import collect
+    from report.plots import plot_wind
+    from tools.bench.report import synthetic_messages
+
+    def with_sea_state():
+        for m in synthetic_messages(2.0):
+            yield m
+            if m.topic.endswith("/position") and int(m.t_s) % 10 == 0:
+                yield Message(m.t_s, "offwatch/sea_state", {
+                    "time": m.payload["time"], "true_wind_from_deg": 45.0, "true_wind_kn": 22.0,
+                    "ground_wind_from_deg": 44.0, "ground_wind_kn": 18.0, "opposing_current_kn": 4.0,
+                    "height_factor": 1.6, "length_factor": 0.6, "steepness_factor": 2.7, "depth_m": None},
+                    retain=True)
+            if m.topic.endswith("/position") and int(m.t_s) % 3600 in (1800, 3000):
+                state = "active" if int(m.t_s) % 3600 == 1800 else "cleared"
+                yield Message(m.t_s, "offwatch/alerts/wind_against_current", {
+                    "time": m.payload["time"], "id": "wind_against_current", "priority": "caution",
+                    "state": state, "text": "Wind against a 4 kn current.", "since": m.payload["time"]},
+                    retain=True, qos=1, kind="alert")
+
+    db = tmp_path / "sea.sqlite"
+    w = RecordingWriter(db)
+    for m in with_sea_state():
+        w.add_message(m)
+    w.close()
+    cfg = load_config(None)
+    p = collect(db, cfg, smooth=False)
+    assert p.sea_state and p.sea_state[0]["steepness_factor"] == 2.7
+    assert [x.name for x in p.alert_periods] == ["wind_against_current"] * 2
+    assert all(x.end_s - x.start_s == 1200.0 for x in p.alert_periods)
+    with_panel = _png_height(plot_wind(p, tmp_path / "with.png"))
+    p.sea_state = []
+    p.wind = [{"t_s": r["t_s"], "true_wind_kn": 20.0, "true_wind_from_deg": 45.0} for r in p.track.rows]
+    without = _png_height(plot_wind(p, tmp_path / "without.png"))
+    assert with_panel > without  # the third panel (opposing current, steepness factor) is there
