@@ -341,11 +341,19 @@ def plot_wind(p: Passage, path: Path) -> Path:
         a3 = axes[2]
         ss = p.sea_state
         ts = [_dt(r["t_s"]) for r in ss]
-        a3.plot(ts, _column(ss, "steepness_factor"), color="#d7301f", lw=1.2, label="steepness factor")
-        a3.plot(ts, _column(ss, "opposing_current_kn"), color="#1b7837", lw=1.0, label="opposing current (kn)")
+        steep = _column(ss, "steepness_factor")
+        a3.plot(ts, steep, color="#d7301f", lw=1.4, label="steepness factor (1 = as in still water)")
         a3.axhline(1.0, color="0.4", lw=0.7, ls=":")
-        a3.set_ylabel("wind against current")
-        a3.legend(loc="upper left", fontsize=8)
+        a3.set_ylim(0, max(2.0, float(np.nanmax(steep)) * 1.15) if np.isfinite(steep).any() else 2.0)
+        a3.set_ylabel("wave steepness factor", color="#d7301f")
+        b3 = a3.twinx()  # a second unit on its own axis: knots
+        b3.plot(ts, _column(ss, "opposing_current_kn"), color="#1b7837", lw=1.0, ls="--",
+                label="current against the wind (kn)")
+        b3.set_ylabel("current against\nthe wind (kn)", color="#1b7837")
+        b3.set_ylim(bottom=0)
+        lines = a3.get_legend_handles_labels()
+        more = b3.get_legend_handles_labels()
+        a3.legend(lines[0] + more[0], lines[1] + more[1], loc="upper left", fontsize=8)
         _time_axis(a3)
         note = "shaded: the wind-against-current alert was up"
     else:
