@@ -172,6 +172,7 @@ def plot_track(p: Passage, path: Path) -> Path:
     ax.set_ylim(np.nanmin(lat) - pad, np.nanmax(lat) + pad)
     _scale_bar(ax, coslat)
     decimals = 1 if span_deg < 0.25 else 0  # a small chart needs tenths of a minute to tell its ticks apart
+    ax.xaxis.set_major_locator(plt.MaxNLocator(5))  # longitude labels are long: fewer of them
     ax.xaxis.set_major_formatter(plt.FuncFormatter(lambda v, _: _deg_min(v, "EW", decimals)))
     ax.yaxis.set_major_formatter(plt.FuncFormatter(lambda v, _: _deg_min(v, "NS", decimals)))
     ax.set_xlabel("longitude")
@@ -405,11 +406,18 @@ FEED_NAMES = {"fix": "GNSS position", "ground_velocity": "GNSS course/speed", "h
               "water_wind": "wind (true, from the vane)", "depth": "depth sounder", "attitude": "heel sensor"}
 
 
+COUNTER_WORDS = {"unknown": "not used by offwatch", "implausible": "values out of range", "bad_checksum": "bad checksum",
+                 "no_checksum": "no checksum", "not_sentence": "not a sentence (line noise)", "unparseable": "garbled",
+                 "empty": "empty fields", "proprietary": "proprietary (not used)", "ais": "AIS (not used)",
+                 "no_variation": "magnetic, no variation known"}
+
+
 def plot_sensors(p: Passage, path: Path) -> Path:
     feeds = sorted({g.name for g in p.feed_gaps})
     bad = {name: {k: v for k, v in c.items() if k != "good" and v} for name, c in p.counters.items()}
     bad = {k: v for k, v in bad.items() if v}
-    fig, (a1, a2) = plt.subplots(2, 1, figsize=(10.0, 6.4), gridspec_kw={"height_ratios": [1, 1]})
+    ratios = [max(1, len(feeds)), 3] if feeds else [0.2, 3]
+    fig, (a1, a2) = plt.subplots(2, 1, figsize=(10.0, 6.4), gridspec_kw={"height_ratios": ratios})
     if p.first_s is not None and feeds:
         for i, feed in enumerate(feeds):
             spans = [(_dt(g.start_s), _dt(g.end_s if g.end_s is not None else p.last_s) - _dt(g.start_s))
@@ -430,17 +438,17 @@ def plot_sensors(p: Passage, path: Path) -> Path:
         left = np.zeros(len(names))
         for kind in kinds:
             vals = np.array([bad[n].get(kind, 0) for n in names], dtype=float)
-            a2.barh(range(len(names)), vals, left=left, label=kind.replace("_", " "))
+            a2.barh(range(len(names)), vals, left=left, label=COUNTER_WORDS.get(kind, kind.replace("_", " ")))
             left += vals
         a2.set_yticks(range(len(names)), [n[:-2] + " (not a sentence)" if n.endswith(" -") else n for n in names])
-        a2.set_xlabel("sentences refused (count over the passage)")
+        a2.set_xlabel("sentences not taken (count over the passage)")
         a2.legend(fontsize=8, loc="lower right")
         good = sum(c.get("good", 0) for c in p.counters.values())
-        a2.set_title(f"Input counters: what was refused, by source and sentence ({good} good sentences)",
+        a2.set_title(f"Input counters: sentences not taken, by source and sentence, and why ({good} taken)",
                      loc="left", fontsize=10)
     else:
         a2.axis("off")
-        a2.set_title("Input counters: nothing refused" if p.counters else
+        a2.set_title("Input counters: every sentence was taken" if p.counters else
                      "Input counters: not in this passage (no status messages)", loc="left", fontsize=10)
     fig.tight_layout()
     return _save(fig, path)
