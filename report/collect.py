@@ -30,6 +30,7 @@ from estimators.samples import WaterSpeed, WaterWind
 
 MAX_TRACK_POINTS = 6000       # plotted points per series, whatever the passage's length
 SMOOTH_MAX_HOURS = 48.0       # above this the readings are not read again: the published current is plotted
+THIN_AFTER_HOURS = 12.0       # a longer recording is read thinned: each state topic about MAX_TRACK_POINTS times
 NM_PER_DEG_LAT = 60.0         # 1' of latitude = 1 nm (the nautical mile's definition, near enough)
 
 
@@ -209,7 +210,7 @@ def collect(source: str | Path, cfg: Config, *, progress: Any = None, smooth: bo
     collector = _Collector(passage, gap_after)
     span_s = passage_span_s(source)
     keep = None
-    if span_s is not None and span_s > SMOOTH_MAX_HOURS * 3600.0:
+    if span_s is not None and span_s > THIN_AFTER_HOURS * 3600.0:
         # a long recording: read each state topic about as often as the plots can show it (the payloads
         # skipped are never decoded); status once a minute, so a feed's gap shorter than that may not show
         keep = Thinner(every_s=span_s / MAX_TRACK_POINTS, status_every_s=60.0)

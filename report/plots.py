@@ -49,8 +49,11 @@ def _times(rows: list[dict[str, Any]]) -> list[datetime]:
 
 
 def _time_axis(ax, title_utc: bool = True) -> None:
-    ax.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=timezone.utc))
+    lo, hi = ax.get_xlim()
+    # beyond a day the ticks carry the date (a row of "00:00" tells nothing)
+    fmt = "%H:%M" if hi - lo <= 1.0 else ("%d %b\n%H:%M" if hi - lo <= 4.0 else "%d %b")
     ax.xaxis.set_major_locator(mdates.AutoDateLocator(tz=timezone.utc, minticks=4, maxticks=10))
+    ax.xaxis.set_major_formatter(mdates.DateFormatter(fmt, tz=timezone.utc))
     if title_utc:
         ax.set_xlabel("time (UTC)")
 
@@ -212,6 +215,8 @@ def _scale_bar(ax, coslat: float) -> None:
 
 def _mark_happenings(ax, p: Passage) -> None:
     done_labels: set[str] = set()
+    raised = sum(1 for h in p.track.happenings if h.kind == "alert" and h.payload.get("state") == "active")
+    name_them = raised <= 12  # beyond that the names hide the track: the table on the page lists them
     for h in p.track.happenings:
         if h.lat is None or h.lon is None:
             continue
@@ -226,6 +231,8 @@ def _mark_happenings(ax, p: Passage) -> None:
             ax.plot(h.lon, h.lat, marker="^", ms=9, color="#ff7f00", mec="k", zorder=6,
                     label=None if label in done_labels else label)
             done_labels.add(label)
+            if not name_them:
+                continue
             n_alert = sum(1 for x in done_labels if x.startswith("#"))
             done_labels.add(f"#{n_alert}")
             dy = (-12, 8, -22, 18)[n_alert % 4]  # alternate the labels so neighbours stay legible
@@ -388,7 +395,8 @@ def plot_calibration(p: Passage, path: Path) -> Path:
     for ax in (a1, a2):
         if p.calibrated_s is not None:
             ax.axvline(_dt(p.calibrated_s), color="#238b45", lw=1.5, ls="--",
-                       label=f"calibrated from {_dt(p.calibrated_s):%H:%M}Z")
+                       label=f"calibrated from {_dt(p.calibrated_s):%H:%M}Z" if _date_note(p).count(" to ") == 0
+                       else f"calibrated from {_dt(p.calibrated_s):%d %b %H:%M}Z")
         ax.legend(loc="upper right", fontsize=8)
         ax.grid(True, color="0.88", lw=0.6)
     _time_axis(a2)

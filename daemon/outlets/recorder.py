@@ -882,7 +882,8 @@ def _unpack_kept(codec: str, names_json: str, data: bytes, keep: Callable[[str, 
     prev: tuple[int, int | None] = (0, 0)
     for line in text.split("\n"):
         t_text, index_text, _ = line[1:].split(",", 2)
-        t, prev = _decode_time(json.loads(t_text), prev)
+        # mostly a step in whole ms: int() reads it far faster than json.loads
+        t, prev = _decode_time(int(t_text) if t_text.lstrip("-").isdigit() else json.loads(t_text), prev)
         topic = names[int(index_text)]
         if keep(topic, t):
             yield t, prev[0], topic, json.loads(line)[2:]
