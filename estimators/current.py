@@ -3,8 +3,9 @@ the compass's offset, with the uncertainty it honestly has.
 
 Theory of operation
 -------------------
-State (extended Kalman filter; x and P live in a filterpy ``ExtendedKalmanFilter``, the predict and
-the 2 x 4 update are written out here, cheaper than the generic ones)::
+State (extended Kalman filter; x and P live in a small ``FilterState``, the predict and the 2 x 4
+update are written out here, cheaper than the generic ones; filterpy's ``ExtendedKalmanFilter`` held
+them once, but importing it loads scipy.stats, about 45 MB and a second at start, for nothing)::
 
     x = [c_e, c_n, k, d]
         c_e, c_n  the current toward east / north, kn (ground frame)
@@ -89,10 +90,10 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
-from filterpy.kalman import ExtendedKalmanFilter
-from scipy.stats import chi2
 
+from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
 from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
+from estimators import wording
 from estimators.base import CAUTION, Condition, EstimatorBase, Output, Publication
 from estimators.params import param
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
@@ -105,6 +106,26 @@ IE, IN, IK, ID = 0, 1, 2, 3  # state indices
 
 
 MANOEUVRE_SAMPLE_S = 10.0  # spacing of the course/speed history that detects a manoeuvre
+
+
+def chi2_quantile_2dof(p: float) -> float:
+    """Chi-square quantile with 2 degrees of freedom: -2 ln(1 - p), exact.
+
+    With 2 degrees of freedom the chi-square distribution is exponential with mean 2
+    (Abramowitz & Stegun 26.4.20; from memory): CDF 1 - exp(-x/2). p = 0.9973 gives 11.83.
+    """
+    return -2.0 * math.log1p(-p)
+
+
+class FilterState:
+    """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays."""
+
+    __slots__ = ("x", "P")
+
+    def __init__(self) -> None:
+        self.x = np.zeros((4, 1))
+        self.P = np.eye(4)
+
 
 @dataclass(frozen=True)
 class CurrentParams:
@@ -328,7 +349,7 @@ class CurrentEstimator(EstimatorBase):
         self.params = params or CurrentParams()
         self.saved = calibration
         self.health = _Health()
-        self.ekf: ExtendedKalmanFilter | None = None
+        self.ekf: FilterState | None = None
         self.t_filter: float | None = None
         self.t_prev_gv: float | None = None
         self.q_inflation = 1.0
@@ -338,7 +359,7 @@ class CurrentEstimator(EstimatorBase):
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
         self._seen: dict[str, float] = {}
         self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
-        self._gate = float(chi2.ppf(self.params.gate_probability, 2))  # chi-square, 2 dof
+        self._gate = chi2_quantile_2dof(self.params.gate_probability)
         self._t_last_pub: float | None = None
         self._prior: tuple[float, float, float, float] | None = None  # k, d_rad, sigma_k, sigma_d_rad
         self._strong = Hysteresis(self.params.current_strong_kn,
@@ -369,14 +390,14 @@ class CurrentEstimator(EstimatorBase):
             self.health.bad_inputs += 1
             return ()
         if isinstance(sample, Heading):
-            self._input_seen("heading", t, sample.true_deg, 0.0, 360.0)
+            self._input_seen("heading", t, sample.true_deg, *DIRECTION_DEG)
             return ()
         if isinstance(sample, WaterSpeed):
-            self._input_seen("water_speed", t, sample.speed_kn, 0.0, 60.0)
+            self._input_seen("water_speed", t, sample.speed_kn, 0.0, STW_MAX_KN)
             return ()
         if isinstance(sample, Attitude):
             if sample.heel_deg is not None:
-                self._input_seen("heel", t, sample.heel_deg, -90.0, 90.0)
+                self._input_seen("heel", t, sample.heel_deg, -ATTITUDE_MAX_DEG, ATTITUDE_MAX_DEG)
             return ()
         return self._ground_velocity_epoch(sample, ctx)
 
@@ -561,7 +582,7 @@ class CurrentEstimator(EstimatorBase):
             sd = max(math.sqrt(self.ekf.P[ID, ID]), self._prior[3])
         else:
             k, d, sk, sd = self._prior
-        ekf = ExtendedKalmanFilter(dim_x=4, dim_z=2)
+        ekf = FilterState()
         s = w.speed_kn
         theta = math.radians(w.heading_deg + leeway_deg(self.params, w.heel_deg, k * s)) + d
         u, n = unit(theta), d_unit(theta)
@@ -788,8 +809,9 @@ class CurrentEstimator(EstimatorBase):
                     f"{self._log_values.get('sog_kn', 0):.1f} kn over ground: check the log's paddle wheel or "
                     f"transducer (weed, fouling, a cable). The current estimate is held meanwhile.")
         else:
-            text = (f"Speed log changed by {self._log_values.get('log_change_kn', 0):+.1f} kn while the speed over "
-                    f"ground along the heading changed by {self._log_values.get('sog_along_change_kn', 0):+.1f} kn: "
+            text = (f"Speed log changed by {wording.signed(self._log_values.get('log_change_kn', 0))} kn while the "
+                    f"speed over ground along the heading changed by "
+                    f"{wording.signed(self._log_values.get('sog_along_change_kn', 0))} kn: "
                     f"check the log's paddle wheel or transducer. The current estimate is held meanwhile.")
         return Condition(t, "log_suspect", CAUTION, True, text, dict(self._log_values))
 
@@ -848,14 +870,16 @@ class CurrentEstimator(EstimatorBase):
             self._strong.update(drift)
         elif quality == "unavailable":
             self._strong.update(0.0)
-        if self._strong.active == was:
-            return []
         if not self._strong.active:
-            return [Condition(t, "current_strong", CAUTION, False, f"Current has eased to {drift:.1f} kn.", {})]
-        text = (f"Current of {drift:.1f} kn setting toward {set_deg:03.0f} deg measured: check the tidal stream "
+            if self._strong.active == was:
+                return []
+            return [Condition(t, "current_strong", CAUTION, False, f"Strong current; eased to {drift:.1f} kn",
+                              {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
+        # said again with each estimate while it lasts: the alert's figures follow the current (rate-limited there)
+        text = (f"Current of {drift:.1f} kn setting toward {set_deg:03.0f}° measured: check the tidal stream "
                 f"atlas and the chart for the passage ahead.")
         return [Condition(t, "current_strong", CAUTION, True, text,
-                          {"drift_kn": round(drift, 2), "set_deg": round(set_deg, 1)})]
+                          {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
 
     def _calibrated(self) -> tuple[bool, bool]:
         if self.ekf is None:

@@ -31,6 +31,7 @@ from estimators.base import Output, Publication
 from estimators.history import SampleHistory
 from estimators.samples import KIND_NAMES, Sample
 
+LAST_COUNTABLE_S = 2.0 ** 52  # from here on t + 1 s == t in a float: the tick loop would never end
 MAX_TICKS_PER_GAP = 600  # a data gap longer than this (s) is crossed in one step, not one tick per second
 
 
@@ -63,7 +64,7 @@ class DataClock:
     def advance(self, t_s: float) -> list[float] | None:
         """Move to ``t_s``: the tick times now due (oldest first), or None when time did not move
         (a non-finite, repeated or earlier time never moves it back)."""
-        if not math.isfinite(t_s) or (self.now_s is not None and t_s <= self.now_s):
+        if not math.isfinite(t_s) or t_s >= LAST_COUNTABLE_S or (self.now_s is not None and t_s <= self.now_s):
             return None
         if self.now_s is None or t_s - self._next_tick_s > MAX_TICKS_PER_GAP:
             self._next_tick_s = math.floor(t_s) + 1.0  # the first time, or across a long gap: no ticks

@@ -185,3 +185,12 @@ def test_start_sources_builds_every_kind_and_refuses_an_incomplete_spec(tmp_path
         start_sources({"gps": InputConfig("serial")}, q, threading.Event())
     with pytest.raises(ConfigError, match=r"\[inputs.x\] kind = 'can'"):
         make_reader("x", InputConfig("can"))
+
+
+def test_a_udp_input_made_without_a_bind_listens_on_loopback_only():
+    reader = make_reader("wifi", InputConfig("udp", port=free_port()))
+    reader.open()
+    try:
+        assert reader.address[0] == "127.0.0.1"
+    finally:
+        reader.close()

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import logging
 import queue
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from typing import Any
 
 from daemon.core.payloads import payload as make_payload
@@ -89,15 +89,15 @@ class Pipeline:
         for sink in self.sinks:
             sink.close()
 
-    # -- commands from other threads (MQTT ack, a new connection) --------------
+    # -- commands from other threads (an MQTT ack) -------------------------------
 
-    def acknowledge(self, alert_id: str) -> None:
-        """Thread-safe: queue an acknowledgement to be handled in the loop."""
-        self._commands.put(("ack", alert_id))
+    def acknowledge(self, alert_id: str, reply: Callable[[str, bool], object] | None = None) -> None:
+        """Thread-safe: queue an acknowledgement to be handled in the loop.
 
-    def request_status(self) -> None:
-        """Thread-safe: publish the status at the next chance (a broker just connected)."""
-        self._commands.put(("status", None))
+        ``reply(alert_id, acknowledged)`` is called from the loop once it is
+        handled: True only when it acknowledged a listed alarm or warning.
+        """
+        self._commands.put(("ack", (alert_id, reply)))
 
     def _run_commands(self) -> None:
         if self._commands.empty():  # the common case, on every item: no exception raised and caught
@@ -107,12 +107,12 @@ class Pipeline:
                 cmd, arg = self._commands.get_nowait()
             except queue.Empty:
                 return
-            if self.now_s is None:
-                continue
             if cmd == "ack":
-                self._emit_all(self.alerts.acknowledge(arg, self.now_s))
-            elif cmd == "status":
-                self._publish_status(self.now_s)
+                alert_id, reply = arg
+                changes = self.alerts.acknowledge(alert_id, self.now_s) if self.now_s is not None else []
+                self._emit_all(changes)
+                if reply is not None:
+                    reply(alert_id, bool(changes))
 
     # -- time --------------------------------------------------------------
 

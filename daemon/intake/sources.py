@@ -14,6 +14,7 @@ never blocks a reader for ever (the OS buffers of a serial port are small).
 
 from __future__ import annotations
 
+import ipaddress
 import logging
 import os
 import queue
@@ -35,6 +36,7 @@ FIRST_RETRY_S = 0.25
 RETRY_CAP_S = {"serial": 1.0, "tcp": 3.0, "udp": 2.0, "file": 1.0}  # serial: replug seen within ~1 s
 TCP_SILENCE_S = 30.0       # a connected multiplexer silent this long is reconnected
 READ_SIZE = 65536
+LOOPBACK = "127.0.0.1"
 
 
 @dataclass(frozen=True, slots=True)
@@ -188,7 +190,7 @@ class UdpReader:
         self._sock: socket.socket | None = None
 
     def describe(self) -> str:
-        return f"udp {self.bind or '0.0.0.0'}:{self.port}"
+        return f"udp {self.bind}:{self.port}"
 
     def open(self) -> None:
         sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
@@ -201,6 +203,9 @@ class UdpReader:
             raise
         sock.settimeout(READ_TIMEOUT_S)
         self._sock = sock
+        if not ipaddress.ip_address(self.bind).is_loopback:
+            log.info("udp input listens on %s:%d: anything on that network can send it sentences "
+                     "(the checked, bounded parsers are all that stands between)", self.bind, self.port)
 
     @property
     def address(self) -> tuple[str, int] | None:
@@ -257,7 +262,7 @@ def make_reader(name: str, cfg: InputConfig) -> Reader:
     if cfg.kind == "tcp":
         return TcpReader(cfg.host, cfg.port)
     if cfg.kind == "udp":
-        return UdpReader(cfg.bind, cfg.port)
+        return UdpReader(cfg.bind or LOOPBACK, cfg.port)  # a LAN listener only when the config says so
     return FileFollowReader(cfg.path)
 
 
