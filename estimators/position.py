@@ -156,6 +156,11 @@ class PositionHealth:
     def as_dict(self) -> dict[str, int]:
         return dict(self.__dict__)
 
+    def fusion_dict(self) -> dict[str, int | None]:
+        """The fix step in the words of ``estimators.fusion.FusionHealth`` (no Kalman NIS: a gate on the jump)."""
+        return {"fused": self.fixes_used, "rejected": self.rejected_hdop + self.rejected_jump, "faults": 0,
+                "resets": self.outages, "last_nis": None}
+
 
 @dataclass
 class _Reckoning:
@@ -254,6 +259,10 @@ class PositionEstimator(EstimatorBase):
         if fix.t_s - self._last_pub_s >= self.params.publish_interval_s - _EPS_S or self._last_source != "gnss":
             out.append(self._gnss_publication(fix))  # the return to GNSS is news: published at once
         return out
+
+    def fusion_health(self) -> dict[str, dict]:
+        """Each fusion step's health for the status topic."""
+        return {"fix": self.health.fusion_dict()}
 
     def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
         self._note_current(ctx)
