@@ -57,6 +57,35 @@ def demo_replay(tmp_path_factory) -> DemoReplay:
     return DemoReplay(tmp_path_factory.mktemp("demo"))
 
 
+# 2026-05-04 07:00 to 07:40 UTC of the demo passage: the near edge of the stream, a warmer front
+# and its caution (recorded_runs/README.md), 24 000 lines: a recording made in ~20 s
+DEMO_SLICE_MS = (1777878000_000, 1777880400_000)
+
+
+@pytest.fixture(scope="session")
+def demo_slice(tmp_path_factory) -> dict[str, Path]:
+    """A 40-minute slice of the demo passage as NMEA (``nmea``) and as a recording of its replay (``db``)."""
+    import gzip
+    import re
+    import subprocess
+    import sys
+
+    repo = Path(__file__).resolve().parents[1]
+    d = tmp_path_factory.mktemp("demo_slice")
+    nmea, db = d / "slice.nmea", d / "slice.sqlite"
+    config = repo / "recorded_runs" / "demo.toml"
+    with gzip.open(repo / "recorded_runs" / "tern-of-haldane.nmea.gz", "rt", encoding="ascii", newline="") as f, \
+            open(nmea, "w", encoding="ascii", newline="") as out:
+        for line in f:
+            m = re.search(r"\\c:(\d+),", line)  # \c:<UNIX ms>,s:<source>*hh\ (NMEA 0183 4.10 TAG block)
+            if m and DEMO_SLICE_MS[0] <= int(m.group(1)) < DEMO_SLICE_MS[1]:
+                out.write(line)
+    r = subprocess.run([sys.executable, "-m", "daemon", "replay", str(nmea), "--config", str(config),
+                        "--record", str(db), "--quiet"], cwd=repo, capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0, r.stderr
+    return {"nmea": nmea, "db": db, "dir": d, "config": config}
+
+
 @pytest.fixture(scope="module")
 def short_passage(tmp_path_factory) -> dict:
     """A short simulated passage (30 min; invented boat and water): a 3-kn current, a +3 °C front, a

@@ -142,7 +142,7 @@ def berth_positions(tmp_path_factory) -> list[dict]:
 
 
 def export(fmt: str, out: Path) -> subprocess.CompletedProcess:
-    r = cli("export", str(shared_path(*BERTH)), "--format", fmt, "--out", str(out))
+    r = cli("export", str(shared_path(*BERTH)), "--format", fmt, "--out", str(out), "--every", "0")  # every point
     assert r.returncode == 0, r.stderr
     return r
 

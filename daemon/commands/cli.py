@@ -10,7 +10,7 @@ import time
 from typing import NoReturn
 
 from daemon import __version__
-from daemon.errors import OffwatchError
+from daemon.errors import ConfigError, OffwatchError
 
 DESCRIPTION = """\
 offwatch keeps watch on the boat's instruments while the crew is off watch:
@@ -28,6 +28,8 @@ examples:
   offwatch replay passage.nmea.gz --jsonl out.jsonl
   offwatch replay a.nmea b.nmea --mqtt mqtt://127.0.0.1:1883 --record passage.sqlite
   offwatch run --config /etc/offwatch/offwatch.toml
+  offwatch report passage.sqlite --out passage-report
+  offwatch export passage.sqlite --format gpx --out passage.gpx
   offwatch config                                 every config key: default, unit, range
 """
 
@@ -70,14 +72,28 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--prefix", metavar="PREFIX", default=None,
                       help="topic prefix to publish under (default: offwatch-demo, never the service's offwatch)")
 
-    exp = sub.add_parser("export", help="the track and the estimates as CSV, GPX or GeoJSON; a recording's raw NMEA",
-                         description="csv, gpx, geojson: the track with the estimates beside each point, from a "
-                                     "recording or any replayable file. nmea: a recording's raw sentences as "
-                                     "TAG-block NMEA 0183 text, which replays to the same output.")
+    exp = sub.add_parser("export", help="the passage as CSV, GPX, GeoJSON or a logbook; a recording's raw NMEA",
+                         description="csv, gpx, geojson: the track with the estimates (and their sigmas) beside "
+                                     "each point, events and alerts where they happened. logbook: a line an hour "
+                                     "and one per event or alert, as CSV and a printable page (FILE.csv and "
+                                     "FILE.html). A recording's messages are read as they are; any other file is "
+                                     "replayed. nmea: a recording's raw sentences as TAG-block NMEA 0183 text, "
+                                     "which replays to the same output.")
     exp.add_argument("source", metavar="SOURCE", help="a recording or any replayable file")
-    exp.add_argument("--format", choices=("csv", "gpx", "geojson", "nmea"), required=True)
+    exp.add_argument("--format", choices=("csv", "gpx", "geojson", "logbook", "nmea"), required=True)
     exp.add_argument("--out", metavar="FILE", required=True)
+    exp.add_argument("--every", metavar="SECONDS", default=None,
+                     help="time between track points: 60 (default, a point a minute), 30s, 5m, 1h; 0 keeps all")
     exp.add_argument("--config", metavar="FILE")
+
+    rpt = sub.add_parser("report", help="a passage report: plots (PNG) and one self-contained HTML page",
+                         description="Plots of the track and current, sea temperature, barograph, wind, the log "
+                                     "and compass calibration, sensor gaps, every alert and event, and a summary, "
+                                     "as PNG files and one HTML page with everything inside (no network needed). "
+                                     "Needs the report extra: pip install 'offwatch[report]'.")
+    rpt.add_argument("source", metavar="SOURCE", help="a recording or any replayable file")
+    rpt.add_argument("--out", metavar="DIR", required=True, help="folder for the PNG files and report.html")
+    rpt.add_argument("--config", metavar="FILE")
 
     watch = sub.add_parser("watch", help="a live terminal view of what the service publishes",
                            description="A live view for the chart table (80 x 24 is enough): instruments, current, "
@@ -97,6 +113,16 @@ def build_parser() -> argparse.ArgumentParser:
     conf.add_argument("--check", metavar="FILE", help="read FILE as offwatch would and say whether it is valid")
 
     return p
+
+
+def report_command(args) -> int:
+    """The report lives outside the daemon (it needs matplotlib, which the service never loads)."""
+    try:
+        from report.command import report_command as run_report
+    except ImportError as e:
+        raise ConfigError(f"offwatch report needs the report extra ({e.name or 'matplotlib'} is missing): "
+                          "pip install 'offwatch[report]'") from None
+    return run_report(args)
 
 
 def setup_logging(level: int) -> None:
@@ -130,6 +156,8 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "export":
             from daemon.outlets.export import export_command
             return export_command(args)
+        if args.command == "report":
+            return report_command(args)
         if args.command == "watch":
             from daemon.commands.watch import watch_command
             return watch_command(args)

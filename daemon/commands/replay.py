@@ -35,6 +35,9 @@ def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url
         rec = Recorder.open_file(record)
         rec.record_config(cfg.effective())
         sinks.append(rec)
+    if cfg.section("nmea_out").enabled:
+        from daemon.outlets.nmea_tcp import NmeaTcpSink
+        sinks.append(NmeaTcpSink(cfg.section("nmea_out")))
     url = mqtt_url or cfg.mqtt.url
     if url:
         from daemon.outlets.mqtt import MqttSink

@@ -50,10 +50,11 @@ class Service:
         self.notifier = sdnotify.Notifier()
         self.mqtt = None
         self.recorder = None
+        self.nmea_out = None
         self._open_outputs(mqtt_url or cfg.mqtt.url)
         self.alerts_changed = _AlertWatch()
         self.recording_watch = RecordingWatch()
-        sinks = [s for s in (self.recorder, self.mqtt, self.alerts_changed) if s is not None]
+        sinks = [s for s in (self.recorder, self.mqtt, self.nmea_out, self.alerts_changed) if s is not None]
         self.parts = build(cfg, sinks, live=True, calibration=load_calibration(self.state_dir),
                            alert_snapshot=read_json(self.state_dir / ALERTS_FILE),
                            extra_status=self._health)
@@ -64,6 +65,9 @@ class Service:
         from daemon.outlets.recorder import Recorder
         self.recorder = Recorder.open_passage(self.cfg.section("recording"), self.state_dir / "recordings")
         self.recorder.record_config(self.cfg.effective())
+        if self.cfg.section("nmea_out").enabled:
+            from daemon.outlets.nmea_tcp import NmeaTcpSink
+            self.nmea_out = NmeaTcpSink(self.cfg.section("nmea_out"))
         if url:
             from daemon.outlets.mqtt import MqttSink
             self.mqtt = MqttSink.from_config(client_id_for(self.cfg.mqtt, "run"), url=url, state_dir=self.state_dir,
@@ -84,6 +88,8 @@ class Service:
             out["recording"] = recording_health(self.recorder.stats)
         if self.mqtt is not None:
             out["mqtt"] = self.mqtt.snapshot()
+        if self.nmea_out is not None:
+            out["nmea_out"] = self.nmea_out.snapshot()
         return out
 
     def run(self) -> int:

@@ -9,7 +9,7 @@ Sections (all optional):
                    magnetic variation source, the initial speed-log calibration)
   [inputs.NAME]    one table per live input (serial, tcp, udp)
   [priority]       kind = ["source", ...]: which source wins where two give the same kind
-  [mqtt] [recording] [state] [alerts]      the service's outputs
+  [mqtt] [recording] [state] [alerts] [nmea_out]   the service's outputs
   [current] [position] [staleness] [front] [pressure] [integrity]   estimator parameters
 """
 
@@ -158,6 +158,7 @@ class Config:
 def parameter_sections() -> dict[str, type]:
     """Section name -> parameter class, for the estimators and service parts."""
     from daemon.core.alerts import AlertParams
+    from daemon.outlets.nmea_tcp import NmeaOutParams
     from daemon.outlets.recorder import RecordingParams
     from estimators.current import CurrentParams
     from estimators.fronts import FrontParams
@@ -169,6 +170,7 @@ def parameter_sections() -> dict[str, type]:
     return {
         "alerts": AlertParams,
         "recording": RecordingParams,
+        "nmea_out": NmeaOutParams,
         "current": CurrentParams,
         "position": PositionParams,
         "staleness": StalenessParams,

@@ -198,8 +198,9 @@ class ProgressBar:
     """One status line on a terminal: percent, sentences/s and time left. Silent when not a TTY."""
 
     def __init__(self, stream: IO[str] | None = None, min_interval_s: float = 0.25,
-                 clock: Callable[[], float] = time.monotonic) -> None:
+                 clock: Callable[[], float] = time.monotonic, label: str = "replay") -> None:
         self.stream = stream if stream is not None else sys.stderr
+        self.label = label
         self.enabled = _is_tty(self.stream)
         self.min_interval_s = min_interval_s
         self.clock = clock
@@ -233,7 +234,8 @@ class ProgressBar:
         rate = self.sentences / elapsed
         left = elapsed * (1.0 - share) / share if share > 0 else None
         left_text = "--:--" if left is None else f"{int(left) // 60}:{int(left) % 60:02d}"
-        return f"replay {100.0 * share:5.1f} %  {rate:8.0f} sentences/s  {left_text} left"
+        rate_text = f"  {rate:8.0f} sentences/s" if self.sentences else ""
+        return f"{self.label} {100.0 * share:5.1f} %{rate_text}  {left_text} left"
 
     def close(self) -> None:
         if self.enabled and self._drawn:

@@ -984,8 +984,66 @@ def iter_raw(path: str | Path) -> Iterator[RawLine]:
 
 def iter_messages(path: str | Path) -> Iterator[Message]:
     """The published messages of a recording in the order they were published."""
-    for t, _, topic, (retain, qos, kind, payload) in _iter_block_rows(path, "message_block"):
-        yield Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+    for block in iter_message_blocks(path):
+        yield from block
+
+
+def iter_message_blocks(path: str | Path, keep: Callable[[str, float], bool] | None = None
+                        ) -> Iterator[list[Message]]:
+    """The published messages a block at a time (about a minute of data each), in order.
+
+    ``keep(topic, t)`` (optional) is asked for each message before its payload
+    is decoded: a long recording read for a plot skips most of its JSON.
+    """
+    conn = _open_for_reading(path)
+    try:
+        for codec, names, data in conn.execute("SELECT codec, names, data FROM message_block ORDER BY seq_first"):
+            rows = _unpack_rows(codec, names, data) if keep is None else _unpack_kept(codec, names, data, keep)
+            yield [Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+                   for t, _, topic, (retain, qos, kind, payload) in rows]
+    finally:
+        conn.close()
+
+
+def _unpack_kept(codec: str, names_json: str, data: bytes, keep: Callable[[str, float], bool]
+                 ) -> Iterator[tuple[float, int, str, list]]:
+    """As ``_unpack_rows`` for message blocks, reading only the time and topic of a line ``keep`` refuses.
+
+    A message line starts ``[<time>,<topic index>,``: both are plain JSON
+    numbers or a string of digits, never holding a comma.
+    """
+    try:
+        names = json.loads(names_json)
+        text = _CODECS[codec][1](data).decode("ascii")
+    except (KeyError, ValueError, zlib.error, lzma.LZMAError) as exc:
+        raise InputError(f"a recording block cannot be decoded ({codec}): {exc}") from exc
+    prev: tuple[int, int | None] = (0, 0)
+    for line in text.split("\n"):
+        t_text, index_text, _ = line[1:].split(",", 2)
+        # mostly a step in whole ms: int() reads it far faster than json.loads
+        t, prev = _decode_time(int(t_text) if t_text.lstrip("-").isdigit() else json.loads(t_text), prev)
+        topic = names[int(index_text)]
+        if keep(topic, t):
+            yield t, prev[0], topic, json.loads(line)[2:]
+
+
+def message_time_span(path: str | Path) -> tuple[float, float] | None:
+    """(first, last) data time of a recording's messages from the block index, without decoding a block."""
+    conn = _open_for_reading(path)
+    try:
+        first, last = conn.execute("SELECT MIN(t_first), MAX(t_last) FROM message_block").fetchone()
+    finally:
+        conn.close()
+    return None if first is None else (float(first), float(last))
+
+
+def count_message_blocks(path: str | Path) -> int:
+    """How many message blocks a recording holds (for a progress bar)."""
+    conn = _open_for_reading(path)
+    try:
+        return int(conn.execute("SELECT COUNT(*) FROM message_block").fetchone()[0])
+    finally:
+        conn.close()
 
 
 @dataclass(frozen=True, slots=True)
@@ -1095,6 +1153,6 @@ def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
 
 __all__ = ["RecordingParams", "RecordingPolicy", "Recorder", "RecorderStats", "RecordingWriter",
            "SCHEMA_VERSION", "connect", "connection_pragmas", "recording_name", "is_recording",
-           "iter_raw", "iter_messages", "read_meta", "recording_gaps", "Gap", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
+           "iter_raw", "iter_messages", "iter_message_blocks", "count_message_blocks", "message_time_span", "read_meta", "recording_gaps", "Gap", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
            "tag_block"]
 
