@@ -10,7 +10,7 @@ Sections (all optional):
   [inputs.NAME]    one table per live input (serial, tcp, udp)
   [priority]       kind = ["source", ...]: which source wins where two give the same kind
   [mqtt] [recording] [state] [alerts]      the service's outputs
-  [current] [position] [staleness] [front] [pressure]   estimator parameters
+  [current] [position] [staleness] [front] [pressure] [sea_state]   estimator parameters
 """
 
 from __future__ import annotations
@@ -124,6 +124,7 @@ def parameter_sections() -> dict[str, type]:
     from estimators.fronts import FrontParams
     from estimators.position import PositionParams
     from estimators.pressure import PressureParams
+    from estimators.sea_state import SeaStateParams
     from estimators.staleness import StalenessParams
 
     return {
@@ -134,6 +135,7 @@ def parameter_sections() -> dict[str, type]:
         "staleness": StalenessParams,
         "front": FrontParams,
         "pressure": PressureParams,
+        "sea_state": SeaStateParams,
     }
 
 
