@@ -41,7 +41,8 @@ used for the waves while younger than ``depth_max_age_s`` (else deep water).
 Waves against the current (see ``estimators.waves`` for the physics): the wind
 sea travels downwind of the true wind over water, so the current opposes it
 by ``opposing = current . u(wind from)`` (signed, positive against). For each
-period of the wind sea's band (and a swell from the config) the factors
+period of the wind sea's band (and a swell: from the config, or as the crew reports it
+on ``<prefix>/swell``, see ``daemon.intake.swell``) the factors
 are computed on the current component along that wave's travel; the published
 factors are those of the worst (steepest) period not blocked.
 
@@ -202,11 +203,20 @@ class SeaStateEstimator(EstimatorBase):
         self._t_pub: float | None = None
         self._seen: dict[str, float] = {}
         self._depth: Depth | None = None
+        self._swell: tuple[float, float] | None = (p.swell_period_s, p.swell_from_deg) if p.swell_period_s > 0 else None
         self._against = Hysteresis(p.raise_fraction, min(p.clear_fraction, p.raise_fraction - 1e-6))
         self._unstable = Hysteresis(p.unstable_raise_c, min(p.unstable_clear_c, p.unstable_raise_c - 1e-6))
         self.epochs_made = 0
 
     # -- the protocol ------------------------------------------------------------------------
+
+    def set_swell(self, period_s: float | None, from_deg: float | None) -> None:
+        """A swell reported by the crew (s, deg true); None: back to the config's swell (or none)."""
+        p = self.params
+        if period_s is not None and from_deg is not None:
+            self._swell = (period_s, from_deg)
+        else:
+            self._swell = (p.swell_period_s, p.swell_from_deg) if p.swell_period_s > 0 else None
 
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
         if isinstance(sample, Depth):
@@ -396,7 +406,8 @@ class SeaStateEstimator(EstimatorBase):
         p = self.params
         empty = {"opposing_current_kn": None, "opposing_current_sigma_kn": None, "height_factor": None,
                  "length_factor": None, "steepness_factor": None, "worst_period_s": None,
-                 "blocking_period_s": None, "blocked_periods_s": [], "periods_s": [], "swell_period_s": None,
+                 "blocking_period_s": None, "blocked_periods_s": [], "periods_s": [],
+                 "swell_period_s": None, "swell_from_deg": None,
                  "wind_sea_height_m": None, "wind_sea_period_s": None, "wind_sea_fully_developed": None,
                  "steepened_height_m": None, "breaking_fraction": None, "peak_blocked": None,
                  "depth_used_m": depth_m}
@@ -407,8 +418,8 @@ class SeaStateEstimator(EstimatorBase):
         u10 = wind_at_10m(water.speed_kn * KN_TO_MPS, p.anemometer_height_m)
         sea = wind_sea(u10, p.fetch_nm * 1852.0, p.band_periods)
         runs: list[WaveOnCurrent] = [wave_on_current(T, -opposing * KN_TO_MPS, depth_m) for T in sea.periods_s]
-        if p.swell_period_s > 0.0:
-            runs.append(wave_on_current(p.swell_period_s, -_along(c, p.swell_from_deg) * KN_TO_MPS, depth_m))
+        if self._swell is not None:
+            runs.append(wave_on_current(self._swell[0], -_along(c, self._swell[1]) * KN_TO_MPS, depth_m))
         free = [r for r in runs if not r.blocked]
         worst = max(free, key=lambda r: r.steepness_factor) if free else None
         peak = wave_on_current(sea.peak_period_s, -opposing * KN_TO_MPS, depth_m)
@@ -428,7 +439,8 @@ class SeaStateEstimator(EstimatorBase):
             "blocking_period_s": _blocking(opposing, depth_m),
             "blocked_periods_s": [r.period_s for r in runs if r.blocked],
             "periods_s": [r.period_s for r in runs],
-            "swell_period_s": p.swell_period_s or None,
+            "swell_period_s": self._swell[0] if self._swell else None,
+            "swell_from_deg": self._swell[1] if self._swell else None,
             "wind_sea_height_m": round(sea.significant_height_m, 2),
             "wind_sea_period_s": round(sea.peak_period_s, 2),
             "wind_sea_fully_developed": not sea.fetch_limited,

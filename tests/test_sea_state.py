@@ -254,3 +254,27 @@ def test_unstable_air_raised_and_cleared():
     assert cond[0].values["difference_c"] >= 3.0 and cond[0].values["air_temp_c"] == 14.0
     assert f"{cond[0].values['difference_c']:.1f} °C colder than the sea" in cond[0].text
     assert 600 <= cond[1].t_s - T0 <= 660
+
+
+def test_a_reported_swell_is_taken_on_its_own_current_component():
+    # GIVEN wind from 045 and a current of 4 kn setting 135, across the wind sea (no opposing component);
+    # a 10-s swell from 135 runs toward 315, straight into that current
+    from estimators.angles import KN_TO_MPS
+    from estimators.waves import wave_on_current
+
+    est = SeaStateEstimator()
+    est.set_swell(10.0, 135.0)
+    samples = boat_samples(300, 90.0, 6.0, 45.0, 20.0, current=(135.0, 4.0))
+    p = sea_states(drive([FixedCurrent(135.0, 4.0), est], samples))[-1].payload
+    # THEN the worst period is the swell's, with the factors of 10 s against 4 kn (tests/test_waves.py)
+    ref = wave_on_current(10.0, -4.0 * KN_TO_MPS)
+    assert p["opposing_current_kn"] == pytest.approx(0.0, abs=0.05)
+    assert p["swell_period_s"] == 10.0 and 10.0 in p["periods_s"]
+    assert p["worst_period_s"] == 10.0
+    assert p["steepness_factor"] == pytest.approx(ref.steepness_factor, abs=0.01)
+    # and cleared, the worst is the wind sea's again (about 1: no current along it)
+    again = SeaStateEstimator()
+    again.set_swell(10.0, 135.0)
+    again.set_swell(None, None)
+    p = sea_states(drive([FixedCurrent(135.0, 4.0), again], samples))[-1].payload
+    assert p["swell_period_s"] is None and p["steepness_factor"] == pytest.approx(1.0, abs=0.02)

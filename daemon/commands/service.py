@@ -61,7 +61,8 @@ class Service:
             from daemon.outlets.mqtt import MqttSink
             self.mqtt = MqttSink.from_config(client_id_for(self.cfg.mqtt, "run"), url=url, state_dir=self.state_dir,
                                              on_ack=lambda i: self.parts.pipeline.acknowledge(i),
-                                             on_connected=lambda: self.parts.pipeline.request_status())
+                                             on_connected=lambda: self.parts.pipeline.request_status(),
+                                             on_swell=lambda b: self.parts.pipeline.report_swell(b))
 
     def _health(self) -> dict:
         out = {"sources": {h.name: h.snapshot() for h in getattr(self, "health", [])}}

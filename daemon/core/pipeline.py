@@ -22,6 +22,7 @@ import queue
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
+from daemon.intake.swell import parse_swell
 from daemon.core.readings import Message, RawLine, Reading, Sink, json_safe
 from estimators.base import Condition, Publication, iso_utc
 from estimators.history import SampleHistory
@@ -110,6 +111,13 @@ class Pipeline:
         """Thread-safe: queue an acknowledgement to be handled in the loop."""
         self._commands.put(("ack", alert_id))
 
+    def report_swell(self, payload: bytes) -> str:
+        """Thread-safe: a swell report (``daemon.intake.swell``) for the estimators; returns why it was refused."""
+        report, why = parse_swell(payload)
+        if report is not None:
+            self._commands.put(("swell", report))
+        return why
+
     def request_status(self) -> None:
         """Thread-safe: publish the status at the next chance (a broker just connected)."""
         self._commands.put(("status", None))
@@ -122,12 +130,18 @@ class Pipeline:
                 cmd, arg = self._commands.get_nowait()
             except queue.Empty:
                 return
+            if cmd == "swell":  # a state, kept even before the first data (a retained report comes first)
+                for est in self.estimators:
+                    if hasattr(est, "set_swell"):
+                        est.set_swell(arg.period_s, arg.from_deg)
+                continue
             if self.now_s is None:
                 continue
             if cmd == "ack":
                 self._emit_all(self.alerts.acknowledge(arg, self.now_s))
             elif cmd == "status":
                 self._publish_status(self.now_s)
+
 
     # -- time --------------------------------------------------------------
 

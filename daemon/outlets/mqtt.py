@@ -169,7 +169,8 @@ class MqttSink:
 
     def __init__(self, settings: MqttSettings, outbox_path: str | os.PathLike[str] | None = None, *,
                  on_ack: Callable[[str], object] | None = None,
-                 on_connected: Callable[[], object] | None = None) -> None:
+                 on_connected: Callable[[], object] | None = None,
+                 on_swell: Callable[[bytes], str] | None = None) -> None:
         self.settings = settings
         self.broker = parse_broker_url(settings.url)
         prefix = settings.prefix.strip("/")
@@ -183,6 +184,8 @@ class MqttSink:
         self.ack_topic = f"{prefix}/ack"
         self._on_ack = on_ack
         self._on_connected = on_connected
+        self.swell_topic = f"{prefix}/swell"  # a swell the crew reports (daemon.intake.swell)
+        self._on_swell = on_swell
         self.counters: Counter[str] = Counter()
         self.outbox = Outbox(outbox_path, max_queued=settings.max_queued)
         self._work: queue.Queue[tuple] = queue.Queue()
@@ -209,12 +212,13 @@ class MqttSink:
     @classmethod
     def from_config(cls, cfg: Any, *, url: str | None = None, state_dir: str | os.PathLike[str] | None = None,
                     on_ack: Callable[[str], object] | None = None,
-                    on_connected: Callable[[], object] | None = None) -> MqttSink:
+                    on_connected: Callable[[], object] | None = None,
+                    on_swell: Callable[[bytes], str] | None = None) -> MqttSink:
         """Build from the [mqtt] config section; the outbox lives in ``state_dir`` (memory when None)."""
         names = ("prefix", "client_id", "username", "password", "ca_file", "cert_file", "key_file", "protocol")
         settings = MqttSettings(url=url or cfg.url, **{n: getattr(cfg, n) for n in names if hasattr(cfg, n)})
         path = Path(state_dir) / OUTBOX_FILE if state_dir is not None else None
-        return cls(settings, path, on_ack=on_ack, on_connected=on_connected)
+        return cls(settings, path, on_ack=on_ack, on_connected=on_connected, on_swell=on_swell)
 
     def _make_client(self) -> paho.Client:
         s, b = self.settings, self.broker
@@ -324,6 +328,8 @@ class MqttSink:
             self._log_change("refused", f"MQTT: broker {self.broker.host}:{self.broker.port} refused: {reason}")
             return
         client.subscribe(self.ack_topic, qos=1)
+        if self._on_swell is not None:
+            client.subscribe(self.swell_topic, qos=1)
         self._work.put(("connected", time.monotonic()))
 
     def _cb_connect_fail(self, client: paho.Client, userdata: Any) -> None:
@@ -338,6 +344,12 @@ class MqttSink:
         self._work.put(("published", mid, bool(getattr(reason, "is_failure", False))))
 
     def _cb_message(self, client: paho.Client, userdata: Any, msg: paho.MQTTMessage) -> None:
+        if msg.topic == self.swell_topic and self._on_swell is not None:
+            why = self._on_swell(bytes(msg.payload))  # retained is fine: the swell is a state
+            self.counters["swell_ignored" if why else "swell_accepted"] += 1
+            if why:
+                log.warning("MQTT: ignored a message on %s: %s", self.swell_topic, why)
+            return
         if msg.topic != self.ack_topic:
             return
         if msg.retain:
