@@ -409,6 +409,7 @@ class SeaStateEstimator(EstimatorBase):
                  "blocking_period_s": None, "blocked_periods_s": [], "periods_s": [],
                  "swell_period_s": None, "swell_from_deg": None,
                  "wind_sea_height_m": None, "wind_sea_period_s": None, "wind_sea_fully_developed": None,
+                 "peak_height_factor": None, "peak_length_factor": None, "peak_steepness_factor": None,
                  "steepened_height_m": None, "breaking_fraction": None, "peak_blocked": None,
                  "depth_used_m": depth_m}
         if not _usable(current):
@@ -444,6 +445,9 @@ class SeaStateEstimator(EstimatorBase):
             "wind_sea_height_m": round(sea.significant_height_m, 2),
             "wind_sea_period_s": round(sea.peak_period_s, 2),
             "wind_sea_fully_developed": not sea.fetch_limited,
+            "peak_height_factor": _round(peak.height_factor, 3),
+            "peak_length_factor": _round(peak.length_factor, 3),
+            "peak_steepness_factor": _round(peak.steepness_factor, 3),
             "steepened_height_m": round(h_peak, 2) if not peak.blocked else None,
             "breaking_fraction": round(fraction, 3) if fraction is not None else None,
             "peak_blocked": peak.blocked,
@@ -472,8 +476,8 @@ class SeaStateEstimator(EstimatorBase):
                               "Wind and current no longer stack up the sea (estimate).", {})]
         return [Condition(t, "wind_against_current", CAUTION, True, _against_text(water, waves),
                           {k: waves[k] for k in ("opposing_current_kn", "height_factor", "length_factor",
-                                                 "steepness_factor", "breaking_fraction", "wind_sea_height_m",
-                                                 "wind_sea_period_s", "blocking_period_s")}
+                                                 "steepness_factor", "peak_steepness_factor", "breaking_fraction",
+                                                 "wind_sea_height_m", "wind_sea_period_s", "blocking_period_s")}
                           | {"true_wind_kn": round(water.speed_kn, 1), "true_wind_from_deg": round(water.from_deg)})]
 
     def _unstable_condition(self, t: float, ctx: Context) -> list[Output]:
@@ -495,15 +499,20 @@ class SeaStateEstimator(EstimatorBase):
 def _against_text(water: MeanWind, w: dict[str, Any]) -> str:
     seen = (f"True wind {water.speed_kn:.0f} kn from {water.from_deg:03.0f} deg over a current of "
             f"{w['opposing_current_kn']:.1f} kn setting into it")
+    stopped = w["blocking_period_s"]
+    stopped_text = f"waves of {stopped:.1f} s and shorter cannot travel against it" if stopped else "no wave can travel against it"
     if w["peak_blocked"]:
-        sea = (f": waves of the wind sea's {w['wind_sea_period_s']:.0f}-s peak period cannot travel against it "
-               f"(waves of {w['blocking_period_s']:.1f} s and shorter are stopped) and break where they meet it")
+        sea = f": the wind sea's {w['wind_sea_period_s']:.0f}-s waves are stopped ({stopped_text}) and break where they meet it"
     else:
-        sea = (f": the wind sea estimated {w['height_factor']:.1f}x higher and {w['length_factor']:.2f}x as long "
-               f"at {w['worst_period_s']:.1f} s (steepness x{w['steepness_factor']:.1f}); its highest waves near "
-               f"{w['breaking_fraction'] * 100:.0f} % of the breaking steepness 1/7")
+        sea = (f": the wind sea ({w['wind_sea_period_s']:.0f}-s peak) estimated {w['peak_height_factor']:.1f}x higher "
+               f"and {w['peak_length_factor']:.2f}x as long (steepness x{w['peak_steepness_factor']:.1f}), its highest "
+               f"waves near {w['breaking_fraction'] * 100:.0f} % of the breaking steepness 1/7; {stopped_text}")
     return (f"{seen}{sea}. An estimate from linear wave theory and a wind sea estimated from the wind: "
             f"check the sea itself.")
+
+
+def _round(v: float | None, nd: int) -> float | None:
+    return None if v is None else round(v, nd)
 
 
 def _usable(current: dict[str, Any] | None) -> bool:
