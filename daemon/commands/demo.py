@@ -17,7 +17,7 @@ from urllib.parse import urlparse
 from daemon.core.config import load_config
 from daemon.errors import InputError
 
-RECORDED = Path(__file__).resolve().parent.parent / "recorded_runs"
+RECORDED = Path(__file__).resolve().parents[2] / "recorded_runs"
 
 
 def demo_files() -> tuple[list[str], str | None]:

@@ -33,7 +33,7 @@ from pathlib import Path
 from daemon.core.readings import Message, RawLine
 from daemon.outlets.recorder import RecordingWriter, iter_raw, parse_tag_line
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 CAPTURE_NAMES = ("under-way-94min-hdg-hdt-rmc.nmea", "sounder-survey-43min-dpt-mtw.nmea",
                  "berth-13min-mda-pressure.nmea")
 

@@ -14,7 +14,7 @@ from pathlib import Path
 from daemon.core.config import load_config
 from daemon.commands.replay import run_replay
 
-REPO = Path(__file__).resolve().parent.parent
+REPO = Path(__file__).resolve().parents[2]
 
 
 def default_files() -> list[Path]:
