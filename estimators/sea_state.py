@@ -127,6 +127,14 @@ class SeaStateParams:
     temperature_max_age_s: float = param(300.0, "s", 10.0, 3600.0, "older air or sea temperatures are not compared")
     publish_interval_s: float = param(2.0, "s", 1.0, 60.0, "sea_state is published at most this often")
 
+    def __post_init__(self) -> None:
+        if not self.clear_fraction < self.raise_fraction:
+            raise ValueError(f"clear_fraction = {self.clear_fraction!r}: expected less than raise_fraction "
+                             f"({self.raise_fraction!r}), or the caution would chatter")
+        if not self.unstable_clear_c < self.unstable_raise_c:
+            raise ValueError(f"unstable_clear_c = {self.unstable_clear_c!r}: expected less than unstable_raise_c "
+                             f"({self.unstable_raise_c!r}), or the caution would chatter")
+
 
 @dataclass(frozen=True, slots=True)
 class WindEpoch:
@@ -204,8 +212,8 @@ class SeaStateEstimator(EstimatorBase):
         self._seen: dict[str, float] = {}
         self._depth: Depth | None = None
         self._swell: tuple[float, float] | None = (p.swell_period_s, p.swell_from_deg) if p.swell_period_s > 0 else None
-        self._against = Hysteresis(p.raise_fraction, min(p.clear_fraction, p.raise_fraction - 1e-6))
-        self._unstable = Hysteresis(p.unstable_raise_c, min(p.unstable_clear_c, p.unstable_raise_c - 1e-6))
+        self._against = Hysteresis(p.raise_fraction, p.clear_fraction)
+        self._unstable = Hysteresis(p.unstable_raise_c, p.unstable_clear_c)
         self.epochs_made = 0
 
     # -- the protocol ------------------------------------------------------------------------

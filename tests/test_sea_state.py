@@ -277,3 +277,18 @@ def test_a_reported_swell_is_taken_on_its_own_current_component():
     again.set_swell(None, None)
     p = sea_states(drive([FixedCurrent(135.0, 4.0), again], samples))[-1].payload
     assert p["swell_period_s"] is None and p["steepness_factor"] == pytest.approx(1.0, abs=0.02)
+
+
+@pytest.mark.parametrize("table,names", [
+    ({"wind_source": "vane"}, "wind_source"),
+    ({"raise_fraction": 0.5, "clear_fraction": 0.6}, "clear_fraction"),
+    ({"unstable_raise_c": 2.0}, "unstable_clear_c"),  # the default clear (2.0) is not below it
+    ({"fetch_nm": -1.0}, "fetch_nm"),
+    ({"swell_period_s": "11"}, "swell_period_s"),
+])
+def test_a_bad_sea_state_config_names_the_key(table, names):
+    from daemon.core.config import build_config
+    from daemon.errors import ConfigError
+
+    with pytest.raises(ConfigError, match=rf"\[sea_state\].*{names}"):
+        build_config({"sea_state": table})

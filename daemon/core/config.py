@@ -184,7 +184,10 @@ def fill(cls: type, values: Any, where: str) -> Any:
         if key not in names:
             raise ConfigError(f"{where} unknown key {key!r}: expected one of {', '.join(sorted(names))}")
         kwargs[key] = _coerce(value, hints[key], f"{where} {key}")
-    obj = cls(**kwargs)
+    try:
+        obj = cls(**kwargs)
+    except ValueError as e:  # a parameter class's own check across its keys
+        raise ConfigError(f"{where} {e}") from None
     problems = check(obj)
     if problems:
         raise ConfigError(f"{where} {problems[0]}")
