@@ -512,7 +512,8 @@ def _against_text(water: MeanWind, w: dict[str, Any]) -> str:
     if w["peak_blocked"]:
         sea = f": the wind sea's {w['wind_sea_period_s']:.0f}-s waves are stopped ({stopped_text}) and break where they meet it"
     else:
-        sea = (f": the wind sea ({w['wind_sea_period_s']:.0f}-s peak) estimated {w['peak_height_factor']:.1f}x higher "
+        sea = (f": the wind sea (about {w['wind_sea_height_m']:.1f} m, {w['wind_sea_period_s']:.0f}-s peak, without the current) "
+               f"estimated {w['peak_height_factor']:.1f}x higher "
                f"and {w['peak_length_factor']:.2f}x as long (steepness x{w['peak_steepness_factor']:.1f}), its highest "
                f"waves near {w['breaking_fraction'] * 100:.0f} % of the breaking steepness 1/7; {stopped_text}")
     return (f"{seen}{sea}. An estimate from linear wave theory and a wind sea estimated from the wind: "
