@@ -54,10 +54,23 @@ class Context:
         return self._latest.get(topic)
 
 
-def drive(estimators: Sequence[Any], samples: Iterable[Sample]) -> list[Publication | Condition]:
-    """Step the estimators as the pipeline does (history first, a tick each data second); all outputs."""
+def drive(estimators: Sequence[Any], samples: Iterable[Sample],
+          cpu_s: dict[str, float] | None = None) -> list[Publication | Condition]:
+    """Step the estimators as the pipeline does (history first, a tick each data second); all outputs.
+
+    ``cpu_s``, when given, collects each estimator's time in step and tick (seconds, by name).
+    """
     ctx = Context()
     out: list[Publication | Condition] = []
+    clock = time.process_time if cpu_s is not None else None
+
+    def call(est: Any, fn: Any, arg: Any) -> Any:
+        if clock is None:
+            return fn(arg, ctx)
+        t = clock()
+        result = fn(arg, ctx)
+        cpu_s[est.name] = cpu_s.get(est.name, 0.0) + clock() - t
+        return result
 
     def take(outputs: Iterable[Publication | Condition]) -> None:
         for o in outputs:
@@ -70,12 +83,12 @@ def drive(estimators: Sequence[Any], samples: Iterable[Sample]) -> list[Publicat
         next_tick = math.floor(s.t_s) + 1.0 if next_tick is None else next_tick
         while next_tick <= s.t_s:
             for est in estimators:
-                take(est.tick(next_tick, ctx))
+                take(call(est, est.tick, next_tick))
             next_tick += 1.0
         ctx.history.add(s)
         for est in estimators:
             if isinstance(s, est.accepts):
-                take(est.step(s, ctx))
+                take(call(est, est.step, s))
     return out
 
 
@@ -92,7 +105,8 @@ def band_entry_s(sim: Any) -> float | None:
 
 def run_case(name: str, seed: int, params: SeaStateParams | None = None) -> dict[str, Any]:
     sim = simulate(SCENARIOS[name](), seed)
-    outs = drive([CurrentEstimator(), SeaStateEstimator(params)], sim.samples)
+    cpu: dict[str, float] = {}
+    outs = drive([CurrentEstimator(), SeaStateEstimator(params)], sim.samples, cpu)
     t_start = sim.scenario.start_utc + WARMUP_S
     entry = band_entry_s(sim)
     dir_err, spd_err, dir_band, spd_band, opp_err = [], [], [], [], []
@@ -121,6 +135,7 @@ def run_case(name: str, seed: int, params: SeaStateParams | None = None) -> dict
         "inst_dir": inst_dir, "inst_spd": inst_spd,
         "caution_after_entry_s": (raised[0] - entry) if raised and entry is not None else None,
         "cautions": len(raised),
+        "cpu_ms_per_data_s": 1000.0 * cpu.get("sea_state", 0.0) / sim.scenario.duration_s,
     }
 
 
@@ -136,6 +151,7 @@ def main(argv: list[str] | None = None) -> None:
     ap.add_argument("--seeds", type=int, default=5)
     args = ap.parse_args(argv)
     t0 = time.perf_counter()
+    cpu_all: list[float] = []
     print("| case | true wind dir median / p95 (deg) | speed median / p95 (kn) | in the band dir / speed "
           "| instrument's true wind dir / speed (median) | opposing current error median (kn) "
           "/ p95 | caution after entering the band (min) | seeds with a caution |")
@@ -143,8 +159,10 @@ def main(argv: list[str] | None = None) -> None:
     for name in CASES:
         agg: dict[str, list[float]] = {k: [] for k in ("dir", "spd", "dir_band", "spd_band", "opp", "inst_dir", "inst_spd")}
         delays, with_caution = [], 0
+        cpu_ms: list[float] = []
         for seed in range(1, args.seeds + 1):
             r = run_case(name, seed)
+            cpu_ms.append(r["cpu_ms_per_data_s"])
             for k in agg:
                 agg[k] += r[k]
             if r["cautions"]:
@@ -156,7 +174,9 @@ def main(argv: list[str] | None = None) -> None:
               f"{_q(agg['spd'], .95):.2f} | {_q(agg['dir_band'], .5):.1f} / {_q(agg['spd_band'], .5):.2f} | "
               f"{_q(agg['inst_dir'], .5):.1f} / {_q(agg['inst_spd'], .5):.2f} | {_q(agg['opp'], .5):.2f} / {_q(agg['opp'], .95):.2f} | "
               f"{delay} | {with_caution}/{args.seeds} |")
-    print(f"\n{args.seeds} seeds per case, {time.perf_counter() - t0:.0f} s on this machine.")
+        cpu_all.extend(cpu_ms)
+    print(f"\n{args.seeds} seeds per case, {time.perf_counter() - t0:.0f} s on this machine; the sea-state "
+          f"estimator took {statistics.median(cpu_all):.2f} ms of CPU per second of data (median of runs).")
 
 
 if __name__ == "__main__":
