@@ -12,7 +12,6 @@ or a ``tick``); it never reads a clock.
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Protocol, runtime_checkable
@@ -22,9 +21,6 @@ from estimators.samples import Sample
 
 ALARM, WARNING, CAUTION = "alarm", "warning", "caution"
 PRIORITIES = (ALARM, WARNING, CAUTION)
-
-# Appended to every alert text: what offwatch can and cannot promise.
-ADVISORY = "Advisory only, not for navigation: check official forecasts, charts and your own seamanship."
 
 
 @dataclass(frozen=True, slots=True)
@@ -42,7 +38,7 @@ class Condition:
     """Whether alert ``alert_id``'s condition holds at ``t_s``.
 
     ``text`` says what was seen and what to check, never what to do at the helm;
-    the daemon appends ``ADVISORY``. ``values`` are the numbers that raised it.
+    the daemon appends its advisory sentence. ``values`` are the numbers that raised it.
     """
 
     t_s: float
@@ -89,11 +85,3 @@ class EstimatorBase:
 
     def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
         return ()
-
-
-def iso_utc(t_s: float) -> str:
-    """ISO 8601 UTC with milliseconds and a Z, as every payload's ``time``."""
-    ms = int(round(t_s * 1000.0))
-    sec, milli = divmod(ms, 1000)
-    stamp = datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S")
-    return f"{stamp}.{milli:03d}Z"

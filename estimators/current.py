@@ -3,8 +3,9 @@ the compass's offset, with the uncertainty it honestly has.
 
 Theory of operation
 -------------------
-State (extended Kalman filter; x and P live in a filterpy ``ExtendedKalmanFilter``, the predict and
-the 2 x 4 update are written out here, cheaper than the generic ones)::
+State (extended Kalman filter; x and P live in a small ``FilterState``, the predict and the 2 x 4
+update are written out here, cheaper than the generic ones; filterpy's ``ExtendedKalmanFilter`` held
+them once, but importing it loads scipy.stats, about 45 MB and a second at start, for nothing)::
 
     x = [c_e, c_n, k, d]
         c_e, c_n  the current toward east / north, kn (ground frame)
@@ -84,17 +85,15 @@ from __future__ import annotations
 
 import math
 from collections import deque
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Sequence
 from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
-from filterpy.kalman import ExtendedKalmanFilter
-from scipy.stats import chi2
 
+from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
 from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
 from estimators.base import CAUTION, Condition, EstimatorBase, Output, Publication
-from estimators.history import SampleHistory
 from estimators.params import param
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
 from estimators.thresholds import Hysteresis
@@ -106,6 +105,26 @@ IE, IN, IK, ID = 0, 1, 2, 3  # state indices
 
 
 MANOEUVRE_SAMPLE_S = 10.0  # spacing of the course/speed history that detects a manoeuvre
+
+
+def chi2_quantile_2dof(p: float) -> float:
+    """Chi-square quantile with 2 degrees of freedom: -2 ln(1 - p), exact.
+
+    With 2 degrees of freedom the chi-square distribution is exponential with mean 2
+    (Abramowitz & Stegun 26.4.20; from memory): CDF 1 - exp(-x/2). p = 0.9973 gives 11.83.
+    """
+    return -2.0 * math.log1p(-p)
+
+
+class FilterState:
+    """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays."""
+
+    __slots__ = ("x", "P")
+
+    def __init__(self) -> None:
+        self.x = np.zeros((4, 1))
+        self.P = np.eye(4)
+
 
 @dataclass(frozen=True)
 class CurrentParams:
@@ -329,7 +348,7 @@ class CurrentEstimator(EstimatorBase):
         self.params = params or CurrentParams()
         self.saved = calibration
         self.health = _Health()
-        self.ekf: ExtendedKalmanFilter | None = None
+        self.ekf: FilterState | None = None
         self.t_filter: float | None = None
         self.t_prev_gv: float | None = None
         self.q_inflation = 1.0
@@ -339,7 +358,7 @@ class CurrentEstimator(EstimatorBase):
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
         self._seen: dict[str, float] = {}
         self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
-        self._gate = float(chi2.ppf(self.params.gate_probability, 2))  # chi-square, 2 dof
+        self._gate = chi2_quantile_2dof(self.params.gate_probability)
         self._t_last_pub: float | None = None
         self._prior: tuple[float, float, float, float] | None = None  # k, d_rad, sigma_k, sigma_d_rad
         self._strong = Hysteresis(self.params.current_strong_kn,
@@ -370,14 +389,14 @@ class CurrentEstimator(EstimatorBase):
             self.health.bad_inputs += 1
             return ()
         if isinstance(sample, Heading):
-            self._input_seen("heading", t, sample.true_deg, 0.0, 360.0)
+            self._input_seen("heading", t, sample.true_deg, *DIRECTION_DEG)
             return ()
         if isinstance(sample, WaterSpeed):
-            self._input_seen("water_speed", t, sample.speed_kn, 0.0, 60.0)
+            self._input_seen("water_speed", t, sample.speed_kn, 0.0, STW_MAX_KN)
             return ()
         if isinstance(sample, Attitude):
             if sample.heel_deg is not None:
-                self._input_seen("heel", t, sample.heel_deg, -90.0, 90.0)
+                self._input_seen("heel", t, sample.heel_deg, -ATTITUDE_MAX_DEG, ATTITUDE_MAX_DEG)
             return ()
         return self._ground_velocity_epoch(sample, ctx)
 
@@ -562,7 +581,7 @@ class CurrentEstimator(EstimatorBase):
             sd = max(math.sqrt(self.ekf.P[ID, ID]), self._prior[3])
         else:
             k, d, sk, sd = self._prior
-        ekf = ExtendedKalmanFilter(dim_x=4, dim_z=2)
+        ekf = FilterState()
         s = w.speed_kn
         theta = math.radians(w.heading_deg + leeway_deg(self.params, w.heel_deg, k * s)) + d
         u, n = unit(theta), d_unit(theta)
@@ -938,39 +957,3 @@ def polar_sigmas(e: float, n: float, Pc: np.ndarray) -> tuple[float, float]:
     sig_d = math.sqrt(max(0.0, float(jd @ Pc @ jd)))
     sig_s = math.degrees(math.sqrt(max(0.0, float(js @ Pc @ js))))
     return sig_d, min(180.0, sig_s)
-
-
-class ReplayContext:
-    """A minimal, pure Context for running estimators over a list of samples (tests, bench, smoother)."""
-
-    def __init__(self, keep_s: float = 600.0) -> None:
-        self.history = SampleHistory(keep_s)
-        self._latest: dict[str, Publication] = {}
-
-    def latest(self, topic: str) -> Publication | None:
-        return self._latest.get(topic)
-
-    def note(self, outputs: Iterable[Output]) -> list[Output]:
-        outs = list(outputs)
-        for o in outs:
-            if isinstance(o, Publication):
-                self._latest[o.topic] = o
-        return outs
-
-
-def run(estimator: Any, samples: Iterable[Sample], ctx: ReplayContext | None = None,
-        tick: bool = True) -> Iterator[tuple[Sample | float, list[Output]]]:
-    """Drive ``estimator`` as the pipeline does: history first, then step; a tick each data second."""
-    ctx = ctx or ReplayContext()
-    next_tick: float | None = None
-    for s in samples:
-        if tick:
-            if next_tick is None:
-                next_tick = math.floor(s.t_s) + 1.0
-            while next_tick <= s.t_s:
-                yield next_tick, ctx.note(estimator.tick(next_tick, ctx))
-                next_tick += 1.0
-                if s.t_s - next_tick > 600.0:
-                    next_tick = math.floor(s.t_s)
-        ctx.history.add(s)
-        yield s, ctx.note(estimator.step(s, ctx) if isinstance(s, estimator.accepts) else ())

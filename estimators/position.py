@@ -73,12 +73,13 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from datetime import datetime, timezone
 from typing import Any
 
 from geographiclib.geodesic import Geodesic
 
 from estimators.angles import KN_TO_MPS, from_east_north, to_east_north, wrap_360
-from estimators.base import WARNING, Condition, Context, EstimatorBase, Output, Publication, iso_utc
+from estimators.base import WARNING, Condition, Context, EstimatorBase, Output, Publication
 from estimators.params import param
 from estimators.samples import Fix, Heading, Sample, WaterSpeed
 
@@ -361,7 +362,7 @@ class PositionEstimator(EstimatorBase):
 
     def _lost_condition(self, t_s: float, gap_s: float) -> Condition:
         fix, dr = self._fix, self._dr
-        text = (f"No GNSS fix for {gap_s:.0f} s, the last at {iso_utc(fix.t_s)} near {_latlon(fix.lat_deg, fix.lon_deg)}; "
+        text = (f"No GNSS fix for {gap_s:.0f} s, the last at {_clock(fix.t_s)} near {_latlon(fix.lat_deg, fix.lon_deg)}; "
                 f"the position shown is dead reckoning, uncertain by about {dr.sigma_m:.0f} m and growing. "
                 f"Check the GNSS receiver, its antenna and its cable.")
         values = {"since_last_fix_s": round(gap_s, 1), "last_fix_lat": fix.lat_deg, "last_fix_lon": fix.lon_deg,
@@ -383,6 +384,11 @@ def _num(payload: Mapping[str, Any] | None, key: str, default: float) -> float:
         return default
     v = payload.get(key)
     return float(v) if _finite(v) else default
+
+
+def _clock(t_s: float) -> str:
+    """Data time of day for a text, ``08:40:12 UTC`` (never an ISO string inside a sentence)."""
+    return datetime.fromtimestamp(t_s, tz=timezone.utc).strftime("%H:%M:%S UTC")
 
 
 def _latlon(lat: float, lon: float) -> str:

@@ -72,6 +72,7 @@ from collections import deque
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+from estimators.limits import PRESSURE_HPA, within
 from estimators.base import CAUTION, WARNING, Condition, Context, EstimatorBase, Output, Publication
 from estimators.params import param
 from estimators.samples import AirTemperature, Fix, Pressure
@@ -357,7 +358,7 @@ class PressureTendency(EstimatorBase):
         return a.temp_c
 
     def _on_pressure(self, s: Pressure) -> Sequence[Output]:
-        if not math.isfinite(s.station_hpa) or not 800.0 <= s.station_hpa <= 1100.0:
+        if not math.isfinite(s.station_hpa) or not within(s.station_hpa, PRESSURE_HPA):
             self.counts["faults"] += 1
             return ()
         air = self.air_temp_c(s.t_s)

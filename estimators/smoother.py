@@ -23,7 +23,8 @@ import numpy as np
 from filterpy.kalman import rts_smoother
 
 from estimators.angles import from_east_north
-from estimators.current import IE, IK, IN, ID, Calibration, CurrentEstimator, CurrentParams, FilterRecord, run
+from estimators.current import IE, IK, IN, ID, Calibration, CurrentEstimator, CurrentParams, FilterRecord
+from estimators.runner import run
 from estimators.samples import Sample
 
 

@@ -64,8 +64,6 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from scipy.optimize import brentq
-
 G = 9.80665  # standard gravity, m/s² (CGPM 1901)
 DEEP_KH = 20.0  # tanh(20) = 1 - 8e-18: deep water for every purpose here
 PM_ALPHA, PM_BETA = 8.1e-3, 0.74  # Pierson & Moskowitz (1964)
@@ -86,6 +84,34 @@ class WaveOnCurrent:
     length_factor: float | None
     height_factor: float | None
     steepness_factor: float | None
+
+
+def bracketed_root(f, lo: float, hi: float, xtol: float = 0.0) -> float:
+    """The root of ``f`` between ``lo`` and ``hi`` (f changes sign there), by bisection.
+
+    Written here rather than taken from scipy.optimize so that the service does not load scipy's
+    optimiser at start; every root here is bracketed and smooth, so halving the bracket to a
+    relative width of 1e-14 (at most 200 steps) is plenty, and cheap next to a publication.
+    """
+    f_lo, f_hi = f(lo), f(hi)
+    if f_lo == 0.0:
+        return lo
+    if f_hi == 0.0:
+        return hi
+    if (f_lo > 0.0) == (f_hi > 0.0):
+        raise ValueError(f"no sign change between {lo!r} and {hi!r}")
+    for _ in range(200):
+        mid = 0.5 * (lo + hi)
+        f_mid = f(mid)
+        if f_mid == 0.0:
+            return mid
+        if (f_mid > 0.0) == (f_lo > 0.0):
+            lo, f_lo = mid, f_mid
+        else:
+            hi = mid
+        if hi - lo <= max(xtol, 1e-14 * abs(hi)):
+            break
+    return 0.5 * (lo + hi)
 
 
 def _tanh_kh(k: float, h: float | None) -> float:
@@ -118,7 +144,7 @@ def still_water_wavenumber(period_s: float, h: float | None) -> float:
     if f(k_deep) >= 0.0:  # tanh(k_deep h) is 1 to rounding
         return k_deep
     hi = k_deep / math.tanh(k_deep * h) * 1.001
-    return brentq(f, k_deep, hi, xtol=1e-14 * hi)
+    return bracketed_root(f, k_deep, hi, xtol=1e-14 * hi)
 
 
 def wavelength_m(period_s: float, h: float | None = None) -> float:
@@ -136,7 +162,7 @@ def _blocking_wavenumber(opposing_mps: float, h: float | None) -> float | None:
         return None
     lo = 1e-9 / h
     hi = max(k_deep, DEEP_KH / h) * 2.0
-    return brentq(lambda k: group_speed(k, h) - v, lo, hi, xtol=1e-12)
+    return bracketed_root(lambda k: group_speed(k, h) - v, lo, hi, xtol=1e-12)
 
 
 def blocking_period_s(opposing_mps: float, h: float | None = None) -> float:
@@ -168,12 +194,12 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
     if u == 0.0:
         k = k0
     elif u > 0.0:  # following: f rises monotonically; f(k0) = k0 U > 0, so the root is below k0
-        k = brentq(f, k0 * 1e-6, k0, xtol=1e-14 * k0)
+        k = bracketed_root(f, k0 * 1e-6, k0, xtol=1e-14 * k0)
     else:
         kb = _blocking_wavenumber(-u, h)
         if kb is None or f(kb) < 0.0:  # the wave's period is below the blocking period
             return WaveOnCurrent(period_s, u, h, True, None, None, None, None)
-        k = k0 if f(k0) == 0.0 else brentq(f, k0, kb, xtol=1e-14 * kb)
+        k = k0 if f(k0) == 0.0 else bracketed_root(f, k0, kb, xtol=1e-14 * kb)
     sigma = intrinsic_frequency(k, h)
     cg_ground = group_speed(k, h) + u
     if cg_ground <= 0.0:  # at the blocking point itself (within rounding)
@@ -212,7 +238,7 @@ def pm_spectrum(omega: float, u10_mps: float) -> float:
 def _half_power_band() -> tuple[float, float]:
     """omega / omega_p at the PM spectrum's half-power points (S(x)/S(1) = x^-5 exp(5/4 (1 - x^-4)))."""
     rel = lambda x: x ** -5 * math.exp(1.25 * (1.0 - x ** -4)) - 0.5  # noqa: E731
-    return brentq(rel, 0.5, 1.0), brentq(rel, 1.0, 3.0)
+    return bracketed_root(rel, 0.5, 1.0), bracketed_root(rel, 1.0, 3.0)
 
 
 HALF_POWER_LO, HALF_POWER_HI = _half_power_band()

@@ -34,8 +34,9 @@ class Mosquitto:
     their queued QoS-1 messages survive a restart, as on a real boat.
     """
 
-    def __init__(self, workdir: Path, listener_conf: str = "") -> None:
-        """``listener_conf``: lines for the listener (e.g. cafile/certfile/keyfile for TLS)."""
+    def __init__(self, workdir: Path, listener_conf: str = "", persistence: bool = True) -> None:
+        """``listener_conf``: lines for the listener (e.g. cafile/certfile/keyfile for TLS);
+        ``persistence=False``: a restart forgets retained messages and sessions (Mosquitto's default)."""
         self.host = "127.0.0.1"
         self.port = free_port()
         self.workdir = workdir
@@ -48,7 +49,7 @@ class Mosquitto:
             # started as root, mosquitto would drop to its own user, who cannot read the temp dir
             f"user {getpass.getuser()}\n"
             "allow_anonymous true\n"
-            "persistence true\n"
+            f"persistence {'true' if persistence else 'false'}\n"
             "autosave_interval 1\n"
             f"persistence_location {workdir}/\n"
             f"log_dest file {self.log}\n"
@@ -141,7 +142,7 @@ class DemoReplay:
 
         files, cfg = demo_files()
         self.path = Path(files[0])
-        from tests.sinks import Keep
+        from tests.helpers import Keep
 
         keep = Keep()
         self.summary = run_replay(files, load_config(cfg), extra_sinks=[keep], progress=False)

@@ -17,7 +17,8 @@ import pytest
 
 from daemon.core.alerts import AlertManager, AlertParams
 from daemon.errors import ConfigError
-from estimators.base import ADVISORY, ALARM, CAUTION, WARNING, Condition, iso_utc
+from daemon.core.payloads import ADVISORY, iso_utc
+from estimators.base import ALARM, CAUTION, WARNING, Condition
 from estimators.params import check
 from estimators.thresholds import Hysteresis
 

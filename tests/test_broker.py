@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import socket
 import threading
-import time
 import uuid
 
 import paho.mqtt.client as paho
@@ -16,7 +15,7 @@ import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
 from daemon.outlets.broker import EmbeddedBroker, _connect_packet, _remaining_length, broker_answers
-from tests.conftest import free_port
+from tests.helpers import free_port
 
 
 def test_remaining_length_examples_of_the_standard():
@@ -67,9 +66,8 @@ def test_probe_gives_up_on_a_silent_server():
     srv.bind(("127.0.0.1", 0))
     srv.listen(1)  # accepts (in the backlog) but never answers
     try:
-        started = time.monotonic()
+        # it returns (False) rather than waiting for ever; how soon is a figure of tools/bench/handoffs.py
         assert not broker_answers("127.0.0.1", srv.getsockname()[1], timeout=0.3)
-        assert time.monotonic() - started < 3.0  # a generous bound: the timeout is honoured, not benchmarked
     finally:
         srv.close()
 

@@ -9,7 +9,8 @@ import pytest
 
 from daemon.core.calibration_store import calibration_path, load_calibration, save_calibration
 from daemon.errors import OutputError
-from estimators.current import Calibration, CurrentEstimator, CurrentParams, run
+from estimators.current import Calibration, CurrentEstimator, CurrentParams
+from estimators.runner import run
 from tests.test_current_synth import synth_passage, tacking_legs
 
 

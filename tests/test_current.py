@@ -8,7 +8,8 @@ import math
 import pytest
 
 from estimators.base import Condition, Publication
-from estimators.current import Calibration, CurrentEstimator, CurrentParams, run
+from estimators.current import Calibration, CurrentEstimator, CurrentParams
+from estimators.runner import run
 from estimators.samples import Fix
 from tests.shared import shared_path
 from tests.test_current_synth import T0, synth_passage, tacking_legs

@@ -25,7 +25,8 @@ import math
 import numpy as np
 from scipy.stats import chi2
 
-from estimators.current import ID, IK, CurrentEstimator, CurrentParams, run
+from estimators.current import ID, IK, CurrentEstimator, CurrentParams
+from estimators.runner import run
 from estimators.samples import Fix
 from tests.test_current_synth import T0, synth_passage
 

@@ -17,7 +17,8 @@ import math
 import numpy as np
 from scipy.stats import chi2
 
-from estimators.current import ID, IE, IK, IN, CurrentEstimator, CurrentParams, run
+from estimators.current import ID, IE, IK, IN, CurrentEstimator, CurrentParams
+from estimators.runner import run
 from estimators.samples import Fix
 from tests.test_current_synth import synth_passage, tacking_legs
 

@@ -26,7 +26,8 @@ from scipy.stats import chi2
 from tools.simulator import scenarios, simulate
 from tools.simulator.__main__ import DEMO_SEED
 from estimators.base import Publication
-from estimators.current import IE, IN, CurrentEstimator, CurrentParams, run
+from estimators.current import IE, IN, CurrentEstimator, CurrentParams
+from estimators.runner import run
 from estimators.samples import Fix
 
 IN_BAND = scenarios.utc(2026, 5, 4, 8, 30)        # mid-band, before the 08:40 GNSS dropout

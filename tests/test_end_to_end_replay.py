@@ -28,7 +28,7 @@ from daemon.outlets.recorder import export_tag_nmea, parse_tag_line
 from daemon.commands.replay import run_replay
 from tools.simulator import scenarios, simulate
 from tools.simulator.nmea_writer import WriterOptions, write_nmea
-from tests.sinks import Keep as Collect
+from tests.helpers import Keep as Collect
 from tests.shared import REPO, SHARED, shared_path
 
 UNDER_WAY = ("real-captures", "under-way-94min-hdg-hdt-rmc.nmea")
@@ -131,7 +131,7 @@ def _payload_problems(topic: str, p: dict) -> list[str]:
             bad.append(f"alert id {p.get('id')!r} on {topic}")
         if p.get("priority") not in PRIORITIES or p.get("state") not in STATES:
             bad.append(f"alert priority/state {p.get('priority')!r}/{p.get('state')!r}")
-        # every alert text carries the advisory wording (the project's rules; estimators.base.ADVISORY)
+        # every alert text carries the advisory wording (the project's rules; daemon.core.payloads.ADVISORY)
         if "not for navigation" not in str(p.get("text", "")).lower():
             bad.append(f"alert {alert_id} text without the advisory: {p.get('text')!r}")
         since = p.get("since")

@@ -336,7 +336,7 @@ def test_real_survey_with_a_mild_gradient_gives_no_front():
     #       MIT; see SOURCES.md): SDMTW every 2 s, 20.5–21.5 °C in 0.1 °C steps, a mild gradient, no sharp front
     path = shared_path("real-captures", "sounder-survey-43min-dpt-mtw.nmea")
 
-    from tests.sinks import Keep
+    from tests.helpers import Keep
 
     sink = Keep()
     # WHEN it is replayed through the whole pipeline

@@ -206,3 +206,86 @@ def data_time_written(jsonl: Path) -> float:
 def _unix(iso: str) -> float:
     from datetime import datetime
     return datetime.fromisoformat(iso.replace("Z", "+00:00")).timestamp()
+
+
+@pytest.fixture
+def forgetful_broker(mosquitto_broker, tmp_path):
+    """A second Mosquitto without persistence: a restart forgets every retained message."""
+    from tests.conftest import Mosquitto
+    workdir = tmp_path / "forgetful"
+    workdir.mkdir()
+    broker = Mosquitto(workdir, persistence=False)
+    broker.start()
+    yield broker
+    broker.stop()
+
+
+def test_the_data_stream_does_not_depend_on_the_broker(short_passage, forgetful_broker, tmp_path):
+    """Issue 14: what the link does (connect, reconnect, republish) never enters the JSONL or the recording."""
+    # GIVEN a broker that forgets its retained messages when it restarts, and a display on it
+    host, port = forgetful_broker
+    display = Display(host, port)
+    with_mqtt, recording = tmp_path / "with_mqtt.jsonl", tmp_path / "passage.sqlite"
+    t0 = short_passage["t0"]
+    proc = subprocess.Popen(replay_args(short_passage, with_mqtt, f"mqtt://{host}:{port}", "--speed", str(SPEED),
+                                        "--record", str(recording)),
+                            cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        # WHEN the broker restarts once in the middle of the replay (22 min into the 30 of data:
+        # after the front, so several alerts made their last change before it)
+        def data_time_seen() -> float:
+            m = display.latest(f"{PREFIX}/status")
+            return 0.0 if m is None else _unix(m.payload["time"])
+
+        assert wait_until(lambda: data_time_seen() >= t0 + 1320, 90), proc.poll()
+        t_restart_data = data_time_seen()
+        forgetful_broker.restart()
+        _, stderr = proc.communicate(timeout=90)
+        assert proc.returncode == 0, stderr[-3000:]
+    finally:
+        if proc.poll() is None:
+            proc.send_signal(signal.SIGKILL)
+            proc.wait(10)
+        display.close()
+
+    # AND the recording is replayed, and the file once more without a broker
+    from_recording, without_mqtt = tmp_path / "from_recording.jsonl", tmp_path / "without_mqtt.jsonl"
+    for source, out in ((recording, from_recording), (short_passage["nmea"], without_mqtt)):
+        done = subprocess.run([sys.executable, "-m", "daemon", "replay", str(source), "--config",
+                               str(short_passage["cfg"]), "--jsonl", str(out), "--quiet"],
+                              cwd=REPO, capture_output=True, text=True, timeout=120)
+        assert done.returncode == 0, done.stderr[-3000:]
+
+    # THEN the three JSONL files are identical, byte for byte (interface.md: replay of a recording)
+    assert with_mqtt.read_bytes() == from_recording.read_bytes()
+    assert with_mqtt.read_bytes() == without_mqtt.read_bytes()
+
+    # AND the broker, which forgot everything at the restart, got the latest retained message of every
+    # topic again from the link: a display that comes now finds each alert's last change (MQTT 3.1.1, 3.3.1.3)
+    sent = read_jsonl(with_mqtt)
+    alert_topics = {m["topic"] for m in sent if "/alerts/" in m["topic"]}
+    last_change = {topic: [m for m in sent if m["topic"] == topic][-1] for topic in alert_topics}
+    # the check means something only if some alert last changed before the restart
+    assert any(m["t"] < t_restart_data for m in last_change.values()), (t_restart_data - t0, last_change)
+    late = Display(host, port)
+    try:
+        assert wait_until(lambda: alert_topics <= late.topics(), 10), alert_topics - late.topics()
+        for topic, m in last_change.items():
+            assert late.latest(topic).payload == m["payload"], topic
+        assert late.latest(f"{PREFIX}/status").payload["state"] == "offline"  # the replay ended cleanly
+    finally:
+        late.close()
+
+
+def test_replay_with_the_broker_gone_at_the_end_says_what_was_not_delivered(short_passage, tmp_path):
+    """Issue 13 item 12: nothing undelivered is dropped in silence; exit status 3 (README, replay)."""
+    from tests.conftest import free_port
+    # GIVEN a broker address where nothing answers (a broker that went and does not come back)
+    out = tmp_path / "gone.jsonl"
+    done = subprocess.run(replay_args(short_passage, out, f"mqtt://127.0.0.1:{free_port()}", "--mqtt-wait", "1"),
+                          cwd=REPO, capture_output=True, text=True, timeout=120)
+    # THEN the replay finishes its outputs, waits its bound, and says what the broker never got
+    assert done.returncode == 3, done.stderr[-2000:]
+    n_alerts = len(alert_changes(read_jsonl(out)))
+    line = next(ln for ln in done.stderr.splitlines() if "not delivered" in ln)
+    assert f"{n_alerts} alert changes" in line and "after waiting 1 s" in line, line

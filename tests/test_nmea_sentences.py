@@ -18,7 +18,9 @@ import pytest
 from daemon.intake.counters import Counters
 from daemon.errors import ConfigError
 from daemon.intake.ingest import Ingest
-from daemon.nmea0183.codec import extract, parse_line, parse_tag_block
+from daemon.nmea0183.codec import (
+    LabelledHeading, Measured, Variation, extract, parse_line, parse_tag_block,
+)
 from daemon.core.readings import RawLine, Reading
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Heading, Pressure,
@@ -137,7 +139,8 @@ def test_tag_block_time_in_milliseconds_above_1e11():
     # interface.md: c: is UNIX seconds, or milliseconds when larger than 10^11
     tag = "s:logger,c:1754284333420"
     assert parse_tag_block(f"{tag}*{xor_hex(tag)}") == ("ok", pytest.approx(1754284333.420), "logger")
-    assert parse_tag_block("c:99999999999*" + xor_hex("c:99999999999"))[1] == 99999999999.0
+    # just below the threshold it is seconds: year 5138, no logger's clock (estimators.limits.DATA_TIME_S)
+    assert parse_tag_block("c:99999999999*" + xor_hex("c:99999999999"))[0] == "unparseable"
 
 
 def test_tag_block_checksum_is_its_own():
@@ -152,14 +155,14 @@ def test_tag_block_checksum_is_its_own():
 
 def test_rmc_fields_v410():
     ex = values("$GPRMC,190105.41,A,3747.772,N,12220.041,W,5.2,218.2,100520,013.2,E,D*20")
-    kinds = {v[1]: v[2] for v in ex.values if v[0] == 0}
+    kinds = {v.kind: v.args for v in ex.values if isinstance(v, Measured)}
     lat, lon, sog, cog, hdop = kinds[Fix]
     assert lat == pytest.approx(37 + 47.772 / 60)  # RMC fields 3-4: ddmm.mmm N
     assert lon == pytest.approx(-(122 + 20.041 / 60))  # fields 5-6: dddmm.mmm W is negative
     assert (sog, cog, hdop) == (5.2, 218.2, None)  # fields 7 (kn) and 8 (deg true)
     assert ex.tod_s == pytest.approx(19 * 3600 + 1 * 60 + 5.41)  # field 1 hhmmss.ss
     assert ex.day == (dt.date(2020, 5, 10) - dt.date(1970, 1, 1)).days  # field 9 ddmmyy
-    assert (3, 13.2) in ex.values  # fields 10-11 variation 13.2 E, east positive
+    assert Variation(13.2) in ex.values  # fields 10-11 variation 13.2 E, east positive
 
 
 def test_rmc_status_v_and_mode_n_are_void_and_counted():
@@ -180,7 +183,7 @@ def test_rmc_empty_position_is_missing_not_zero():
 
 def test_rmc_old_layout_without_mode_and_southern_eastern_hemispheres():
     ex = values(s("GPRMC,081836,A,3751.65,S,14507.36,E,000.0,360.0,130998,011.3,E"))
-    fix = next(v[2] for v in ex.values if v[0] == 0)
+    fix = next(v.args for v in ex.values if isinstance(v, Measured))
     assert fix[0] == pytest.approx(-(37 + 51.65 / 60)) and fix[1] == pytest.approx(145 + 7.36 / 60)
     assert fix[3] == 0.0  # COG 360.0 is north, kept as 0
     assert ex.day == (dt.date(1998, 9, 13) - dt.date(1970, 1, 1)).days  # yy 98 -> 1998 (pivot 80, from memory)
@@ -189,7 +192,7 @@ def test_rmc_old_layout_without_mode_and_southern_eastern_hemispheres():
 def test_gga_fields_and_fix_quality():
     # NMEA 0183 v4.10 GGA: field 6 quality (0 invalid, 1 GPS, 2 DGPS, ..., 6 estimated), field 8 HDOP
     ex = values("$GPGGA,123519,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,*47")
-    fix = next(v[2] for v in ex.values if v[0] == 0)
+    fix = next(v.args for v in ex.values if isinstance(v, Measured))
     assert fix[0] == pytest.approx(48 + 7.038 / 60) and fix[1] == pytest.approx(11 + 31.0 / 60)
     assert fix[4] == 0.9 and ex.tod_s == 12 * 3600 + 35 * 60 + 19 and ex.day is None
     for quality in ("0", "6", ""):
@@ -200,22 +203,22 @@ def test_gga_fields_and_fix_quality():
 def test_gll_new_and_old_layouts():
     # v4.10 GLL: 1-2 lat, 3-4 lon, 5 time, 6 status, 7 mode; v1.5 had only the position
     new = values(s("GPGLL,3747.772,N,12220.041,W,190105.41,A,D"))
-    assert new.tod_s == pytest.approx(68465.41) and new.values[0][1] is Fix
+    assert new.tod_s == pytest.approx(68465.41) and new.values[0].kind is Fix
     old = values(s("GPGLL,3747.772,N,12220.041,W"))
-    assert old.tod_s is None and old.values[0][2][:2] == new.values[0][2][:2]
+    assert old.tod_s is None and old.values[0].args[:2] == new.values[0].args[:2]
     assert values(s("GPGLL,3747.772,N,12220.041,W,190105.41,V,N")).implausible == 1
 
 
 def test_vtg_layouts():
     # v4.10 VTG: 1 COG true, 3 COG magnetic, 5 SOG kn, 7 SOG km/h, 9 mode
     ex = values("$GPVTG,218.2,T,205.0,M,5.2,N,9.6,K,D*20")
-    assert ex.values == [(0, GroundVelocity, (5.2, 218.2))]
+    assert ex.values == [Measured(GroundVelocity, (5.2, 218.2))]
     kmh_only = values(s("GPVTG,218.2,T,,M,,N,9.63,K,A"))
-    assert kmh_only.values[0][2][0] == pytest.approx(9.63 / 1.852)
+    assert kmh_only.values[0].args[0] == pytest.approx(9.63 / 1.852)
     no_course = values("$IIVTG,,T,312,M,0.0,N,,*0C")  # a real instrument's, empty true course
-    assert no_course.values == [(0, GroundVelocity, (0.0, None))]
+    assert no_course.values == [Measured(GroundVelocity, (0.0, None))]
     old = values(s("GPVTG,054.7,034.4,005.5,010.2"))  # pre-2.0 layout without unit letters (from memory)
-    assert old.values == [(0, GroundVelocity, (5.5, 54.7))]
+    assert old.values == [Measured(GroundVelocity, (5.5, 54.7))]
 
 
 def test_zda_date_and_empty_zone():
@@ -283,54 +286,54 @@ def test_unknown_heading_sensor_setting_names_the_key():
 
 def test_vhw_real_dead_log_reads_zero_and_the_t_k_less_layout():
     # v4.10 VHW: 1 heading true, 3 heading magnetic, 5 STW kn, 7 STW km/h
-    assert values("$VWVHW,233.7,T,220.5,M,0.00,N,0.0,K*64").values == [(0, WaterSpeed, (0.0,))]
-    assert values("$IIVHW,,,347,M,0.00,N,,*64").values == [(0, WaterSpeed, (0.0,))]
-    kmh = values(s("IIVHW,,T,,M,,N,11.112,K")).values[0][2][0]
+    assert values("$VWVHW,233.7,T,220.5,M,0.00,N,0.0,K*64").values == [Measured(WaterSpeed, (0.0,))]
+    assert values("$IIVHW,,,347,M,0.00,N,,*64").values == [Measured(WaterSpeed, (0.0,))]
+    kmh = values(s("IIVHW,,T,,M,,N,11.112,K")).values[0].args[0]
     assert kmh == pytest.approx(6.0)  # 11.112 km/h / 1.852 = 6 kn exactly
 
 
 def test_vbw_longitudinal_water_speed_when_valid():
     # v4.10 VBW: 1 longitudinal water speed, 2 transverse, 3 status, 4-6 ground speeds and status
-    assert values(s("IIVBW,5.5,0.1,A,5.9,0.2,A")).values == [(0, WaterSpeed, (5.5,))]
+    assert values(s("IIVBW,5.5,0.1,A,5.9,0.2,A")).values == [Measured(WaterSpeed, (5.5,))]
     assert values(s("IIVBW,5.5,0.1,V,5.9,0.2,A")).implausible == 1
 
 
 def test_mtw_integer_with_leading_zero():
-    assert values("$IIMTW,016,C*3A").values == [(0, SeaTemperature, (16.0,))]
+    assert values("$IIMTW,016,C*3A").values == [Measured(SeaTemperature, (16.0,))]
 
 
 def test_mda_pressure_bar_air_and_water_temperature():
     # v4.10 MDA: 1-2 inHg I, 3-4 bar B, 5-6 air C, 7-8 water C, ... (real berth capture line)
     ex = values("$WIMDA,29.9345,I,1.0137,B,18.9,C,,,,,,,225.0,T,210.3,M,5.1,N,2.6,M*2B")
-    assert (0, Pressure, (pytest.approx(1013.7),)) in ex.values
-    assert (0, AirTemperature, (18.9,)) in ex.values
+    assert Measured(Pressure, (pytest.approx(1013.7),)) in ex.values
+    assert Measured(AirTemperature, (18.9,)) in ex.values
     assert len(ex.values) == 2  # no water temperature given
     inhg_only = values(s("WIMDA,29.92,I,,,,,15.5,C")).values
     # 29.92 inHg = 1013.2 hPa (the standard atmosphere, from memory)
-    assert inhg_only == [(0, Pressure, (pytest.approx(1013.2, abs=0.05),)), (0, SeaTemperature, (15.5,))]
+    assert inhg_only == [Measured(Pressure, (pytest.approx(1013.2, abs=0.05),)), Measured(SeaTemperature, (15.5,))]
 
 
 def test_xdr_pressure_temperature_and_attitude():
     # v4.10 XDR: groups of type, value, unit, name. P bar/pascal, C celsius, A degrees (from memory).
     ex = values(s("IIXDR,P,1.0132,B,Barometer,C,21.5,C,AirTemp,C,17.0,C,WaterTemp"))
-    assert ex.values == [(0, Pressure, (pytest.approx(1013.2),)), (0, AirTemperature, (21.5,)),
-                         (0, SeaTemperature, (17.0,))]
-    assert values(s("IIXDR,P,101320,P,BARO")).values == [(0, Pressure, (pytest.approx(1013.2),))]
-    assert values(s("YXXDR,A,-5.2,D,ROLL,A,1.5,D,PITCH")).values == [(0, Attitude, (-5.2, 1.5))]
+    assert ex.values == [Measured(Pressure, (pytest.approx(1013.2),)), Measured(AirTemperature, (21.5,)),
+                         Measured(SeaTemperature, (17.0,))]
+    assert values(s("IIXDR,P,101320,P,BARO")).values == [Measured(Pressure, (pytest.approx(1013.2),))]
+    assert values(s("YXXDR,A,-5.2,D,ROLL,A,1.5,D,PITCH")).values == [Measured(Attitude, (-5.2, 1.5))]
 
 
 def test_real_compass_xdr_with_impossible_pitch():
     # From the gpsd corpus (tnt-revolution): pitch 171 deg cannot be a boat's: dropped, roll kept.
     ex = values("$HCXDR,A,171,D,PITCH,A,-37,D,ROLL,G,367,,MAGX,G,2420,,MAGY,G,-8984,,MAGZ*41")
-    assert ex.values == [(0, Attitude, (-37.0, None))] and ex.implausible == 1
+    assert ex.values == [Measured(Attitude, (-37.0, None))] and ex.implausible == 1
 
 
 # --- wind, depth ---------------------------------------------------------------------------------
 
 def test_mwv_relative_is_apparent_wind_and_units_convert():
     # v4.10 MWV: 1 angle, 2 R/T, 3 speed, 4 unit K/M/N/S, 5 status
-    assert values("$WIMWV,19.9,R,5.2,N,A*15").values == [(0, ApparentWind, (19.9, 5.2))]
-    mps = values(s("WIMWV,90,R,10.0,M,A")).values[0][2][1]
+    assert values("$WIMWV,19.9,R,5.2,N,A*15").values == [Measured(ApparentWind, (19.9, 5.2))]
+    mps = values(s("WIMWV,90,R,10.0,M,A")).values[0].args[1]
     assert mps == pytest.approx(19.438, abs=1e-3)  # 10 m/s x 3600 / 1852
     assert values(s("WIMWV,90,R,10.0,N,V")).implausible == 1
 
@@ -344,7 +347,7 @@ def test_mwv_theoretical_becomes_a_direction_with_the_latest_true_heading():
 
 def test_mwd_true_and_magnetic_only():
     # v4.10 MWD: 1 from true, 3 from magnetic, 5 kn, 7 m/s
-    assert values(s("IIMWD,258.0,T,245.0,M,24.6,N,12.6,M")).values == [(0, WaterWind, (24.6, 258.0, None))]
+    assert values(s("IIMWD,258.0,T,245.0,M,24.6,N,12.6,M")).values == [Measured(WaterWind, (24.6, 258.0, None))]
     samples, counters = samples_of("$IIMWD,,T,258,M,24.6,N,12.6,M*7E")  # real: true left empty
     assert samples == [] and counters.get("nav", "MWD", "no_variation") == 1
     samples, _ = samples_of("$IIMWD,,T,258,M,24.6,N,12.6,M*7E", variation=StandInVariation(-10.0))
@@ -353,11 +356,11 @@ def test_mwd_true_and_magnetic_only():
 
 def test_dbt_and_dpt_offsets():
     # v4.10 DBT: 1-2 feet, 3-4 metres, 5-6 fathoms; DPT: 1 depth m, 2 offset (+ to waterline)
-    assert values("$APDBT,9.2,f,2.8,M,1.5,F*05").values == [(0, Depth, (2.8,))]
-    assert values(s("SDDBT,10.0,f,,M,,F")).values == [(0, Depth, (pytest.approx(3.048),))]
-    assert values(s("SDDPT,2.5,0.4")).values == [(0, Depth, (pytest.approx(2.9),))]
-    assert values("$GPDPT,2.8,-0.8*78").values == [(0, Depth, (2.8,))]  # keel offset: not added
-    assert values("$SDDPT,2.5,*7E").values == [(0, Depth, (2.5,))]
+    assert values("$APDBT,9.2,f,2.8,M,1.5,F*05").values == [Measured(Depth, (2.8,))]
+    assert values(s("SDDBT,10.0,f,,M,,F")).values == [Measured(Depth, (pytest.approx(3.048),))]
+    assert values(s("SDDPT,2.5,0.4")).values == [Measured(Depth, (pytest.approx(2.9),))]
+    assert values("$GPDPT,2.8,-0.8*78").values == [Measured(Depth, (2.8,))]  # keel offset: not added
+    assert values("$SDDPT,2.5,*7E").values == [Measured(Depth, (2.5,))]
     assert values(s("SDDPT,,")).values == []
 
 
@@ -383,14 +386,14 @@ def test_dbt_and_dpt_offsets():
 ])
 def test_implausible_values_are_counted_and_dropped(sentence):
     ex = values(sentence)
-    assert ex.implausible == 1 and not [v for v in ex.values if v[0] in (0, 1)]
+    assert ex.implausible == 1 and not [v for v in ex.values if isinstance(v, (Measured, LabelledHeading))]
 
 
 def test_plausible_edges_pass():
-    assert values(s("WIMDA,,I,0.870,B")).values[0][2][0] == pytest.approx(870.0)
-    assert values(s("IIMTW,-3.0,C")).values == [(0, SeaTemperature, (-3.0,))]
-    assert values(s("APHDT,360.0,T")).values == [(1, 0.0, "T")]
-    assert values(s("SDDPT,0.0,")).values == [(0, Depth, (0.0,))]
+    assert values(s("WIMDA,,I,0.870,B")).values[0].args[0] == pytest.approx(870.0)
+    assert values(s("IIMTW,-3.0,C")).values == [Measured(SeaTemperature, (-3.0,))]
+    assert values(s("APHDT,360.0,T")).values == [LabelledHeading(0.0, "T")]
+    assert values(s("SDDPT,0.0,")).values == [Measured(Depth, (0.0,))]
 
 
 def test_unparseable_fields():
@@ -437,7 +440,7 @@ def test_real_receiver_quirks_from_the_gpsd_corpus():
     assert void.implausible == 1 and void.values == []
     # motorola-t805: variation "0" without its E/W: the fix is kept, no variation noted
     ex = values("$GPRMC,212614.879,A,4839.9488,N,00214.8863,E,0.56,344.41,181207,0,A*77")
-    assert [v[1] for v in ex.values] == [Fix]
+    assert [v.kind for v in ex.values] == [Fix]
     # blumax-gps009: a proprietary text with spaces in its "address" is still proprietary
     line = parse_line("$PSRFTXTBaud rate: 57600 *51")
     assert (line.status, line.key) == ("proprietary", "PSRF")

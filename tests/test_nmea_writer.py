@@ -18,6 +18,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from daemon.nmea0183.codec import checksum_hex
 from tools.simulator import nmea_writer as nw
 from tools.simulator import scenarios, simulate
 from estimators.samples import (
@@ -80,7 +81,7 @@ def test_each_sentence_round_trips_through_pynmea2(text, kind, expected):
     # THEN it is the right type, its checksum agrees with pynmea2's own, and every field reads back
     assert msg.sentence_type == kind
     body = text[1:text.index("*")]
-    assert text[-2:] == f"{pynmea2.NMEASentence.checksum(body):02X}" == nw.checksum_hex(body)
+    assert text[-2:] == f"{pynmea2.NMEASentence.checksum(body):02X}" == checksum_hex(body)
     for attr, value in expected.items():
         assert plain(getattr(msg, attr)) == value, attr
 
@@ -187,7 +188,7 @@ def test_spoiled_lines_fail_exactly_as_intended(short_run):
     assert len(failed) == 3
     bad_checksum, truncated, garbage = failed
     body, cs = bad_checksum[1:].rsplit("*", 1)
-    assert cs != nw.checksum_hex(body)
+    assert cs != checksum_hex(body)
     assert "*" not in truncated and truncated.startswith("$")
     assert garbage.startswith("#")
     with pytest.raises(ValueError, match="unknown malformation"):

@@ -45,11 +45,18 @@ def test_full_queue_drops_the_oldest_and_counts(tmp_path):
 def test_store_sorts_states_from_queued(tmp_path):
     box = Outbox(tmp_path / "o.sqlite")
     seqs = box.store([Outgoing("b/current", b"s", 0, True),         # retained QoS 0: a state
-                      Outgoing("b/alerts/front", b"a", 1, True),    # QoS 1: queued
-                      Outgoing("b/events", b"e", 0, False)])        # not retained: queued
+                      Outgoing("b/alerts/front", b"a", 1, True),    # QoS 1: queued, and its latest kept
+                      Outgoing("b/events", b"e", 0, False)])        # not retained: queued only
     assert seqs[0] is None and seqs[1] is not None and seqs[2] > seqs[1]
-    assert [s.topic for s in box.latest_states()] == ["b/current"]
+    assert [s.topic for s in box.latest_states()] == ["b/alerts/front", "b/current"]
     assert [(q.topic, q.qos, q.retain) for q in box.queued()] == [("b/alerts/front", 1, True), ("b/events", 0, False)]
+    assert box.queued_topics() == {"b/alerts/front", "b/events"}
+    # once the broker has the alert, only its latest state is left, to republish after a reconnect
+    box.remove(seqs[1])
+    assert box.queued_topics() == {"b/events"}
+    assert box.latest("b/alerts/front") == Outgoing("b/alerts/front", b"a", 1, True)
+    box.forget_latest("b/alerts/front")
+    assert box.latest("b/alerts/front") is None
 
 
 def test_everything_survives_a_reopen(tmp_path):

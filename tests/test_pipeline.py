@@ -8,7 +8,7 @@ from daemon.core.pipeline import Pipeline
 from daemon.core.readings import Message, RawLine, Reading
 from estimators.base import Condition, EstimatorBase, Publication
 from estimators.samples import Heading, Pressure
-from tests.sinks import Keep
+from tests.helpers import Keep
 
 
 class Echo(EstimatorBase):
@@ -42,6 +42,8 @@ class FakeAlerts:
 
     def acknowledge(self, alert_id, t_s):
         self.acks.append((alert_id, t_s))
+        if alert_id == "no_such_alert":  # as the real manager: an unknown id changes nothing
+            return []
         return [Message(t_s, "boat/alerts/" + alert_id, {"id": alert_id}, True, 1, "alert")]
 
 
@@ -107,6 +109,21 @@ def test_acknowledgements_from_another_thread_are_handled_in_the_loop():
     pipe.feed(reading(Heading(1000.2, 0.0)))
     assert alerts.acks == [("pressure_fall", 1000.0)]
     assert any(m.topic == "boat/alerts/pressure_fall" for m in sink.messages)
+
+
+def test_an_acknowledgement_is_answered_with_whether_it_acknowledged_anything():
+    # GIVEN a pipeline that has not seen data yet, and one that has
+    pipe, est, alerts, sink = make()
+    answers = []
+    pipe.acknowledge("pressure_fall", lambda i, ok: answers.append((i, ok)))
+    pipe.feed(RawLine("gps", 999.0, float("nan"), "$GPRMC,..."))  # no data time yet: nothing to acknowledge
+    pipe.feed(reading(Heading(1000.0, 0.0)))
+    # WHEN a known and an unknown id are acknowledged
+    pipe.acknowledge("pressure_fall", lambda i, ok: answers.append((i, ok)))
+    pipe.acknowledge("no_such_alert", lambda i, ok: answers.append((i, ok)))
+    pipe.feed(reading(Heading(1000.2, 0.0)))
+    # THEN only the one that changed an alert is answered True (issue 13 item 16: ack_accepted)
+    assert answers == [("pressure_fall", False), ("pressure_fall", True), ("no_such_alert", False)]
 
 
 def test_close_publishes_a_last_status_and_closes_sinks():

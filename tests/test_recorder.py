@@ -15,6 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from daemon.outlets import recorder
+from daemon.nmea0183 import codec
 from daemon.errors import InputError
 from daemon.core.readings import Message, RawLine
 from daemon.outlets.recorder import (Recorder, RecordingParams, RecordingPolicy, RecordingWriter, export_tag_nmea,
@@ -221,15 +222,15 @@ def test_full_queue_drops_and_counts_without_blocking(tmp_path):
     rec.raw(RawLine("s", T0, T0, "$first"))
     assert held.wait(10)
     # WHEN 1000 more lines are offered
-    started = time.monotonic()
-    for line in sample_lines(1000):
-        rec.raw(line)
-    offering_s = time.monotonic() - started
-    # THEN the surplus is dropped and counted, and offering never waited for the writer
+    offering = threading.Thread(target=lambda: [rec.raw(line) for line in sample_lines(1000)])
+    offering.start()
+    offering.join(10)  # a limit to give up waiting; the cost per line is in tools/bench/handoffs.py
+    # THEN offering finished while the writer was still held (it never waited for it),
+    # and the surplus is dropped and counted
+    assert not offering.is_alive() and not hold.is_set()
     stats = rec.stats
     assert stats.dropped > 0
     assert stats.enqueued + stats.dropped == 1001
-    assert offering_s < 5
     hold.set()
     rec.close()
     # AND what was queued is all recorded
@@ -380,7 +381,7 @@ def test_recorder_starts_a_new_file_at_utc_midnight_and_copies_the_config(tmp_pa
 def test_checksum_against_the_classic_gga_example():
     # The GGA example sentence of common NMEA 0183 tutorials (checksum 47, from memory).
     body = "GPGGA,123519,4807.038,N,01131.000,E,1,08,0.9,545.4,M,46.9,M,,"
-    assert recorder.checksum_hex(body) == nmea_checksum(body) == "47"
+    assert codec.checksum_hex(body) == nmea_checksum(body) == "47"
 
 
 def test_export_tag_nmea_round_trips_byte_for_byte(tmp_path):

@@ -6,7 +6,8 @@ import math
 
 import numpy as np
 
-from estimators.current import CurrentEstimator, CurrentParams, run
+from estimators.current import CurrentEstimator, CurrentParams
+from estimators.runner import run
 from estimators.samples import Fix
 from estimators.smoother import smooth_current
 from tests.test_current_synth import synth_passage, tacking_legs

@@ -13,8 +13,9 @@ import time
 import pytest
 
 from daemon.errors import ConfigError
-from daemon.intake.sources import (Chunk, InputSpec, SourceSupervisor, make_reader, specs_from_config,
-                            start_sources)
+from daemon.core.config import InputConfig, build_config
+from daemon.intake.sources import Chunk, SourceSupervisor, make_reader, start_sources
+from tests.helpers import free_port, wait_until
 
 
 def collect(q: queue.Queue, n_bytes: int, timeout_s: float = 3.0) -> bytes:
@@ -31,15 +32,6 @@ def collect(q: queue.Queue, n_bytes: int, timeout_s: float = 3.0) -> bytes:
     return got
 
 
-def wait_until(cond, timeout_s: float = 5.0) -> bool:
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        if cond():
-            return True
-        time.sleep(0.02)
-    return cond()
-
-
 @pytest.fixture
 def stop():
     ev = threading.Event()
@@ -47,8 +39,8 @@ def stop():
     ev.set()
 
 
-def start_one(spec: InputSpec, q: queue.Queue, stop: threading.Event) -> SourceSupervisor:
-    sup = SourceSupervisor(spec, make_reader(spec), q, stop)
+def start_one(name: str, cfg: InputConfig, q: queue.Queue, stop: threading.Event) -> SourceSupervisor:
+    sup = SourceSupervisor(name, cfg, make_reader(name, cfg), q, stop)
     sup.start()
     return sup
 
@@ -64,7 +56,7 @@ def test_serial_bytes_arrive_and_an_unplugged_adapter_is_reopened(tmp_path, stop
     link = str(tmp_path / "ttyNMEA")
     master, slave = new_pty_at(link)
     q: queue.Queue = queue.Queue(maxsize=100)
-    sup = start_one(InputSpec("gps", "serial", device=link, baud=38400), q, stop)
+    sup = start_one("gps", InputConfig("serial", device=link, baud=38400), q, stop)
     assert wait_until(lambda: sup.health.state == "open", 3.0)
     line = b"$GPRMC,063000.00,A,5000.000,N,00400.000,W,5.0,90.0,040526,,,A*00\r\n"
     os.write(master, line)
@@ -78,10 +70,8 @@ def test_serial_bytes_arrive_and_an_unplugged_adapter_is_reopened(tmp_path, stop
     time.sleep(0.5)  # a few failed attempts while it is out
     # WHEN it is plugged back in under the same name
     master, slave = new_pty_at(link)
-    plugged = time.monotonic()
-    # THEN it is reopened within 5 s and data flows again
+    # THEN it is reopened (the wait is a limit to give up, not a figure) and data flows again
     assert wait_until(lambda: sup.health.state == "open", 5.0)
-    assert time.monotonic() - plugged < 5.0
     os.write(master, line)
     assert collect(q, len(line)) == line
     snap = sup.health.snapshot()
@@ -128,7 +118,7 @@ def test_tcp_client_reconnects_after_the_server_drops_it(stop, caplog):
     garbage = bytes(rng.randrange(256) for _ in range(5000))  # every byte value, binary noise
     server = DroppingServer([first, garbage])
     q: queue.Queue = queue.Queue(maxsize=100)
-    sup = start_one(InputSpec("mux", "tcp", host="127.0.0.1", port=server.port), q, stop)
+    sup = start_one("mux", InputConfig("tcp", host="127.0.0.1", port=server.port), q, stop)
     # THEN both sessions' bytes arrive, in order and unharmed
     assert collect(q, len(first) + len(garbage)) == first + garbage
     assert server.accepted == 2
@@ -142,7 +132,7 @@ def test_tcp_refused_is_retried_with_capped_backoff(stop):
     port = probe.getsockname()[1]
     probe.close()  # nothing listens there now
     q: queue.Queue = queue.Queue(maxsize=10)
-    sup = start_one(InputSpec("mux", "tcp", host="127.0.0.1", port=port), q, stop)
+    sup = start_one("mux", InputConfig("tcp", host="127.0.0.1", port=port), q, stop)
     assert wait_until(lambda: sup.health.state == "cannot_open", 2.0)
     # WHEN the multiplexer comes up later, the client finds it
     server = socket.create_server(("127.0.0.1", port))
@@ -156,7 +146,7 @@ def test_tcp_refused_is_retried_with_capped_backoff(stop):
 
 def test_udp_datagrams_arrive_unharmed_and_a_full_queue_drops_counted(stop):
     q: queue.Queue = queue.Queue(maxsize=3)
-    sup = start_one(InputSpec("wifi", "udp", bind="127.0.0.1", port=0), q, stop)
+    sup = start_one("wifi", InputConfig("udp", bind="127.0.0.1", port=free_port(socket.SOCK_DGRAM)), q, stop)
     assert wait_until(lambda: sup.reader.address is not None, 2.0)
     address = sup.reader.address
     tx = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
@@ -178,13 +168,10 @@ def test_start_sources_builds_every_kind_and_refuses_an_incomplete_spec(tmp_path
     log_file = tmp_path / "feed.nmea"
     log_file.write_bytes(b"$SDDPT,4.1,0.0*00\r\n")
 
-    class Cfg:  # the config loader's InputConfig has these field names
-        kind, device, baud, host, port, bind, path, allow_no_checksum = "file", "", 4800, "", 10110, "0.0.0.0", str(log_file), False
-
-    specs = specs_from_config({"log": Cfg()})
-    assert specs == [InputSpec("log", "file", path=str(log_file))]
+    inputs = build_config({"inputs": {"log": {"kind": "file", "path": str(log_file)}}}).inputs
+    assert inputs == {"log": InputConfig("file", path=str(log_file))}  # one type, from the config to the source
     q: queue.Queue = queue.Queue(maxsize=10)
-    threads, health = start_sources(specs, q, stop)
+    threads, health = start_sources(inputs, q, stop)
     assert collect(q, 19) == b"$SDDPT,4.1,0.0*00\r\n"
     with open(log_file, "ab") as f:  # a growing file is followed
         f.write(b"$SDMTW,17.9,C*00\r\n")
@@ -193,7 +180,17 @@ def test_start_sources_builds_every_kind_and_refuses_an_incomplete_spec(tmp_path
     stop.set()
     threads[0].join(2.0)
     assert health[0].snapshot()["state"] == "stopped"
-    with pytest.raises(ConfigError, match=r"\[inputs.gps\].*device"):
-        start_sources([InputSpec("gps", "serial")], q, threading.Event())
-    with pytest.raises(ConfigError, match=r"\[inputs.x\].*kind"):
-        make_reader(InputSpec("x", "can"))
+    # an input made in code is held to the config's own check
+    with pytest.raises(ConfigError, match=r"\[inputs.gps\].*device = \"/dev/serial/by-id/"):
+        start_sources({"gps": InputConfig("serial")}, q, threading.Event())
+    with pytest.raises(ConfigError, match=r"\[inputs.x\] kind = 'can'"):
+        make_reader("x", InputConfig("can"))
+
+
+def test_a_udp_input_made_without_a_bind_listens_on_loopback_only():
+    reader = make_reader("wifi", InputConfig("udp", port=free_port()))
+    reader.open()
+    try:
+        assert reader.address[0] == "127.0.0.1"
+    finally:
+        reader.close()

@@ -25,6 +25,7 @@ examples:
   offwatch replay passage.nmea.gz --jsonl out.jsonl
   offwatch replay a.nmea b.nmea --mqtt mqtt://127.0.0.1:1883 --record passage.sqlite
   offwatch run --config /etc/offwatch/offwatch.toml
+  offwatch config                                 every config key: default, unit, range
 """
 
 
@@ -48,6 +49,9 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("--record", metavar="DB", help="keep the passage in a recording, as run does")
     rep.add_argument("--mqtt", metavar="URL", help="publish to this broker as well, exactly as run would")
     rep.add_argument("--speed", type=float, metavar="X", help="pace the replay at X times real time (default: as fast as it can)")
+    rep.add_argument("--mqtt-wait", type=float, metavar="S",
+                     help="at the end, wait at most S seconds for the broker to take what is queued (default 15); "
+                          "exit status 3 when something was not delivered or not recorded")
     rep.add_argument("--quiet", action="store_true", help="no summary at the end")
 
     demo = sub.add_parser("demo", help="replay the demo passage end to end, with a broker, and summarise")
@@ -67,6 +71,13 @@ def build_parser() -> argparse.ArgumentParser:
     watch.add_argument("--mqtt", metavar="URL", default="mqtt://127.0.0.1:1883")
     watch.add_argument("--prefix", default="offwatch")
     watch.add_argument("--once", action="store_true", help="print one view after a few seconds and exit")
+
+    conf = sub.add_parser("config", help="every config key with its unit, range and default; or check a file",
+                          description="Without options: every key of the TOML config with its default, unit, "
+                                      "range and meaning, from the parameter tables themselves.")
+    conf.add_argument("--keys", action="store_true", help="list every key (the default)")
+    conf.add_argument("--markdown", action="store_true", help="as Markdown tables (the README's reference)")
+    conf.add_argument("--check", metavar="FILE", help="read FILE as offwatch would and say whether it is valid")
 
     return p
 
@@ -94,6 +105,9 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "watch":
             from daemon.commands.watch import watch_command
             return watch_command(args)
+        if args.command == "config":
+            from daemon.commands.configref import config_command
+            return config_command(args)
         if args.command == "demo":
             from daemon.commands.demo import demo_command
             return demo_command(args)
@@ -102,6 +116,9 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except KeyboardInterrupt:
         return 130
+    except BrokenPipeError:  # the reader went away (`offwatch config | head`): nothing more to say
+        sys.stderr.close()
+        return 0
     parser.error(f"unknown command {args.command}")
     return 2
 

@@ -19,8 +19,12 @@ from daemon.commands.summary import SummarySink
 log = logging.getLogger(__name__)
 
 
+EXIT_NOT_ALL_KEPT = 3         # the replay ran to its end, but not all it was asked to keep or deliver was
+MQTT_WAIT_S = 15.0            # at the end, how long a replay waits for the broker to take what is queued
+
+
 def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url: str | None,
-                 pipeline_hooks: dict) -> list[Sink]:
+                 pipeline_hooks: dict, mqtt_wait_s: float = MQTT_WAIT_S) -> list[Sink]:
     """The sinks a replay asked for; MQTT only when a broker is configured or given."""
     sinks: list[Sink] = []
     if jsonl:
@@ -34,24 +38,26 @@ def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url
     if url:
         from daemon.outlets.mqtt import MqttSink
         sinks.append(MqttSink.from_config(client_id_for(cfg.mqtt, "replay"), url=url, state_dir=None,
-                                          on_ack=lambda i: pipeline_hooks["ack"](i),
-                                          on_connected=lambda: pipeline_hooks["status"]()))
+                                          on_ack=lambda i, reply: pipeline_hooks["ack"](i, reply),
+                                          close_timeout_s=mqtt_wait_s))
     return sinks
 
 
 def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, record: str | None = None,
                mqtt_url: str | None = None, speed: float | None = None, progress: bool = True,
-               extra_sinks: Sequence[Sink] = ()) -> SummarySink:
+               extra_sinks: Sequence[Sink] = (), mqtt_wait_s: float = MQTT_WAIT_S) -> SummarySink:
     for p in paths:
         if not Path(p).is_file():
             raise InputError(f"replay file {p} not found")
     hooks: dict = {}
     summary = SummarySink()
-    sinks = [summary, *extra_sinks, *open_outputs(cfg, jsonl=jsonl, record=record, mqtt_url=mqtt_url, pipeline_hooks=hooks)]
+    outputs = open_outputs(cfg, jsonl=jsonl, record=record, mqtt_url=mqtt_url, pipeline_hooks=hooks,
+                           mqtt_wait_s=mqtt_wait_s)
+    sinks = [summary, *extra_sinks, *outputs]
     parts = build(cfg, sinks, live=False)
     pipe = parts.pipeline
     summary.counters = parts.counters
-    hooks["ack"], hooks["status"] = pipe.acknowledge, pipe.request_status
+    hooks["ack"] = pipe.acknowledge
     bar = ProgressBar() if progress and sys.stderr.isatty() else None
     pacer = _Pacer(speed) if speed else None
     try:
@@ -63,6 +69,8 @@ def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, r
         if bar is not None:
             bar.close()
         pipe.close()
+        for out in outputs:
+            summary.take_output_account(out)
     return summary
 
 
@@ -95,9 +103,16 @@ class _Pacer:
 def replay_command(args) -> int:
     if args.speed is not None and not args.speed > 0:
         raise ConfigError(f"--speed {args.speed}: expected a number above 0 (times real time), e.g. --speed 10")
+    if args.mqtt_wait is not None and not 0 <= args.mqtt_wait <= 3600:
+        raise ConfigError(f"--mqtt-wait {args.mqtt_wait}: expected seconds from 0 to 3600, e.g. --mqtt-wait 15")
     cfg = load_config(args.config)
     summary = run_replay(args.files, cfg, jsonl=args.jsonl, record=args.record, mqtt_url=args.mqtt,
-                         speed=args.speed)
+                         speed=args.speed, mqtt_wait_s=MQTT_WAIT_S if args.mqtt_wait is None else args.mqtt_wait)
     if not args.quiet:
         print("\n".join(summary.lines()))
+    if summary.shortfalls:
+        # said even with --quiet: what was asked for and not done is never silent
+        for line in summary.shortfalls:
+            print(f"offwatch: {line}", file=sys.stderr)
+        return EXIT_NOT_ALL_KEPT
     return 0

@@ -60,8 +60,7 @@ class Service:
         if url:
             from daemon.outlets.mqtt import MqttSink
             self.mqtt = MqttSink.from_config(client_id_for(self.cfg.mqtt, "run"), url=url, state_dir=self.state_dir,
-                                             on_ack=lambda i: self.parts.pipeline.acknowledge(i),
-                                             on_connected=lambda: self.parts.pipeline.request_status(),
+                                             on_ack=lambda i, reply: self.parts.pipeline.acknowledge(i, reply),
                                              on_swell=lambda b: self.parts.pipeline.report_swell(b))
 
     def _health(self) -> dict:
@@ -71,8 +70,8 @@ class Service:
         return out
 
     def run(self) -> int:
-        from daemon.intake.sources import start_sources, specs_from_config
-        self.source_threads, self.health = start_sources(specs_from_config(self.cfg.inputs), self.chunks, self.stop)
+        from daemon.intake.sources import start_sources
+        self.source_threads, self.health = start_sources(self.cfg.inputs, self.chunks, self.stop)
         pipe = self.parts.pipeline
         pipe.republish_alerts(time.time())
         self.notifier.ready()

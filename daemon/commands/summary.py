@@ -6,7 +6,7 @@ from collections import Counter
 from typing import Any
 
 from daemon.core.readings import Message, RawLine
-from estimators.base import iso_utc
+from daemon.core.payloads import iso_utc
 
 
 class SummarySink:
@@ -22,6 +22,8 @@ class SummarySink:
         self.latest: dict[str, Message] = {}
         self._alert_state: dict[str, tuple] = {}
         self.counters: Any = None  # the ingest Counters, set by the replay for the full picture
+        self.outputs: list[str] = []     # one line per output that gave an account (delivered, kept)
+        self.shortfalls: list[str] = []  # what an output was asked to keep or deliver and did not
 
     def raw(self, line: RawLine) -> None:
         self.raw_lines += 1
@@ -48,6 +50,19 @@ class SummarySink:
     def close(self) -> None:
         pass
 
+    def take_output_account(self, output: Any) -> None:
+        """After the outputs closed: the MQTT link's undelivered messages, a recording's gaps."""
+        undelivered = getattr(output, "undelivered", None)
+        if undelivered is not None:
+            where = f"{output.broker.host}:{output.broker.port}"
+            left = undelivered()
+            if left:
+                what = ", ".join(f"{n} {_UNDELIVERED_NAMES.get(k, k)}" for k, n in left.items())
+                self.shortfalls.append(f"MQTT: not delivered to {where} after waiting "
+                                       f"{output.settings.close_timeout_s:g} s: {what}")
+            else:
+                self.outputs.append(f"MQTT: everything delivered to {where}.")
+
     def lines(self) -> list[str]:
         out = []
         if self.first_t is not None:
@@ -67,7 +82,13 @@ class SummarySink:
                 out.append(f"Last {topic}: " + _fields(msg.payload))
         if self.counters is not None:
             out.append("Input counters: " + _counter_line(self.counters.snapshot()))
+        out.extend(self.outputs)
+        out.extend(self.shortfalls)
         return out
+
+
+_UNDELIVERED_NAMES = {"alerts": "alert changes", "events": "events", "status": "status messages",
+                      "states": "latest states", "dropped": "dropped (queue full)"}
 
 
 def _describe(ev: Message) -> str:

@@ -39,8 +39,9 @@ from dataclasses import dataclass
 from typing import Any
 
 from daemon.errors import ConfigError
-from daemon.core.readings import Message, json_safe
-from estimators.base import ADVISORY, ALARM, CAUTION, PRIORITIES, WARNING, Condition, iso_utc
+from daemon.core.payloads import clean, iso_utc, with_advisory
+from daemon.core.readings import Message
+from estimators.base import ALARM, CAUTION, PRIORITIES, WARNING, Condition
 from estimators.params import param
 
 log = logging.getLogger(__name__)
@@ -187,7 +188,7 @@ class AlertManager:
             if rec.listed:
                 alerts.append({
                     "id": rec.alert_id, "priority": rec.priority, "state": rec.state, "text": rec.text,
-                    "values": json_safe(dict(rec.values or {})), "condition": rec.condition,
+                    "values": clean(dict(rec.values or {})), "condition": rec.condition,
                     "since_s": rec.since_s, "last_announced_s": rec.last_announced_s,
                 })
         return {"version": SNAPSHOT_VERSION, "alerts": alerts}
@@ -274,7 +275,7 @@ class AlertManager:
         return Message(t_s, f"{self.prefix}/alerts/{rec.alert_id}", payload, retain=True, qos=1, kind="alert")
 
     def _payload(self, rec: _Alert) -> dict[str, Any]:
-        text = f"{rec.text} {ADVISORY}" if rec.text else ADVISORY
+        text = with_advisory(rec.text)
         return {
             "id": rec.alert_id,
             "priority": rec.priority,
@@ -282,7 +283,7 @@ class AlertManager:
             "text": text,
             "since": iso_utc(rec.since_s) if rec.since_s is not None else None,
             "condition": rec.condition,
-            "values": json_safe(dict(rec.values or {})),
+            "values": clean(dict(rec.values or {})),
         }
 
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, Protocol
@@ -61,17 +60,3 @@ class Sink(Protocol):
     def message(self, msg: Message) -> None: ...
 
     def close(self) -> None: ...
-
-
-def json_safe(v: Any) -> Any:
-    """JSON-safe payload values: finite floats rounded (7 decimals keeps ~1 cm in latitude,
-    and keeps replays byte-identical), non-finite ones None, unknown types as text."""
-    if isinstance(v, float):
-        return round(v, 7) if math.isfinite(v) else None
-    if isinstance(v, Mapping):
-        return {str(k): json_safe(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [json_safe(x) for x in v]
-    if v is None or isinstance(v, (bool, int, str)):
-        return v
-    return str(v)

@@ -17,6 +17,11 @@ that is no sentence at all; ``TAG`` for a TAG block that fails):
   that does not start with ``$``, ``!`` or ``\\``, such as a logger's comment).
 - ``last_seen``: data time (UNIX s) of the latest good sentence of the type.
 
+The rows are bounded, whatever arrives: every standard NMEA 0183 type keeps its
+own row; other names (made-up or corrupted addresses, proprietary ones) get a row
+each up to ``MAX_OTHER_TYPES`` per source, then share one row, ``other``. A flood
+of invented types (``$GPK1X``, ``$GPK2X``, ...) is still counted, line by line.
+
 Per source, ``framer``: lines the framer dropped (``overlong``, ``bad_bytes``);
 ``time``: what the replay clock did (see :mod:`daemon.intake.timing`).
 :meth:`Counters.snapshot` is ready for JSON, keys sorted.
@@ -27,24 +32,43 @@ from __future__ import annotations
 from collections import defaultdict
 from typing import Any
 
+from daemon.nmea0183.codec import STANDARD_FORMATTERS
+
 SENTENCE_COUNTS = (
     "good", "bad_checksum", "no_checksum", "unparseable", "unknown", "proprietary",
     "ais", "not_sentence", "implausible", "no_variation", "empty",
 )
 BAD_LINE_COUNTS = ("bad_checksum", "no_checksum", "unparseable", "not_sentence")
+OTHER_SENTENCES = "other"  # the shared row of the types beyond the bound
+_ALWAYS_NAMED = STANDARD_FORMATTERS | {"-", "TAG"}
 
 
 class Counters:
     """Counts per (source, sentence type, what); cheap to bump on the hot path."""
 
+    MAX_OTHER_TYPES = 64  # rows per source for names that are not standard types
+
     def __init__(self) -> None:
         self._n: dict[tuple[str, str, str], int] = defaultdict(int)
+        self._other_names: dict[str, set[str]] = {}  # per source: the non-standard names with a row
         self._last_seen: dict[tuple[str, str], float] = {}
         self._framer: dict[str, dict[str, int]] = {}
         self._time: dict[str, dict[str, int]] = {}
 
+    def _row(self, source: str, sentence: str, register: bool = True) -> str:
+        """The row a sentence type is counted in: its own, or ``other`` beyond the bound."""
+        if sentence in _ALWAYS_NAMED:
+            return sentence
+        names = self._other_names.setdefault(source, set())
+        if sentence in names:
+            return sentence
+        if register and len(names) < self.MAX_OTHER_TYPES:
+            names.add(sentence)
+            return sentence
+        return OTHER_SENTENCES
+
     def count(self, source: str, sentence: str, what: str, n: int = 1) -> None:
-        self._n[(source, sentence, what)] += n
+        self._n[(source, self._row(source, sentence), what)] += n
 
     def take(self, items) -> None:
         """Apply what each RawLine among ``items`` counted for (the pipeline does this per line)."""
@@ -52,13 +76,14 @@ class Counters:
             counts = getattr(item, "counts", None)
             if counts is None:
                 continue
+            row = self._row(item.source, item.sentence)
             for what, n in counts:
-                self._n[(item.source, item.sentence, what)] += n
+                self._n[(item.source, row, what)] += n
             if item.seen:
-                self._last_seen[(item.source, item.sentence)] = item.t_s
+                self._last_seen[(item.source, row)] = item.t_s
 
     def seen(self, source: str, sentence: str, t_s: float) -> None:
-        self._last_seen[(source, sentence)] = t_s
+        self._last_seen[(source, self._row(source, sentence))] = t_s
 
     def set_framer(self, source: str, *, overlong: int, bad_bytes: int) -> None:
         self._framer[source] = {"bad_bytes": bad_bytes, "overlong": overlong}
@@ -67,7 +92,7 @@ class Counters:
         self._time[source] = dict(events)
 
     def get(self, source: str, sentence: str, what: str) -> int:
-        return self._n.get((source, sentence, what), 0)
+        return self._n.get((source, self._row(source, sentence, register=False), what), 0)
 
     def total(self, source: str, what: str) -> int:
         """One counter summed over every sentence type of a source."""

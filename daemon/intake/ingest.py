@@ -42,24 +42,42 @@ Public API:
 from __future__ import annotations
 
 import datetime as dt
+import logging
+from dataclasses import dataclass
 from typing import Protocol
 
 from daemon.intake.counters import Counters
 from daemon.errors import ConfigError
 from daemon.intake.framer import LineFramer
 from daemon.nmea0183.codec import (
-    HDG, HEADING, SAMPLE, VARIATION, WIND_ANGLE_WATER, WIND_FROM_MAGNETIC, Extract, extract,
+    Extract, LabelledHeading, Measured, SensorHeading, Variation, WindFromMagnetic, WindOffBow, extract,
     parse_line,
 )
 from daemon.core.readings import RawLine, Reading
 from daemon.intake.timing import GnssDate, ReplayClock, monotonic_guard
 from estimators.angles import wrap_360
-from estimators.samples import Fix, Heading, WaterWind
+from estimators.samples import Fix, Heading, Sample, WaterWind
+
+log = logging.getLogger(__name__)
 
 HEADING_SENSORS = ("auto", "magnetic", "true")
 HEADING_FOR_WIND_MAX_AGE_S = 10.0
 
 Item = RawLine | Reading
+
+
+@dataclass(frozen=True, slots=True)
+class ParsedLine:
+    """One line parsed, waiting for its data time (the replay clock holds these)."""
+
+    text: str
+    recv_utc: float | None
+    key: str  # sentence type, or the counter key of a line that is none ("-", "TAG")
+    extract: Extract | None  # None: not an understood sentence, or unparseable
+    gnss_utc: float | None  # its own GNSS time (UNIX s), dated
+    undated_tod_s: float | None  # a time of day still waiting for a date
+    tag_time: float | None  # its TAG block's c: time
+    counts: list[tuple[str, int]]  # what it counts for, made when it is emitted
 
 
 class VariationSource(Protocol):
@@ -99,6 +117,12 @@ class Ingest:
         self._true_heading: tuple[float, float] | None = None  # (t_s, deg) of the latest true heading
         self._true_sensor = heading_sensor == "true"
         self._all_magnetic = heading_sensor == "magnetic"
+        self._parser_faults: set[str] = set()  # exception types already logged
+        self._to_sample = {
+            Measured: self._measured, LabelledHeading: self._labelled_heading,
+            SensorHeading: self._sensor_heading, Variation: self._sentence_variation,
+            WindOffBow: self._wind_off_bow, WindFromMagnetic: self._wind_from_magnetic,
+        }
 
     # --- the three doors ---------------------------------------------------------------------
 
@@ -134,10 +158,25 @@ class Ingest:
 
     # --- per line ----------------------------------------------------------------------------
 
-    def _parse(self, text: str, recv_utc: float | None) -> tuple:
+    def _parse(self, text: str, recv_utc: float | None) -> ParsedLine:
         """Parse one line; its counts travel with it and are made when it is emitted,
         so the counters at any moment match the lines that have left (the same in a
         replay of our own recording, whose lines arrive one by one)."""
+        try:
+            return self._parse_checked(text, recv_utc)
+        except Exception as exc:  # a parser bug must not end a watch: the line is data, counted
+            self._note_parser_fault(exc)
+            return ParsedLine(text, recv_utc, "-", None, None, None, None, [("unparseable", 1)])
+
+    def _note_parser_fault(self, exc: Exception) -> None:
+        """Log once per exception type: a flood of one bad line must not flood the log."""
+        name = type(exc).__name__
+        if name not in self._parser_faults:
+            self._parser_faults.add(name)
+            log.warning("%s: a line broke the parser (%s), counted as unparseable; "
+                        "further ones are counted only", self.source, name)
+
+    def _parse_checked(self, text: str, recv_utc: float | None) -> ParsedLine:
         line = parse_line(text, self.allow_no_checksum)
         key = line.key
         ex: Extract | None = None
@@ -145,7 +184,11 @@ class Ingest:
         tod: float | None = None
         counts: list[tuple[str, int]] = []
         if line.status == "ok":
-            ex = extract(key, line.fields)
+            try:
+                ex = extract(key, line.fields)
+            except Exception as exc:  # a parser bug must not end a watch: the line is data, counted
+                self._note_parser_fault(exc)
+                ex = None
             if ex is None:
                 counts.append(("unparseable", 1))
             else:
@@ -160,7 +203,7 @@ class Ingest:
                     counts.append(("empty", 1))
         else:
             counts.append((line.status, 1))
-        return (text, recv_utc, key, ex, gnss, tod, line.tag_time, counts)
+        return ParsedLine(text, recv_utc, key, ex, gnss, tod, line.tag_time, counts)
 
     def _line(self, text: str, recv_utc: float | None, out: list[Item]) -> None:
         item = self._parse(text, recv_utc)
@@ -168,14 +211,13 @@ class Ingest:
             assert recv_utc is not None
             self._emit(recv_utc, item, out)
             return
-        tag_time = item[6]
-        released = (self._clock.push_tagged(item, tag_time) if tag_time is not None
-                    else self._clock.push(item, item[4], item[5]))
+        released = (self._clock.push_tagged(item, item.tag_time) if item.tag_time is not None
+                    else self._clock.push(item, item.gnss_utc, item.undated_tod_s))
         for t, it in released:
             self._emit(t, it, out)
 
-    def _emit(self, t: float | None, item: tuple, out: list[Item]) -> None:
-        text, recv, key, ex, gnss, _tod, _tag, counts = item
+    def _emit(self, t: float | None, item: ParsedLine, out: list[Item]) -> None:
+        recv, key, ex, counts = item.recv_utc, item.key, item.extract, item.counts
         if t is None:
             t = recv if recv is not None else self._fallback_t
         t = self._guard(t)
@@ -185,37 +227,45 @@ class Ingest:
         readings: list[Reading] = []
         if ex is not None:
             for v in ex.values:
-                sample = self._sample(v, t, key, counts)
+                try:
+                    sample = self._to_sample[type(v)](v, t, key, counts)
+                except Exception as exc:  # as in _parse: one value is never fatal
+                    self._note_parser_fault(exc)
+                    counts.append(("implausible", 1))
+                    continue
                 if sample is not None:
-                    readings.append(Reading(source, sample, recv, key, gnss))
-        out.append(RawLine(source, t, recv, text, key, tuple(counts), ex is not None))
+                    readings.append(Reading(source, sample, recv, key, item.gnss_utc))
+        out.append(RawLine(source, t, recv, item.text, key, tuple(counts), ex is not None))
         out.extend(readings)
 
-    def _sample(self, v: tuple, t: float, key: str, counts: list):
-        code = v[0]
-        if code == SAMPLE:
-            sample = v[1](t, *v[2])
-            if v[1] is Fix:
-                self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
-            return sample
-        if code == HEADING:
-            return self._heading(v[1], v[2] == "T" and not self._all_magnetic, t, key, counts)
-        if code == HDG:
-            deg = v[1] if self._true_sensor or v[2] is None else v[1] + v[2]
-            return self._heading(deg, False, t, key, counts)
-        if code == VARIATION:
-            if not (self._true_sensor and key == "HDG"):
-                self.variation.note_sentence_variation(v[1], t)
-            return None
-        if code == WIND_ANGLE_WATER:
-            th = self._true_heading
-            if th is not None and 0.0 <= t - th[0] <= HEADING_FOR_WIND_MAX_AGE_S:
-                return WaterWind(t, v[2], wrap_360(th[1] + v[1]), v[1])
-            return WaterWind(t, v[2], None, v[1])
-        if code == WIND_FROM_MAGNETIC:
-            var = self._variation(t, counts)
-            return None if var is None else WaterWind(t, v[2], wrap_360(v[1] + var), None)
-        raise AssertionError(code)
+    # --- each kind of value to a sample at its data time ---------------------------------------
+
+    def _measured(self, v: Measured, t: float, key: str, counts: list) -> Sample:
+        sample = v.kind(t, *v.args)
+        if v.kind is Fix:
+            self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
+        return sample
+
+    def _labelled_heading(self, v: LabelledHeading, t: float, key: str, counts: list) -> Heading | None:
+        return self._heading(v.deg, v.reference == "T" and not self._all_magnetic, t, key, counts)
+
+    def _sensor_heading(self, v: SensorHeading, t: float, key: str, counts: list) -> Heading | None:
+        deg = v.deg if self._true_sensor or v.deviation_east_deg is None else v.deg + v.deviation_east_deg
+        return self._heading(deg, False, t, key, counts)
+
+    def _sentence_variation(self, v: Variation, t: float, key: str, counts: list) -> None:
+        if not (self._true_sensor and key == "HDG"):
+            self.variation.note_sentence_variation(v.east_deg, t)
+
+    def _wind_off_bow(self, v: WindOffBow, t: float, key: str, counts: list) -> WaterWind:
+        th = self._true_heading
+        if th is not None and 0.0 <= t - th[0] <= HEADING_FOR_WIND_MAX_AGE_S:
+            return WaterWind(t, v.speed_kn, wrap_360(th[1] + v.angle_deg), v.angle_deg)
+        return WaterWind(t, v.speed_kn, None, v.angle_deg)
+
+    def _wind_from_magnetic(self, v: WindFromMagnetic, t: float, key: str, counts: list) -> WaterWind | None:
+        var = self._variation(t, counts)
+        return None if var is None else WaterWind(t, v.speed_kn, wrap_360(v.from_magnetic_deg + var), None)
 
     def _heading(self, deg: float, is_true: bool, t: float, key: str, counts: list) -> Heading | None:
         if not (is_true or self._true_sensor):

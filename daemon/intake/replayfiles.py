@@ -27,13 +27,13 @@ from pathlib import Path
 from typing import IO, Any
 
 from daemon.errors import InputError
+from daemon.outlets.recorder import SQLITE_MAGIC, is_recording_header
 from daemon.core.readings import RawLine, Reading
 
 log = logging.getLogger(__name__)
 
 CHUNK_BYTES = 64 * 1024
 GZIP_MAGIC = b"\x1f\x8b"                  # RFC 1952, ID1 ID2
-SQLITE_MAGIC = b"SQLite format 3\x00"     # SQLite database file format, header string
 FILE_RECV_UTC = None  # a text file has no receive times: the Ingest takes data time instead
 
 Item = RawLine | Reading
@@ -49,7 +49,7 @@ def detect_format(path: str | Path) -> str:
     """``"gzip"``, ``"sqlite"`` or ``"nmea"`` from the file's first bytes; InputError when unreadable."""
     try:
         with open(path, "rb") as f:
-            head = f.read(len(SQLITE_MAGIC))
+            head = f.read(len(SQLITE_MAGIC))  # the longer of the two signatures
     except IsADirectoryError:
         raise InputError(f"replay file {path} is a directory, not a file") from None
     except FileNotFoundError:
@@ -58,7 +58,7 @@ def detect_format(path: str | Path) -> str:
         raise InputError(f"replay file {path} cannot be read: {e.strerror or e}") from None
     if head.startswith(GZIP_MAGIC):
         return "gzip"
-    if head == SQLITE_MAGIC:
+    if is_recording_header(head):
         return "sqlite"
     return "nmea"
 

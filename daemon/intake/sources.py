@@ -14,42 +14,29 @@ never blocks a reader for ever (the OS buffers of a serial port are small).
 
 from __future__ import annotations
 
+import ipaddress
 import logging
 import os
 import queue
 import socket
 import threading
 import time
-from collections.abc import Iterable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, Protocol
 
+from daemon.core.config import InputConfig, input_problems
 from daemon.errors import ConfigError
 
 log = logging.getLogger(__name__)
 
-KINDS = ("serial", "tcp", "udp", "file")
 READ_TIMEOUT_S = 0.2       # longest a read blocks before the stop flag is checked
 PUT_TIMEOUT_S = 0.1        # longest a reader waits on a full queue before dropping
 FIRST_RETRY_S = 0.25
 RETRY_CAP_S = {"serial": 1.0, "tcp": 3.0, "udp": 2.0, "file": 1.0}  # serial: replug seen within ~1 s
 TCP_SILENCE_S = 30.0       # a connected multiplexer silent this long is reconnected
 READ_SIZE = 65536
-
-
-@dataclass(frozen=True)
-class InputSpec:
-    """One configured input (the ``[inputs.NAME]`` table)."""
-
-    name: str
-    kind: str                       # "serial", "tcp", "udp" or "file"
-    device: str = ""                # serial: e.g. /dev/serial/by-id/...
-    baud: int = 4800                # serial: 4800 (NMEA 0183) and 38400 (high speed, AIS) are usual
-    host: str = ""                  # tcp: the multiplexer's address
-    port: int = 10110               # tcp/udp (10110 is the port customary for NMEA 0183 over IP)
-    bind: str = "0.0.0.0"           # udp: address to listen on (0.0.0.0 also receives broadcasts)
-    path: str = ""                  # file: a file or FIFO to follow
-    allow_no_checksum: bool = False
+LOOPBACK = "127.0.0.1"
 
 
 @dataclass(frozen=True, slots=True)
@@ -203,7 +190,7 @@ class UdpReader:
         self._sock: socket.socket | None = None
 
     def describe(self) -> str:
-        return f"udp {self.bind or '0.0.0.0'}:{self.port}"
+        return f"udp {self.bind}:{self.port}"
 
     def open(self) -> None:
         sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
@@ -216,6 +203,9 @@ class UdpReader:
             raise
         sock.settimeout(READ_TIMEOUT_S)
         self._sock = sock
+        if not ipaddress.ip_address(self.bind).is_loopback:
+            log.info("udp input listens on %s:%d: anything on that network can send it sentences "
+                     "(the checked, bounded parsers are all that stands between)", self.bind, self.port)
 
     @property
     def address(self) -> tuple[str, int] | None:
@@ -262,35 +252,29 @@ class FileFollowReader:
             self._fd = None
 
 
-def make_reader(spec: InputSpec) -> Reader:
-    """The reader for a spec; ConfigError naming the input when a needed field is missing."""
-    where = f"[inputs.{spec.name}]"
-    if spec.kind == "serial":
-        if not spec.device:
-            raise ConfigError(f"{where}: kind = \"serial\" needs device = \"/dev/...\"")
-        return SerialReader(spec.device, spec.baud)
-    if spec.kind == "tcp":
-        if not spec.host:
-            raise ConfigError(f"{where}: kind = \"tcp\" needs host = \"...\" (and port)")
-        return TcpReader(spec.host, spec.port)
-    if spec.kind == "udp":
-        return UdpReader(spec.bind, spec.port)
-    if spec.kind == "file":
-        if not spec.path:
-            raise ConfigError(f"{where}: kind = \"file\" needs path = \"...\"")
-        return FileFollowReader(spec.path)
-    raise ConfigError(f"{where}: kind = {spec.kind!r}: use one of {', '.join(KINDS)}")
+def make_reader(name: str, cfg: InputConfig) -> Reader:
+    """The reader for input ``name``; a ConfigError naming it and the key when the input is not whole
+    (the config's own check, so inputs made in code are held to it too)."""
+    for problem in input_problems(cfg)[:1]:
+        raise ConfigError(f"[inputs.{name}] {problem}")
+    if cfg.kind == "serial":
+        return SerialReader(cfg.device, cfg.baud)
+    if cfg.kind == "tcp":
+        return TcpReader(cfg.host, cfg.port)
+    if cfg.kind == "udp":
+        return UdpReader(cfg.bind or LOOPBACK, cfg.port)  # a LAN listener only when the config says so
+    return FileFollowReader(cfg.path)
 
 
 class SourceSupervisor(threading.Thread):
     """One input's life: open, read into the queue, on failure close, back off and retry."""
 
-    def __init__(self, spec: InputSpec, reader: Reader, out: queue.Queue, stop: threading.Event,
+    def __init__(self, source: str, cfg: InputConfig, reader: Reader, out: queue.Queue, stop: threading.Event,
                  health: SourceHealth | None = None) -> None:
-        super().__init__(name=f"input-{spec.name}", daemon=True)
-        self.spec, self.reader, self.out, self.stop_event = spec, reader, out, stop
-        self.health = health or SourceHealth(spec.name, spec.kind)
-        self.retry_cap_s = RETRY_CAP_S.get(spec.kind, 2.0)
+        super().__init__(name=f"input-{source}", daemon=True)
+        self.source, self.cfg, self.reader, self.out, self.stop_event = source, cfg, reader, out, stop
+        self.health = health or SourceHealth(source, cfg.kind)
+        self.retry_cap_s = RETRY_CAP_S.get(cfg.kind, 2.0)
 
     def run(self) -> None:
         delay = FIRST_RETRY_S
@@ -314,11 +298,11 @@ class SourceSupervisor(threading.Thread):
             self.reader.open()
         except OSError as e:
             if self.health.set_state("cannot_open", str(e)):
-                log.warning("input %s: cannot open %s (%s); retrying", self.spec.name, self.reader.describe(), e)
+                log.warning("input %s: cannot open %s (%s); retrying", self.source, self.reader.describe(), e)
             return False
         self.health.opened()
         self.health.set_state("open")
-        log.info("input %s: open %s", self.spec.name, self.reader.describe())
+        log.info("input %s: open %s", self.source, self.reader.describe())
         return True
 
     def _pump(self) -> bool:
@@ -329,7 +313,7 @@ class SourceSupervisor(threading.Thread):
                 data = self.reader.read()
             except OSError as e:
                 self.health.set_state("lost", str(e))
-                log.warning("input %s: lost %s (%s); reopening", self.spec.name, self.reader.describe(), e)
+                log.warning("input %s: lost %s (%s); reopening", self.source, self.reader.describe(), e)
                 return got
             if data:
                 got = True
@@ -338,7 +322,7 @@ class SourceSupervisor(threading.Thread):
 
     def _offer(self, data: bytes) -> None:
         mono = time.monotonic()
-        chunk = Chunk(self.spec.name, data, time.time(), mono)
+        chunk = Chunk(self.source, data, time.time(), mono)
         self.health.received(len(data), mono)
         try:
             self.out.put(chunk, timeout=PUT_TIMEOUT_S)
@@ -346,25 +330,15 @@ class SourceSupervisor(threading.Thread):
             self.health.dropped(len(data))
 
 
-def specs_from_config(inputs: Mapping[str, Any]) -> list[InputSpec]:
-    """InputSpecs from the config's ``{name: InputConfig}`` (any object with the same field names)."""
-    fields = ("kind", "device", "baud", "host", "port", "bind", "path", "allow_no_checksum")
-    specs = []
-    for name, cfg in inputs.items():
-        values = {f: getattr(cfg, f) for f in fields if hasattr(cfg, f)}
-        specs.append(InputSpec(name=name, **values))
-    return specs
-
-
-def start_sources(specs: Iterable[InputSpec], out: queue.Queue, stop: threading.Event
+def start_sources(inputs: Mapping[str, InputConfig], out: queue.Queue, stop: threading.Event
                   ) -> tuple[list[SourceSupervisor], list[SourceHealth]]:
-    """Start one supervisor thread per input; returns the threads and their health records.
+    """Start one supervisor thread per input (the config's ``{name: InputConfig}``); returns the
+    threads and their health records.
 
-    Every spec is checked before any thread starts, so a bad one fails the start with a ConfigError.
+    Every input is checked before any thread starts, so a bad one fails the start with a ConfigError.
     """
-    specs = list(specs)
-    readers = [make_reader(spec) for spec in specs]
-    threads = [SourceSupervisor(spec, reader, out, stop) for spec, reader in zip(specs, readers)]
+    readers = {name: make_reader(name, cfg) for name, cfg in inputs.items()}
+    threads = [SourceSupervisor(name, cfg, readers[name], out, stop) for name, cfg in inputs.items()]
     for t in threads:
         t.start()
     return threads, [t.health for t in threads]

@@ -148,6 +148,8 @@ class ReplayClock:
         self._cand_last: float | None = None  # candidate jump: latest GNSS time and how many in a row
         self._cand_n = 0
         self._tagged_t: float | None = None  # latest TAG time, once the stream has them
+        self._tag_offset = 0.0  # output minus TAG time, after a clock set back
+        self._tag_jump: list[tuple[Any, float | None]] = []  # items waiting on a TAG time jump
 
     def _count(self, what: str, n: int = 1) -> None:
         self.events[what] = self.events.get(what, 0) + n
@@ -155,20 +157,81 @@ class ReplayClock:
     # --- TAG block times ---------------------------------------------------------------
 
     def push_tagged(self, item: Any, t_s: float) -> Released:
-        """An item with its own TAG ``c:`` time: it wins over any GNSS time from now on."""
-        out: Released = []
+        """An item with its own TAG ``c:`` time: it wins over any GNSS time from now on.
+
+        A TAG time more than ``max_gap_s`` ahead of, or more than ``behind_tolerance_s``
+        behind, the latest one is a jump. The item waits (with any untagged lines after
+        it) until ``confirm_lines`` TAG times in a row agree with each other: then the
+        jump is real, forward a ``gap`` (the logger was off: times taken as they are),
+        backward a ``segment`` (the logger's clock was set back: an offset keeps the
+        output moving on from the latest time). Otherwise the waiting items were
+        ``outlier`` times and take the latest time. A line a little behind takes the
+        latest time, as before.
+        """
         if self._tagged_t is None:
             out = self._release_all(t_s)
-        t_s = max(t_s, self._tagged_t if self._tagged_t is not None else t_s)
-        self._tagged_t = t_s
-        out.append((t_s, item))
+            self._tagged_t = t_s
+            out.append((t_s, item))
+            return out
+        if self._tag_jump:
+            return self._tag_candidate(item, t_s)
+        return self._tag_in_gate(item, t_s)
+
+    def _tag_gate(self, t_s: float) -> bool:
+        assert self._tagged_t is not None
+        return -self.behind_tolerance_s <= t_s + self._tag_offset - self._tagged_t <= self.max_gap_s
+
+    def _tag_in_gate(self, item: Any, t_s: float) -> Released:
+        if not self._tag_gate(t_s):
+            self._tag_jump = [(item, t_s)]
+            return []
+        assert self._tagged_t is not None
+        self._tagged_t = max(t_s + self._tag_offset, self._tagged_t)
+        return [(self._tagged_t, item)]
+
+    def _tag_candidate(self, item: Any, t_s: float | None) -> Released:
+        """One more item while a jump waits for confirmation (``t_s`` None: untagged)."""
+        jump = self._tag_jump
+        if t_s is None:
+            jump.append((item, None))
+            return self._tag_refuted() if len(jump) > self.max_pending else []
+        last = next(t for _, t in reversed(jump) if t is not None)
+        if not -self.behind_tolerance_s <= t_s - last <= self.max_gap_s:
+            out = self._tag_refuted()
+            return out + self.push_tagged(item, t_s)
+        jump.append((item, t_s))
+        if sum(t is not None for _, t in jump) < self.confirm_lines:
+            return []
+        return self._tag_confirmed()
+
+    def _tag_refuted(self) -> Released:
+        """The waiting TAG times were outliers: their lines take the latest time."""
+        jump, self._tag_jump = self._tag_jump, []
+        self._count("outlier", sum(t is not None for _, t in jump))
+        return [(self._tagged_t, it) for it, _ in jump]
+
+    def _tag_confirmed(self) -> Released:
+        assert self._tagged_t is not None
+        jump, self._tag_jump = self._tag_jump, []
+        first = jump[0][1]
+        assert first is not None
+        if first + self._tag_offset > self._tagged_t:
+            self._count("gap")
+        else:
+            self._count("segment")
+            self._tag_offset = self._tagged_t - first
+        out: Released = []
+        for it, t in jump:
+            if t is not None:
+                self._tagged_t = max(t + self._tag_offset, self._tagged_t)
+            out.append((self._tagged_t, it))
         return out
 
     # --- GNSS times ------------------------------------------------------------------------
 
     def push(self, item: Any, t_s: float | None, tod_s: float | None = None) -> Released:
         if self._tagged_t is not None:
-            return [(self._tagged_t, item)]
+            return self._tag_candidate(item, None) if self._tag_jump else [(self._tagged_t, item)]
         if self._fix_out is None:
             return self._before_first_fix(item, t_s, tod_s)
         return self._after_fix(item, t_s)
@@ -297,6 +360,8 @@ class ReplayClock:
 
     def flush(self) -> Released:
         """End of stream: everything still buffered, in order."""
+        if self._tag_jump:
+            return self._tag_refuted()
         return self._release_all(None)
 
 

@@ -14,14 +14,21 @@ Two steps, both pure:
    plausible range. An implausible value (out of range, NaN, infinite, a void
    fix) is counted and dropped, never passed on.
 
-Fields are split with pynmea2 for the types it knows (it parses their framing
-correctly); its typed attributes are not used because they mislead for real
-data (an empty position comes back as 0.0, 0.0; ``RMC.is_valid`` ignores the
-NMEA 4.1 mode indicator; numbers come as Decimal, float or str). THS, which
-pynmea2 does not know, is split by hand, and every value is extracted here by
-field position. Field layouts follow NMEA 0183 v4.10, from memory of the
-standard and checked against real devices' sentences in the tests (marked
-where older layouts are accepted too).
+The hot path is written by hand: the fields are the text between the address
+and the checksum split on commas (no regular expression, no foreign parser), and
+every value is taken by field position, as each ``ext_*`` docstring lays out.
+Field layouts follow NMEA 0183 v4.10, from memory of the standard and checked
+against real devices' sentences in the tests (marked where older layouts are
+accepted too). pynmea2 is the tests' oracle: every sentence of these types in
+the real captures and the simulator's output is read by both, field by field
+(its typed attributes are not used here because they mislead for real data: an
+empty position comes back as 0.0, 0.0; ``RMC.is_valid`` ignores the NMEA 4.1
+mode indicator; numbers come as Decimal, float or str).
+
+Each understood sentence gives an :class:`Extract`: typed values
+(:class:`Measured`, :class:`LabelledHeading`, :class:`SensorHeading`,
+:class:`Variation`, :class:`WindOffBow`, :class:`WindFromMagnetic`), the count
+of dropped ones, and its own GNSS time where it carries one.
 
 The talker (``GP``, ``GN``, ``II``, ``HC``, ``AP``...) is never checked against
 a list: any two letters or digits will do.
@@ -32,11 +39,16 @@ from __future__ import annotations
 import datetime as dt
 import math
 import re
+from collections.abc import Iterable
+from dataclasses import dataclass
 from functools import lru_cache, reduce
 from operator import xor
 
-import pynmea2
-
+# Plausible ranges: one table for the parser and the estimators.
+from estimators.limits import (
+    AIR_TEMP_C, ATTITUDE_MAX_DEG, DATA_TIME_S, DEPTH_MAX_M, HDOP_MAX, LAT_MAX_DEG, LON_MAX_DEG,
+    PRESSURE_HPA, SEA_TEMP_C, SOG_MAX_KN, STW_MAX_KN, VARIATION_MAX_DEG, WIND_MAX_KN, within,
+)
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Pressure,
     SeaTemperature, WaterSpeed, WaterWind,
@@ -50,17 +62,6 @@ FATHOM_TO_M = 1.8288  # 6 ft
 INHG_TO_HPA = 33.8639  # 1 inHg = 3386.39 Pa (standard conversion, from memory)
 TAG_MS_THRESHOLD = 1e11  # a TAG c: above this is milliseconds (interface.md)
 _EPOCH_ORDINAL = dt.date(1970, 1, 1).toordinal()
-
-# Plausible ranges (lo, hi): outside them a value is dropped and counted.
-SOG_MAX_KN = 60.0
-STW_MAX_KN = 40.0
-WIND_MAX_KN = 250.0  # above the strongest gust on record (113 m/s, about 220 kn; from memory)
-PRESSURE_HPA = (870.0, 1085.0)  # lowest and highest sea-level pressures on record, rounded out
-SEA_TEMP_C = (-3.0, 40.0)
-AIR_TEMP_C = (-60.0, 60.0)
-DEPTH_MAX_M = 12000.0  # deeper than any ocean
-ATTITUDE_MAX_DEG = 90.0
-
 
 # --- step 1: the frame of one line -------------------------------------------------
 
@@ -90,6 +91,12 @@ def checksum_hex(body: str) -> str:
     return f"{checksum(body):02X}"
 
 
+def format_sentence(talker: str, formatter: str, fields: Iterable[str]) -> str:
+    """``$<talker><formatter>,<fields>*hh``: a sentence as a talker writes it (no line ending)."""
+    body = ",".join([talker + formatter, *fields])
+    return f"${body}*{checksum_hex(body)}"
+
+
 _TAG_UNSAFE_RE = re.compile(r"[^\x21-\x7e]|[,*\\$!^~]")  # NMEA 0183 reserved characters (from memory)
 
 
@@ -113,11 +120,12 @@ def _check_star(text: str, start: int, allow_no_checksum: bool) -> tuple[str, in
         want = int(hh, 16)
     except ValueError:
         return "bad_checksum", star
-    if reduce(xor, text[start:star].encode("ascii"), 0) != want:
+    if reduce(xor, text[start:star].encode("ascii", "replace"), 0) != want:  # non-ASCII: never equal
         return "bad_checksum", star
     return "ok", star
 
 
+@lru_cache(maxsize=64)  # the lines of one second share a TAG block: each is read once
 def parse_tag_block(tag: str) -> tuple[str, float | None, str | None]:
     """(status, c: time in s, s: source) of a TAG block's text between the backslashes.
 
@@ -143,23 +151,42 @@ def parse_tag_block(tag: str) -> tuple[str, float | None, str | None]:
                 return "unparseable", None, None
             if t > TAG_MS_THRESHOLD:
                 t /= 1000.0
+            if not within(t, DATA_TIME_S):  # no logger's clock: 1e19 hung the tick loop, 3e14 crashed dates
+                return "unparseable", None, None
         elif code == "s":
             src = value
     return "ok", t, src
 
 
+def has_tag_block(text: str) -> bool:
+    """True when a line starts with something shaped like a TAG block (``\\...\\``)."""
+    return text.startswith("\\") and text.find("\\", 1) > 0
+
+
+def split_tag(text: str) -> tuple[str, float | None, str | None, str]:
+    """(status, c: time, s: source, what follows) of a line that may open with a TAG block.
+
+    A line with no TAG block is ``("ok", None, None, text)``; one whose TAG block
+    fails gives that block's status and the whole line.
+    """
+    if not text.startswith("\\"):
+        return "ok", None, None, text
+    close = text.find("\\", 1)
+    if close < 0:
+        return "unparseable", None, None, text
+    status, tag_time, tag_source = parse_tag_block(text[1:close])
+    if status != "ok":
+        return status, None, None, text
+    return "ok", tag_time, tag_source, text[close + 1:]
+
+
 def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
     """Check the frame of one line (no line ending) and sort it into one counter."""
-    tag_time = tag_source = None
-    sentence = text
-    if text.startswith("\\"):
-        close = text.find("\\", 1)
-        if close < 0:
-            return Line("unparseable", "TAG")
-        status, tag_time, tag_source = parse_tag_block(text[1:close])
-        if status != "ok":
-            return Line(status, "TAG")
-        sentence = text[close + 1:]
+    if not text.isascii():  # the framer never lets one through; a recording or a caller might
+        return Line("not_sentence", "-")
+    status, tag_time, tag_source, sentence = split_tag(text)
+    if status != "ok":
+        return Line(status, "TAG")
     if not sentence or sentence[0] not in "$!":
         return Line("not_sentence", "-", tag_time=tag_time)
     status, end = _check_star(sentence, 1, allow_no_checksum)
@@ -179,31 +206,62 @@ def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
         return Line("ais", key, talker, tag_time=tag_time)
     if key not in EXTRACTORS:
         return Line("unknown", key, talker, tag_time=tag_time)
-    return Line("ok", key, talker, _split(key, sentence, rest), tag_time, tag_source, sentence)
-
-
-def _split(key: str, sentence: str, rest: str) -> list[str]:
-    """The data fields: pynmea2 where it knows the type, our own split otherwise."""
-    if key in _PYNMEA2_TYPES:
-        try:
-            return pynmea2.parse(sentence, check=False).data
-        except (pynmea2.ParseError, ValueError, AttributeError):
-            pass
-    return rest.split(",")
-
-
-_PYNMEA2_TYPES = frozenset(pynmea2.TalkerSentence.sentence_types) - {"THS"}
+    return Line("ok", key, talker, rest.split(","), tag_time, tag_source, sentence)
 
 
 # --- step 2: typed values -----------------------------------------------------------
 
-# Value codes in Extract.values (the ingest turns them into samples at data time):
-SAMPLE = 0  # (SAMPLE, cls, args): cls(t_s, *args)
-HEADING = 1  # (HEADING, deg, "T" | "M"): as the sentence labels it
-HDG = 2  # (HDG, sensor_deg, deviation_east | None)
-VARIATION = 3  # (VARIATION, east_deg)
-WIND_ANGLE_WATER = 4  # (WIND_ANGLE_WATER, angle_off_bow_deg, speed_kn): MWV theoretical
-WIND_FROM_MAGNETIC = 5  # (WIND_FROM_MAGNETIC, from_magnetic_deg, speed_kn): MWD without true
+# What an understood sentence gives: typed values (the ingest turns them into samples
+# once the line has its data time, applying variation and the installation's settings).
+
+@dataclass(frozen=True, slots=True)
+class Measured:
+    """A sample the estimators take as it is: ``kind(t_s, *args)`` at the line's data time."""
+
+    kind: type
+    args: tuple
+
+
+@dataclass(frozen=True, slots=True)
+class LabelledHeading:
+    """HDT, HDM, THS: a heading, degrees, as the sentence labels it (``"T"`` true, ``"M"`` magnetic)."""
+
+    deg: float
+    reference: str
+
+
+@dataclass(frozen=True, slots=True)
+class SensorHeading:
+    """HDG: the magnetic sensor's heading, degrees, and its own deviation (east positive) if sent."""
+
+    deg: float
+    deviation_east_deg: float | None
+
+
+@dataclass(frozen=True, slots=True)
+class Variation:
+    """Magnetic variation a sentence states (RMC, HDG), degrees east positive."""
+
+    east_deg: float
+
+
+@dataclass(frozen=True, slots=True)
+class WindOffBow:
+    """MWV theoretical (reference T): wind over the water, angle off the bow (degrees) and knots."""
+
+    angle_deg: float
+    speed_kn: float
+
+
+@dataclass(frozen=True, slots=True)
+class WindFromMagnetic:
+    """MWD with only a magnetic direction: the wind comes from (degrees magnetic), knots."""
+
+    from_magnetic_deg: float
+    speed_kn: float
+
+
+Value = Measured | LabelledHeading | SensorHeading | Variation | WindOffBow | WindFromMagnetic
 
 
 class Extract:
@@ -212,7 +270,7 @@ class Extract:
     __slots__ = ("values", "implausible", "tod_s", "day")
 
     def __init__(self) -> None:
-        self.values: list[tuple] = []
+        self.values: list[Value] = []
         self.implausible = 0
         self.tod_s: float | None = None  # UTC seconds of day, when the sentence is a valid time source
         self.day: int | None = None  # days since 1970-01-01, when it also carries a date
@@ -221,7 +279,7 @@ class Extract:
         self.implausible += 1
 
     def add(self, cls: type, *args: object) -> None:
-        self.values.append((SAMPLE, cls, args))
+        self.values.append(Measured(cls, args))
 
 
 class Unparseable(ValueError):
@@ -299,7 +357,7 @@ def day_number(year: int, month: int, day: int) -> int:
     """Days since 1970-01-01 of a calendar date; Unparseable when it is no date."""
     try:
         return dt.date(year, month, day).toordinal() - _EPOCH_ORDINAL
-    except ValueError:
+    except (ValueError, OverflowError):  # OverflowError: a day of 20 digits (a ZDA seen in fuzzing)
         raise Unparseable(f"{year}-{month}-{day}") from None
 
 
@@ -327,7 +385,7 @@ def _east(value: float | None, hemi: str) -> float | None:
 def _fix(ex: Extract, lat: float | None, lon: float | None, **extra: float | None) -> None:
     if lat is None or lon is None:
         return
-    if not (_in(lat, -90.0, 90.0) and _in(lon, -180.0, 180.0)):
+    if not (_in(lat, -LAT_MAX_DEG, LAT_MAX_DEG) and _in(lon, -LON_MAX_DEG, LON_MAX_DEG)):
         ex.drop()
         return
     ex.add(Fix, lat, lon, extra.get("sog"), extra.get("cog"), extra.get("hdop"))
@@ -353,8 +411,8 @@ def ext_rmc(f: list[str]) -> Extract:
     var = _east(num(_get(f, 9)), _get(f, 10)) if _get(f, 9) and _get(f, 10) in ("E", "W") else None
     ex.tod_s, ex.day = tod, day
     if var is not None:
-        if _in(var, -180.0, 180.0):
-            ex.values.append((VARIATION, var))
+        if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
+            ex.values.append(Variation(var))
         else:
             ex.drop()
     if sog is False or cog is False:
@@ -378,7 +436,7 @@ def ext_gga(f: list[str]) -> Extract:
     lat, lon = latlon(_get(f, 1), _get(f, 2), True), latlon(_get(f, 3), _get(f, 4), False)
     hdop = num(_get(f, 7))
     ex.tod_s = tod
-    if hdop is not None and not _in(hdop, 0.0, 50.0):
+    if hdop is not None and not _in(hdop, 0.0, HDOP_MAX):
         hdop = None  # 99.9 and the like mean "unknown", not a bad fix
     _fix(ex, lat, lon, hdop=hdop)
     return ex
@@ -439,7 +497,7 @@ def _heading(ex: Extract, s: str, ref: str) -> None:
     if deg is False:
         ex.drop()
     elif deg is not None:
-        ex.values.append((HEADING, deg, ref))
+        ex.values.append(LabelledHeading(deg, ref))
 
 
 def ext_hdt(f: list[str]) -> Extract:
@@ -466,7 +524,7 @@ def ext_ths(f: list[str]) -> Extract:
     if deg is False or _get(f, 1) not in ("A", "E"):
         ex.drop()
         return ex
-    ex.values.append((HEADING, deg, "T"))
+    ex.values.append(LabelledHeading(deg, "T"))
     return ex
 
 
@@ -478,14 +536,14 @@ def ext_hdg(f: list[str]) -> Extract:
     dev = _east(num(_get(f, 1)), _get(f, 2)) if _get(f, 1) else None
     var = _east(num(_get(f, 3)), _get(f, 4)) if _get(f, 3) else None
     if var is not None:
-        if _in(var, -180.0, 180.0):
-            ex.values.append((VARIATION, var))
+        if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
+            ex.values.append(Variation(var))
         else:
             ex.drop()
-    if deg is False or (dev is not None and not _in(dev, -180.0, 180.0)):
+    if deg is False or (dev is not None and not _in(dev, -VARIATION_MAX_DEG, VARIATION_MAX_DEG)):
         ex.drop()
     elif deg is not None:
-        ex.values.append((HDG, deg, dev))
+        ex.values.append(SensorHeading(deg, dev))
     return ex
 
 
@@ -626,7 +684,7 @@ def ext_mwv(f: list[str]) -> Extract:
     if ref == "R":
         ex.add(ApparentWind, angle, kn)
     else:
-        ex.values.append((WIND_ANGLE_WATER, angle, kn))
+        ex.values.append(WindOffBow(angle, kn))
     return ex
 
 
@@ -644,7 +702,7 @@ def ext_mwd(f: list[str]) -> Extract:
     elif true is not None:
         ex.add(WaterWind, speed, true, None)
     else:
-        ex.values.append((WIND_FROM_MAGNETIC, mag, speed))
+        ex.values.append(WindFromMagnetic(mag, speed))
     return ex
 
 
@@ -683,6 +741,17 @@ EXTRACTORS = {
     "MWV": ext_mwv, "MWD": ext_mwd, "DBT": ext_dbt, "DPT": ext_dpt,
 }
 TIME_SENTENCES = frozenset({"RMC", "GGA", "GLL", "ZDA"})
+
+# The approved sentence formatters of NMEA 0183 (v4.10 and earlier, from memory): the
+# types a well-behaved talker may send. Any other three letters are made up (or a
+# corrupted address); counters give those a bounded number of rows of their own.
+STANDARD_FORMATTERS = frozenset(EXTRACTORS) | frozenset("""
+    AAM ABK ABM ACA ACK ACS AIR AKD ALA ALC ALF ALM ALR APA APB ARC BBM BEC BOD BWC BWR BWW CUR
+    DBK DBS DCN DDC DOR DSC DSE DSI DSR DTM ETL EVE FIR FSI GBS GEN GFA GLC GMP GNS GRS GSA GST GSV
+    GTD HBT HDG HMR HMS HSC HTC HTD LCD LRF LRI LR1 LR2 LR3 MLA MSK MSS MWH NRM NRX OLN OSD RLM RMA
+    RMB ROO ROR ROT RPM RSA RSD RTE SFI SSD STN TDS TFI TLB TLL TPC TPR TPT TRF TTD TTM TUT TXT VDM
+    VDO VDR VLW VPW VSD VTA VWR VWT WCV WDC WDR WNC WPL XTE XTR ZDL ZFO ZTG
+""".split())
 
 
 def extract(key: str, fields: list[str]) -> Extract | None:

@@ -16,6 +16,7 @@ import asyncio
 import logging
 import os
 import socket
+import ssl
 import struct
 import threading
 from typing import Any
@@ -66,6 +67,104 @@ def broker_answers(host: str, port: int, timeout: float = 1.0) -> bool:
             return ok
     except OSError:
         return False
+
+
+# -- why a broker cannot be reached ---------------------------------------------
+
+def diagnose_broker(host: str, port: int, tls: ssl.SSLContext | None, *, cert_given: bool = False,
+                    timeout: float = 3.0) -> tuple[str, str]:
+    """Why a connection to the broker fails, in words a person can act on: ``(state, text)``.
+
+    One connection attempt of our own, step by step (TCP, then the TLS
+    handshake, then an MQTT CONNECT), so each fault is named where it happens:
+    paho only reports that a connection failed. ``state`` is ``"answers"`` (and
+    the text empty) when the broker sent a CONNACK, whatever its code: the
+    transport works and paho's own report of the refusal says the rest.
+    """
+    where = f"{host}:{port}"
+    try:
+        raw = socket.create_connection((host, port), timeout=timeout)
+    except socket.gaierror as e:
+        return "no_such_host", f"cannot find the broker's host {host!r} ({e.strerror})"
+    except ConnectionRefusedError:
+        return "refused", f"nothing listens on {where} (is the broker running? is the port right?)"
+    except OSError as e:
+        return "unreachable", f"{where} does not answer ({e.strerror or e.__class__.__name__})"
+    with raw:
+        raw.settimeout(timeout)
+        sock: socket.socket = raw
+        if tls is not None:
+            try:
+                sock = tls.wrap_socket(raw, server_hostname=host)
+            except ssl.SSLCertVerificationError as e:
+                return "tls_certificate", (f"TLS: the broker's certificate at {where} does not verify "
+                                           f"({e.verify_message}): check mqtt.ca_file (empty: the system's CAs)")
+            except ssl.SSLError as e:
+                return _tls_failure(e, where, cert_given)
+            except OSError:
+                return "tls_not_tls", (f"TLS: {where} does not speak TLS (no handshake came back): use mqtt:// "
+                                       "for a plain port, or give the broker's TLS port")
+        try:
+            if tls is not None:
+                _early_tls_alert(sock)  # TLS 1.3: a refused client certificate comes after the handshake
+            sock.sendall(_connect_packet(f"offwatch-probe-{os.getpid()}"))
+            reply = _read_up_to(sock, 4)
+        except ssl.SSLEOFError:
+            if tls is not None and not cert_given:
+                return "tls_client_certificate", (f"TLS: the broker at {where} closed the connection right after "
+                                                  "the handshake: it may demand a client certificate "
+                                                  "(mqtt.cert_file and mqtt.key_file)")
+            reply = b""
+        except ssl.SSLError as e:
+            return _tls_failure(e, where, cert_given)
+        except OSError:
+            reply = b""
+    if len(reply) == 4 and reply[0] == 0x20:
+        return "answers", ""
+    if tls is None and (not reply or reply[0] in (0x15, 0x16)):  # a TLS alert or handshake record (RFC 8446, 5.1)
+        return "not_mqtt", (f"{where} closed the connection without an MQTT answer: "
+                            "if it is a TLS port, use mqtts://")
+    return "not_mqtt", f"{where} answers, but not as an MQTT broker: check the port"
+
+
+def _tls_failure(e: ssl.SSLError, where: str, cert_given: bool) -> tuple[str, str]:
+    reason = (e.reason or str(e)).upper()
+    if "CERTIFICATE_REQUIRED" in reason or (not cert_given and "HANDSHAKE_FAILURE" in reason):
+        return "tls_client_certificate", (f"TLS: the broker at {where} demands a client certificate: "
+                                          "set mqtt.cert_file and mqtt.key_file")
+    if cert_given and any(k in reason for k in ("BAD_CERTIFICATE", "UNKNOWN_CA", "HANDSHAKE_FAILURE",
+                                                  "CERTIFICATE_UNKNOWN", "DECRYPT_ERROR")):
+        return "tls_client_certificate", (f"TLS: the broker at {where} did not accept our client certificate "
+                                          f"({e.reason}): check mqtt.cert_file and mqtt.key_file")
+    if any(k in reason for k in ("WRONG_VERSION_NUMBER", "RECORD_LAYER_FAILURE", "PACKET_LENGTH_TOO_LONG",
+                                 "UNEXPECTED_EOF", "HTTP_REQUEST")):
+        return "tls_not_tls", (f"TLS: {where} does not speak TLS: use mqtt:// for a plain port, "
+                               "or give the broker's TLS port")
+    return "tls_failed", f"TLS with {where} failed: {e.reason or e}"
+
+
+def _early_tls_alert(sock: socket.socket, wait_s: float = 0.5) -> None:
+    """Give a TLS 1.3 server a moment to send its alert (RFC 8446, 4.4.2.4) before we write; an alert
+    raises its SSLError here, silence returns."""
+    timeout = sock.gettimeout()
+    sock.settimeout(wait_s)
+    try:
+        if sock.recv(1) == b"":  # a broker says nothing before our CONNECT: end of stream is a refusal
+            raise ssl.SSLEOFError("closed right after the handshake")
+    except TimeoutError:
+        pass
+    finally:
+        sock.settimeout(timeout)
+
+
+def _read_up_to(sock: socket.socket, n: int) -> bytes:
+    reply = b""
+    while len(reply) < n:
+        chunk = sock.recv(n - len(reply))
+        if not chunk:
+            break
+        reply += chunk
+    return reply
 
 
 class EmbeddedBroker:

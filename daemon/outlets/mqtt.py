@@ -13,9 +13,13 @@ How it is built (paho-mqtt 2.x, callback API version 2):
   while disconnected. So paho only ever holds a small window (``window``) of
   queued messages; the rest wait in the outbox, and an entry leaves the outbox
   only once paho reports it published (PUBACK for QoS 1).
-* On (re)connect: the latest state of every topic is published again, the
-  ``on_connected`` hook runs (the pipeline republishes its status), then the
-  queued alert changes follow in order. Messages paho already held when the
+* On (re)connect the link republishes, on its own, the latest retained
+  message of every topic (states, the status, each listed alert) unless a
+  newer one of that topic still waits in the queue; then the queued alert
+  changes follow in order. So a broker that lost its retained messages, or a
+  will that said "offline", is put right without the pipeline knowing: the
+  data-time stream (JSONL, recording) depends on the input alone, never on
+  when a broker came and went. Messages paho already held when the
   connection dropped are resent by paho itself; new ones wait until those are
   acknowledged, so the order holds across a broker restart.
 * ``<prefix>/status`` carries a retained last will ``{"state": "offline"}``; a
@@ -30,6 +34,7 @@ How it is built (paho-mqtt 2.x, callback API version 2):
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 import math
@@ -48,18 +53,24 @@ from urllib.parse import unquote, urlsplit
 import paho.mqtt.client as paho
 from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 
+from daemon.core.config import mask_url_password
 from daemon.errors import ConfigError
-from daemon.outlets.outbox import DEFAULT_MAX_QUEUED, Outbox, Outgoing
+from daemon.outlets.outbox import Outbox, Outgoing
+from daemon.core.config import MqttSettings, mqtt_problems
+from daemon.core.payloads import clean, iso_utc
 from daemon.core.readings import Message, RawLine
-from estimators.base import iso_utc
 
 log = logging.getLogger(__name__)
 
 OUTBOX_FILE = "mqtt-outbox.sqlite"
 MAX_ACK_BYTES = 1024          # a larger payload on <prefix>/ack is ignored unread
+MAX_PAYLOAD_DEPTH = 8         # nesting of arrays/objects allowed in a payload we read (an ack needs 1)
 MAX_WORK_ITEMS = 20_000       # bound of the in-memory work queue (messages not yet in the outbox)
 HOLD_RESENT_S = 10.0          # after a reconnect, how long new queued messages wait for paho's resends
 CALLBACK_FAILURE_HOLD_S = 60.0  # healthy() stays False this long after a callback failed
+DIAGNOSE_EVERY_S = 30.0       # a failing link is probed for its reason at most this often
+DIAGNOSE_TIMEOUT_S = 3.0      # each step of that probe (TCP, TLS, CONNACK)
+DEFAULT_CLOSE_TIMEOUT_S = 2.0  # the service's stop: a bounded wait for the broker to take what is queued
 WORKER_STALL_S = 15.0         # healthy() is False when the worker has not looped for this long
 
 
@@ -78,7 +89,7 @@ class BrokerUrl:
 
 def parse_broker_url(url: str, key: str = "mqtt.url") -> BrokerUrl:
     """Parse a broker URL; a bad one raises ConfigError naming ``key`` and the expected form."""
-    expected = f"{key} = {url!r}: expected mqtt://host:port or mqtts://host:port"
+    expected = f"{key} = {mask_url_password(url)!r}: expected mqtt://host:port or mqtts://host:port"
     try:
         parts = urlsplit(url.strip())
         port = parts.port
@@ -93,44 +104,16 @@ def parse_broker_url(url: str, key: str = "mqtt.url") -> BrokerUrl:
                      username=unquote(parts.username or ""), password=unquote(parts.password or ""))
 
 
-@dataclass(frozen=True, slots=True)
-class MqttSettings:
-    """Everything the sink needs to reach a broker (the [mqtt] section plus tuning)."""
-
-    url: str = "mqtt://127.0.0.1:1883"
-    prefix: str = "offwatch"
-    client_id: str = "offwatch"
-    username: str = ""
-    password: str = ""
-    ca_file: str = ""        # mqtts://: CA certificate file; empty: the system's CAs
-    cert_file: str = ""      # mqtts://: client certificate (optional)
-    key_file: str = ""       # mqtts://: client key (optional)
-    protocol: str = "3.1.1"  # or "5"
-    keepalive_s: int = 30
-    max_queued: int = DEFAULT_MAX_QUEUED
-    window: int = 10         # queued messages paho may hold at once
-    close_timeout_s: float = 2.0
-
-
 # -- payloads -----------------------------------------------------------------
 
 def encode_payload(payload: Mapping[str, Any]) -> bytes:
-    """Compact UTF-8 JSON; a non-finite number (not JSON) becomes null."""
+    """Compact UTF-8 JSON. Payloads come cleaned from the payload layer; one that is not JSON
+    (a non-finite number from elsewhere) is cleaned there, never sent as NaN."""
     try:
         text = json.dumps(payload, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
     except ValueError:
-        text = json.dumps(_finite_or_null(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
+        text = json.dumps(clean(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
     return text.encode("utf-8")
-
-
-def _finite_or_null(value: Any) -> Any:
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, Mapping):
-        return {k: _finite_or_null(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_finite_or_null(v) for v in value]
-    return value
 
 
 def offline_payload(reason: str, now_s: float | None = None) -> bytes:
@@ -139,14 +122,56 @@ def offline_payload(reason: str, now_s: float | None = None) -> bytes:
     return encode_payload({"time": iso_utc(now_s), "state": "offline", "sensors": {}, "reason": reason})
 
 
+class PayloadRefused(ValueError):
+    """A received payload that is not read: too large, too deep, or not UTF-8 JSON."""
+
+
+def decode_json_payload(payload: bytes, max_bytes: int, max_depth: int = MAX_PAYLOAD_DEPTH) -> Any:
+    """Parse a received payload as JSON only once it is known to be small and shallow.
+
+    Size and nesting are checked on the raw bytes before the parser runs, so a
+    ``[[[[…`` of any depth costs one linear scan and never a RecursionError in
+    the JSON parser (which recurses once per level). Raises PayloadRefused.
+    """
+    if len(payload) > max_bytes:
+        raise PayloadRefused(f"payload of {len(payload)} bytes (more than {max_bytes})")
+    depth = nesting_depth(payload)
+    if depth > max_depth:
+        raise PayloadRefused(f"nested more than {max_depth} levels deep")
+    try:
+        return json.loads(payload.decode("utf-8"))
+    except (UnicodeDecodeError, ValueError, RecursionError):
+        raise PayloadRefused("not UTF-8 JSON") from None
+
+
+def nesting_depth(payload: bytes) -> int:
+    """The deepest nesting of ``[`` and ``{`` outside JSON strings, in one pass over the bytes."""
+    depth = deepest = 0
+    in_string = escaped = False
+    for byte in payload:
+        if in_string:
+            if escaped:
+                escaped = False
+            elif byte == 0x5C:      # backslash
+                escaped = True
+            elif byte == 0x22:      # closing quote
+                in_string = False
+        elif byte == 0x22:
+            in_string = True
+        elif byte in (0x5B, 0x7B):  # [ {
+            depth += 1
+            deepest = max(deepest, depth)
+        elif byte in (0x5D, 0x7D):  # ] }
+            depth -= 1
+    return deepest
+
+
 def parse_ack(payload: bytes) -> tuple[str | None, str]:
     """``{"id": "<alert id>"}`` -> (id, ""); anything else -> (None, why it was refused)."""
-    if len(payload) > MAX_ACK_BYTES:
-        return None, f"payload of {len(payload)} bytes (more than {MAX_ACK_BYTES})"
     try:
-        doc = json.loads(payload.decode("utf-8"))
-    except (UnicodeDecodeError, ValueError):
-        return None, "not UTF-8 JSON"
+        doc = decode_json_payload(payload, MAX_ACK_BYTES)
+    except PayloadRefused as e:
+        return None, str(e)
     if not isinstance(doc, dict):
         return None, "not a JSON object"
     alert_id = doc.get("id")
@@ -162,24 +187,24 @@ def parse_ack(payload: bytes) -> tuple[str | None, str]:
 class MqttSink:
     """A Sink that publishes to an MQTT broker through a persistent outbox.
 
-    ``on_ack(alert_id)`` is called from paho's network thread for each valid
-    acknowledgement; it may return False to say the id is unknown (counted).
-    ``on_connected()`` is called from the worker thread after each connect.
+    ``on_ack(alert_id, reply)`` is called from paho's network thread for each
+    well-formed acknowledgement. It answers by calling ``reply(alert_id,
+    acknowledged)`` (from any thread, at once or later), or by returning
+    True/False; ``ack_accepted`` counts only the acks that acknowledged a listed
+    alarm or warning, ``ack_ignored`` everything else.
+    ``on_connected()`` is called from the worker thread after each connect (a
+    notice only: whatever the link republishes, it does itself).
     """
 
     def __init__(self, settings: MqttSettings, outbox_path: str | os.PathLike[str] | None = None, *,
-                 on_ack: Callable[[str], object] | None = None,
+                 on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
                  on_connected: Callable[[], object] | None = None,
                  on_swell: Callable[[bytes], str] | None = None) -> None:
         self.settings = settings
         self.broker = parse_broker_url(settings.url)
+        for problem in mqtt_problems(settings)[:1]:  # the config's own check: settings made in code too
+            raise ConfigError(f"[mqtt] {problem}")
         prefix = settings.prefix.strip("/")
-        if not prefix or any(c in prefix for c in "+#"):
-            raise ConfigError(f"mqtt.prefix = {settings.prefix!r}: expected a topic without wildcards, e.g. offwatch")
-        if settings.protocol not in ("3.1.1", "5"):
-            raise ConfigError(f"mqtt.protocol = {settings.protocol!r}: expected '3.1.1' or '5'")
-        if settings.window < 1:
-            raise ConfigError(f"mqtt.window = {settings.window!r}: expected at least 1")
         self.status_topic = f"{prefix}/status"
         self.ack_topic = f"{prefix}/ack"
         self._on_ack = on_ack
@@ -189,7 +214,8 @@ class MqttSink:
         self.counters: Counter[str] = Counter()
         self.outbox = Outbox(outbox_path, max_queued=settings.max_queued)
         self._work: queue.Queue[tuple] = queue.Queue()
-        self._dirty_states: set[str] = {s.topic for s in self.outbox.latest_states()}
+        self.outbox.forget_latest(self.status_topic)  # an earlier process's status is not ours to repeat
+        self._dirty_states: set[str] = set()       # topics whose latest retained message is due
         self._inflight: dict[int, Outgoing] = {}   # paho mid -> queued entry paho holds
         self._held: set[int] = set()               # mids paho resends after a reconnect
         self._hold_until = 0.0
@@ -200,6 +226,9 @@ class MqttSink:
         self._stored = 0     # of those, stored in the outbox (worker thread)
         self._last_callback_failure = -math.inf
         self._heartbeat = time.monotonic()
+        self.link_fault: str | None = None          # why the link is down, in words (None: no known fault)
+        self._last_diagnosis = -math.inf
+        self._left_at_close: dict[str, int] | None = None  # undelivered, counted as the worker ends
         self.connected_at: float | None = None      # monotonic time of the latest CONNACK
         self.disconnected_at: float | None = None   # monotonic time of the latest loss
         self._client = self._make_client()
@@ -211,17 +240,22 @@ class MqttSink:
 
     @classmethod
     def from_config(cls, cfg: Any, *, url: str | None = None, state_dir: str | os.PathLike[str] | None = None,
-                    on_ack: Callable[[str], object] | None = None,
+                    on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
                     on_connected: Callable[[], object] | None = None,
+                    close_timeout_s: float | None = None,
                     on_swell: Callable[[bytes], str] | None = None) -> MqttSink:
-        """Build from the [mqtt] config section; the outbox lives in ``state_dir`` (memory when None)."""
-        names = ("prefix", "client_id", "username", "password", "ca_file", "cert_file", "key_file", "protocol")
-        settings = MqttSettings(url=url or cfg.url, **{n: getattr(cfg, n) for n in names if hasattr(cfg, n)})
+        """Build from the [mqtt] config section (``url`` and ``close_timeout_s`` in place of its own
+        when given); the outbox lives in ``state_dir`` (memory when None)."""
+        changes: dict[str, Any] = {"url": url} if url else {}
+        if close_timeout_s is not None:
+            changes["close_timeout_s"] = close_timeout_s
+        settings = dataclasses.replace(cfg, **changes) if changes else cfg
         path = Path(state_dir) / OUTBOX_FILE if state_dir is not None else None
         return cls(settings, path, on_ack=on_ack, on_connected=on_connected, on_swell=on_swell)
 
     def _make_client(self) -> paho.Client:
         s, b = self.settings, self.broker
+        self._tls_context: ssl.SSLContext | None = None
         protocol = paho.MQTTv5 if s.protocol == "5" else paho.MQTTv311
         client = paho.Client(CallbackAPIVersion.VERSION2, client_id=s.client_id, protocol=protocol,
                              **({} if protocol == paho.MQTTv5 else {"clean_session": True}))
@@ -249,10 +283,14 @@ class MqttSink:
         if bool(s.cert_file) != bool(s.key_file):
             raise ConfigError("mqtt.cert_file and mqtt.key_file: give both for a client certificate, or neither")
         try:
-            client.tls_set(ca_certs=s.ca_file or None, certfile=s.cert_file or None, keyfile=s.key_file or None,
-                           cert_reqs=ssl.CERT_REQUIRED, tls_version=ssl.PROTOCOL_TLS_CLIENT)
+            # our own context (certificate and host name checked), so the fault diagnosis uses the very same
+            ctx = ssl.create_default_context(cafile=s.ca_file or None)
+            if s.cert_file:
+                ctx.load_cert_chain(s.cert_file, s.key_file)
+            client.tls_set_context(ctx)
         except (ssl.SSLError, OSError, ValueError) as e:
             raise ConfigError(f"mqtt.ca_file/cert_file/key_file: cannot use them for TLS: {e}") from None
+        self._tls_context = ctx
 
     # -- the Sink protocol (pipeline thread) ----------------------------------
 
@@ -271,7 +309,9 @@ class MqttSink:
         self._work.put(item)
 
     def close(self) -> None:
-        """Keep what is pending in the outbox, say offline, disconnect; waits at most ~close_timeout_s."""
+        """Wait at most ``close_timeout_s`` for the broker to take what is queued (paho keeps
+        reconnecting meanwhile), say offline, disconnect. What was not delivered stays in a
+        file outbox for the next start, and is told by ``undelivered()``."""
         if self._closing:
             return
         self._closing = True
@@ -281,6 +321,24 @@ class MqttSink:
         if not self._worker.is_alive():
             self.outbox.close()
             self._outbox_closed = True
+
+    def undelivered(self) -> dict[str, int]:
+        """After ``close()``: what the broker never took, by kind (alerts, events, status, states,
+        dropped). Empty when everything arrived."""
+        left = self._left_at_close if self._left_at_close is not None else self._count_left()
+        return {k: v for k, v in left.items() if v}
+
+    def _count_left(self) -> dict[str, int]:
+        left = {"alerts": 0, "events": 0, "status": 0, "states": 0, "dropped": 0}
+        if not self._outbox_closed:
+            for entry in self.outbox.queued(limit=self.outbox.max_queued):
+                kind = "alerts" if "/alerts/" in entry.topic else "status" if entry.topic == self.status_topic \
+                    else "events" if not entry.retain else "states"
+                left[kind] += 1
+            left["states"] += len(self._dirty_states)
+            left["dropped"] = self.outbox.dropped
+        left["dropped"] += self.counters["dropped_work_queue_full"] + (self._accepted - self._stored)
+        return left
 
     # -- health -----------------------------------------------------------------
 
@@ -301,6 +359,7 @@ class MqttSink:
     def snapshot(self) -> dict[str, Any]:
         """Counters and state for the health report and the status topic."""
         return {"connected": self._connected, "healthy": self.healthy(), "pending": self.pending(),
+                "fault": self.link_fault,
                 "dropped_outbox_full": self.outbox.dropped if not self._outbox_closed else None,
                 **dict(self.counters)}
 
@@ -325,7 +384,12 @@ class MqttSink:
     def _cb_connect(self, client: paho.Client, userdata: Any, flags: Any, reason: Any, properties: Any) -> None:
         if reason.is_failure:
             self.counters["connect_refused"] += 1
-            self._log_change("refused", f"MQTT: broker {self.broker.host}:{self.broker.port} refused: {reason}")
+            words = str(reason)
+            hint = (" (check mqtt.username and mqtt.password or mqtt.password_file)"
+                    if any(k in words.lower() for k in ("user name", "password", "authori")) else "")
+            self.link_fault = f"the broker refused the connection: {words}{hint}"
+            self._log_change(f"refused:{words}", f"MQTT: broker {self.broker.host}:{self.broker.port} refused the "
+                                                 f"connection: {words}{hint}; retrying")
             return
         client.subscribe(self.ack_topic, qos=1)
         if self._on_swell is not None:
@@ -334,8 +398,7 @@ class MqttSink:
 
     def _cb_connect_fail(self, client: paho.Client, userdata: Any) -> None:
         self.counters["connect_failed"] += 1
-        self._log_change("unreachable", f"MQTT: broker {self.broker.host}:{self.broker.port} does not answer;"
-                                        " retrying, keeping messages in the outbox")
+        self._work.put(("diagnose",))  # paho does not say why: the worker finds out
 
     def _cb_disconnect(self, client: paho.Client, userdata: Any, flags: Any, reason: Any, properties: Any) -> None:
         self._work.put(("disconnected", time.monotonic()))
@@ -360,12 +423,23 @@ class MqttSink:
         if alert_id is None:
             self._ack_refused(why)
             return
-        answer = self._on_ack(alert_id) if self._on_ack is not None else None
-        if answer is False:
-            self._ack_refused(f"unknown or not acknowledgeable id {alert_id!r}")
-        else:
+        if self._on_ack is None:
+            self._ack_refused("nothing here takes acknowledgements")
+            return
+        answer = self._on_ack(alert_id, self._ack_answered)
+        if isinstance(answer, bool):
+            self._ack_answered(alert_id, answer)
+
+    def _ack_answered(self, alert_id: str, acknowledged: bool) -> None:
+        """The answer to one ack (any thread): counted by the worker, which owns the counters' writes."""
+        self._work.put(("ack_answer", alert_id, acknowledged))
+
+    def _count_ack_answer(self, alert_id: str, acknowledged: bool) -> None:
+        if acknowledged:
             self.counters["ack_accepted"] += 1
             log.info("MQTT: acknowledgement for %r", alert_id)
+        else:
+            self._ack_refused(f"{alert_id!r} is not a listed alarm or warning waiting for an acknowledgement")
 
     def _ack_refused(self, why: str) -> None:
         self.counters["ack_ignored"] += 1
@@ -390,7 +464,9 @@ class MqttSink:
             try:
                 closing |= self._handle(items)
                 if closing and close_deadline == math.inf:
-                    close_deadline = time.monotonic() + (self.settings.close_timeout_s if self._connected else 0.0)
+                    # wait even when disconnected: paho goes on reconnecting, and a broker back
+                    # within the bound still gets everything
+                    close_deadline = time.monotonic() + self.settings.close_timeout_s
                 self._pump()
                 if closing and (time.monotonic() >= close_deadline or self._drained()):
                     break
@@ -401,6 +477,10 @@ class MqttSink:
                 log.exception("MQTT: error in the outbox worker")
                 if closing:
                     break
+        try:
+            self._left_at_close = self._count_left()
+        except Exception:
+            log.exception("MQTT: could not count what was not delivered")
         self._say_offline()
 
     def _take_work(self) -> list[tuple]:
@@ -430,16 +510,22 @@ class MqttSink:
                 self._on_disconnect_event(it[1])
             elif kind == "published":
                 self._on_published(it[1], it[2])
+            elif kind == "diagnose":
+                self._diagnose()
+            elif kind == "ack_answer":
+                self._count_ack_answer(it[1], it[2])
             elif kind == "close":
                 closing = True
         return closing
 
     def _on_connect_event(self, at: float) -> None:
         self._connected = True
+        self.link_fault = None
+        self._last_diagnosis = -math.inf
         self.connected_at = at
         self.counters["connects"] += 1
         self._log_change("connected", f"MQTT: connected to {self.broker.host}:{self.broker.port}", logging.INFO)
-        self._dirty_states = {s.topic for s in self.outbox.latest_states()}
+        self._dirty_states = self._republishable()
         # paho resends what it held at the drop; new queued messages wait for those
         self._held = {mid for mid, o in self._inflight.items() if o.qos > 0}
         self._hold_until = time.monotonic() + HOLD_RESENT_S
@@ -452,8 +538,31 @@ class MqttSink:
                 self._last_callback_failure = time.monotonic()
                 log.exception("MQTT: error in the on_connected hook")
 
+    def _republishable(self) -> set[str]:
+        """Retained topics whose latest message is not still on its way (queued or in paho's hands)."""
+        waiting = self.outbox.queued_topics() | {o.topic for o in self._inflight.values()}
+        return {s.topic for s in self.outbox.latest_states()} - waiting
+
+    def _diagnose(self) -> None:
+        """Name why connecting fails (TLS, certificates, a plain client on a TLS port...): logged once per
+        state, kept for the status; at most one probe of our own every DIAGNOSE_EVERY_S."""
+        now = time.monotonic()
+        if self._connected or self._closing or now - self._last_diagnosis < DIAGNOSE_EVERY_S:
+            return
+        self._last_diagnosis = now
+        from daemon.outlets.broker import diagnose_broker
+        state, text = diagnose_broker(self.broker.host, self.broker.port, self._tls_context,
+                                      cert_given=bool(self.settings.cert_file), timeout=DIAGNOSE_TIMEOUT_S)
+        if state == "answers":
+            return  # the transport works: a refusal, if any, is reported from the CONNACK
+        self.link_fault = text
+        self._log_change(state, f"MQTT: {text}; retrying, keeping messages in the outbox")
+
     def _on_disconnect_event(self, at: float) -> None:
-        if self._connected:
+        if not self._connected:
+            self.counters["connect_failed"] += 1
+            self._diagnose()  # lost before the CONNACK: a TLS alert, a plain client on a TLS port...
+        else:
             self.counters["disconnects"] += 1
             self.disconnected_at = at
             self._log_change("lost", f"MQTT: lost the broker {self.broker.host}:{self.broker.port};"

@@ -9,7 +9,11 @@ Two kinds of message leave offwatch, and they need different keeping:
 * **queued** messages (every alert change, QoS 1; events, which are not
   retained): each one matters, in order. They wait in an ordered queue with a
   bound; when it is full the oldest is dropped and counted. An entry leaves the
-  queue only when the broker has taken it (PUBACK for QoS 1).
+  queue only when the broker has taken it (PUBACK for QoS 1). A queued message
+  that is retained (an alert, the status) is also kept as its topic's latest
+  state, so the link can publish it again after a reconnect once nothing of
+  that topic waits in the queue (a broker that lost its retained messages, a
+  display that comes later).
 
 The store is one SQLite file in the state directory (WAL journal,
 ``synchronous=FULL``: a committed alert survives a power cut), or memory when
@@ -146,12 +150,18 @@ class Outbox:
         seqs: list[int | None] = []
         with self.batch():
             for it in items:
-                if it.seq is None and is_state(it.qos, it.retain):
+                if it.retain:
                     self.keep_latest(it.topic, it.payload, it.qos, it.retain)
+                if it.seq is None and is_state(it.qos, it.retain):
                     seqs.append(None)
                 else:
                     seqs.append(self.append(it.topic, it.payload, it.qos, it.retain))
         return seqs
+
+    def forget_latest(self, topic: str) -> None:
+        """Drop the latest state of ``topic`` (it described an earlier process)."""
+        with self.batch():
+            self._db.execute("DELETE FROM latest_state WHERE topic = ?", (topic,))
 
     def remove(self, seq: int) -> None:
         """The broker has the queued message ``seq``: forget it."""
@@ -182,6 +192,11 @@ class Outbox:
                 "SELECT seq, topic, payload, qos, retain FROM queued WHERE seq > ? ORDER BY seq LIMIT ?",
                 (after_seq, limit)).fetchall()
         return [Outgoing(t, bytes(p), q, bool(r), s) for s, t, p, q, r in rows]
+
+    def queued_topics(self) -> set[str]:
+        """The topics that still have a message waiting in the queue."""
+        with self._lock:
+            return {row[0] for row in self._db.execute("SELECT DISTINCT topic FROM queued")}
 
     def queued_count(self) -> int:
         with self._lock:

@@ -95,7 +95,7 @@ from typing import Any
 
 from daemon import __version__
 from daemon.errors import InputError, OutputError
-from daemon.nmea0183.codec import checksum_hex, tag_block
+from daemon.nmea0183.codec import has_tag_block, split_tag, tag_block
 from daemon.core.readings import Message, RawLine
 from estimators.params import param
 
@@ -104,7 +104,7 @@ log = logging.getLogger("offwatch.recorder")
 SCHEMA_VERSION = 1
 NAME_PREFIX = "offwatch-"
 NAME_SUFFIX = ".sqlite"
-_SQLITE_MAGIC = b"SQLite format 3\x00"
+SQLITE_MAGIC = b"SQLite format 3\x00"  # the SQLite file format's 16-byte header string
 _MB = 1024 * 1024
 
 
@@ -801,11 +801,16 @@ class Recorder:
 
 # --------------------------------------------------------------------------- reading back
 
+def is_recording_header(head: bytes) -> bool:
+    """True for the first bytes of an SQLite database (the program's own recording format)."""
+    return head[:len(SQLITE_MAGIC)] == SQLITE_MAGIC
+
+
 def is_recording(path: str | Path) -> bool:
     """True when the file is an SQLite database (the program's own recording format)."""
     try:
         with open(path, "rb") as f:
-            return f.read(16) == _SQLITE_MAGIC
+            return is_recording_header(f.read(len(SQLITE_MAGIC)))
     except OSError:
         return False
 
@@ -865,12 +870,6 @@ def read_meta(path: str | Path) -> dict[str, Any]:
 
 # --------------------------------------------------------------------------- TAG-block NMEA export
 
-# TAG blocks (NMEA 0183 v4.10): \<param>:<value>,...*hh\ before the sentence; c: is
-# UNIX time (s, or ms when larger than 10^11, as offwatch reads it), s: the source;
-# the checksum is the XOR of the characters between the leading backslash and '*'.
-_TAG_RE = re.compile(r"\\([^\\*]*)\*([0-9A-Fa-f]{2})\\")
-
-
 def export_tag_nmea(db_path: str | Path, out_path: str | Path) -> int:
     """Write the raw sentences as TAG-block NMEA text (CRLF lines); returns the lines written.
 
@@ -883,7 +882,7 @@ def export_tag_nmea(db_path: str | Path, out_path: str | Path) -> int:
     try:
         with open(out_path, "w", encoding="utf-8", errors="surrogateescape", newline="") as out:
             for line in iter_raw(db_path):
-                if _TAG_RE.match(line.text):
+                if has_tag_block(line.text):
                     out.write(line.text + "\r\n")
                 else:
                     out.write(tag_block(line.t_s, line.source) + line.text + "\r\n")
@@ -899,15 +898,11 @@ def parse_tag_line(line: str) -> RawLine:
     A line without a well-formed TAG block (or with a wrong TAG checksum) comes
     back whole as the text, with NaN time and an empty source.
     """
-    m = _TAG_RE.match(line)
-    if m is None or checksum_hex(m.group(1)) != m.group(2).upper():
+    status, t, source, rest = split_tag(line)
+    if status != "ok" or rest is line:
         return RawLine(source="", t_s=math.nan, recv_utc=math.nan, text=line)
-    fields = dict(part.split(":", 1) for part in m.group(1).split(",") if ":" in part)
-    t = math.nan
-    if fields.get("c", "").isdigit():
-        c = int(fields["c"])
-        t = c / 1000 if c > 10**11 else float(c)
-    return RawLine(source=fields.get("s", ""), t_s=t, recv_utc=t, text=line[m.end():])
+    t_s = math.nan if t is None else t
+    return RawLine(source=source or "", t_s=t_s, recv_utc=t_s, text=rest)
 
 
 def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:

@@ -35,7 +35,8 @@ from tools.simulator import simulate
 from tools.simulator.ocean import offset_m
 from tools.simulator.scenarios import SCENARIOS
 from estimators.angles import KN_TO_MPS, to_east_north
-from estimators.current import CurrentEstimator, CurrentParams, ReplayContext, run
+from estimators.current import CurrentEstimator, CurrentParams
+from estimators.runner import RunContext, run
 from estimators.samples import Fix, Heading, WaterSpeed
 from estimators.triangle import PlainTriangle
 
@@ -105,7 +106,7 @@ def run_all(sim, params: CurrentParams) -> dict:
     tracks = {name: Track([], []) for name in ("offwatch", "plain", "bound")}
     frozen: dict = {}
     outage = spec.gnss_outages[0] if spec.gnss_outages else None
-    ctx = ReplayContext()
+    ctx = RunContext()
     for s, _ in run(est, sim.samples, ctx):
         if isinstance(s, float):
             continue

@@ -3,8 +3,9 @@
     python -m tools.bench.fronts_pressure
 
 Runs the simulator's scenarios through ``FrontDetector`` and
-``PressureTendency`` (directly, not through the pipeline: no current
-estimate is offered to the front detector here) and, side by side, the naive
+``PressureTendency``, each driven by the estimators' runner as the service
+drives it (data-time ticks included) but on its own: no current estimate is
+offered to the front detector here and, side by side, the naive
 methods a plain instrument would use:
 - fronts: the raw reading now against the raw reading 5 minutes ago, a front
   when they differ by ``min_delta_c`` or more (re-armed below half of it);
@@ -39,22 +40,13 @@ from tools.simulator.__main__ import DEMO_SEED
 from estimators.base import Condition, Publication
 from estimators.fronts import FrontDetector, FrontParams, step_distance_m
 from estimators.pressure import PressureParams, PressureTendency
-from estimators.samples import Fix, Pressure, SeaTemperature
+from estimators.runner import run as run_estimators
+from estimators.samples import Pressure, SeaTemperature
 
 NAIVE_FRONT_SPAN_S = 300.0
 FALL_HPA = 3.6
 MATCH_NM = 1.0
 MAX_LAG_NM = 0.3  # a crossing is due within this far past the steepest point
-
-
-class _Ctx:
-    history = None
-
-    def __init__(self) -> None:
-        self.pubs: dict[str, Publication] = {}
-
-    def latest(self, topic: str) -> Publication | None:
-        return self.pubs.get(topic)
 
 
 @dataclass
@@ -138,12 +130,11 @@ def _naive_fronts(samples, min_delta: float) -> list[tuple[float, bool]]:
 
 
 def _run_fronts(run, params: FrontParams) -> list[tuple[float, bool]]:
-    det, ctx, out = FrontDetector(params), _Ctx(), []
-    for s in run.samples:
-        if isinstance(s, (Fix, SeaTemperature)):
-            for o in det.step(s, ctx):
-                if isinstance(o, Publication) and o.topic == "events":
-                    out.append((o.t_s, o.payload["warmer"]))
+    out = []
+    for _, outputs in run_estimators(FrontDetector(params), run.samples):  # as the service drives it
+        for o in outputs:
+            if isinstance(o, Publication) and o.topic == "events":
+                out.append((o.t_s, o.payload["warmer"]))
     return out
 
 
@@ -167,11 +158,10 @@ def _raises(times: list[float], due: float | None) -> tuple[float | None, int]:
 def _run_pressure(run, params: PressureParams) -> list[float]:
     est = PressureTendency(params, run.scenario.sensors.barometer_height_m)
     raised = []
-    for s in run.samples:
-        if isinstance(s, (Fix, Pressure)) or type(s).__name__ == "AirTemperature":
-            for o in est.step(s, None):
-                if isinstance(o, Condition) and o.alert_id == "pressure_fall" and o.active and o.priority == "caution":
-                    raised.append(o.t_s)
+    for _, outputs in run_estimators(est, run.samples):  # as the service drives it, ticks included
+        for o in outputs:
+            if isinstance(o, Condition) and o.alert_id == "pressure_fall" and o.active and o.priority == "caution":
+                raised.append(o.t_s)
     return raised
 
 

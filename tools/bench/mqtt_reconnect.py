@@ -19,7 +19,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from daemon.outlets.mqtt import MqttSettings, MqttSink
+from daemon.core.config import MqttSettings
+from daemon.outlets.mqtt import MqttSink
 from daemon.core.readings import Message
 from tests.conftest import Mosquitto
 

@@ -31,9 +31,9 @@ from collections.abc import Iterable, Sequence
 from typing import Any
 
 from estimators.angles import to_east_north, wrap_180
-from estimators.base import Condition, Publication
+from estimators.base import Condition, Output, Publication
 from estimators.current import CurrentEstimator
-from estimators.history import SampleHistory
+from estimators.runner import run
 from estimators.samples import Sample, WaterWind
 from estimators.sea_state import SeaStateEstimator, SeaStateParams
 from tools.simulator import simulate
@@ -43,53 +43,35 @@ WARMUP_S = 50 * 60.0  # the calibration run south and back on the reach
 CASES = ("wind_against_current", "wind_with_current", "wind_no_current")
 
 
-class Context:
-    """The pipeline's view for estimators: the history and the newest publication per topic."""
+class _Timed:
+    """An estimator whose step and tick are timed (process time, by its name, into ``cpu_s``)."""
 
-    def __init__(self) -> None:
-        self.history = SampleHistory()
-        self._latest: dict[str, Publication] = {}
+    def __init__(self, est: Any, cpu_s: dict[str, float]) -> None:
+        self.est, self.cpu_s = est, cpu_s
+        self.name, self.accepts = est.name, est.accepts
 
-    def latest(self, topic: str) -> Publication | None:
-        return self._latest.get(topic)
+    def _timed(self, fn: Any, arg: Any, ctx: Any) -> Any:
+        t = time.process_time()
+        try:
+            return fn(arg, ctx)
+        finally:
+            self.cpu_s[self.name] = self.cpu_s.get(self.name, 0.0) + time.process_time() - t
+
+    def step(self, sample: Sample, ctx: Any) -> Any:
+        return self._timed(self.est.step, sample, ctx)
+
+    def tick(self, t_s: float, ctx: Any) -> Any:
+        return self._timed(self.est.tick, t_s, ctx)
 
 
 def drive(estimators: Sequence[Any], samples: Iterable[Sample],
-          cpu_s: dict[str, float] | None = None) -> list[Publication | Condition]:
-    """Step the estimators as the pipeline does (history first, a tick each data second); all outputs.
+          cpu_s: dict[str, float] | None = None) -> list[Output]:
+    """Every output of the estimators over the samples, driven as the service does (estimators.runner).
 
     ``cpu_s``, when given, collects each estimator's time in step and tick (seconds, by name).
     """
-    ctx = Context()
-    out: list[Publication | Condition] = []
-    clock = time.process_time if cpu_s is not None else None
-
-    def call(est: Any, fn: Any, arg: Any) -> Any:
-        if clock is None:
-            return fn(arg, ctx)
-        t = clock()
-        result = fn(arg, ctx)
-        cpu_s[est.name] = cpu_s.get(est.name, 0.0) + clock() - t
-        return result
-
-    def take(outputs: Iterable[Publication | Condition]) -> None:
-        for o in outputs:
-            if isinstance(o, Publication):
-                ctx._latest[o.topic] = o
-            out.append(o)
-
-    next_tick: float | None = None
-    for s in samples:
-        next_tick = math.floor(s.t_s) + 1.0 if next_tick is None else next_tick
-        while next_tick <= s.t_s:
-            for est in estimators:
-                take(call(est, est.tick, next_tick))
-            next_tick += 1.0
-        ctx.history.add(s)
-        for est in estimators:
-            if isinstance(s, est.accepts):
-                take(call(est, est.step, s))
-    return out
+    ests = [_Timed(e, cpu_s) for e in estimators] if cpu_s is not None else list(estimators)
+    return [o for _, outs in run(ests, samples) for o in outs]
 
 
 def truth_opposing_kn(row: Any) -> float:

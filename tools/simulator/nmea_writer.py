@@ -28,12 +28,12 @@ from __future__ import annotations
 import gzip
 import io
 import math
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 
-from daemon.nmea0183.codec import checksum_hex, tag_block
+from daemon.nmea0183.codec import format_sentence, tag_block
 from estimators.angles import wrap_360
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, Heading, Pressure, SeaTemperature, WaterSpeed, WaterWind,
@@ -62,9 +62,7 @@ class WriterOptions:
 # --------------------------------------------------------------------------- formatting
 
 
-def sentence(talker: str, kind: str, fields: Iterable[str]) -> str:
-    body = ",".join([talker + kind, *fields])
-    return f"${body}*{checksum_hex(body)}"
+sentence = format_sentence  # the codec writes sentences, as it reads them
 
 
 def _num(x: float | None, decimals: int) -> str:

@@ -1,0 +1,115 @@
+"""The payload layer: how every published payload is made, once.
+
+Estimators hand back plain numbers at full precision; here, and only here,
+they become what leaves the boat (MQTT, JSONL, the recording):
+
+- ``time`` first, the data time as ISO 8601 UTC with milliseconds and a ``Z``
+  (the interface's format), by ``iso_utc``;
+- every float rounded to the decimals its field deserves, from one table
+  (``DECIMALS``): a position to about a metre, pressure to the 0.1 hPa a
+  barometer shows, speeds to 0.01 kn, angles to 0.1°; never "-0.0";
+  a non-finite number becomes null, an unknown type its text;
+- alert texts end with the advisory sentence (``with_advisory``).
+
+The rounding is deterministic, so a replay and the replay of its own
+recording stay byte for byte the same.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from datetime import datetime, timezone
+from typing import Any
+
+# What offwatch can and cannot promise: appended to every alert text.
+ADVISORY = "Advisory only, not for navigation: check official forecasts, charts and your own seamanship."
+
+# Field name (exact) -> decimals. Checked first.
+_BY_NAME: dict[str, int] = {
+    "lat": 5,                 # 1e-5 deg of latitude is 1.1 m: about a metre, the worth of a GNSS fix
+    "lon": 5,                 # 1e-5 deg of longitude is 1.1 m x cos(lat): no worse than latitude
+    "stw_scale": 4,           # 0.01 % of the log's reading
+    "stw_scale_sigma": 4,
+    "q_inflation": 2,
+    "hdop": 1,                # GGA sends HDOP to 0.1
+    "last_seen": 3,           # UNIX seconds to the millisecond, as the payload's time
+    "sensors": 1,             # status: each feed's age, s
+}
+# Field name ending -> decimals, the longest ending that matches wins (units are in the names).
+_BY_SUFFIX: dict[str, int] = {
+    "_lat": 5, "_lon": 5,     # as lat / lon
+    "_kn": 2,                 # 0.01 kn is 5 mm/s: below any log's resolution (1 kn ~ 50 cm/s, common practice)
+    "_mps": 2,
+    "_deg": 1,                # 0.1 deg: a compass card's finest reading
+    "_hpa": 1,                # 0.1 hPa: what a marine barometer and MDA/XDR report
+    "_hpa_per_h": 2,          # rates are small numbers: 0.01 hPa/h
+    "_c": 2,                  # sea and air temperature; fronts are judged on tenths
+    "_c_per_nm": 3,
+    "_nm": 3,                 # 0.001 nm is 1.85 m
+    "_m": 1,
+    "_s": 1,
+    "_pct": 1,
+    "_factor": 2,             # sea-state ratios against the still-water case
+}
+DEFAULT_DECIMALS = 3  # a float with no rule above: enough to read, never seven digits
+MAX_DEPTH = 8         # payloads are shallow; anything deeper is cut (data, never trusted)
+
+
+def rule_for(name: str) -> int | None:
+    """The table's decimals for field ``name``: by name, else by its unit ending; None without a rule."""
+    if name in _BY_NAME:
+        return _BY_NAME[name]
+    best = ""
+    for suffix in _BY_SUFFIX:
+        if name.endswith(suffix) and len(suffix) > len(best):
+            best = suffix
+    return _BY_SUFFIX[best] if best else None
+
+
+def decimals_for(name: str, inherited: int | None = None) -> int:
+    """Decimals for field ``name``: its rule, else the enclosing field's, else the default."""
+    rule = rule_for(name)
+    if rule is not None:
+        return rule
+    return DEFAULT_DECIMALS if inherited is None else inherited
+
+
+def clean(value: Any, decimals: int | None = None, depth: int = 0) -> Any:
+    """JSON-safe ``value``: floats rounded (no negative zero, non-finite -> None), mappings and
+    sequences cleaned field by field (a nested field without its own rule takes its parent's)."""
+    if isinstance(value, bool) or value is None or isinstance(value, (int, str)):
+        return value
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return None
+        return round(value, DEFAULT_DECIMALS if decimals is None else decimals) + 0.0  # + 0.0: -0.0 -> 0.0
+    if depth >= MAX_DEPTH:
+        return None
+    if isinstance(value, Mapping):
+        return {str(k): clean(v, decimals_for(str(k), decimals), depth + 1) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean(v, decimals, depth + 1) for v in value]
+    return str(value)
+
+
+def iso_utc(t_s: float) -> str:
+    """ISO 8601 UTC with milliseconds and a Z, as every payload's ``time``."""
+    ms = int(round(t_s * 1000.0))
+    sec, milli = divmod(ms, 1000)
+    stamp = datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S")
+    return f"{stamp}.{milli:03d}Z"
+
+
+def payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
+    """A publication's payload: ``time`` first, then the fields, cleaned."""
+    out: dict[str, Any] = {"time": iso_utc(t_s)}
+    for k, v in fields.items():
+        if k != "time":
+            out[str(k)] = clean(v, decimals_for(str(k)), 1)
+    return out
+
+
+def with_advisory(text: str) -> str:
+    """An alert text with the advisory sentence after it (the sentence alone for no text)."""
+    return f"{text} {ADVISORY}" if text else ADVISORY

@@ -1,0 +1,81 @@
+"""The payload layer: time stamps, the decimals table, JSON cleaning, the advisory sentence.
+
+Outside references named beside each check: ISO 8601 (UTC with ``Z``) and the
+well-known UNIX time 1,000,000,000 = 2001-09-09 01:46:40 UTC; geographiclib's
+geodesic on WGS84 (Karney 2013) for what a rounded position is worth on the
+ground; RFC 8259 (JSON has no NaN and no infinities).
+"""
+
+from __future__ import annotations
+
+import json
+import random
+
+from geographiclib.geodesic import Geodesic
+
+from daemon.core.payloads import (ADVISORY, DEFAULT_DECIMALS, MAX_DEPTH, clean, decimals_for, iso_utc, payload,
+                                  rule_for, with_advisory)
+
+
+def test_iso_utc_is_iso_8601_with_milliseconds_and_z():
+    assert iso_utc(1_000_000_000.0) == "2001-09-09T01:46:40.000Z"  # the UNIX billennium
+    assert iso_utc(1_000_000_000.0006) == "2001-09-09T01:46:40.001Z"  # rounded to the millisecond, not cut
+    assert iso_utc(1_000_000_059.9996) == "2001-09-09T01:47:40.000Z"  # rounding carries into the seconds
+
+
+def test_a_rounded_position_is_within_a_metre_of_the_true_one():
+    # GIVEN random positions from the equator to 80 deg: WHEN rounded by the table
+    # THEN the geodesic distance to the unrounded one (geographiclib, WGS84) is under a metre
+    rng, geod = random.Random(3), Geodesic.WGS84
+    worst = 0.0
+    for _ in range(500):
+        lat, lon = rng.uniform(-80.0, 80.0), rng.uniform(-180.0, 180.0)
+        p = clean({"lat": lat, "lon": lon})
+        worst = max(worst, geod.Inverse(lat, lon, p["lat"], p["lon"])["s12"])
+    assert 0.3 < worst < 1.0  # and not needlessly finer than a metre (7 decimals were 1 cm)
+
+
+def test_each_field_gets_the_decimals_a_person_reads():
+    p = clean({"msl_hpa": 1013.2499, "drift_kn": 1.23456, "set_deg": 123.456, "temp_c": 15.6789,
+               "distance_run_nm": 20.82449, "sigma_m": 12.345, "rate_hpa_per_h": -1.23456,
+               "gradient_c_per_nm": 5.6789, "last_fix_lat": 40.1234567, "stw_scale": 1.043219, "hdop": 0.94})
+    assert p == {"msl_hpa": 1013.2, "drift_kn": 1.23, "set_deg": 123.5, "temp_c": 15.68, "distance_run_nm": 20.824,
+                 "sigma_m": 12.3, "rate_hpa_per_h": -1.23, "gradient_c_per_nm": 5.679, "last_fix_lat": 40.12346,
+                 "stw_scale": 1.0432, "hdop": 0.9}
+    # the longest unit ending wins: a rate in hPa/h is not a pressure in hPa
+    assert rule_for("rate_1h_se_hpa_per_h") == 2 and rule_for("fall_3h_hpa") == 1
+    assert rule_for("quality") is None and decimals_for("quality") == DEFAULT_DECIMALS
+
+
+def test_never_a_negative_zero():
+    text = json.dumps(clean({"east_kn": -0.001, "north_kn": -0.0, "set_deg": -0.04}))
+    assert "-0" not in text and json.loads(text) == {"east_kn": 0.0, "north_kn": 0.0, "set_deg": 0.0}
+
+
+def test_nested_fields_without_a_rule_take_their_parents_and_own_rules_win():
+    p = clean({"age_s": {"fix": 6.04321, "depth": 76.86}, "values": {"fall_3h_hpa": 1.3336825, "x": 0.123456}})
+    assert p == {"age_s": {"fix": 6.0, "depth": 76.9}, "values": {"fall_3h_hpa": 1.3, "x": 0.123}}
+
+
+def test_what_json_cannot_hold_is_made_safe_and_depth_is_bounded():
+    p = clean({"a_kn": float("nan"), "b_kn": float("inf"), "c": (1, 2.00049), "d": b"\x00", 5: True})
+    assert p == {"a_kn": None, "b_kn": None, "c": [1, 2.0], "d": "b'\\x00'", "5": True}
+    json.dumps(p, allow_nan=False)  # RFC 8259: no NaN, no Infinity
+    deep: dict = {}
+    node = deep
+    for _ in range(MAX_DEPTH + 5):
+        node["k"] = {}
+        node = node["k"]
+    text = json.dumps(clean(deep))
+    assert text.count("{") == MAX_DEPTH
+
+
+def test_a_payload_has_time_first_and_its_own_time_field_is_ignored():
+    p = payload(1_000_000_000.0, {"drift_kn": 0.12345, "time": "forged", "sensors": {"heading": 0.54}})
+    assert list(p) == ["time", "drift_kn", "sensors"]
+    assert p["time"] == "2001-09-09T01:46:40.000Z" and p["drift_kn"] == 0.12 and p["sensors"] == {"heading": 0.5}
+
+
+def test_alert_texts_end_with_the_advisory_sentence():
+    assert with_advisory("Pressure falling quickly.") == "Pressure falling quickly. " + ADVISORY
+    assert with_advisory("") == ADVISORY and "not for navigation" in ADVISORY
