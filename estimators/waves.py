@@ -191,9 +191,9 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
     def f(k: float) -> float:  # sigma(k) - (omega - k U): zero at the wave's wavenumber
         return intrinsic_frequency(k, h) - omega + k * u
 
-    if u == 0.0:
-        k = k0
-    elif u > 0.0:  # following: f rises monotonically; f(k0) = k0 U > 0, so the root is below k0
+    if u == 0.0:  # still water: the input, exactly
+        return WaveOnCurrent(period_s, u, h, False, k0, 1.0, 1.0, 1.0)
+    if u > 0.0:  # following: f rises monotonically; f(k0) = k0 U > 0, so the root is below k0
         k = bracketed_root(f, k0 * 1e-6, k0, xtol=1e-14 * k0)
     else:
         kb = _blocking_wavenumber(-u, h)
