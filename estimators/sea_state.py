@@ -387,15 +387,15 @@ class SeaStateEstimator(EstimatorBase):
         current = self._current(ctx)
         depth_m, depth_age = self._depth_now(t)
         payload: dict[str, Any] = {
-            "true_wind_from_deg": round(water.from_deg, 1), "true_wind_kn": round(water.speed_kn, 2),
-            "true_wind_sigma_deg": round(water.sigma_deg, 1), "true_wind_sigma_kn": round(water.sigma_kn, 2),
-            "true_wind_gust_kn": round(self._gust_speeds[0][1], 2) if self._gust_speeds else None,
-            "ground_wind_from_deg": round(ground.from_deg, 1) if ground else None,
-            "ground_wind_kn": round(ground.speed_kn, 2) if ground else None,
+            "true_wind_from_deg": water.from_deg, "true_wind_kn": water.speed_kn,
+            "true_wind_sigma_deg": water.sigma_deg, "true_wind_sigma_kn": water.sigma_kn,
+            "true_wind_gust_kn": self._gust_speeds[0][1] if self._gust_speeds else None,
+            "ground_wind_from_deg": ground.from_deg if ground else None,
+            "ground_wind_kn": ground.speed_kn if ground else None,
             "wind_source": self._epochs[-1].source if self._epochs else None,
             "wind_mean_s": p.mean_window_s,
-            "depth_m": round(depth_m, 2) if depth_m is not None else None,
-            "depth_age_s": round(depth_age, 1) if depth_age is not None else None,
+            "depth_m": depth_m,
+            "depth_age_s": depth_age,
         }
         waves = self._waves(water, current, depth_m if depth_age is not None and depth_age <= p.depth_max_age_s else None)
         payload.update(waves)
@@ -439,27 +439,27 @@ class SeaStateEstimator(EstimatorBase):
             steep = p.highest_wave_factor * h_peak / (wavelength_m(sea.peak_period_s, depth_m) * peak.length_factor)
             fraction = steep / BREAKING_STEEPNESS  # the highest wave's H/L as a fraction of Michell's 1/7
         return {
-            "opposing_current_kn": round(opposing, 2),
-            "opposing_current_sigma_kn": round(_opposing_sigma(current, water.from_deg), 2),
-            "height_factor": round(worst.height_factor, 3) if worst else None,
-            "length_factor": round(worst.length_factor, 3) if worst else None,
-            "steepness_factor": round(worst.steepness_factor, 3) if worst else None,
+            "opposing_current_kn": opposing,
+            "opposing_current_sigma_kn": _opposing_sigma(current, water.from_deg),
+            "height_factor": worst.height_factor if worst else None,
+            "length_factor": worst.length_factor if worst else None,
+            "steepness_factor": worst.steepness_factor if worst else None,
             "worst_period_s": worst.period_s if worst else None,
             "blocking_period_s": _blocking(opposing, depth_m),
             "blocked_periods_s": [r.period_s for r in runs if r.blocked],
             "periods_s": [r.period_s for r in runs],
             "swell_period_s": self._swell[0] if self._swell else None,
             "swell_from_deg": self._swell[1] if self._swell else None,
-            "wind_sea_height_m": round(sea.significant_height_m, 2),
-            "wind_sea_period_s": round(sea.peak_period_s, 2),
+            "wind_sea_height_m": sea.significant_height_m,
+            "wind_sea_period_s": sea.peak_period_s,
             "wind_sea_fully_developed": not sea.fetch_limited,
-            "peak_height_factor": _round(peak.height_factor, 3),
-            "peak_length_factor": _round(peak.length_factor, 3),
-            "peak_steepness_factor": _round(peak.steepness_factor, 3),
-            "steepened_height_m": round(h_peak, 2) if not peak.blocked else None,
-            "breaking_fraction": round(fraction, 3) if fraction is not None else None,
+            "peak_height_factor": peak.height_factor,
+            "peak_length_factor": peak.length_factor,
+            "peak_steepness_factor": peak.steepness_factor,
+            "steepened_height_m": h_peak if not peak.blocked else None,
+            "breaking_fraction": fraction,
             "peak_blocked": peak.blocked,
-            "depth_used_m": round(depth_m, 2) if depth_m is not None else None,
+            "depth_used_m": depth_m,
         }
 
     # -- cautions -----------------------------------------------------------------------------
@@ -520,10 +520,6 @@ def _against_text(water: MeanWind, w: dict[str, Any]) -> str:
             f"check the sea itself.")
 
 
-def _round(v: float | None, nd: int) -> float | None:
-    return None if v is None else round(v, nd)
-
-
 def _usable(current: dict[str, Any] | None) -> bool:
     return (current is not None and current.get("quality") in USABLE_CURRENT
             and current.get("east_kn") is not None and current.get("north_kn") is not None)
@@ -552,4 +548,4 @@ def _blocking(opposing_kn: float, depth_m: float | None) -> float | None:
     if opposing_kn <= 0.0:
         return None
     tb = blocking_period_s(opposing_kn * KN_TO_MPS, depth_m)
-    return round(tb, 2) if math.isfinite(tb) else None
+    return tb if math.isfinite(tb) else None
