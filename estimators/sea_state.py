@@ -77,7 +77,7 @@ from typing import Any
 
 from estimators.angles import KN_TO_MPS, from_east_north, to_east_north, wrap_180, wrap_360
 from estimators.base import CAUTION, Condition, Context, EstimatorBase, Output, Publication
-from estimators.params import param
+from estimators.params import check, param
 from estimators.samples import (
     AirTemperature, ApparentWind, Depth, Fix, GroundVelocity, Heading, Sample, SeaTemperature, WaterSpeed,
     WaterWind,
@@ -128,6 +128,8 @@ class SeaStateParams:
     publish_interval_s: float = param(2.0, "s", 1.0, 60.0, "sea_state is published at most this often")
 
     def __post_init__(self) -> None:
+        if check(self):  # a value out of its own range: the loader names that first
+            return
         if not self.clear_fraction < self.raise_fraction:
             raise ValueError(f"clear_fraction = {self.clear_fraction!r}: expected less than raise_fraction "
                              f"({self.raise_fraction!r}), or the caution would chatter")
