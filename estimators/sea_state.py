@@ -399,6 +399,9 @@ class SeaStateEstimator(EstimatorBase):
             "depth_m": depth_m,
             "depth_age_s": depth_age,
         }
+        air, sea = self._temperatures(t, ctx)
+        payload["air_temp_c"] = air
+        payload["sea_minus_air_c"] = None if air is None or sea is None else sea - air
         waves = self._waves(water, current, depth_m if depth_age is not None and depth_age <= p.depth_max_age_s else None)
         payload.update(waves)
         out: list[Output] = [Publication(t, TOPIC, payload)]
@@ -490,10 +493,13 @@ class SeaStateEstimator(EstimatorBase):
                                                  "wind_sea_height_m", "wind_sea_period_s", "blocking_period_s")}
                           | {"true_wind_kn": round(water.speed_kn, 1), "true_wind_from_deg": round(water.from_deg)})]
 
+    def _temperatures(self, t: float, ctx: Context) -> tuple[float | None, float | None]:
+        """The air's and the sea's mean of the last minute, °C (None where none is recent)."""
+        age = self.params.temperature_max_age_s
+        return _recent_mean(ctx, AirTemperature, t, age), _recent_mean(ctx, SeaTemperature, t, age)
+
     def _unstable_condition(self, t: float, ctx: Context) -> list[Output]:
-        p = self.params
-        air = _recent_mean(ctx, AirTemperature, t, p.temperature_max_age_s)
-        sea = _recent_mean(ctx, SeaTemperature, t, p.temperature_max_age_s)
+        air, sea = self._temperatures(t, ctx)
         was = self._unstable.active
         self._unstable.update(None if air is None or sea is None else sea - air)
         if self._unstable.active == was:

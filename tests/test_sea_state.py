@@ -253,6 +253,8 @@ def test_unstable_air_raised_and_cleared():
     assert cond[0].values["difference_c"] >= 3.0 and cond[0].values["air_temp_c"] == 14.0
     assert f"{cond[0].values['difference_c']:.1f} °C colder than the sea" in cond[0].text
     assert 600 <= cond[1].t_s - T0 <= 660
+    inside = [s.payload for s in sea_states(outs) if 420 <= s.t_s - T0 <= 600][-1]
+    assert inside["air_temp_c"] == pytest.approx(14.0) and inside["sea_minus_air_c"] == pytest.approx(5.5)
 
 
 def test_a_reported_swell_is_taken_on_its_own_current_component():
