@@ -93,6 +93,7 @@ import numpy as np
 
 from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
 from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
+from estimators import wording
 from estimators.base import CAUTION, Condition, EstimatorBase, Output, Publication
 from estimators.params import param
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
@@ -808,8 +809,9 @@ class CurrentEstimator(EstimatorBase):
                     f"{self._log_values.get('sog_kn', 0):.1f} kn over ground: check the log's paddle wheel or "
                     f"transducer (weed, fouling, a cable). The current estimate is held meanwhile.")
         else:
-            text = (f"Speed log changed by {self._log_values.get('log_change_kn', 0):+.1f} kn while the speed over "
-                    f"ground along the heading changed by {self._log_values.get('sog_along_change_kn', 0):+.1f} kn: "
+            text = (f"Speed log changed by {wording.signed(self._log_values.get('log_change_kn', 0))} kn while the "
+                    f"speed over ground along the heading changed by "
+                    f"{wording.signed(self._log_values.get('sog_along_change_kn', 0))} kn: "
                     f"check the log's paddle wheel or transducer. The current estimate is held meanwhile.")
         return Condition(t, "log_suspect", CAUTION, True, text, dict(self._log_values))
 
@@ -868,14 +870,16 @@ class CurrentEstimator(EstimatorBase):
             self._strong.update(drift)
         elif quality == "unavailable":
             self._strong.update(0.0)
-        if self._strong.active == was:
-            return []
         if not self._strong.active:
-            return [Condition(t, "current_strong", CAUTION, False, f"Current has eased to {drift:.1f} kn.", {})]
-        text = (f"Current of {drift:.1f} kn setting toward {set_deg:03.0f} deg measured: check the tidal stream "
+            if self._strong.active == was:
+                return []
+            return [Condition(t, "current_strong", CAUTION, False, f"Strong current; eased to {drift:.1f} kn",
+                              {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
+        # said again with each estimate while it lasts: the alert's figures follow the current (rate-limited there)
+        text = (f"Current of {drift:.1f} kn setting toward {set_deg:03.0f}° measured: check the tidal stream "
                 f"atlas and the chart for the passage ahead.")
         return [Condition(t, "current_strong", CAUTION, True, text,
-                          {"drift_kn": round(drift, 2), "set_deg": round(set_deg, 1)})]
+                          {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
 
     def _calibrated(self) -> tuple[bool, bool]:
         if self.ekf is None:

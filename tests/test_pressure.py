@@ -18,20 +18,16 @@ import pytest
 from estimators.base import Condition, Publication
 from estimators.params import check
 from estimators.pressure import (
-    PressureParams, PressureTendency, characteristic_0200, descriptor, local_solar_hours, ols_slope,
+    CHARACTERISTIC_WORDS, PressureParams, PressureTendency, characteristic_0200, descriptor, local_solar_hours, ols_slope,
     reduce_to_msl, sanders_gyakum_hpa, solar_tide_hpa,
 )
 from estimators.samples import AirTemperature, Fix, Pressure
+from tests.helpers import station_from_msl
 
 H = 3600.0
 T0 = 1_780_000_000.0  # 2026-05-28 20:26:40 UTC
 LAT, LON = 45.0, -20.0  # invented open water
 HEIGHT_M = 2.0
-
-
-def station_from_msl(msl_hpa: float, height_m: float) -> float:
-    """ISO 2533 standard atmosphere: p = p0 (1 - 2.25577e-5 h)^5.25588 (independent of the reduction)."""
-    return msl_hpa * (1.0 - 2.25577e-5 * height_m) ** 5.25588
 
 
 def sim_tide(t_s: float, lat: float, lon: float, amp: float = 1.16) -> float:
@@ -211,25 +207,32 @@ def test_ols_slope_against_numpy():
 def test_twelve_hours_of_steady_noisy_pressure_raise_nothing():
     # GIVEN 12 h of steady weather with the tide, gusts, a +2.5 hPa spike and a -3 hPa one
     conditions, pubs, est = barometer(lambda s: 1013.0, 12.0, seed=3, spikes=((5 * H, 2.5), (8 * H, -3.0)))
-    # THEN no alert; the spikes were rejected by the gate; the tendency stayed small
+    # THEN no alert; the spikes were rejected by the gate; the tide-corrected tendency stayed small
+    # and the observed one within the tide's 3-hour swing (√2 × 1.16 cos³45° = 0.58 hPa) of it
     assert conditions == []
-    assert est.counts["rejected"] >= 2
-    tends = [p.payload["tendency_3h_hpa"] for p in pubs if p.payload["tendency_3h_hpa"] is not None]
-    assert max(abs(x) for x in tends) < 0.6
+    assert est.counts["rejected"] >= 2 and est.counts["step_faults"] == 0
+    late = [p.payload for p in pubs if p.payload["tendency_3h_hpa"] is not None]
+    assert max(abs(p["tendency_3h_tide_corrected_hpa"]) for p in late) < 0.6
+    assert max(abs(p["tendency_3h_hpa"]) for p in late) < 0.6 + 0.58
 
 
 def test_tide_is_removed_before_the_tendency_is_judged():
     # GIVEN steady weather and the full equatorial tide (±1.16 hPa) at 5°N
     _, pubs, _ = barometer(lambda s: 1013.0, 12.0, seed=4, lat=5.0, gusts=False)
     late = [p.payload for p in pubs if p.payload["tendency_3h_hpa"] is not None]
-    # THEN the barometer's own 3-hour change swings by well over a hPa, the corrected one does not
-    assert max(abs(p["tendency_3h_raw_hpa"]) for p in late) > 1.2
-    assert max(abs(p["tendency_3h_hpa"]) for p in late) < 0.35
-    assert all(p["descriptor"] in ("steady", "rising slowly", "falling slowly") for p in late)
+    # THEN the barometer's own 3-hour change (tendency_3h_hpa, as WMO defines it) swings by well over
+    # a hPa, the tide-corrected one does not
+    assert max(abs(p["tendency_3h_hpa"]) for p in late) > 1.2
+    assert max(abs(p["tendency_3h_tide_corrected_hpa"]) for p in late) < 0.35
+    # AND the descriptor and the characteristic go with the observed figure, the words with the code
+    assert all(p["descriptor"] == descriptor(p["tendency_3h_hpa"]) for p in late)
+    assert all(p["characteristic_text"] == CHARACTERISTIC_WORDS[p["characteristic"]] for p in late)
+    assert all((p["characteristic"] <= 3) == (p["tendency_3h_hpa"] > 0.1) for p in late
+               if abs(p["tendency_3h_hpa"]) >= 0.2 and p["characteristic"] not in (0, 5))
 
 
 def test_tendency_is_null_until_three_hours_and_published_at_most_every_10_s():
-    _, pubs, _ = barometer(lambda s: 1013.0, 3.5, seed=5)
+    _, pubs, _ = barometer(lambda s: 1013.0, 3.5, seed=5, tide=False)
     early = [p for p in pubs if p.t_s - T0 < 3 * H - 60]
     assert all(p.payload["tendency_3h_hpa"] is None and p.payload["characteristic"] is None for p in early)
     assert pubs[-1].payload["tendency_3h_hpa"] is not None and pubs[-1].payload["characteristic"] == 4
@@ -248,9 +251,13 @@ def test_fall_caution_then_warning_within_15_minutes_of_the_true_fall():
     assert caution is not None and 4.5 - 0.25 <= (caution.t_s - T0) / H <= 4.5 + 0.25
     assert warning is not None and 5.52 - 0.25 <= (warning.t_s - T0) / H <= 5.52 + 0.25
     assert "fell" in warning.text and "very rapidly" in warning.text
-    assert pubs[-1].payload["descriptor"] == "falling very rapidly"
+    assert pubs[-1].payload["descriptor"] == descriptor(pubs[-1].payload["tendency_3h_hpa"])
     assert pubs[-1].payload["characteristic"] == 7
-    assert pubs[-1].payload["tendency_3h_hpa"] == pytest.approx(-7.2, abs=0.3)
+    # the observed 3-hour change is the weather's -7.2 hPa plus the tide's own change over those hours
+    t_end = pubs[-1].t_s
+    tide_change = sim_tide(t_end, LAT, LON) - sim_tide(t_end - 3 * H, LAT, LON)
+    assert pubs[-1].payload["tendency_3h_hpa"] == pytest.approx(-7.2 + tide_change, abs=0.3)
+    assert pubs[-1].payload["tendency_3h_tide_corrected_hpa"] == pytest.approx(-7.2, abs=0.3)
 
 
 def test_early_rule_raises_the_caution_before_three_hours_of_data():
@@ -274,6 +281,7 @@ def test_caution_clears_when_the_fall_stops():
     # GIVEN -1.6 hPa/h for 3 h from 1 h in, then steady for 4 h
     conditions, _, _ = barometer(ramp(1 * H, -1.6, stop_s=4 * H), 8.0, seed=9)
     states = [c.active for c in conditions if c.alert_id == "pressure_fall"]
+    states = [a for i, a in enumerate(states) if i == 0 or a != states[i - 1]]  # new figures are not a change
     # THEN raised once and cleared once (hysteresis: no chatter)
     assert states == [True, False]
 

@@ -17,6 +17,7 @@ import queue
 import signal
 import threading
 import time
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 from daemon.outlets import sdnotify
@@ -133,7 +134,8 @@ class Service:
             return
         self.notifier.watchdog()
         cur = self.parts.pipeline.ctx.latest("current")
-        self.notifier.status(status_text(cur.payload if cur is not None else None))
+        self.notifier.status(status_text(cur.payload if cur is not None else None,
+                                         self.parts.pipeline.alerts.listed()))
 
     def _save_state(self) -> None:
         try:
@@ -150,14 +152,42 @@ class Service:
             log.error("cannot save the alert states in %s: %s", self.state_dir, e)
 
 
-def status_text(current: dict | None) -> str:
-    """The one line for ``systemctl status``; a current not yet estimable (fields None) says so."""
+def status_text(current: dict | None, alerts: Sequence[Mapping] = ()) -> str:
+    """The one line for ``systemctl status``: the trouble first, when there is any, then the current.
+
+    ``alerts`` are the listed alerts (payloads); a current not yet estimable (fields None) says so.
+    """
+    trouble = _trouble_words(alerts)
+    calm = _current_words(current)
+    return f"{trouble} | {calm}" if trouble else calm
+
+
+_STATE_RANK = {"active": 0, "acknowledged": 1, "rectified": 2}
+_PRIORITY_RANK = {"alarm": 0, "warning": 1, "caution": 2}
+STATUS_ALERTS_SHOWN = 3
+
+
+def _trouble_words(alerts: Sequence[Mapping]) -> str:
+    """``WARNING gnss_lost, CAUTION sensor_stale, +1 more``: the most urgent listed alerts first."""
+    listed = [a for a in alerts if isinstance(a, Mapping) and isinstance(a.get("state"), str)
+              and isinstance(a.get("priority"), str) and a["state"] in _STATE_RANK and a["priority"] in _PRIORITY_RANK]
+    listed.sort(key=lambda a: (_STATE_RANK[a["state"]], _PRIORITY_RANK[a["priority"]], str(a.get("id"))))
+    words = []
+    for a in listed[:STATUS_ALERTS_SHOWN]:
+        state = "" if a["state"] == "active" else f" ({a['state']})"
+        words.append(f"{a['priority'].upper()} {a.get('id')}{state}")
+    if len(listed) > STATUS_ALERTS_SHOWN:
+        words.append(f"+{len(listed) - STATUS_ALERTS_SHOWN} more")
+    return ", ".join(words)
+
+
+def _current_words(current: dict | None) -> str:
     if not current:
         return "running"
     drift, set_deg = current.get("drift_kn"), current.get("set_deg")
     if not isinstance(drift, (int, float)) or not isinstance(set_deg, (int, float)):
         return f"running; current {current.get('quality') or 'unavailable'}"
-    return f"current {drift:.1f} kn toward {set_deg:.0f}°, {current.get('quality')}"
+    return f"current {drift:.1f} kn toward {set_deg:03.0f}°, {current.get('quality')}"
 
 
 class _AlertWatch:
@@ -184,7 +214,8 @@ class _AlertWatch:
 def run_command(args) -> int:
     cfg = load_config(args.config)
     if not cfg.inputs:
-        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" device = \"/dev/ttyUSB0\"")
+        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" "
+                          f"device = \"/dev/serial/by-id/usb-...\" (the stable name: ls -l /dev/serial/by-id/)")
     service = Service(cfg, mqtt_url=args.mqtt)
 
     def on_signal(signum, frame):
