@@ -83,6 +83,7 @@ from estimators.samples import (
     WaterWind,
 )
 from estimators.thresholds import Hysteresis
+from estimators.wording import fixed
 from estimators.waves import (
     BREAKING_STEEPNESS, WaveOnCurrent, blocking_period_s, wave_on_current, wavelength_m, wind_at_10m, wind_sea,
 )
@@ -506,14 +507,14 @@ class SeaStateEstimator(EstimatorBase):
             return []
         if not self._unstable.active:
             return [Condition(t, "unstable_air", CAUTION, False, "The air is no longer much colder than the sea.", {})]
-        text = (f"Air {air:.1f} °C is {sea - air:.1f} °C colder than the sea ({sea:.1f} °C): unstable air over "
+        text = (f"Air {fixed(air)} °C is {fixed(sea - air)} °C colder than the sea ({fixed(sea)} °C): unstable air over "
                 f"warmer water breeds squalls; check the sky to windward, the barometer and the forecast.")
         return [Condition(t, "unstable_air", CAUTION, True, text,
                           {"air_temp_c": round(air, 1), "sea_temp_c": round(sea, 1), "difference_c": round(sea - air, 1)})]
 
 
 def _against_text(water: MeanWind, w: dict[str, Any]) -> str:
-    seen = (f"True wind {water.speed_kn:.0f} kn from {water.from_deg:03.0f} deg over a current of "
+    seen = (f"True wind {water.speed_kn:.0f} kn from {round(water.from_deg) % 360:03d}° over a current of "
             f"{w['opposing_current_kn']:.1f} kn setting into it")
     stopped = w["blocking_period_s"]
     stopped_text = f"waves of {stopped:.1f} s and shorter cannot travel against it" if stopped else "no wave can travel against it"
