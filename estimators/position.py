@@ -110,7 +110,9 @@ _GEOD = Geodesic.WGS84
 
 
 HDOP_KEEP_S = 5.0  # a fix without HDOP takes the receiver's latest this young
-GROUND_FROM_FIXES_MAX_S = 10.0  # two fixes at most this far apart give a ground velocity
+GROUND_FROM_FIXES_MIN_S = 0.5  # two fixes at least this far apart (two epochs, not two sentences of one)
+GROUND_FROM_FIXES_MAX_S = 10.0  # and at most this far apart give a ground velocity
+FROZEN_MAX_STEP_S = 10.0  # repeats further apart than this (a gap in the data) say nothing of a frozen receiver
 
 @dataclass(frozen=True)
 class PositionParams:
@@ -153,6 +155,11 @@ class PositionHealth:
 
     def as_dict(self) -> dict[str, int]:
         return dict(self.__dict__)
+
+    def fusion_dict(self) -> dict[str, int | None]:
+        """The fix step in the words of ``estimators.fusion.FusionHealth`` (no Kalman NIS: a gate on the jump)."""
+        return {"fused": self.fixes_used, "rejected": self.rejected_hdop + self.rejected_jump, "faults": 0,
+                "resets": self.outages, "last_nis": None}
 
 
 @dataclass
@@ -253,6 +260,10 @@ class PositionEstimator(EstimatorBase):
             out.append(self._gnss_publication(fix))  # the return to GNSS is news: published at once
         return out
 
+    def fusion_health(self) -> dict[str, dict]:
+        """Each fusion step's health for the status topic."""
+        return {"fix": self.health.fusion_dict()}
+
     def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
         self._note_current(ctx)
         self._note_water(t_s, ctx)
@@ -277,6 +288,11 @@ class PositionEstimator(EstimatorBase):
         """True when ``fix`` repeats a receiver that has frozen (see the module text); not to be used."""
         prev, self._prev_raw = self._prev_raw, fix
         if prev is None:
+            return False
+        if fix.t_s - prev.t_s > FROZEN_MAX_STEP_S:
+            # a gap in the data (a logger switched off) is no evidence either way: start counting afresh
+            self._same_pos_start = self._same_time_start = None
+            self._frozen = None
             return False
         if (fix.lat_deg, fix.lon_deg) == (prev.lat_deg, prev.lon_deg):
             if self._same_pos_start is None:
@@ -323,11 +339,17 @@ class PositionEstimator(EstimatorBase):
             self._note_ground_velocity(fix.sog_kn, fix.cog_deg)
             return
         prev = self._fix
-        if prev is None or not 0.0 < fix.t_s - prev.t_s <= GROUND_FROM_FIXES_MAX_S \
-                or (prev.lat_deg, prev.lon_deg) == (fix.lat_deg, fix.lon_deg):
+        if prev is None or (prev.lat_deg, prev.lon_deg) == (fix.lat_deg, fix.lon_deg):
             return  # a repeated position says nothing of the speed (a coarse or a frozen receiver)
+        # the receiver's own epochs where both fixes have them (exact, whatever the line timing)
+        if fix.gnss_time_s is not None and prev.gnss_time_s is not None:
+            dt = fix.gnss_time_s - prev.gnss_time_s
+        else:
+            dt = fix.t_s - prev.t_s
+        if not GROUND_FROM_FIXES_MIN_S <= dt <= GROUND_FROM_FIXES_MAX_S:
+            return  # two sentences of one epoch, or too far apart to say how the boat moves now
         g = _GEOD.Inverse(prev.lat_deg, prev.lon_deg, fix.lat_deg, fix.lon_deg)
-        speed_kn = g["s12"] / (fix.t_s - prev.t_s) / KN_TO_MPS                  # v = s / dt
+        speed_kn = g["s12"] / dt / KN_TO_MPS                                     # v = s / dt
         self._ground_v = to_east_north(speed_kn, wrap_360(g["azi1"]))
 
     def _note_water(self, t_s: float, ctx: Context) -> None:

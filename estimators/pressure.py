@@ -91,6 +91,7 @@ from dataclasses import dataclass
 from estimators.limits import PRESSURE_HPA, within
 from estimators import wording
 from estimators.base import CAUTION, WARNING, Condition, Context, EstimatorBase, Output, Publication
+from estimators.fusion import FusionReport
 from estimators.params import param
 from estimators.samples import AirTemperature, Fix, Pressure
 from estimators.thresholds import Hysteresis
@@ -247,17 +248,6 @@ def ols_slope(ts_h: Sequence[float], ys: Sequence[float]) -> tuple[float, float]
 # ------------------------------------------------------------------ filter
 
 
-@dataclass(frozen=True)
-class FusionReport:
-    """What one reading did to the filter."""
-
-    t_s: float
-    innovation_hpa: float
-    innovation_var_hpa2: float
-    test_ratio: float  # ν²/S over the gate²
-    fused: bool
-
-
 class LevelTrendFilter:
     """Kalman local linear trend in time: x = [level hPa, rate hPa/h].
 
@@ -294,11 +284,12 @@ class LevelTrendFilter:
         (p00, p01), (_, p11) = self.P
         nu = z - self.x[0]  # innovation ν = z - H x⁻, H = [1, 0]
         s = p00 + r  # S = H P Hᵀ + R
+        gate = gate_sigma * gate_sigma
         if not (math.isfinite(nu) and s > 0.0):
-            return FusionReport(self.t_s, nu, s, math.inf, False)
-        ratio = nu * nu / s / (gate_sigma * gate_sigma)
-        if ratio > 1.0:
-            return FusionReport(self.t_s, nu, s, ratio, False)
+            return FusionReport(self.t_s, (nu,), (s,), math.nan, gate, False, "numerical guard")
+        nis = nu * nu / s  # NIS = ν²/S
+        if nis > gate:
+            return FusionReport(self.t_s, (nu,), (s,), nis, gate, False, "gate")
         k0, k1 = p00 / s, p01 / s  # K = P Hᵀ S⁻¹
         self.x = [self.x[0] + k0 * nu, self.x[1] + k1 * nu]
         # Joseph form P = (I-KH) P (I-KH)ᵀ + K R Kᵀ, with I-KH = [[1-k0, 0], [-k1, 1]]
@@ -307,7 +298,7 @@ class LevelTrendFilter:
         n01 = a00 * (a10 * p00 + p01) + r * k0 * k1
         n11 = a10 * a10 * p00 + 2.0 * a10 * p01 + p11 + r * k1 * k1
         self.P = [[n00, n01], [n01, n11]]
-        return FusionReport(self.t_s, nu, s, ratio, True)
+        return FusionReport(self.t_s, (nu,), (s,), nis, gate, True)
 
 
 # ------------------------------------------------------------------ the estimator
@@ -333,6 +324,7 @@ class PressureTendency(EstimatorBase):
         self.kf = LevelTrendFilter(self.p.q_level_hpa2_per_h, self.p.q_rate_hpa2_per_h3)
         self.counts = {"fused": 0, "rejected": 0, "faults": 0, "resets": 0, "step_faults": 0}
         self._step: tuple[float, float] | None = None  # (time, hPa) of the last sensor step
+        self.last_report: FusionReport | None = None
         self._air: AirTemperature | None = None
         self._pos: tuple[float, float] | None = None
         self._minutes: deque[_Minute] = deque()
@@ -350,6 +342,11 @@ class PressureTendency(EstimatorBase):
         self._fall_state: tuple[bool, str] = (False, CAUTION)
 
     # ------------------------------------------------------------------ protocol
+
+    def fusion_health(self) -> dict[str, dict]:
+        """Each fusion step's health for the status topic (the shape of ``FusionHealth.as_dict``)."""
+        nis = self.last_report.nis if self.last_report is not None else None
+        return {"barometer": {**self.counts, "last_nis": None if nis is None or not math.isfinite(nis) else round(nis, 2)}}
 
     def step(self, sample, ctx: Context) -> Sequence[Output]:
         if isinstance(sample, Pressure):
@@ -416,6 +413,7 @@ class PressureTendency(EstimatorBase):
             return
         self.kf.predict(t_s)
         rep = self.kf.update(z, r, self.p.gate_sigma)
+        self.last_report = rep
         if rep.fused:
             self.counts["fused"] += 1
             self._rejected_since = None

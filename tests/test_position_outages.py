@@ -187,3 +187,15 @@ def test_live_ingest_gives_each_fix_its_receiver_time():
     # 2026-12-02 08:40:00 UTC, twice: the clock stood still while the receive time moved on
     assert [f.gnss_time_s for f in fixes] == [1_796_200_800.0, 1_796_200_800.0]
     assert [f.t_s for f in fixes] == [1_796_300_000.0, 1_796_300_005.0]
+
+
+def test_a_gap_in_the_data_between_two_equal_positions_is_not_a_frozen_receiver():
+    # GIVEN a logger switched off for two hours: the fix before and the fix after have one position
+    # (a capture with two pieces; the boat lay still, its receiver says SOG 5 from before the gap)
+    est, ctx = PositionEstimator(), Ctx()
+    est.step(Fix(T0, LAT0, LON0, 5.0, 228.0, 1.0, T0), ctx)
+    est.step(Fix(T0 + 1, LAT0, LON0, 5.0, 228.0, 1.0, T0 + 1), ctx)
+    out = list(est.step(Fix(T0 + 7200, LAT0, LON0, 5.0, 228.0, 1.0, T0 + 7200), ctx))
+    # THEN the fix after the gap is used: GNSS, nothing frozen
+    assert est.health.frozen == 0
+    assert [p.payload["source"] for p in out if isinstance(p, Publication)] == ["gnss"]

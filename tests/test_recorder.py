@@ -122,7 +122,7 @@ def test_effective_config_and_schema_version_in_meta(tmp_path):
     rec.record_config({"current": {"q_current": 0.01}, "recording": {"per": "day"}})
     rec.close()
     meta = read_meta(path)
-    assert meta["schema_version"] == recorder.SCHEMA_VERSION == 1
+    assert meta["schema_version"] == recorder.SCHEMA_VERSION == 2  # 2: the gap table (README, recording)
     assert meta["config"] == {"current": {"q_current": 0.01}, "recording": {"per": "day"}}
     assert meta["software"].startswith("offwatch ")
 

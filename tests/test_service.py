@@ -423,17 +423,17 @@ def test_ack_over_mqtt_acknowledges_a_warning_and_ignores_the_rest(live, tmp_pat
 
     try:
         assert wait_until(lambda: display.latest(f"{PREFIX}/position") is not None, 30), daemon.log()
-        # GIVEN the GNSS and the depth sounder fall silent while the compass and the log go on
+        # GIVEN the GNSS and the speed log fall silent while the compass goes on
         t_silent = time.monotonic()
-        player.drop_sources = {"gnss", "sounder"}
+        player.drop_sources = {"gnss", "log"}
         # THEN gnss_lost is raised as an active warning (after 10 s without a fix)
         assert wait_until(lambda: state_of(alert) == "active", 30), (display.topics(), daemon.log()[-2000:])
         raised_after = display.latest(alert).at - t_silent
         assert display.latest(alert).payload["priority"] == "warning"
-        # and the silent sounder is a caution (the silent GNSS is gnss_lost's alone: one failure, one alert)
-        assert wait_until(lambda: state_of(stale) == "active", 40), display.topics()
+        # and the silent log is a caution (the silent GNSS is gnss_lost's alone: one failure, one alert)
+        assert wait_until(lambda: state_of(stale) == "active", 30), display.topics()
         assert display.latest(stale).payload["priority"] == "caution"
-        assert display.latest(stale).payload["values"]["feeds"] == ["depth"]
+        assert display.latest(stale).payload["values"]["feeds"] == ["water_speed"]
 
         # WHEN a display sends junk to the ack topic: a huge payload naming gnss_lost, malformed JSON,
         # the wrong types, and a caution's id

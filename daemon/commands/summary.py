@@ -6,6 +6,7 @@ from collections import Counter
 from datetime import datetime, timezone
 from typing import Any
 
+from daemon.core.payloads import iso_utc
 from daemon.core.readings import Message, RawLine
 from estimators import wording
 
@@ -63,6 +64,22 @@ class SummarySink:
                                        f"{output.settings.close_timeout_s:g} s: {what}")
             else:
                 self.outputs.append(f"MQTT: everything delivered to {where}.")
+        stats = getattr(output, "stats", None)
+        if stats is not None and hasattr(stats, "lost_raw"):
+            self._recording_account(stats)
+
+    def _recording_account(self, stats: Any) -> None:
+        lost = stats.lost_raw + stats.lost_messages
+        if not lost and not stats.failing:
+            self.outputs.append(f"Recording: {stats.path}, every line and message kept.")
+            return
+        span = (f" (data time {iso_utc(stats.loss_t_first)[:19]}Z to {iso_utc(stats.loss_t_last)[:19]}Z)"
+                if stats.loss_t_first is not None else "")
+        unmarked = (f", {stats.gaps_unwritten} of them not marked in the file (the disk never freed)"
+                    if stats.gaps_unwritten else "")
+        why = f": {stats.last_error.split(': ')[-1]}" if stats.last_error else ""
+        self.shortfalls.append(f"recording {stats.path}: {stats.lost_raw} lines and {stats.lost_messages} messages "
+                               f"not kept{span}, in {stats.gaps} gaps{unmarked}{why}")
 
     def lines(self) -> list[str]:
         """What a person reads after a replay: times of day in UTC, positions in degrees and minutes,

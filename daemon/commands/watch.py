@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import sys
 import threading
 import time
@@ -12,6 +11,7 @@ from urllib.parse import urlparse
 from daemon.errors import InputError
 
 CLEAR = "\x1b[H\x1b[2J"
+MAX_VIEW_PAYLOAD_BYTES = 64 * 1024  # the status, the largest payload, is a few KiB
 
 
 class View:
@@ -25,9 +25,10 @@ class View:
         self.lock = threading.Lock()
 
     def take(self, topic: str, payload: bytes) -> None:
-        try:
-            data = json.loads(payload)
-        except ValueError:
+        from daemon.outlets.mqtt import PayloadRefused, decode_json_payload
+        try:  # size and nesting bounded before the parser runs (a 1000-deep [[[ raised RecursionError)
+            data = decode_json_payload(payload, MAX_VIEW_PAYLOAD_BYTES)
+        except PayloadRefused:
             return
         if not isinstance(data, dict):
             return

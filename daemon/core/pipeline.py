@@ -79,6 +79,11 @@ class Pipeline:
         self._run_commands()
         self._advance(t_s)
 
+    def condition(self, cond: Condition) -> None:
+        """A condition judged outside the estimators (the recorder's health), handled as theirs.
+        Call it from the loop's own thread, as ``tick``."""
+        self._handle((cond,))
+
     def republish_alerts(self, t_s: float) -> None:
         """Announce the listed alerts again (after a restart restored them)."""
         self._emit_all(self.alerts.republish(t_s))
@@ -181,6 +186,10 @@ class Pipeline:
             payload["inputs"] = self.counters.line_snapshot()
         if self.selector is not None:
             payload["priority"] = self.selector.snapshot()
+        # each filter's fusion steps (fused, rejected, last NIS): which sensor a filter distrusts
+        fusion = {e.name: e.fusion_health() for e in self.estimators if hasattr(e, "fusion_health")}
+        if fusion:
+            payload["fusion"] = fusion
         if self.extra_status is not None:
             payload.update(self.extra_status())
         self._emit(Message(t_s, self._topic("status"), make_payload(t_s, payload), retain=True, qos=1, kind="status"))

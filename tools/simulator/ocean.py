@@ -132,7 +132,9 @@ class CurrentBand:
     """A narrow strong current, like the warm core of a western boundary current.
 
     The band runs through (``lat``, ``lon``) toward ``set_deg``; its core is
-    ``core_kn`` over ``core_width_nm`` and each edge rises over ``edge_width_nm``.
+    ``core_kn`` over ``core_width_nm`` and each edge rises over ``edge_width_nm``
+    (the edge to the right of the set, looking along it, over ``far_edge_width_nm``
+    where given: a jet that rises slowly and falls fast).
     The water in it is ``warm_c`` warmer than outside, with the same profile, so
     its edges show as sea-temperature fronts.
     """
@@ -144,13 +146,15 @@ class CurrentBand:
     core_width_nm: float
     edge_width_nm: float
     warm_c: float = 0.0
+    far_edge_width_nm: float | None = None
 
     def profile(self, lat: float, lon: float) -> float:
         """0 outside the band, 1 in its core."""
         x = cross_track_m(self.lat, self.lon, self.set_deg, lat, lon)
         half = 0.5 * self.core_width_nm * NM_M
         edge = self.edge_width_nm * NM_M
-        return smooth_step(x + half, edge) * (1.0 - smooth_step(x - half, edge))
+        far = edge if self.far_edge_width_nm is None else self.far_edge_width_nm * NM_M
+        return smooth_step(x + half, edge) * (1.0 - smooth_step(x - half, far))
 
     def velocity(self, t_s: float, lat: float, lon: float) -> tuple[float, float]:
         return to_east_north(self.core_kn * self.profile(lat, lon), self.set_deg)

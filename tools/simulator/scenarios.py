@@ -17,7 +17,7 @@ from .ocean import (
     WindField, step_position,
 )
 from .run import Scenario
-from .sensors import SensorSpec
+from .sensors import REALISTIC, SensorSpec
 
 H = 3600.0
 MIN = 60.0
@@ -259,6 +259,95 @@ def demo_passage(heading_hz: float = 2.0) -> Scenario:
     )
 
 
+# --------------------------------------------------------------------------- the current benchmark
+# The realistic small-boat sensor model (sensors.REALISTIC) on passages that test a current estimator:
+# small course changes that barely observe the calibration, a beat, a tidal box, a jet, an outage.
+
+
+def realistic(**errors) -> SensorSpec:
+    """The realistic sensor model with a boat's own log and compass errors."""
+    return SensorSpec(**{**REALISTIC, **errors})
+
+
+def ordinary_passage() -> Scenario:
+    """Twelve hours of 2-hour legs whose headings differ by 10-35 deg (no tacks); 0.6 kn setting 080."""
+    t0, lat, lon = utc(2026, 6, 1, 0), 40.40, -38.20
+    ocean = Ocean(
+        currents=(SteadyCurrent(set_deg=80.0, drift_kn=0.6),),
+        sea_temp=_plain_sea(lat, lon, 17.0), pressure=_flat_pressure(t0, 1018.0), wind=_steady_wind(t0, 330.0, 13.0),
+    )
+    headings = (80.0, 105.0, 90.0, 60.0, 85.0, 120.0)
+    return Scenario(
+        name="ordinary_passage", start_utc=t0, duration_s=12 * H, start_lat=lat, start_lon=lon,
+        helm=tuple(Steer(h, 6.0, 2 * H) for h in headings), ocean=ocean,
+        sensors=realistic(stw_scale=0.98, heading_offset_deg=1.0),
+        description="Small course changes only: the calibration is barely observable; log 2 % slow, compass 1 deg off.",
+    )
+
+
+def beat() -> Scenario:
+    """Six hours beating into 15 kn, tacks every 25-35 min; log 6 % slow, compass 3 deg low, 1.2 kn current."""
+    t0, lat, lon = utc(2026, 6, 2, 6), 45.10, -30.70
+    ocean = Ocean(
+        currents=(SteadyCurrent(set_deg=120.0, drift_kn=1.2),),
+        sea_temp=_plain_sea(lat, lon, 14.0), pressure=_flat_pressure(t0, 1012.0), wind=_steady_wind(t0, 10.0, 15.0),
+    )
+    minutes = (28, 33, 25, 31, 35, 27, 30, 26, 34, 29, 32, 25, 30)
+    legs, side, total = [], "starboard", 0.0
+    for m in minutes:
+        dur = min(m * MIN, 6 * H - total)
+        if dur <= 0:
+            break
+        legs.append(Beat(twa_deg=45.0, stw_kn=5.5, tack_every_s=1e9, duration_s=dur, first_tack=side))
+        side, total = ("port" if side == "starboard" else "starboard"), total + dur
+    return Scenario(
+        name="beat", start_utc=t0, duration_s=6 * H, start_lat=lat, start_lon=lon, helm=tuple(legs), ocean=ocean,
+        sensors=realistic(stw_scale=0.94, heading_offset_deg=-3.0),
+        description="Tacks every 25-35 min: the calibration is observable at every tack.",
+    )
+
+
+def tidal_box_realistic() -> Scenario:
+    """The tidal box (``tidal_box``) read through the realistic sensor model."""
+    box_ = tidal_box()
+    return Scenario(**{**box_.__dict__, "name": "tidal_box_realistic",
+                       "sensors": realistic(stw_scale=0.96, heading_offset_deg=-2.0)})
+
+
+def jet_crossing() -> Scenario:
+    """Across a jet rising from 0.3 to about 3.5 kn over 12 nm and falling over 8 nm; an almost perfect log."""
+    t0, lat, lon = utc(2026, 6, 3, 4), 38.60, -50.30
+    clat, clon = along(lat, lon, 90.0, 17.0)
+    band = CurrentBand(clat, clon, set_deg=10.0, core_kn=3.45, core_width_nm=14.0, edge_width_nm=12.0,
+                       far_edge_width_nm=8.0, warm_c=3.0)
+    ocean = Ocean(
+        currents=(SteadyCurrent(10.0, 0.3), band),
+        sea_temp=_plain_sea(lat, lon, 18.0), pressure=_flat_pressure(t0, 1019.0), wind=_steady_wind(t0, 200.0, 12.0),
+    )
+    return Scenario(
+        name="jet_crossing", start_utc=t0, duration_s=5.5 * H, start_lat=lat, start_lon=lon,
+        helm=(Steer(90.0, 6.5, 5.5 * H),), ocean=ocean, sensors=realistic(stw_scale=1.0, heading_offset_deg=0.0),
+        description="A current's edges crossed slowly and fast; the log and compass almost perfect.",
+    )
+
+
+def outage_leg() -> Scenario:
+    """Three hours on one heading with a 30-minute GNSS outage (1:15-1:45 in); 1.0 kn current."""
+    t0, lat, lon = utc(2026, 6, 4, 12), 43.30, -27.90
+    ocean = Ocean(
+        currents=(SteadyCurrent(210.0, 1.0),),
+        sea_temp=_plain_sea(lat, lon, 15.5), pressure=_flat_pressure(t0, 1015.0), wind=_steady_wind(t0, 290.0, 12.0),
+    )
+    return Scenario(
+        name="outage_leg", start_utc=t0, duration_s=3 * H, start_lat=lat, start_lon=lon,
+        helm=(Steer(140.0, 5.5, 3 * H),), ocean=ocean,
+        sensors=realistic(stw_scale=0.97, heading_offset_deg=1.5, gnss_outages=((t0 + 75 * MIN, t0 + 105 * MIN),)),
+        description="A straight leg: the calibration is not observable; no fix for 30 min.",
+    )
+
+
+CURRENT_BENCH = ("ordinary_passage", "beat", "tidal_box_realistic", "jet_crossing", "outage_leg")
+
 SCENARIOS = {
     "tacking_leg": tacking_leg,
     "tidal_box": tidal_box,
@@ -268,6 +357,11 @@ SCENARIOS = {
     "pressure_fall": pressure_fall,
     "steady_pressure_12h": steady_pressure_12h,
     "demo_passage": demo_passage,
+    "ordinary_passage": ordinary_passage,
+    "beat": beat,
+    "tidal_box_realistic": tidal_box_realistic,
+    "jet_crossing": jet_crossing,
+    "outage_leg": outage_leg,
     "wind_against_current": lambda: wind_over_current("against"),
     "wind_with_current": lambda: wind_over_current("with"),
     "wind_no_current": lambda: wind_over_current("none"),

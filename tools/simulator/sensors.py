@@ -24,6 +24,22 @@ Error models (all seeded through one ``numpy.random.Generator``):
   wind, the log and the compass, so it carries their errors, as real ones do;
 - sounder, heel sensor, air thermometer: truth + noise;
 - every kind: independent dropouts with probability ``dropout_prob`` a sample.
+
+The realistic small-boat model (fields off by default, so older scenarios and
+the demo passage are unchanged bit for bit; ``REALISTIC`` switches them on
+with the values of an ordinary small boat, common practice, from memory):
+- log: correlated noise, a first-order Gauss–Markov process (σ, τ of a few
+  seconds: a paddle wheel in a seaway), on top of the white noise;
+- wave surge: a real oscillation of the speed through the water (±``surge_kn``
+  at the wave encounter periods): the log and the GNSS both see it;
+- compass: correlated noise (Gauss–Markov, τ about 5 s) beside the white;
+- wave yaw: the hull swings ±``wave_yaw_deg`` at the wave periods
+  (``wave_period_s``); the compass and the wind vane see it, the water track
+  does not (the keel averages it out);
+- GNSS latency: a fix is received ``gnss_latency_s`` after its epoch and
+  stamped on arrival, as are the heading, log, temperature and wind
+  sentences that carry no time of their own.
+The speed loss through a tack (40 %) is the helm model's ``turn_speed_loss``.
 """
 
 from __future__ import annotations
@@ -91,6 +107,15 @@ class SensorSpec:
     heel_noise_deg: float = 0.8
     # every kind
     dropout_prob: float = 0.001
+    # the realistic small-boat model (see the module doc; 0 = off)
+    stw_correlated_noise_kn: float = 0.0
+    stw_noise_tau_s: float = 3.0
+    surge_kn: float = 0.0  # wave surge amplitude: a real speed oscillation (log and GNSS see it)
+    heading_correlated_noise_deg: float = 0.0
+    heading_noise_tau_s: float = 5.0
+    wave_yaw_deg: float = 0.0  # wave yaw amplitude: the compass and the vane see it, the water track does not
+    wave_period_s: tuple[float, float] = (6.0, 11.0)  # range of the wave encounter periods
+    gnss_latency_s: float = 0.0  # a fix is received (and stamped) this long after its epoch
 
     def in_outage(self, t_s: np.ndarray) -> np.ndarray:
         out = np.zeros(np.shape(t_s), dtype=bool)
@@ -142,6 +167,47 @@ def solar_day_fraction(t_s: np.ndarray, lon_deg: np.ndarray) -> np.ndarray:
     return np.clip(np.sin(np.pi * (solar_h - 6.0) / 12.0), 0.0, None)
 
 
+# The realistic small-boat model (common practice, from memory): what an ordinary small boat's
+# instruments do in a seaway. Used by the current benchmark's scenarios.
+REALISTIC = dict(
+    stw_noise_kn=0.1, stw_correlated_noise_kn=0.11, stw_noise_tau_s=3.0,   # about 0.15 kn in all, correlated over seconds
+    surge_kn=0.2,
+    heading_noise_deg=0.7, heading_correlated_noise_deg=0.7, heading_noise_tau_s=5.0,  # about 1 deg, half and half
+    wave_yaw_deg=2.0, wave_period_s=(6.0, 11.0),
+    ground_velocity_noise_kn=0.08, gnss_latency_s=0.1,
+    heading_hz=5.0,
+)
+
+WAVE_COMPONENTS = 3  # sinusoids of random period and phase that make the wave motion
+
+
+class WaveMotion:
+    """Yaw and surge from a few wave components of random period in ``wave_period_s`` and random phase.
+
+    Each of yaw and surge is a sum of ``WAVE_COMPONENTS`` sinusoids with the
+    same periods (the same waves) and their own phases, scaled so that its RMS
+    is that of one sinusoid of the stated amplitude.
+    """
+
+    def __init__(self, spec: SensorSpec, rng: np.random.Generator) -> None:
+        lo, hi = spec.wave_period_s
+        self.omega = 2.0 * np.pi / rng.uniform(lo, hi, WAVE_COMPONENTS)
+        self.yaw_phase = rng.uniform(0.0, 2.0 * np.pi, WAVE_COMPONENTS)
+        self.surge_phase = rng.uniform(0.0, 2.0 * np.pi, WAVE_COMPONENTS)
+        self.yaw_amp = spec.wave_yaw_deg / math.sqrt(WAVE_COMPONENTS)
+        self.surge_amp = spec.surge_kn / math.sqrt(WAVE_COMPONENTS)
+
+    def _sum(self, t: np.ndarray, phase: np.ndarray, amp: float) -> np.ndarray:
+        t = np.asarray(t, dtype=float)
+        return amp * np.sin(np.multiply.outer(t, self.omega) + phase).sum(axis=-1)
+
+    def yaw_deg(self, t: np.ndarray) -> np.ndarray:
+        return self._sum(t, self.yaw_phase, self.yaw_amp)
+
+    def surge_kn(self, t: np.ndarray) -> np.ndarray:
+        return self._sum(t, self.surge_phase, self.surge_amp)
+
+
 class _Sensors:
     def __init__(self, truth: np.ndarray, spec: SensorSpec, rng: np.random.Generator) -> None:
         self.at = TruthInterpolator(truth)
@@ -149,6 +215,20 @@ class _Sensors:
         self.rng = rng
         self.t0 = float(truth["t_s"][0])
         self.dur = float(truth["t_s"][-1] - truth["t_s"][0])
+        # drawn only when switched on, so a spec without waves keeps its random sequence
+        self.waves = WaveMotion(spec, rng) if (spec.wave_yaw_deg or spec.surge_kn) else None
+
+    def wave_yaw_deg(self, t: np.ndarray) -> np.ndarray | float:
+        return self.waves.yaw_deg(t) if self.waves is not None else 0.0
+
+    def surge_kn(self, t: np.ndarray) -> np.ndarray | float:
+        return self.waves.surge_kn(t) if self.waves is not None else 0.0
+
+    def correlated(self, t: np.ndarray, sigma: float, tau_s: float) -> np.ndarray | float:
+        """Gauss–Markov noise at the regular times ``t`` (0 when ``sigma`` is 0: no draw)."""
+        if sigma <= 0.0 or t.size < 2:
+            return 0.0
+        return gauss_markov(self.rng, t.size, float(t[1] - t[0]), sigma, tau_s)
 
     def keep(self, t: np.ndarray) -> np.ndarray:
         return self.rng.random(t.shape) >= self.spec.dropout_prob
@@ -157,6 +237,7 @@ class _Sensors:
         s = self.spec
         t = sample_times(self.t0, self.dur, 1.0 / s.heading_hz, 0.05)
         h = self.at("heading_true_deg", t) + s.heading_offset_deg + self.rng.normal(0, s.heading_noise_deg, t.shape)
+        h = h + self.wave_yaw_deg(t) + self.correlated(t, s.heading_correlated_noise_deg, s.heading_noise_tau_s)
         return t, np.mod(h, 360.0)
 
     def heading_samples(self, t: np.ndarray, h: np.ndarray) -> list[Sample]:
@@ -167,7 +248,9 @@ class _Sensors:
         s = self.spec
         t = sample_times(self.t0, self.dur, 1.0 / s.stw_hz, 0.2)
         along_keel = self.at("stw_true_kn", t) * np.cos(np.radians(self.at("leeway_deg", t)))
+        along_keel = along_keel + self.surge_kn(t)
         v = s.stw_scale * along_keel + self.rng.normal(0, s.stw_noise_kn, t.shape)
+        v = v + self.correlated(t, s.stw_correlated_noise_kn, s.stw_noise_tau_s)
         return t, np.clip(quantise(v, s.stw_quantum_kn), 0.0, None)
 
     def fixes(self) -> list[Sample]:
@@ -183,9 +266,13 @@ class _Sensors:
         lon = lon + np.degrees(ex / (6_371_000.0 * np.cos(np.radians(lat))))
         ge = self.at("ground_east_kn", t) + self.rng.normal(0, s.ground_velocity_noise_kn, t.shape)
         gn = self.at("ground_north_kn", t) + self.rng.normal(0, s.ground_velocity_noise_kn, t.shape)
+        if self.waves is not None:  # the surge is real: the boat's velocity over ground has it too
+            he, hn = np.sin(np.radians(self.at("heading_true_deg", t))), np.cos(np.radians(self.at("heading_true_deg", t)))
+            ge, gn = ge + self.surge_kn(t) * he, gn + self.surge_kn(t) * hn
         sog = np.hypot(ge, gn)
         cog = np.mod(np.degrees(np.arctan2(ge, gn)), 360.0)
         k = self.keep(t) & ~s.in_outage(t)
+        t = t + s.gnss_latency_s  # stamped on arrival, after its epoch
         return [Fix(float(a), round(float(b), 7), round(float(c), 7), round(float(d), 2),
                     (round(float(e), 1) % 360.0) if d >= 0.05 else None, s.hdop)
                 for a, b, c, d, e in zip(t[k], lat[k], lon[k], sog[k], cog[k])]
@@ -222,6 +309,7 @@ class _Sensors:
         s = self.spec
         t = sample_times(self.t0, self.dur, 1.0 / s.wind_hz, 0.4)
         awa = self.at("apparent_wind_angle_deg", t) + self.rng.normal(0, s.wind_angle_noise_deg, t.shape)
+        awa = awa - self.wave_yaw_deg(t)  # the vane swings with the hull: the bow turns toward the wind by the yaw
         gust = gauss_markov(self.rng, t.size, 1.0 / s.wind_hz, s.gust_intensity, s.wind_gust_tau_s)
         aws = np.clip(self.at("apparent_wind_kn", t) * (1.0 + gust), 0.0, None)
         awa = np.mod(awa, 360.0)

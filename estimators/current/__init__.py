@@ -1,0 +1,114 @@
+"""The current (set and drift), learnt together with the speed log's scale and
+the compass's offset, with the uncertainty it honestly has.
+
+Theory of operation
+-------------------
+State (extended Kalman filter; x and P live in a small ``FilterState``, the predict and the 2 x 4
+update are written out here, cheaper than the generic ones)::
+
+    x = [c_e, c_n, k, d]
+        c_e, c_n  the current toward east / north, kn (ground frame)
+        k         speed-log scale factor: true STW = k * log reading (dimensionless)
+        d         heading offset, rad: true heading = heading reading + d
+
+Process model: every state is a random walk (F = I). The current walks at
+``current_walk_kn_per_sqrt_h`` per axis (tidal streams turn over hours). Fast
+at an edge, steady in between: an exponentially windowed NIS of each fix's
+innovation against that fix's own noise is the change detector; above twice its
+expectation it inflates the current's process noise step by step, and the
+inflation decays back once the innovations agree again (continuous noise level
+adjustment, Bar-Shalom, Li & Kirubarajan, "Estimation with Applications to
+Tracking and Navigation", 2001, sect. 11.2, from memory). k and d walk very
+slowly (fouling, a compass swung again).
+
+Measurement (one fusion step per ground-velocity epoch, from ``Fix`` SOG/COG or
+``GroundVelocity``)::
+
+    g = c + k * s * u(psi + d + lambda) + noise          (the current triangle)
+    u(a) = (sin a, cos a)                                 (east, north of a unit vector toward a)
+
+where ``s`` is the log reading and ``psi`` the heading reading, both averaged
+over the fix interval (the heading as a circular mean), and ``lambda`` the
+leeway angle. The speed log and the compass are inputs, not states measured
+on their own: their noise enters the measurement covariance through the
+Jacobian (along the track k^2 sigma_s^2, across it (k s sigma_psi)^2).
+Leeway, where a heel reading exists, follows the common rule of thumb
+``lambda = K * heel / STW^2`` (degrees, heel in degrees, STW in kn; K is the
+config value ``leeway_coefficient``, 0 switches it off; positive heel is to
+starboard, so leeway turns the water track clockwise). It is a rule of thumb
+from sailing practice, quoted here from memory, not a published fit.
+
+At low SOG a receiver's course is noisy; this filter does not difference
+positions but inflates the GNSS velocity variance below ``low_sog_kn``.
+
+Observability: the current, k and d are only separable when the water velocity
+changes direction (a tack, a 90 degree or reciprocal leg; a change of speed
+helps a little). So in the 1-Hz step k and d are Schmidt "consider" states:
+their uncertainty and cross-correlation are carried into the current's, their
+estimates never moved by a fix. They are learnt by a batch least-squares fit
+over the steady legs of a sliding window (``calibration``: one-minute blocks
+with effective sample counts for correlated noise, the current as a slowly
+varying polynomial, the prior as two observations), fused into the filter with
+only the information the filter lacks. The filter reports stw_scale and
+heading_offset_deg as the prior values until it knows them better than the
+prior, and the status "calibrated" only once their sigmas fall below the
+``calibrated_*`` thresholds (2 sigma: 2 % of STW, 1.5 deg); until then it says
+what would calibrate them.
+
+Correlated noise: the log's and the compass's errors are correlated over
+seconds (``noise_correlation_s``); fixes a second apart are not independent
+samples of them, so their part of R is multiplied by 2 tau / dt (the
+effective sample count) and the current's sigma holds under that noise.
+
+Honest quality: the NIS of the last ``nis_check_fixes`` fixes against the
+covariance the filter uses is tested against its two-sided chi-square bounds
+(``estimators.fusion.WindowedNis``, Bar-Shalom et al. 2001, sect. 5.4.2); above
+them the quality is 'degraded' with the reason, so 'valid' is said only while
+the filter's own statistics say its model fits.
+
+Turns: in a turn the fix's ground velocity and the fix interval's mean
+heading and log speed belong to instants up to a second apart (sample times,
+the instruments' own lags) while the boat sheds speed: an error of rate x lag
+with the same sign at every fix of the turn, which no white R describes.
+Fused, those fixes teach k and d the lag and claim sigmas not earned (the
+demo passage's one course change gave a log scale 5 sigma off). So the filter
+predicts through a turn (the 3-s EMA heading turning faster than
+``turn_rate_hold_deg_s``, or a manoeuvre, for at most ``turn_hold_max_s``;
+counted as ``turning``) and learns k and d from the steady legs on either
+side, the current carried across on its random walk; a longer turn
+(circling) is fused with rate x ``input_timing_sigma_s`` in R.
+
+Each fusion step: observation and its covariance; innovation and its
+covariance; a numerical guard; a chi-square gate on the NIS (probability
+``gate_probability``, 2 degrees of freedom); the Joseph-form update and a
+symmetric covariance; a health counter. A run
+of ``rejections_before_reset`` rejections is not a lock-out: the current's
+covariance is inflated and the measurement accepted.
+
+The speed log is distrusted (``log_suspect``) when it reads near zero while the
+boat moves over ground faster than any current it expects (a dead or fouled
+log), or when its reading steps while the ground speed along the heading does
+not. While suspect the filter holds k and the current (prediction only, the
+covariance grows); once the log agrees again it restarts the current from the
+next fix with k's uncertainty re-inflated, so the log is re-learnt.
+
+Consistency is checked with NEES/NIS over Monte-Carlo runs (Bar-Shalom, Li &
+Kirubarajan, "Estimation with Applications to Tracking and Navigation",
+2001, ch. 5.4) in tests/test_current_consistency.py (tacking) and, for the
+calibration states after one course change, tests/test_current_calibration_nees.py.
+"""
+
+from __future__ import annotations
+
+from estimators.fusion import FusionReport
+
+from .estimator import CurrentEstimator, FilterRecord
+from .model import FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
+from .params import ID, IE, IK, IN, TOPIC, Calibration, CurrentParams
+from .publication import polar_sigmas
+
+__all__ = [
+    "Calibration", "CurrentEstimator", "FilterState", "chi2_quantile_2dof", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",
+    "TOPIC", "WaterInputs", "d_unit", "ground_velocity_of", "jacobian", "leeway_deg",
+    "measurement_cov", "polar_sigmas", "process_noise", "unit",
+]

@@ -1,0 +1,216 @@
+"""The log scale and the heading offset, learnt only where the data earns it: a batch fit over steady legs.
+
+Theory of operation
+-------------------
+k (true STW = k x log) and d (true heading = compass + d) are separable from
+the current only across changes of the water track's direction. A filter that
+updates them at every fix reads correlated log and compass noise, and a small
+course change, as evidence it is not; so in the 1-Hz filter k and d are
+Schmidt "consider" states (their uncertainty is carried into the current's,
+their estimates never moved by a fix), and they are learnt here instead.
+
+Blocks. Each ``calibration_block_s`` of steady sailing (every fix of it fused:
+no turn, no suspect log) becomes one block: the mean ground velocity g_b and
+the mean water-velocity reading m_b = mean(s_i u(psi_i + lambda_i)) (log s,
+compass psi, leeway lambda). A block with a turn or too few fixes is dropped.
+
+Effective sample count. The log's and the compass's errors are correlated over
+seconds (a paddle wheel in a seaway, wave yaw), so the n fixes of a block are
+not n independent samples. The variance of the mean of a first-order
+Gauss-Markov noise over T >> tau is about sigma^2 * 2 tau / T: the block counts
+as N_eff = T / (2 tau) samples (Bayley & Hammersley, "The effective number of
+independent observations in an autocorrelated time series", J. R. Stat. Soc.
+Suppl. 8, 1946; tau = ``noise_correlation_s``). The fit's own residuals then
+scale this (below), so a sea rougher than assumed widens the sigmas.
+
+The fit. Weighted nonlinear least squares (Gauss-Newton) over the blocks of
+the last ``calibration_fit_window_h``::
+
+    g_b = c(t_b) + k R(d) m_b + e_b,   c(t) = c0 + c1 t + c2 t^2 (t in hours from the window's middle)
+    R(d) m: m turned clockwise by d
+
+with the prior (saved calibration, or the stated one) on k and d as two more
+observations, so a window with no course change returns the prior and its
+sigma. The covariance of (k, d) is the (k, d) block of (J' W J)^-1, multiplied
+by the reduced chi-square of the block residuals where that is above 1 (the
+residuals say the blocks were noisier than assumed). The current's slow
+change is part of the model, so a current that turns with the tide over the
+window is not read as a calibration.
+
+Feeding the filter. A fit whose (k, d) covariance Sigma is smaller than the
+filter's own marginal P_kd is fused as a measurement of (k, d) with
+R = (Sigma^-1 - P_kd^-1)^-1: only the information the filter does not hold
+yet, so the filter's (k, d) covariance becomes Sigma (no data counted twice
+across overlapping windows), and the current moves with it through the
+filter's cross-covariance. The fusion step is the same gated Joseph update
+(``fusion.fuse``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass
+
+import numpy as np
+
+from .params import CurrentParams
+
+S_PER_H = 3600.0
+CURRENT_TERMS = 3  # c0, c1 t, c2 t^2 per axis
+
+
+@dataclass(frozen=True, slots=True)
+class Block:
+    """One steady block: its mid time (s), mean ground velocity and mean water-velocity reading (kn), speed, fixes."""
+
+    t_s: float
+    g: tuple[float, float]
+    m: tuple[float, float]
+    speed_kn: float
+    fixes: int
+
+
+@dataclass(frozen=True, slots=True)
+class FitResult:
+    """(k, d) from the window's blocks with their covariance (d in rad), and how well the model fitted."""
+
+    k: float
+    d_rad: float
+    cov: np.ndarray           # 2 x 2, [k, d]
+    chi2_reduced: float       # of the block residuals
+    blocks: int
+    heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
+
+
+def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
+    """The vector m (east, north) turned clockwise by d: u(psi + d) = R(d) u(psi)."""
+    e, n = m
+    cd, sd = math.cos(d_rad), math.sin(d_rad)
+    return e * cd + n * sd, -e * sd + n * cd
+
+
+def spread_deg(blocks: list[Block]) -> float:
+    """The largest difference of direction between the blocks' water-velocity readings."""
+    dirs = np.degrees(np.arctan2([b.m[0] for b in blocks], [b.m[1] for b in blocks]))
+    return float(np.max(np.abs((dirs[:, None] - dirs[None, :] + 180.0) % 360.0 - 180.0))) if len(blocks) else 0.0
+
+
+class CalibrationFit:
+    """Steady blocks over a sliding window, and the batch fit of k and d (see the module doc)."""
+
+    def __init__(self, params: CurrentParams, prior: tuple[float, float, float, float]) -> None:
+        self.params = params
+        self.prior = prior  # k0, d0 rad, sigma_k0, sigma_d0 rad
+        self.blocks: deque[Block] = deque()
+        self._reset_block()
+        self._last_t: float | None = None
+        self.last_fit_t: float | None = None
+        self.last: FitResult | None = None
+
+    def _reset_block(self, t: float | None = None) -> None:
+        self._t0 = t
+        self._n = 0
+        self._g = [0.0, 0.0]
+        self._m = [0.0, 0.0]
+        self._s = 0.0
+
+    def interrupt(self) -> None:
+        """A turn, a held or rejected fix: the block under way is not steady; start again."""
+        self._reset_block()
+
+    def add(self, t: float, g: tuple[float, float], speed_kn: float, water_dir_deg: float) -> None:
+        """One fused fix of steady sailing: its ground velocity, log reading and water-track direction reading."""
+        p = self.params
+        if self._last_t is not None and t - self._last_t > 0.25 * p.calibration_block_s:
+            self._reset_block()                                             # a gap (an outage): not one block
+        self._last_t = t
+        if self._t0 is None:
+            self._reset_block(t)
+        a = math.radians(water_dir_deg)
+        self._n += 1
+        self._g[0] += g[0]
+        self._g[1] += g[1]
+        self._m[0] += speed_kn * math.sin(a)                               # s u(psi + lambda)
+        self._m[1] += speed_kn * math.cos(a)
+        self._s += speed_kn
+        span = t - self._t0
+        if span < p.calibration_block_s:
+            return
+        if self._n >= 5:
+            n = self._n
+            self.blocks.append(Block(self._t0 + 0.5 * span, (self._g[0] / n, self._g[1] / n),
+                                     (self._m[0] / n, self._m[1] / n), self._s / n, n))
+        self._reset_block()
+        keep_s = p.calibration_fit_window_h * S_PER_H
+        while self.blocks and self.blocks[0].t_s < t - keep_s:
+            self.blocks.popleft()
+
+    def due(self, t: float) -> bool:
+        return self.last_fit_t is None or t - self.last_fit_t >= self.params.calibration_fit_every_s
+
+    def fit(self, t: float, k_start: float, d_start: float) -> FitResult | None:
+        """Gauss-Newton over the window's blocks from (k_start, d_start); None with too few blocks."""
+        self.last_fit_t = t
+        blocks = list(self.blocks)
+        n_cur = 2 * CURRENT_TERMS
+        if len(blocks) < n_cur or spread_deg(blocks) < self.params.calibration_min_spread_deg:
+            return None  # on one course k and d are not observable: the fit would only trade them for the current
+        t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
+        tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
+        G = np.array([b.g for b in blocks])
+        M = np.array([b.m for b in blocks])
+        k0, d0, sk0, sd0 = self.prior
+        k, d = k_start, d_start
+        w = self._block_weights(blocks, k)                                  # 1 / sigma_b^2 per axis
+        nb = len(blocks)
+        for _ in range(4):
+            cd, sd = math.cos(d), math.sin(d)
+            Re = M[:, 0] * cd + M[:, 1] * sd                                # R(d) m, east
+            Rn = -M[:, 0] * sd + M[:, 1] * cd                               # R(d) m, north
+            J = np.zeros((2 * nb + 2, n_cur + 2))
+            r = np.zeros(2 * nb + 2)
+            for j in range(CURRENT_TERMS):                                  # d g / d c_j = t^j
+                J[:nb, 2 * j] = tau ** j
+                J[nb:2 * nb, 2 * j + 1] = tau ** j
+            J[:nb, n_cur], J[nb:2 * nb, n_cur] = Re, Rn                     # d g / d k = R(d) m
+            J[:nb, n_cur + 1], J[nb:2 * nb, n_cur + 1] = k * Rn, -k * Re    # d g / d d = k R'(d) m
+            W = np.concatenate([w, w, [1.0 / sk0 ** 2, 1.0 / sd0 ** 2]])
+            # residuals at the current (k, d), with the current's coefficients solved jointly: linear in c
+            r[:nb] = G[:, 0] - k * Re
+            r[nb:2 * nb] = G[:, 1] - k * Rn
+            r[2 * nb], r[2 * nb + 1] = k0 - k, d0 - d
+            J[2 * nb, n_cur], J[2 * nb + 1, n_cur + 1] = 1.0, 1.0
+            # the current columns enter with the full coefficients (r excludes c): solve for [c, dk, dd]
+            A = J.T @ (W[:, None] * J)
+            b = J.T @ (W * r)
+            try:
+                sol = np.linalg.solve(A, b)
+            except np.linalg.LinAlgError:
+                return None
+            k, d = k + float(sol[n_cur]), d + float(sol[n_cur + 1])
+            if abs(sol[n_cur]) < 1e-7 and abs(sol[n_cur + 1]) < 1e-8:
+                break
+        # residuals of the blocks at the solution (c from the last solve)
+        c = sol[:n_cur]
+        cd, sd = math.cos(d), math.sin(d)
+        Re, Rn = M[:, 0] * cd + M[:, 1] * sd, -M[:, 0] * sd + M[:, 1] * cd
+        ce = sum(c[2 * j] * tau ** j for j in range(CURRENT_TERMS))
+        cn = sum(c[2 * j + 1] * tau ** j for j in range(CURRENT_TERMS))
+        res = np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn])
+        dof = max(1, 2 * nb - n_cur - 2)
+        chi2_red = float(np.sum(np.concatenate([w, w]) * res ** 2)) / dof
+        cov = np.linalg.inv(A)[n_cur:, n_cur:] * max(1.0, chi2_red)
+        self.last = FitResult(k, d, cov, chi2_red, nb, spread_deg(blocks))
+        return self.last
+
+    def _block_weights(self, blocks: list[Block], k: float) -> np.ndarray:
+        """1 / (nominal variance per axis of each block's triangle), with the effective sample count."""
+        p = self.params
+        out = np.empty(len(blocks))
+        for i, b in enumerate(blocks):
+            per_fix = (p.gnss_velocity_sigma_kn ** 2 + k * k * p.log_sigma_kn ** 2
+                       + (k * b.speed_kn * math.radians(p.heading_sigma_deg)) ** 2)     # one fix, per axis (about)
+            n_eff = max(1.0, min(b.fixes, p.calibration_block_s / (2.0 * p.noise_correlation_s)))  # N_eff = T / 2 tau
+            out[i] = n_eff / per_fix
+        return out

@@ -1,0 +1,282 @@
+"""Whether to fuse, and what the fusion step is given: the control logic of the current filter.
+
+- inputs: the log speed and heading over each fix interval, and their
+  low-passed values for the Jacobian (errors in variables, see ``_slow_inputs``);
+- turn hold: prediction only through a turn (``_turn_hold``);
+- when k and d learn: from the batch fit over steady legs (``calibration``,
+  ``_learn_calibration``); in the 1-Hz step they are Schmidt consider states;
+- the speed log's health (``_check_log``): a dead or stepping log holds the
+  filter and raises ``log_suspect``;
+- adaptation and the model check: the windowed NIS (``_adapt``).
+
+A mixin of ``CurrentEstimator``: it reads and sets the estimator's state.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+
+from estimators import wording
+from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
+from estimators.base import CAUTION, Condition, Output
+
+from estimators.fusion import FusionReport
+
+from .fusion import fuse
+from .model import WaterInputs, leeway_deg, unit
+from .params import ID, IK
+
+
+class Control:
+    """Inputs, turn hold, the calibration window, the log's health and adaptation (see the module doc)."""
+
+    # -- inputs ---------------------------------------------------------------------
+
+    def _input_seen(self, kind: str, t: float, value: float, lo: float, hi: float) -> None:
+        """An input sample: range-checked (a bad one is counted and ignored), buffered for the fix's means."""
+        if not (math.isfinite(value) and lo <= value <= hi):
+            self.health.bad_inputs += 1
+            return
+        buf = self._buf[kind]
+        if buf and t < buf[-1][0]:
+            return  # late: not part of the history
+        self._seen[kind] = t
+        buf.append((t, value))
+        keep = max(self.params.averaging_window_s, self.params.stale_s) + 1.0
+        while buf and buf[0][0] < t - keep:
+            buf.popleft()
+
+    def _water_inputs(self, t: float, ctx: Any) -> WaterInputs | None:
+        """Mean log speed and circular-mean heading over the fix interval (at most averaging_window_s).
+
+        The same means SampleHistory.mean_heading_deg gives, from the estimator's own short buffers
+        (``_buffer``), so one fix costs O(window) whatever the history keeps.
+        """
+        p = self.params
+        t0 = t - p.averaging_window_s if self.t_prev_gv is None else max(self.t_prev_gv, t - p.averaging_window_s)
+        in_window = [v for (ts, v) in self._buf["heading"] if t0 < ts <= t]
+        heading = circular_mean_deg(in_window)
+        spread = max((abs(wrap_180(v - heading)) for v in in_window), default=0.0) if heading is not None else 0.0
+        if heading is None:
+            last = self._buf["heading"][-1] if self._buf["heading"] else None
+            heading = last[1] if (last is not None and t - last[0] <= p.stale_s) else None
+        logs = [v for (ts, v) in self._buf["water_speed"] if t0 < ts <= t]
+        if logs:
+            speed = sum(logs) / len(logs)
+        else:
+            last = self._buf["water_speed"][-1] if self._buf["water_speed"] else None
+            speed = last[1] if (last is not None and t - last[0] <= p.stale_s) else None
+        if heading is None or speed is None:
+            return None
+        heels = [v for (ts, v) in self._buf["heel"] if t0 < ts <= t]
+        w = WaterInputs(speed, heading, sum(heels) / len(heels) if heels else None, spread_deg=spread,
+                        interval_s=p.averaging_window_s if self.t_prev_gv is None else t - self.t_prev_gv)
+        self._slow_inputs(t, w)
+        return w
+
+    def _slow_inputs(self, t: float, w: WaterInputs) -> None:
+        """Low-pass the log speed and heading for the Jacobian, except in a manoeuvre.
+
+        The log and the compass are inputs with noise: a Jacobian built from the
+        noisy readings reads their noise as speed and course changes and "learns"
+        k and d from it (errors in variables: k is biased toward zero on a steady
+        course). Built from low-passed readings (time constant
+        ``jacobian_smoothing_s``), only real, lasting changes inform the
+        calibration. In a manoeuvre (a fast EMA of the readings departs from the
+        slow one by more than ``manoeuvre_heading_deg`` or ``manoeuvre_speed_kn``,
+        far beyond the noise) the slow value follows the readings at once, so the
+        Jacobian does not lag a turn. The innovation always uses the fix
+        interval's means, with their noise in R.
+        """
+        p = self.params
+        he, hn = to_east_north(1.0, w.heading_deg)
+        now = (w.speed_kn, he, hn)
+        dt = math.inf if self._slow is None else t - self._slow[0]
+        if self._slow is None or dt > 10.0 * max(p.jacobian_smoothing_s, 1.0):
+            self._slow = (t, *now)
+            self._fast = (t, *now)
+        ema = lambda old, tau: tuple(o + (1.0 - math.exp(-dt / tau)) * (v - o) if tau > 0 else v
+                                     for o, v in zip(old[1:], now))
+        fast = ema(self._fast, 3.0)                                                # EMA, 3 s
+        slow = ema(self._slow, p.jacobian_smoothing_s)                             # EMA, jacobian_smoothing_s
+        fast_heading = from_east_north(fast[1], fast[2])[1]
+        if 0.0 < dt <= 5.0:  # rates of the 3-s EMA: a turn or a speed change, not the readings' noise
+            w.turn_rate_deg_s = wrap_180(fast_heading - from_east_north(self._fast[2], self._fast[3])[1]) / dt
+            w.speed_rate_kn_s = (fast[0] - self._fast[1]) / dt
+        turn = abs(wrap_180(fast_heading - from_east_north(slow[1], slow[2])[1]))
+        if turn > p.manoeuvre_heading_deg or abs(fast[0] - slow[0]) > p.manoeuvre_speed_kn:
+            slow = now                                                             # a manoeuvre: no lag
+        # this epoch's Jacobian uses the slow value *before* this epoch's readings (in a manoeuvre, the
+        # readings): their noise is then independent of the gain and cannot nudge k or d one way
+        in_manoeuvre = slow is now
+        w.manoeuvring = in_manoeuvre
+        ref = now if in_manoeuvre else self._slow[1:]
+        w.slow_speed_kn = ref[0]
+        w.slow_heading_deg = from_east_north(ref[1], ref[2])[1]
+        self._slow, self._fast = (t, *slow), (t, *fast)
+
+
+    def _fuse_or_hold(self, t: float, g: tuple[float, float], w: WaterInputs) -> None:
+        if self._log_state == "suspect":
+            self.health.held += 1
+            if self._calfit is not None:
+                self._calfit.interrupt()
+            if self.ekf is not None:
+                self._predict(t)
+                self._record(t, restart=False)
+            return
+        if self.ekf is None or self._restart_next:
+            self._start(t, g, w)
+            return
+        self._predict(t)
+        if self._turn_hold(t, w):
+            self.health.turning += 1
+            self._record(t, restart=False)
+            self._calfit.interrupt()
+            return
+        report = self._fuse_ground_velocity(t, g, w)
+        self._learn_calibration(t, g, w, report.fused)
+
+    def _turn_hold(self, t: float, w: WaterInputs) -> bool:
+        """Predict only through a turn (at most ``turn_hold_max_s``).
+
+        In a turn the fix's ground velocity and the interval's mean heading and
+        log speed belong to instants up to a second apart (sample times, the
+        receiver's and the compass's own lags), and the boat sheds speed: an
+        error of rate x lag with the same sign for every fix of the turn, which
+        no white R describes. Fused, those fixes teach k and d the lag; the
+        information that separates them from the current comes from the steady
+        legs on either side, so the filter carries the current across the turn
+        on its random walk. A turn longer than the cap (circling) is fused with
+        rate x lag in R.
+        """
+        p = self.params
+        turning = w.manoeuvring or abs(w.turn_rate_deg_s) > p.turn_rate_hold_deg_s
+        if not turning:
+            self._turn_since = None
+            return False
+        if self._turn_since is None:
+            self._turn_since = t
+        w.turning = True
+        return t - self._turn_since <= p.turn_hold_max_s
+
+    def _learn_calibration(self, t: float, g: tuple[float, float], w: WaterInputs, fused: bool) -> None:
+        """Feed the steady blocks; every ``calibration_fit_every_s`` refit k and d and fuse what the fit earned.
+
+        See ``calibration``: the fit's (k, d) is fused as a measurement with
+        R = (Sigma^-1 - P_kd^-1)^-1 (only the information the filter lacks), in
+        the directions where the fit knows more than the filter; elsewhere R is
+        so large that the filter keeps what it has.
+        """
+        fit = self._calfit
+        if not fused or w.turning:
+            fit.interrupt()
+        else:
+            k = float(self.ekf.x[IK, 0])
+            fit.add(t, g, w.speed_kn, w.heading_deg + leeway_deg(self.params, w.heel_deg, k * w.speed_kn))
+        if not fit.due(t):
+            return
+        x, P = self.ekf.x, self.ekf.P
+        result = fit.fit(t, float(x[IK, 0]), float(x[ID, 0]))
+        if result is None:
+            return
+        P_kd = P[IK:, IK:]
+        excess = np.linalg.inv(result.cov) - np.linalg.inv(P_kd)            # information the filter lacks
+        lam, V = np.linalg.eigh(0.5 * (excess + excess.T))
+        if lam.max() <= 0.0:
+            return                                                          # the filter knows it already
+        R = V @ np.diag(1.0 / np.maximum(lam, 1e-12 * lam.max())) @ V.T    # R = (Sigma^-1 - P_kd^-1)^-1
+        H = np.zeros((2, 4))
+        H[0, IK], H[1, ID] = 1.0, 1.0
+        y = np.array([[result.k - x[IK, 0]], [result.d_rad - x[ID, 0]]])
+        up = fuse(x, P, y, H, R, self._cal_gate)
+        report = FusionReport(t, (float(y[0, 0]), float(y[1, 0])), up.innovation_var, up.nis, self._cal_gate,
+                              up.fused, up.reason)
+        self.cal_health.count(report)
+        if up.fused:
+            self.ekf.x, self.ekf.P = up.x, up.P
+            self._record_update(t, x, P)
+
+    def _adapt(self, nis_fix: float, nis: float) -> None:
+        """Windowed NIS above its expectation (2) -> the current changes faster than Q says: inflate Q.
+
+        ``nis_fix`` is the innovation against one fix's own noise (the detector),
+        ``nis`` against the covariance the filter uses, which feeds the consistency
+        test (``nis_check``) that takes the quality to 'degraded'.
+        """
+        p = self.params
+        self.nis_check.add(nis)
+        nis = nis_fix
+        a = 1.0 / p.nis_window_fixes
+        self.nis_avg += a * (nis - self.nis_avg)                               # exponential window mean
+        if self.nis_avg > p.nis_trigger_ratio * 2.0:
+            self.q_inflation = min(p.q_inflation_max, self.q_inflation * p.q_inflation_step)
+        else:
+            self.q_inflation = max(1.0, self.q_inflation * p.q_inflation_decay)
+
+    # -- the speed log's health --------------------------------------------------------
+
+    def _check_log(self, t: float, g: tuple[float, float], w: WaterInputs) -> list[Output]:
+        """Dead log (near zero while SOG is not) or a step of the log while SOG along the heading holds."""
+        p = self.params
+        sog = math.hypot(*g)
+        along = float(np.dot(np.array(g), unit(math.radians(w.heading_deg))[:, 0]))
+        self._log_checks.append((t, w.speed_kn, along, w.heading_deg))
+        while self._log_checks and self._log_checks[0][0] < t - 2.0 * p.log_step_window_s:
+            self._log_checks.popleft()
+        bad = ""
+        if w.speed_kn < p.log_dead_kn and sog > p.log_dead_sog_kn:
+            bad = "dead"
+            self._log_values = {"log_kn": round(w.speed_kn, 2), "sog_kn": round(sog, 2)}
+        elif self._log_step(t):
+            bad = "step"
+        if bad:
+            self._log_good_since = None
+            if self._log_state != "suspect":
+                self._log_state, self._log_reason, self._log_bad_since = "suspect", bad, t
+        elif self._log_state == "suspect":
+            if self._log_good_since is None:
+                self._log_good_since = t
+            elif t - self._log_good_since >= p.log_recover_s:
+                self._log_state, self._log_reason, self._log_bad_since = "trusted", "", None
+                self._restart_next = self.ekf is not None
+        alert = self._log_state == "suspect" and (self._log_reason == "step" or t - self._log_bad_since >= p.log_suspect_hold_s)
+        if alert == self._log_alert:
+            return []
+        self._log_alert = alert
+        return [self._log_condition(t, alert)]
+
+    def _log_step(self, t: float) -> bool:
+        p = self.params
+        recent = [c for c in self._log_checks if c[0] > t - p.log_step_window_s]
+        before = [c for c in self._log_checks if c[0] <= t - p.log_step_window_s]
+        if len(recent) < 3 or len(before) < 3:
+            return False
+        mean = lambda rows, i: sum(r[i] for r in rows) / len(rows)
+        turn = abs(wrap_180(recent[-1][3] - before[0][3]))
+        if turn > 20.0:
+            return False  # a course change changes the speed along the heading by itself
+        d_log = mean(recent, 1) - mean(before, 1)
+        d_along = mean(recent, 2) - mean(before, 2)
+        if abs(d_log - d_along) > p.log_step_kn:
+            self._log_values = {"log_change_kn": round(d_log, 2), "sog_along_change_kn": round(d_along, 2)}
+            return True
+        return False
+
+    def _log_condition(self, t: float, active: bool) -> Condition:
+        if not active:
+            return Condition(t, "log_suspect", CAUTION, False, "The speed log agrees with the GNSS again.", {})
+        if self._log_reason == "dead":
+            text = (f"Speed log reads {self._log_values.get('log_kn', 0):.1f} kn through the water while the GNSS shows "
+                    f"{self._log_values.get('sog_kn', 0):.1f} kn over ground: check the log's paddle wheel or "
+                    f"transducer (weed, fouling, a cable). The current estimate is held meanwhile.")
+        else:
+            text = (f"Speed log changed by {wording.signed(self._log_values.get('log_change_kn', 0))} kn while the "
+                    f"speed over ground along the heading changed by "
+                    f"{wording.signed(self._log_values.get('sog_along_change_kn', 0))} kn: "
+                    f"check the log's paddle wheel or transducer. The current estimate is held meanwhile.")
+        return Condition(t, "log_suspect", CAUTION, True, text, dict(self._log_values))
+

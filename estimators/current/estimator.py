@@ -1,0 +1,281 @@
+"""The current estimator: the filter's life (start, predict, fuse, restart) and the protocol.
+
+See the package's theory of operation (``estimators.current``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from estimators.base import EstimatorBase, Output
+from estimators.fusion import FusionHealth, FusionReport, WindowedNis
+from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
+from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
+from estimators.thresholds import Hysteresis
+
+from .calibration import CalibrationFit
+from .control import Control
+from .fusion import fuse, nis2
+from .model import (
+    FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov,
+    process_noise, unit,
+)
+from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
+from .publication import Publisher
+
+
+@dataclass(frozen=True, slots=True)
+class FilterRecord:
+    """State before and after one epoch, for the RTS smoother."""
+
+    t_s: float
+    x_prior: np.ndarray
+    P_prior: np.ndarray
+    x_post: np.ndarray
+    P_post: np.ndarray
+    restart: bool
+
+
+
+@dataclass
+class _Health(FusionHealth):
+    """The ground-velocity step's counters (``FusionHealth``) and the estimator's own."""
+
+    duplicates: int = 0
+    held: int = 0          # epochs not fused because the log was suspect
+    turning: int = 0       # epochs predicted through a turn, not fused (see _turn_hold)
+    no_inputs: int = 0     # epochs without a heading or a log speed
+    bad_inputs: int = 0    # heading/log samples out of range, ignored
+
+    def as_dict(self) -> dict[str, int | float | None]:
+        return {**super().as_dict(), "duplicates": self.duplicates, "held": self.held, "turning": self.turning,
+                "no_inputs": self.no_inputs, "bad_inputs": self.bad_inputs}
+
+
+
+class CurrentEstimator(Control, Publisher, EstimatorBase):
+    """Set and drift of the current, the log scale and the compass offset (topic "current")."""
+
+    name = "current"
+    accepts = (Fix, GroundVelocity, Heading, WaterSpeed, Attitude)
+
+    def __init__(self, params: CurrentParams | None = None, calibration: Calibration | None = None) -> None:
+        self.params = params or CurrentParams()
+        self.saved = calibration
+        self.health = _Health()
+        self.ekf: FilterState | None = None
+        self.t_filter: float | None = None
+        self.t_prev_gv: float | None = None
+        self.q_inflation = 1.0
+        self.nis_avg = 2.0
+        self.consecutive_rejects = 0
+        self.last_report: FusionReport | None = None
+        self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
+        self._seen: dict[str, float] = {}
+        self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
+        self._gate = chi2_quantile_2dof(self.params.gate_probability)  # chi-square, 2 dof
+        self._t_last_pub: float | None = None
+        self._prior: tuple[float, float, float, float] | None = None  # k, d_rad, sigma_k, sigma_d_rad
+        self._strong = Hysteresis(self.params.current_strong_kn,
+                                  min(self.params.current_strong_clear_kn, self.params.current_strong_kn * 0.999))
+        self._log_checks: deque[tuple[float, float, float, float]] = deque()  # t, log, along-SOG, heading
+        self._log_state = "trusted"          # trusted | suspect
+        self._log_reason = ""
+        self._log_bad_since: float | None = None
+        self._log_good_since: float | None = None
+        self._log_values: dict[str, float] = {}
+        self._log_alert = False
+        self._restart_next = False
+        self._last_gv: tuple[float, float] | None = None
+        self._last_inputs: WaterInputs | None = None
+        self._slow: tuple[float, float, float, float] | None = None  # t, speed, heading unit vector (e, n)
+        self._fast: tuple[float, float, float, float] | None = None
+        self._turn_since: float | None = None
+        self._calfit: CalibrationFit | None = None
+        self._cal_gate = chi2_quantile_2dof(self.params.calibration_fit_probability)
+        self.cal_health = FusionHealth()  # the calibration fit's fusion step
+        self.nis_check = WindowedNis(self.params.nis_check_fixes, 2, self.params.nis_check_probability)
+
+    # -- the protocol ---------------------------------------------------------------
+
+    def step(self, sample: Sample, ctx: Any) -> Sequence[Output]:
+        t = sample.t_s
+        if not math.isfinite(t):
+            self.health.bad_inputs += 1
+            return ()
+        if isinstance(sample, Heading):
+            self._input_seen("heading", t, sample.true_deg, *DIRECTION_DEG)
+            return ()
+        if isinstance(sample, WaterSpeed):
+            self._input_seen("water_speed", t, sample.speed_kn, 0.0, STW_MAX_KN)
+            return ()
+        if isinstance(sample, Attitude):
+            if sample.heel_deg is not None:
+                self._input_seen("heel", t, sample.heel_deg, -ATTITUDE_MAX_DEG, ATTITUDE_MAX_DEG)
+            return ()
+        return self._ground_velocity_epoch(sample, ctx)
+
+    def tick(self, t_s: float, ctx: Any) -> Sequence[Output]:
+        if self._t_last_pub is None or t_s - self._t_last_pub < self.params.publish_interval_s:
+            return ()
+        return self._publish(t_s)
+
+
+    def _ground_velocity_epoch(self, sample: Sample, ctx: Any) -> Sequence[Output]:
+        p = self.params
+        t = sample.t_s
+        g = ground_velocity_of(sample)
+        if g is None:
+            return ()
+        if self.t_prev_gv is not None and t - self.t_prev_gv < p.min_fix_interval_s:
+            self.health.duplicates += 1
+            return ()
+        self._seen["fix"] = t
+        inputs = self._water_inputs(t, ctx)
+        self.t_prev_gv = t
+        self._last_gv = g
+        out: list[Output] = []
+        if inputs is None:
+            self.health.no_inputs += 1
+        else:
+            self._last_inputs = inputs
+            out.extend(self._check_log(t, g, inputs))
+            self._fuse_or_hold(t, g, inputs)
+        if self._t_last_pub is None or t - self._t_last_pub >= p.publish_interval_s:
+            out.extend(self._publish(t))
+        return out
+
+    # -- the filter ---------------------------------------------------------------
+
+    def _prior_calibration(self, t: float) -> tuple[float, float, float, float]:
+        """(k, d_rad, sigma_k, sigma_d_rad): the saved calibration inflated by its age, or the params' prior."""
+        p = self.params
+        cal = self.saved or Calibration()
+        sk = cal.stw_scale_sigma if cal.stw_scale_sigma is not None else p.initial_stw_scale_sigma
+        sd = cal.heading_offset_sigma_deg if cal.heading_offset_sigma_deg is not None else p.initial_heading_offset_sigma_deg
+        if cal.t_s is not None:
+            age_days = max(0.0, t - cal.t_s) / S_PER_DAY
+            sk = math.sqrt(sk ** 2 + p.calibration_age_stw_scale_per_sqrt_day ** 2 * age_days)   # var grows linearly with age
+            sd = math.sqrt(sd ** 2 + p.calibration_age_heading_deg_per_sqrt_day ** 2 * age_days)
+        return cal.stw_scale, math.radians(cal.heading_offset_deg), sk, math.radians(sd)
+
+    def _start(self, t: float, g: tuple[float, float], w: WaterInputs) -> None:
+        """Start (or restart) the current from this fix, consistently with k's and d's prior."""
+        if self._prior is None:
+            self._prior = self._prior_calibration(t)
+        restart = self.ekf is not None
+        if restart:
+            k, d = float(self.ekf.x[IK, 0]), float(self.ekf.x[ID, 0])
+            sk = max(math.sqrt(self.ekf.P[IK, IK]), self._prior[2], self.params.initial_stw_scale_sigma)
+            sd = max(math.sqrt(self.ekf.P[ID, ID]), self._prior[3])
+        else:
+            k, d, sk, sd = self._prior
+        ekf = FilterState()
+        s = w.speed_kn
+        theta = math.radians(w.heading_deg + leeway_deg(self.params, w.heel_deg, k * s)) + d
+        u, n = unit(theta), d_unit(theta)
+        z = np.array([[g[0]], [g[1]]])
+        ekf.x = np.vstack([z - k * s * u, [[k]], [[d]]])                 # c0 = g - k s u(theta)
+        R = measurement_cov(self.params, g, w, k, theta)
+        P = np.zeros((4, 4))
+        P[:2, :2] = R + (s * sk) ** 2 * u @ u.T + (k * s * sd) ** 2 * n @ n.T  # cov(c0) through the Jacobian
+        P[:2, IK:IK + 1] = -s * sk ** 2 * u                                 # cov(c0, k) = -s u sigma_k^2
+        P[:2, ID:ID + 1] = -k * s * sd ** 2 * n                             # cov(c0, d) = -k s n sigma_d^2
+        P[IK:IK + 1, :2] = P[:2, IK:IK + 1].T
+        P[ID:ID + 1, :2] = P[:2, ID:ID + 1].T
+        P[IK, IK], P[ID, ID] = sk ** 2, sd ** 2
+        ekf.P = P
+        self.ekf = ekf
+        self.t_filter = t
+        self._restart_next = False
+        self.consecutive_rejects = 0
+        self.q_inflation, self.nis_avg = 1.0, 2.0
+        self.nis_check.reset()
+        self._calfit = CalibrationFit(self.params, (k, d, sk, sd))  # blocks of a log trusted again start afresh
+        self._record(t, restart=True)
+
+    def _predict(self, t: float) -> None:
+        dt = max(0.0, t - self.t_filter)
+        self.ekf.P = self.ekf.P + process_noise(self.params, dt, self.q_inflation)                            # F = I: x = x, P = P + Q
+        self.t_filter = t
+
+    def _fuse_ground_velocity(self, t: float, g: tuple[float, float], w: WaterInputs) -> FusionReport:
+        """Observation, its covariance and the innovation; the fusion step (``fusion.fuse``); a run of rejections.
+
+        A run of ``rejections_before_reset`` rejections by the gate is not a
+        lock-out: the current's covariance is inflated and the fix accepted.
+        """
+        p, ekf = self.params, self.ekf
+        x_prior, P_prior = ekf.x, ekf.P
+        s = w.speed_kn
+        ce, cn, k, d = x_prior[:, 0].tolist()
+        theta = math.radians(w.heading_deg + leeway_deg(p, w.heel_deg, k * s)) + d
+        R = measurement_cov(p, g, w, k, theta)
+        H = jacobian(p, w, k, d)
+        y = np.array([[g[0] - ce - k * s * math.sin(theta)],                    # y = z - h(x),
+                      [g[1] - cn - k * s * math.cos(theta)]])                   # h(x) = c + k s u(theta)
+        # k and d are Schmidt "consider" states: learnt from the calibration fit only (see calibration)
+        consider = IK
+        up = fuse(x_prior, P_prior, y, H, R, self._gate, consider)
+        nis = up.nis
+        if math.isfinite(nis):
+            # the change detector reads the innovation against one fix's own noise (no allowance for
+            # correlation: that would blunt it), the gate and the model check the covariance the filter uses
+            S_fix = H @ P_prior @ H.T + measurement_cov(p, g, w, k, theta, correlated=False)
+            self._adapt(min(nis2(y, S_fix), 4.0 * self._gate), nis)
+        if up.reason == "gate":
+            self.consecutive_rejects += 1
+            if self.consecutive_rejects >= p.rejections_before_reset:
+                self.health.rejected += 1
+                self.health.resets += 1
+                P = P_prior.copy()                                              # inflate, then accept
+                P[:2, :2] += (p.reset_current_sigma_kn ** 2 + float(y[0, 0] ** 2 + y[1, 0] ** 2) / 2.0) * np.eye(2)
+                ekf.P = P_prior = P
+                up = fuse(x_prior, P, y, H, R, math.inf, consider)
+        if up.fused:
+            self.consecutive_rejects = 0
+            ekf.x, ekf.P = up.x, up.P
+        return self._report(t, y, nis, up, x_prior, P_prior)
+
+    def _report(self, t: float, y: np.ndarray, nis: float, up, x_prior: np.ndarray, P_prior: np.ndarray) -> FusionReport:
+        report = FusionReport(t, (float(y[0, 0]), float(y[1, 0])), up.innovation_var, nis, self._gate, up.fused, up.reason)
+        self.health.count(report)
+        self.last_report = report
+        if self.records is not None:
+            self.records.append(FilterRecord(t, x_prior, P_prior, self.ekf.x.copy(), self.ekf.P.copy(), False))
+        return report
+
+    def _record_update(self, t: float, x_prior: np.ndarray, P_prior: np.ndarray) -> None:
+        """A record of an update outside the ground-velocity step (the calibration fit), for the smoother."""
+        if self.records is not None:
+            self.records.append(FilterRecord(t, x_prior, P_prior, self.ekf.x.copy(), self.ekf.P.copy(), False))
+
+    def _record(self, t: float, restart: bool) -> None:
+        if self.records is not None:
+            x, P = self.ekf.x.copy(), self.ekf.P.copy()
+            self.records.append(FilterRecord(t, x, P, x, P, restart))
+
+    # -- for the smoother, the bench and tests ---------------------------------------------
+
+    def fusion_health(self) -> dict[str, dict]:
+        """Each fusion step's health for the status topic: the ground-velocity step's counters and last NIS."""
+        return {"ground_velocity": {**FusionHealth.as_dict(self.health), "held": self.health.held,
+                                    "turning": self.health.turning},
+                "calibration_fit": self.cal_health.as_dict()}
+
+    def state(self) -> dict[str, float] | None:
+        """The filter's own state (not the reported one): current, k, offset and sigmas; None before the start."""
+        if self.ekf is None:
+            return None
+        x, P = self.ekf.x, self.ekf.P
+        return {"east_kn": float(x[IE, 0]), "north_kn": float(x[IN, 0]), "stw_scale": float(x[IK, 0]),
+                "heading_offset_deg": math.degrees(float(x[ID, 0])), "east_sigma_kn": math.sqrt(P[IE, IE]),
+                "north_sigma_kn": math.sqrt(P[IN, IN]), "stw_scale_sigma": math.sqrt(P[IK, IK]),
+                "heading_offset_sigma_deg": math.degrees(math.sqrt(P[ID, ID]))}
+

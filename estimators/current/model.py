@@ -1,0 +1,137 @@
+"""The current filter's model: state, measurement function, Jacobian, R and Q.
+
+State x = [c_e, c_n, k, d] (kn, kn, dimensionless, rad); see the package's
+theory of operation (``estimators.current``). Measurement, one per GNSS
+ground-velocity epoch (the current triangle)::
+
+    g = c + k * s * u(psi + d + lambda) + noise,   u(a) = (sin a, cos a)
+
+H = dh/dx = [I, s u(theta), k s du/dtheta], theta = psi + d + lambda.
+R = GNSS noise + the log's noise along the water track + the compass's (and
+leeway's) noise across it, through the Jacobian of h in s and psi.
+Q: every state a random walk (F = I), Q = q dt.
+Pure functions of plain numbers: nothing here keeps state.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from estimators.angles import to_east_north
+from estimators.samples import Sample
+
+from .params import S_PER_H, CurrentParams
+
+
+@dataclass
+class WaterInputs:
+    """The log and compass over one fix interval, as the fusion step sees them."""
+
+    speed_kn: float       # mean log reading over the window
+    heading_deg: float    # circular mean heading reading over the window
+    heel_deg: float | None
+    slow_speed_kn: float = 0.0     # the same, low-passed: used in the Jacobian (see _slow_inputs)
+    spread_deg: float = 0.0        # largest departure of a heading in the window from their mean (a turn)
+    slow_heading_deg: float = 0.0
+    turn_rate_deg_s: float = 0.0   # rate of the 3-s EMA heading, deg/s (see _slow_inputs)
+    speed_rate_kn_s: float = 0.0   # rate of the 3-s EMA log speed, kn/s
+    manoeuvring: bool = False      # the readings depart from their low-passed values (see _slow_inputs)
+    turning: bool = False          # a manoeuvre or a fast heading change (see _turn_hold)
+    interval_s: float = 1.0        # since the previous fix: the span of these means
+
+
+def chi2_quantile_2dof(p: float) -> float:
+    """Chi-square quantile with 2 degrees of freedom: -2 ln(1 - p), exact.
+
+    With 2 degrees of freedom the chi-square distribution is exponential with mean 2
+    (Abramowitz & Stegun 26.4.20; from memory): CDF 1 - exp(-x/2). p = 0.9973 gives 11.83.
+    """
+    return -2.0 * math.log1p(-p)
+
+
+class FilterState:
+    """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays.
+
+    filterpy's ``ExtendedKalmanFilter`` held them once, but importing it loads scipy.stats, about
+    45 MB and a second at start, for nothing (the predict and the update are written out here).
+    """
+
+    __slots__ = ("x", "P")
+
+    def __init__(self) -> None:
+        self.x = np.zeros((4, 1))
+        self.P = np.eye(4)
+
+
+def unit(angle_rad: float) -> np.ndarray:
+    """(east, north) of a unit vector toward ``angle_rad`` (from north, clockwise)."""
+    return np.array([[math.sin(angle_rad)], [math.cos(angle_rad)]])
+
+
+def d_unit(angle_rad: float) -> np.ndarray:
+    """d u / d angle: the unit vector 90 deg to starboard."""
+    return np.array([[math.cos(angle_rad)], [-math.sin(angle_rad)]])
+
+
+def leeway_deg(params: CurrentParams, heel_deg: float | None, stw_kn: float) -> float:
+    """Leeway angle, deg (positive: water track clockwise of the heading), by the rule of thumb K*heel/STW^2."""
+    if heel_deg is None or params.leeway_coefficient == 0.0 or stw_kn < params.leeway_min_stw_kn:
+        return 0.0
+    lam = params.leeway_coefficient * heel_deg / (stw_kn * stw_kn)  # lambda = K * heel / STW^2
+    return max(-params.leeway_max_deg, min(params.leeway_max_deg, lam))
+
+
+def ground_velocity_of(sample: Sample) -> tuple[float, float] | None:
+    """(east, north) kn from a Fix's or GroundVelocity's SOG/COG; None when there is none."""
+    sog = getattr(sample, "sog_kn", None)
+    cog = getattr(sample, "cog_deg", None)
+    if sog is None or not math.isfinite(sog) or sog < 0.0 or sog > 100.0:
+        return None
+    if cog is None or not math.isfinite(cog):
+        return (0.0, 0.0) if sog < 0.05 else None  # at rest the course does not matter
+    return to_east_north(sog, cog)
+
+
+def process_noise(p: CurrentParams, dt: float, q_inflation: float = 1.0) -> np.ndarray:
+    """Q for a step of ``dt`` s: every state a random walk; the current's rate times ``q_inflation``."""
+    qc = (p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H) * q_inflation        # kn^2/s per axis
+    qk = p.stw_scale_walk_per_sqrt_h ** 2 / S_PER_H
+    qd = math.radians(p.heading_offset_walk_deg_per_sqrt_h) ** 2 / S_PER_H
+    return np.diag([qc * dt, qc * dt, qk * dt, qd * dt])                            # random walk: Q = q dt
+
+
+def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k: float, theta: float,
+                    correlated: bool = True) -> np.ndarray:
+    """R: GNSS velocity noise plus the log's and the compass's noise through the Jacobian."""
+    sg = p.gnss_velocity_sigma_kn * (p.low_sog_inflation if math.hypot(*g) < p.low_sog_kn else 1.0)
+    s = w.speed_kn
+    lam = math.radians(leeway_deg(p, w.heel_deg, k * s))
+    # heading noise, the leeway's uncertainty and, in a turn, how far the interval's mean heading
+    # can be from the heading at the fix (the spread of the headings in the window)
+    # ... and, in a turn fused (longer than the hold), the unknown lag between the GNSS velocity and
+    # the compass/log means: rate x lag (not on a steady course: there the rate is the readings' noise)
+    lag = p.input_timing_sigma_s if w.turning else 0.0
+    cross = (k * s) ** 2 * (math.radians(p.heading_sigma_deg) ** 2 + (p.leeway_sigma_fraction * lam) ** 2
+                            + math.radians(w.spread_deg) ** 2 + math.radians(w.turn_rate_deg_s * lag) ** 2)
+    along = k ** 2 * (p.log_sigma_kn ** 2 + (w.speed_rate_kn_s * lag) ** 2)
+    # the log's and compass's errors are correlated over noise_correlation_s: fixes closer than that are not
+    # independent samples of them. For the slow states, fusing n such fixes must give the information of
+    # n dt / (2 tau) independent ones (the effective sample count, see calibration): R x 2 tau / dt
+    corr = max(1.0, 2.0 * p.noise_correlation_s / max(w.interval_s, 1e-3)) if correlated else 1.0
+    along, cross = along * corr, cross * corr
+    ue, un = math.sin(theta), math.cos(theta)                               # u = u(theta), n = (un, -ue)
+    r2 = sg ** 2
+    return np.array([[r2 + along * ue * ue + cross * un * un, (along - cross) * ue * un],   # sg^2 I + along u u'
+                     [(along - cross) * ue * un, r2 + along * un * un + cross * ue * ue]])  #   + cross n n'
+
+
+def jacobian(p: CurrentParams, w: WaterInputs, k: float, d: float) -> np.ndarray:
+    """H = [I, s u(theta), k s du/dtheta] from the low-passed inputs (_slow_inputs)."""
+    ss = w.slow_speed_kn
+    th = math.radians(w.slow_heading_deg + leeway_deg(p, w.heel_deg, k * ss)) + d
+    sn, cs = math.sin(th), math.cos(th)
+    return np.array([[1.0, 0.0, ss * sn, k * ss * cs],
+                     [0.0, 1.0, ss * cs, -k * ss * sn]])

@@ -1,0 +1,142 @@
+"""The current estimator's parameters ([current] in the config) and the calibration it learns or is given.
+
+Every parameter has a default, a unit and a range (``estimators.params.param``),
+checked at start and written into each recording.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+from typing import Any
+
+from estimators.params import param
+
+TOPIC = "current"
+S_PER_H = 3600.0
+S_PER_DAY = 86400.0
+IE, IN, IK, ID = 0, 1, 2, 3  # state indices
+
+
+MANOEUVRE_SAMPLE_S = 10.0  # spacing of the course/speed history that detects a manoeuvre
+
+@dataclass(frozen=True)
+class CurrentParams:
+    """Parameters of the current estimator ([current] in the config)."""
+
+    current_walk_kn_per_sqrt_h: float = param(
+        0.4, "kn/sqrt(h)", 0.0, 10.0, "how fast the current may change (random walk, per axis): tidal streams over hours")
+    stw_scale_walk_per_sqrt_h: float = param(
+        0.003, "1/sqrt(h)", 0.0, 0.5, "how fast the log's scale may drift (fouling)")
+    heading_offset_walk_deg_per_sqrt_h: float = param(
+        0.1, "deg/sqrt(h)", 0.0, 10.0, "how fast the compass offset may drift")
+    gnss_velocity_sigma_kn: float = param(0.1, "kn", 0.005, 5.0, "GNSS ground-velocity noise per axis")
+    low_sog_kn: float = param(0.5, "kn", 0.0, 5.0, "below this SOG the course is poor: velocity variance inflated")
+    low_sog_inflation: float = param(4.0, "", 1.0, 100.0, "factor on the GNSS velocity sigma below low_sog_kn")
+    log_sigma_kn: float = param(0.1, "kn", 0.005, 5.0, "noise of the log speed averaged over one fix interval")
+    heading_sigma_deg: float = param(1.5, "deg", 0.05, 30.0, "noise of the heading averaged over one fix interval")
+    leeway_coefficient: float = param(
+        0.0, "deg kn^2 / deg", 0.0, 50.0, "K in leeway = K * heel / STW^2 (rule of thumb); 0: no leeway")
+    leeway_sigma_fraction: float = param(0.5, "", 0.0, 2.0, "uncertainty of the leeway angle as a fraction of it")
+    leeway_max_deg: float = param(15.0, "deg", 0.0, 45.0, "leeway angle clamp")
+    leeway_min_stw_kn: float = param(1.5, "kn", 0.1, 10.0, "below this STW no leeway is applied (the rule diverges)")
+    initial_stw_scale_sigma: float = param(0.05, "", 0.001, 0.5, "prior sigma of the log scale with no calibration")
+    initial_heading_offset_sigma_deg: float = param(3.0, "deg", 0.05, 45.0, "prior sigma of the heading offset")
+    calibration_age_stw_scale_per_sqrt_day: float = param(
+        0.01, "1/sqrt(day)", 0.0, 1.0, "growth of a saved log-scale sigma with its age")
+    calibration_age_heading_deg_per_sqrt_day: float = param(
+        0.5, "deg/sqrt(day)", 0.0, 45.0, "growth of a saved heading-offset sigma with its age")
+    calibrated_stw_scale_sigma: float = param(
+        0.01, "", 0.0001, 0.5, "log scale counts as calibrated below this sigma (2 sigma: 2 % of STW)")
+    calibrated_heading_offset_sigma_deg: float = param(
+        0.75, "deg", 0.01, 45.0, "heading offset counts as calibrated below this sigma (2 sigma: 1.5 deg)")
+    min_course_change_deg: float = param(
+        60.0, "deg", 10.0, 180.0, "course change that calibrates (quoted in the advice); half of it opens the calibration window")
+    calibration_window_s: float = param(
+        900.0, "s", 60.0, 7200.0, "no longer used (the calibration fit decides); kept so older configs load")
+    calibration_speed_change_fraction: float = param(
+        0.3, "", 0.05, 1.0, "no longer used (the calibration fit decides); kept so older configs load")
+    calibration_block_s: float = param(60.0, "s", 10.0, 900.0, "steady sailing is averaged over blocks this long for the calibration fit")
+    calibration_fit_window_h: float = param(3.0, "h", 0.5, 24.0, "the calibration fit uses the steady blocks of this many hours")
+    calibration_min_spread_deg: float = param(
+        10.0, "deg", 0.0, 180.0, "the fit runs only once the window's steady water tracks differ by this much")
+    calibration_fit_every_s: float = param(300.0, "s", 10.0, 7200.0, "how often the calibration is refitted")
+    calibration_fit_probability: float = param(
+        0.9995, "", 0.9, 0.999999, "chi-square gate between a calibration fit and the filter's calibration")
+    noise_correlation_s: float = param(
+        3.0, "s", 0.0, 120.0, "correlation time of the log's and compass's noise (effective sample count of a block)")
+    nis_check_fixes: int = param(120, "fixes", 10, 10000, "window of the NIS consistency test that decides 'degraded'")
+    nis_check_probability: float = param(0.999, "", 0.9, 0.999999, "two-sided probability of that test's bounds")
+    gate_probability: float = param(0.9995, "", 0.9, 0.999999, "chi-square gate on the ground-velocity innovation")
+    rejections_before_reset: int = param(8, "fixes", 1, 1000, "a run of this many rejections inflates and accepts")
+    reset_current_sigma_kn: float = param(1.0, "kn", 0.05, 10.0, "current sigma added per axis on such a reset")
+    nis_window_fixes: float = param(10.0, "fixes", 2.0, 1000.0, "time constant of the NIS average that drives adaptation")
+    nis_trigger_ratio: float = param(2.0, "", 1.1, 20.0, "average NIS above this times its expectation (2) inflates Q")
+    q_inflation_step: float = param(2.0, "", 1.01, 100.0, "factor on the current's process noise per fix while triggered")
+    q_inflation_decay: float = param(0.9, "", 0.1, 1.0, "factor per fix back towards 1 once the NIS is normal")
+    q_inflation_max: float = param(400.0, "", 1.0, 1e6, "largest factor on the current's process noise")
+    min_fix_interval_s: float = param(0.5, "s", 0.0, 60.0, "a ground velocity closer than this to the last one is a duplicate")
+    averaging_window_s: float = param(2.0, "s", 0.1, 60.0, "longest window for the mean heading and log speed before a fix")
+    input_timing_sigma_s: float = param(
+        1.0, "s", 0.0, 10.0, "uncertain lag between the GNSS velocity and the compass/log means (in R as rate x lag in a long turn)")
+    turn_rate_hold_deg_s: float = param(
+        2.0, "deg/s", 0.2, 30.0, "a heading rate above this (or a manoeuvre) holds the filter: prediction only")
+    turn_hold_max_s: float = param(60.0, "s", 0.0, 600.0, "longest hold through one turn; a longer one is fused")
+    jacobian_smoothing_s: float = param(
+        30.0, "s", 0.0, 600.0, "time constant of the low-passed log speed and heading used in the Jacobian")
+    manoeuvre_heading_deg: float = param(8.0, "deg", 0.5, 90.0, "a heading change beyond this is a manoeuvre (Jacobian follows)")
+    manoeuvre_speed_kn: float = param(0.5, "kn", 0.05, 10.0, "a log speed change beyond this is a manoeuvre")
+    stale_s: float = param(5.0, "s", 0.5, 600.0, "an input older than this makes the estimate degraded")
+    publish_interval_s: float = param(1.0, "s", 1.0, 600.0, "at most one publication per this interval")
+    valid_sigma_kn: float = param(0.3, "kn", 0.01, 5.0, "vector sigma of the current below which it is valid")
+    unavailable_sigma_kn: float = param(3.0, "kn", 0.1, 50.0, "vector sigma above which the estimate is unavailable")
+    current_strong_kn: float = param(2.0, "kn", 0.1, 20.0, "current_strong caution raised at this drift")
+    current_strong_clear_kn: float = param(1.7, "kn", 0.0, 20.0, "and cleared below this drift")
+    log_dead_kn: float = param(0.3, "kn", 0.0, 5.0, "a log reading below this ...")
+    log_dead_sog_kn: float = param(3.0, "kn", 0.5, 20.0, "... while SOG is above this (more than the current expected) is a dead log")
+    log_step_kn: float = param(1.0, "kn", 0.1, 20.0, "a log step this large while SOG along the heading holds is suspect")
+    log_step_window_s: float = param(10.0, "s", 2.0, 300.0, "window of the log-step comparison")
+    log_suspect_hold_s: float = param(5.0, "s", 0.0, 600.0, "a dead log must persist this long before the caution")
+    log_recover_s: float = param(120.0, "s", 5.0, 3600.0, "the log must agree this long before it is trusted again")
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """The log scale and compass offset, learnt or stated, with their uncertainty.
+
+    ``stw_scale``: true STW = log x stw_scale. ``heading_offset_deg``: true
+    heading = heading + offset. Sigmas None mean "the prior's" (a stated
+    installation value); ``t_s`` None means "no age" (no inflation).
+    """
+
+    stw_scale: float = 1.0
+    heading_offset_deg: float = 0.0
+    stw_scale_sigma: float | None = None
+    heading_offset_sigma_deg: float | None = None
+    t_s: float | None = None
+    fixes_used: int = 0
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> "Calibration":
+        """From a saved dict; unknown keys are ignored, missing ones take defaults; bad values raise ValueError."""
+        def num(key: str, default: float | None) -> float | None:
+            v = d.get(key, default)
+            if v is None:
+                return None
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+                raise ValueError(f"calibration {key} = {v!r}: expected a finite number")
+            return float(v)
+        cal = cls(stw_scale=num("stw_scale", 1.0), heading_offset_deg=num("heading_offset_deg", 0.0),
+                  stw_scale_sigma=num("stw_scale_sigma", None),
+                  heading_offset_sigma_deg=num("heading_offset_sigma_deg", None),
+                  t_s=num("t_s", None), fixes_used=int(num("fixes_used", 0) or 0))
+        if not 0.3 <= cal.stw_scale <= 3.0:
+            raise ValueError(f"calibration stw_scale = {cal.stw_scale}: expected 0.3 to 3")
+        for key in ("stw_scale_sigma", "heading_offset_sigma_deg"):
+            if getattr(cal, key) is not None and getattr(cal, key) <= 0.0:
+                raise ValueError(f"calibration {key} = {getattr(cal, key)}: expected a positive number")
+        return cal
+

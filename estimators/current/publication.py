@@ -1,0 +1,168 @@
+"""What the current estimator publishes: the payload, its quality, the calibration's words, current_strong.
+
+``quality`` (interface: converging, valid, degraded, unavailable) is what the
+filter can vouch for; see ``_quality``. A mixin of ``CurrentEstimator``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from estimators.angles import from_east_north, wrap_180
+from estimators.base import CAUTION, Condition, Output, Publication
+
+from .model import process_noise
+from .params import IK, ID, IE, IN, TOPIC, Calibration
+
+
+class Publisher:
+    """The current topic's payload and the current_strong caution (see the module doc)."""
+
+    def _covariance_at(self, t: float) -> np.ndarray:
+        """P predicted to ``t`` without changing the filter (for publishing between fixes and in outages)."""
+        dt = max(0.0, t - self.t_filter)
+        return self.ekf.P + process_noise(self.params, dt, self.q_inflation)
+
+    def _stale_inputs(self, t: float) -> list[str]:
+        return [k for k in ("fix", "heading", "water_speed") if t - self._seen.get(k, -math.inf) > self.params.stale_s]
+
+    def _quality(self, t: float, sigma_vec: float) -> tuple[str, str]:
+        """(quality, why). 'valid' promises: sigma small, fresh inputs, a trusted log, and the filter's
+        innovations over the last ``nis_check_fixes`` as large as its model says (the windowed NIS test)."""
+        p = self.params
+        if self.ekf is None or sigma_vec > p.unavailable_sigma_kn:
+            return "unavailable", "no estimate yet" if self.ekf is None else "uncertainty too large"
+        stale = self._stale_inputs(t)
+        if stale:
+            return "degraded", "stale inputs: " + ", ".join(stale)
+        if self._log_state == "suspect":
+            return "degraded", "the speed log disagrees with the GNSS"
+        if self.nis_check.verdict() == "high":
+            return "degraded", (f"GNSS, log and compass disagree more than their noise explains: the current may be "
+                                f"changing fast or an instrument misreading (mean NIS {self.nis_check.mean:.1f} over "
+                                f"the last {p.nis_check_fixes} fixes, expected at most {self.nis_check.high:.1f})")
+        if sigma_vec > p.valid_sigma_kn:
+            return "converging", "uncertainty above the valid threshold"
+        return "valid", ""
+
+    def _publish(self, t: float) -> list[Output]:
+        self._t_last_pub = t
+        if self.ekf is None:
+            payload = {"set_deg": None, "drift_kn": None, "east_kn": None, "north_kn": None, "set_sigma_deg": None,
+                       "drift_sigma_kn": None, "quality": "unavailable", "stw_scale": None, "heading_offset_deg": None,
+                       "calibration": self._calibration_words(None), "health": self.health.as_dict()}
+            return [Publication(t, TOPIC, payload)]
+        P = self._covariance_at(t)
+        e, n = float(self.ekf.x[IE, 0]), float(self.ekf.x[IN, 0])
+        drift, set_deg = from_east_north(e, n)
+        sig_drift, sig_set = polar_sigmas(e, n, P[:2, :2])
+        sigma_vec = math.sqrt(P[0, 0] + P[1, 1])
+        quality, why = self._quality(t, sigma_vec)
+        cal = self.calibration()
+        payload = {
+            "set_deg": round(set_deg, 1), "drift_kn": round(drift, 3),
+            "east_kn": round(e, 3), "north_kn": round(n, 3),
+            "set_sigma_deg": round(sig_set, 1), "drift_sigma_kn": round(sig_drift, 3),
+            "quality": quality, "quality_reason": why,
+            "stw_scale": round(cal.stw_scale, 4), "heading_offset_deg": round(cal.heading_offset_deg, 2),
+            "stw_scale_sigma": round(cal.stw_scale_sigma, 4),
+            "heading_offset_sigma_deg": round(cal.heading_offset_sigma_deg, 2),
+            "calibration": self._calibration_words(P),
+            "stale_inputs": self._stale_inputs(t),
+            "log": self._log_state,
+            "q_inflation": round(self.q_inflation, 2),
+            "health": self.health.as_dict(),
+        }
+        out: list[Output] = [Publication(t, TOPIC, payload)]
+        out.extend(self._strong_condition(t, drift, set_deg, quality))
+        return out
+
+    def _strong_condition(self, t: float, drift: float, set_deg: float, quality: str) -> list[Output]:
+        was = self._strong.active
+        if quality == "valid":
+            self._strong.update(drift)
+        elif quality == "unavailable":
+            self._strong.update(0.0)
+        if not self._strong.active:
+            if self._strong.active == was:
+                return []
+            return [Condition(t, "current_strong", CAUTION, False, f"Strong current; eased to {drift:.1f} kn",
+                              {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
+        # said again with each estimate while it lasts: the alert's figures follow the current (rate-limited there)
+        text = (f"Current of {drift:.1f} kn setting toward {set_deg:03.0f}° measured: check the tidal stream "
+                f"atlas and the chart for the passage ahead.")
+        return [Condition(t, "current_strong", CAUTION, True, text,
+                          {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
+
+    def _calibrated(self) -> tuple[bool, bool]:
+        if self.ekf is None:
+            return False, False
+        p = self.params
+        return (math.sqrt(self.ekf.P[IK, IK]) <= p.calibrated_stw_scale_sigma,
+                math.degrees(math.sqrt(self.ekf.P[ID, ID])) <= p.calibrated_heading_offset_sigma_deg)
+
+    def _earned(self) -> tuple[bool, bool]:
+        """Whether the log scale / the heading offset are known better than their prior."""
+        if self.ekf is None or self._prior is None:
+            return False, False
+        _, _, sk0, sd0 = self._prior
+        return self.ekf.P[IK, IK] < sk0 ** 2, self.ekf.P[ID, ID] < sd0 ** 2
+
+    def _calibration_words(self, P: np.ndarray | None) -> dict[str, str]:
+        p = self.params
+        if self._log_state == "suspect":
+            return {"status": "suspended",
+                    "advice": "the speed log disagrees with the GNSS; the calibration is held until it agrees again"}
+        log_ok, hdg_ok = self._calibrated()
+        turn = (f"a course change of {p.min_course_change_deg:.0f} deg or more (a tack, or legs at 90 deg or "
+                f"reciprocal), held for a few minutes on each leg,")
+        if log_ok and hdg_ok:
+            return {"status": "calibrated", "advice": "log scale and heading offset are calibrated; "
+                    "further course changes keep them fresh"}
+        if log_ok:
+            return {"status": "partly calibrated", "advice": f"{turn} would calibrate the heading offset"}
+        if hdg_ok:
+            return {"status": "partly calibrated", "advice": f"{turn} would calibrate the log scale"}
+        return {"status": "not yet calibrated",
+                "advice": f"{turn} would calibrate the log scale and the heading offset; a change of speed helps a little"}
+
+    def calibration(self) -> Calibration:
+        """The calibration earned so far; a part not yet earned is the prior (saved or stated) with its sigma.
+
+        A part is earned once the filter's sigma is below the prior's (it has learnt something: a better
+        estimate than the prior, with its honest sigma); the status words say "calibrated" only below the
+        tighter ``calibrated_*`` sigmas. So a calibration whose sigma creeps past those thresholds on a
+        long steady passage keeps its learnt value rather than falling back to the prior.
+        """
+        if self.ekf is None:
+            saved = self.saved or Calibration()
+            # before any sample there is no "now": the prior at its own age (none), else as first seen
+            k, d, sk, sd = self._prior or self._prior_calibration(saved.t_s if saved.t_s is not None else 0.0)
+            return Calibration(k, math.degrees(d), sk, math.degrees(sd), saved.t_s, saved.fixes_used)
+        log_ok, hdg_ok = self._earned()
+        k0, d0, sk0, sd0 = self._prior
+        x, P = self.ekf.x, self.ekf.P
+        k, sk = (float(x[IK, 0]), math.sqrt(P[IK, IK])) if log_ok else (k0, sk0)
+        d, sd = (float(x[ID, 0]), math.sqrt(P[ID, ID])) if hdg_ok else (d0, sd0)
+        used = (self.saved.fixes_used if self.saved else 0) + self.health.fused
+        return Calibration(k, wrap_180(math.degrees(d)), sk, math.degrees(sd), self.t_filter, used)
+
+
+
+def polar_sigmas(e: float, n: float, Pc: np.ndarray) -> tuple[float, float]:
+    """(drift sigma kn, set sigma deg) from the current's east/north covariance, linearised.
+
+    drift = |c|: J = [e, n] / |c|; set = atan2(e, n): J = [n, -e] / |c|^2 (rad).
+    The set sigma is capped at 180 deg where the drift is too small to have a direction.
+    """
+    d = math.hypot(e, n)
+    if d < 1e-6:
+        return math.sqrt(max(Pc[0, 0], Pc[1, 1])), 180.0
+    jd = np.array([e / d, n / d])
+    js = np.array([n / d ** 2, -e / d ** 2])
+    sig_d = math.sqrt(max(0.0, float(jd @ Pc @ jd)))
+    sig_s = math.degrees(math.sqrt(max(0.0, float(js @ Pc @ js))))
+    return sig_d, min(180.0, sig_s)
+
