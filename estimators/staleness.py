@@ -89,6 +89,7 @@ class StalenessWatch(EstimatorBase):
 
     name = "staleness"
     accepts = tuple(KIND_NAMES)
+    sees_distrusted = True  # a frozen compass still speaks: one failure, one alert (heading_suspect)
 
     def __init__(self, params: StalenessParams | None = None) -> None:
         self.params = params or StalenessParams()

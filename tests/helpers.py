@@ -353,6 +353,13 @@ def _payload_problems(topic: str, p: dict) -> list[str]:
             bad.append(f"sea_temperature temp_c {p.get('temp_c')!r}")
     elif name == "sea_state":
         bad += [f"sea_state lacks {k}" for k in SEA_STATE_FIELDS if k not in p]
+    elif name == "instruments":
+        # added with the watch view: the latest readings, each with its age in s (never negative)
+        if not all(_num(v) and v >= 0 for k, v in p.items() if k.endswith("_age_s")):
+            bad.append(f"instruments ages {p!r}")
+        for k in ("heading_deg", "wind_from_deg"):
+            if k in p and not (_num(p[k]) and 0 <= p[k] < 360.5):
+                bad.append(f"instruments {k} {p[k]!r}")
     elif name == "events":
         bad += [f"event lacks {k}" for k in ("kind", "lat", "lon") if k not in p]
         if p.get("kind") == "front_crossing":

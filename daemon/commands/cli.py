@@ -79,9 +79,14 @@ def build_parser() -> argparse.ArgumentParser:
     exp.add_argument("--out", metavar="FILE", required=True)
     exp.add_argument("--config", metavar="FILE")
 
-    watch = sub.add_parser("watch", help="a live terminal view of what the service publishes")
-    watch.add_argument("--mqtt", metavar="URL", default="mqtt://127.0.0.1:1883")
-    watch.add_argument("--prefix", default="offwatch")
+    watch = sub.add_parser("watch", help="a live terminal view of what the service publishes",
+                           description="A live view for the chart table (80 x 24 is enough): instruments, current, "
+                                       "barometer, alerts; arrow keys select an alert, Enter shows it whole, "
+                                       "a acknowledges it, q quits. Uses the service's [mqtt] settings "
+                                       "(user, password, TLS files) from --config.")
+    watch.add_argument("--config", metavar="FILE", help="the service's TOML config, for its [mqtt] settings")
+    watch.add_argument("--mqtt", metavar="URL", help="broker (overrides the config; default mqtt://127.0.0.1:1883)")
+    watch.add_argument("--prefix", help="topic prefix (overrides the config; default offwatch)")
     watch.add_argument("--once", action="store_true", help="print one view after a few seconds and exit")
 
     conf = sub.add_parser("config", help="every config key with its unit, range and default; or check a file",

@@ -10,7 +10,7 @@ Sections (all optional):
   [inputs.NAME]    one table per live input (serial, tcp, udp)
   [priority]       kind = ["source", ...]: which source wins where two give the same kind
   [mqtt] [recording] [state] [alerts]      the service's outputs
-  [current] [position] [staleness] [front] [pressure] [sea_state]   estimator parameters
+  [current] [position] [staleness] [front] [pressure] [integrity] [sea_state]   estimator parameters
 """
 
 from __future__ import annotations
@@ -161,6 +161,7 @@ def parameter_sections() -> dict[str, type]:
     from daemon.outlets.recorder import RecordingParams
     from estimators.current import CurrentParams
     from estimators.fronts import FrontParams
+    from estimators.integrity import IntegrityParams
     from estimators.position import PositionParams
     from estimators.pressure import PressureParams
     from estimators.sea_state import SeaStateParams
@@ -173,6 +174,7 @@ def parameter_sections() -> dict[str, type]:
         "position": PositionParams,
         "staleness": StalenessParams,
         "front": FrontParams,
+        "integrity": IntegrityParams,
         "pressure": PressureParams,
         "sea_state": SeaStateParams,
     }
