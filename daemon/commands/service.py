@@ -71,7 +71,8 @@ class Service:
         if url:
             from daemon.outlets.mqtt import MqttSink
             self.mqtt = MqttSink.from_config(client_id_for(self.cfg.mqtt, "run"), url=url, state_dir=self.state_dir,
-                                             on_ack=lambda i, reply: self.parts.pipeline.acknowledge(i, reply))
+                                             on_ack=lambda i, reply: self.parts.pipeline.acknowledge(i, reply),
+                                             on_swell=lambda b: self.parts.pipeline.report_swell(b))
 
     def _judge_recording(self) -> None:
         """``recording_fault`` (a caution) while commits fail, and for a while after lines were lost."""

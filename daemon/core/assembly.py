@@ -24,6 +24,7 @@ from estimators.integrity import HeadingIntegrity
 from estimators.position import PositionEstimator
 from estimators.pressure import PressureTendency
 from estimators.samples import KIND_NAMES
+from estimators.sea_state import SeaStateEstimator
 from estimators.staleness import StalenessWatch
 
 log = logging.getLogger(__name__)
@@ -43,6 +44,7 @@ def build_estimators(cfg: Config, calibration: Calibration | None = None) -> lis
         PositionEstimator(cfg.section("position")),
         FrontDetector(cfg.section("front")),
         PressureTendency(cfg.section("pressure"), inst.barometer_height_m),
+        SeaStateEstimator(cfg.section("sea_state")),  # after current: reads its calibration and set/drift
         StalenessWatch(cfg.section("staleness")),
         InstrumentReadings(),
     ]

@@ -10,7 +10,7 @@ Sections (all optional):
   [inputs.NAME]    one table per live input (serial, tcp, udp)
   [priority]       kind = ["source", ...]: which source wins where two give the same kind
   [mqtt] [recording] [state] [alerts] [nmea_out]   the service's outputs
-  [current] [position] [staleness] [front] [pressure] [integrity]   estimator parameters
+  [current] [position] [staleness] [front] [pressure] [integrity] [sea_state]   estimator parameters
 """
 
 from __future__ import annotations
@@ -165,6 +165,7 @@ def parameter_sections() -> dict[str, type]:
     from estimators.integrity import IntegrityParams
     from estimators.position import PositionParams
     from estimators.pressure import PressureParams
+    from estimators.sea_state import SeaStateParams
     from estimators.staleness import StalenessParams
 
     return {
@@ -177,6 +178,7 @@ def parameter_sections() -> dict[str, type]:
         "front": FrontParams,
         "integrity": IntegrityParams,
         "pressure": PressureParams,
+        "sea_state": SeaStateParams,
     }
 
 
@@ -231,7 +233,10 @@ def fill(cls: type, values: Any, where: str) -> Any:
         if key not in names:
             raise ConfigError(f"{where} unknown key {key!r}: expected one of {', '.join(sorted(names))}")
         kwargs[key] = _coerce(value, hints[key], f"{where} {key}")
-    obj = cls(**kwargs)
+    try:
+        obj = cls(**kwargs)
+    except ValueError as e:  # a parameter class's own check across its keys
+        raise ConfigError(f"{where} {e}") from None
     problems = check(obj)
     if problems:
         raise ConfigError(f"{where} {problems[0]}")

@@ -27,6 +27,7 @@ from typing import Any
 
 from daemon.core.payloads import iso_utc, payload as make_payload
 from daemon.core.readings import Message, RawLine, Reading, Sink
+from daemon.intake.swell import parse_swell
 from estimators.base import Condition, Distrust, Publication
 from estimators.runner import Runner
 from estimators.samples import kind_of
@@ -106,6 +107,13 @@ class Pipeline:
         """
         self._commands.put(("ack", (alert_id, reply)))
 
+    def report_swell(self, payload: bytes) -> str:
+        """Thread-safe: a swell report (``daemon.intake.swell``) for the estimators; returns why it was refused."""
+        report, why = parse_swell(payload)
+        if report is not None:
+            self._commands.put(("swell", report))
+        return why
+
     def _run_commands(self) -> None:
         if self._commands.empty():  # the common case, on every item: no exception raised and caught
             return
@@ -114,7 +122,11 @@ class Pipeline:
                 cmd, arg = self._commands.get_nowait()
             except queue.Empty:
                 return
-            if cmd == "ack":
+            if cmd == "swell":  # a state, kept even before the first data (a retained report comes first)
+                for est in self.estimators:
+                    if hasattr(est, "set_swell"):
+                        est.set_swell(arg.period_s, arg.from_deg)
+            elif cmd == "ack":
                 alert_id, reply = arg
                 changes = self.alerts.acknowledge(alert_id, self.now_s) if self.now_s is not None else []
                 self._emit_all(changes)

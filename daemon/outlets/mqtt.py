@@ -196,7 +196,8 @@ class MqttSink:
 
     def __init__(self, settings: MqttSettings, outbox_path: str | os.PathLike[str] | None = None, *,
                  on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
-                 on_connected: Callable[[], object] | None = None) -> None:
+                 on_connected: Callable[[], object] | None = None,
+                 on_swell: Callable[[bytes], str] | None = None) -> None:
         self.settings = settings
         self.broker = parse_broker_url(settings.url)
         for problem in mqtt_problems(settings)[:1]:  # the config's own check: settings made in code too
@@ -206,6 +207,8 @@ class MqttSink:
         self.ack_topic = f"{prefix}/ack"
         self._on_ack = on_ack
         self._on_connected = on_connected
+        self.swell_topic = f"{prefix}/swell"  # a swell the crew reports (daemon.intake.swell)
+        self._on_swell = on_swell
         self.counters: Counter[str] = Counter()
         self.outbox = Outbox(outbox_path, max_queued=settings.max_queued)
         self._work: queue.Queue[tuple] = queue.Queue()
@@ -237,7 +240,8 @@ class MqttSink:
     def from_config(cls, cfg: Any, *, url: str | None = None, state_dir: str | os.PathLike[str] | None = None,
                     on_ack: Callable[[str, Callable[[str, bool], None]], object] | None = None,
                     on_connected: Callable[[], object] | None = None,
-                    close_timeout_s: float | None = None) -> MqttSink:
+                    close_timeout_s: float | None = None,
+                    on_swell: Callable[[bytes], str] | None = None) -> MqttSink:
         """Build from the [mqtt] config section (``url`` and ``close_timeout_s`` in place of its own
         when given); the outbox lives in ``state_dir`` (memory when None)."""
         changes: dict[str, Any] = {"url": url} if url else {}
@@ -245,7 +249,7 @@ class MqttSink:
             changes["close_timeout_s"] = close_timeout_s
         settings = dataclasses.replace(cfg, **changes) if changes else cfg
         path = Path(state_dir) / OUTBOX_FILE if state_dir is not None else None
-        return cls(settings, path, on_ack=on_ack, on_connected=on_connected)
+        return cls(settings, path, on_ack=on_ack, on_connected=on_connected, on_swell=on_swell)
 
     def _make_client(self) -> paho.Client:
         s, b = self.settings, self.broker
@@ -386,6 +390,8 @@ class MqttSink:
                                                  f"connection: {words}{hint}; retrying")
             return
         client.subscribe(self.ack_topic, qos=1)
+        if self._on_swell is not None:
+            client.subscribe(self.swell_topic, qos=1)
         self._work.put(("connected", time.monotonic()))
 
     def _cb_connect_fail(self, client: paho.Client, userdata: Any) -> None:
@@ -399,6 +405,12 @@ class MqttSink:
         self._work.put(("published", mid, bool(getattr(reason, "is_failure", False))))
 
     def _cb_message(self, client: paho.Client, userdata: Any, msg: paho.MQTTMessage) -> None:
+        if msg.topic == self.swell_topic and self._on_swell is not None:
+            why = self._on_swell(bytes(msg.payload))  # retained is fine: the swell is a state
+            self.counters["swell_ignored" if why else "swell_accepted"] += 1
+            if why:
+                log.warning("MQTT: ignored a message on %s: %s", self.swell_topic, why)
+            return
         if msg.topic != self.ack_topic:
             return
         if msg.retain:

@@ -201,6 +201,35 @@ def steady_pressure_12h() -> Scenario:
 
 # --------------------------------------------------------------------------- the demo
 
+def wind_over_current(current: str = "against") -> Scenario:
+    """Three hours reaching east across a strong current band (4.5 kn core, 8 nm wide) in 20 kn from 000.
+
+    ``current``: "against" (the band sets 000, into the wind), "with" (it sets 180,
+    downwind) or "none" (no band). A 20-min run south first calibrates the log
+    (4 % low) and the compass (2° high). The band's water is 4 °C warmer than
+    the 16 °C outside, the air 14.5 °C: unstable air in the band only.
+    """
+    t0, lat, lon = utc(2026, 5, 9, 5), 38.40, -44.70
+    set_deg = {"against": 0.0, "with": 180.0, "none": 0.0}[current]
+    clat, clon = along(lat, lon, 90.0, 9.0)
+    band = CurrentBand(clat, clon, set_deg=set_deg, core_kn=0.0 if current == "none" else 4.5,
+                       core_width_nm=8.0, edge_width_nm=0.6, warm_c=4.0)
+    ocean = Ocean(
+        currents=(SteadyCurrent(250.0, 0.3), band),
+        sea_temp=_plain_sea(lat, lon, 16.0),
+        pressure=_flat_pressure(t0, 1015.0),
+        wind=_steady_wind(t0, 0.0, 20.0),
+        air_temp_c=14.5, wind_drift_factor=0.03, depth_m=400.0,
+    )
+    return Scenario(
+        name=f"wind_over_current_{current}", start_utc=t0, duration_s=3 * H, start_lat=lat, start_lon=lon,
+        helm=(Steer(90.0, 6.5, 25 * MIN), Steer(180.0, 6.5, 20 * MIN), Steer(90.0, 6.5, 135 * MIN)),
+        ocean=ocean,
+        sensors=SensorSpec(stw_scale=0.96, heading_offset_deg=2.0),
+        description=f"Reaching east in 20 kn from the north across a 4.5-kn current band, wind {current} current.",
+    )
+
+
 DEMO_VESSEL = 'the cutter "Tern of Haldane"'
 DEMO_HARBOUR = "Port Averly, on the invented island of Skerrow"
 DEMO_START = utc(2026, 5, 4, 4)
@@ -353,4 +382,7 @@ SCENARIOS = {
     "tidal_box_realistic": tidal_box_realistic,
     "jet_crossing": jet_crossing,
     "outage_leg": outage_leg,
+    "wind_against_current": lambda: wind_over_current("against"),
+    "wind_with_current": lambda: wind_over_current("with"),
+    "wind_no_current": lambda: wind_over_current("none"),
 }
