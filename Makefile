@@ -24,6 +24,8 @@ bench: $(STAMP)
 	$(BIN)/python -m tools.bench.fronts_pressure
 	$(BIN)/python -m tools.bench.recording
 	$(BIN)/python -m tools.bench.replay
+	$(BIN)/python -m tools.bench.faults
+	$(BIN)/python -m tools.bench.watch
 	$(BIN)/python -m tools.bench.handoffs
 
 clean:

@@ -49,7 +49,25 @@ class Condition:
     values: Mapping[str, Any] = field(default_factory=dict)
 
 
-Output = Publication | Condition
+@dataclass(frozen=True, slots=True)
+class Distrust:
+    """Samples of ``kind`` (a KIND_NAMES name) are (``active``) or are no longer believed.
+
+    The pipeline then withholds that kind from every estimator but those with
+    ``sees_distrusted`` (the one watching the sensor, the displays); the samples
+    are still recorded. ``reason`` says why, for the status and the log. An
+    estimator may define ``on_distrust(kind, active, since_s)`` to drop what it
+    took in since ``since_s`` (the pipeline calls it on every change).
+    """
+
+    t_s: float
+    kind: str
+    active: bool
+    reason: str = ""
+    since_s: float | None = None  # when the evidence began: samples after it may already be wrong
+
+
+Output = Publication | Condition | Distrust
 
 
 class Context(Protocol):
@@ -82,6 +100,7 @@ class EstimatorBase:
 
     name = "unnamed"
     accepts: tuple[type, ...] = ()
+    sees_distrusted = False  # True: also given samples of a kind the pipeline withholds (see Distrust)
 
     def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
         return ()

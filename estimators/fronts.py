@@ -98,6 +98,7 @@ from dataclasses import dataclass
 
 from geographiclib.geodesic import Geodesic
 
+from estimators import wording
 from estimators.base import CAUTION, Condition, Context, EstimatorBase, Output, Publication
 from estimators.params import param
 from estimators.samples import Fix, SeaTemperature
@@ -242,17 +243,8 @@ def _fit_line(ds: Sequence[float], ts: Sequence[float]) -> tuple[float, float, f
 
 
 def format_lat_lon(lat: float, lon: float) -> str:
-    """Degrees and decimal minutes, e.g. ``36°12.3'N 012°34.5'W``."""
-
-    def part(v: float, pos: str, neg: str, width: int) -> str:
-        a = abs(v)
-        deg = int(a)
-        minutes = round((a - deg) * 60.0, 1)
-        if minutes >= 60.0:
-            deg, minutes = deg + 1, 0.0
-        return f"{deg:0{width}d}°{minutes:04.1f}'{pos if v >= 0 else neg}"
-
-    return f"{part(lat, 'N', 'S', 2)} {part(lon, 'E', 'W', 3)}"
+    """Degrees and decimal minutes, e.g. ``36°12.3′N 012°34.5′W``: the one position format of texts."""
+    return wording.position(lat, lon)
 
 
 class _Run:

@@ -34,9 +34,18 @@ advanced from the last fix with the velocity over ground
 i.e. the water velocity plus the set and drift. Leeway is not modelled here:
 the current estimator measures ground minus (k s u(psi + d)), so whatever
 leeway the boat makes on a steady point of sail is part of its "current". The
-last usable current estimate is held through the outage; with no heading or
-log (or a log the current estimator calls suspect) the last fix's SOG/COG is
-held instead, with the larger ``hold_sigma_kn``.
+last usable current estimate is held through the outage.
+
+When the heading and the log fall silent too (every feed stops at once: a
+multiplexer or a network gateway failing), the boat has not stopped: the last
+water velocity seen while they were alive is held, plus the held current, its
+velocity sigma widened by ``water_hold_sigma_kn`` for the course and speed
+changes nobody can see (basis ``last_water_and_current``). With no heading or
+log at all (or a log the current estimator calls suspect) the last ground
+velocity is held instead, with the larger ``hold_sigma_kn``: the last fix's
+SOG/COG, or a VTG's, or the displacement between the last two fixes when the
+sentences carried no SOG (a GGA-only receiver). The reckoning never stands
+still at 0 kn for want of a SOG field.
 
 Each tick advances the position along the geodesic (geographiclib
 ``Geodesic.WGS84.Direct``) by |v_ground| x dt at the azimuth of v_ground, so a
@@ -66,6 +75,17 @@ fix time and the fix is published once as ``dr_error_m`` with the GNSS
 position, published at once (the one exception to the rate limit), and dead reckoning restarts from the fix at the next outage.
 ``gnss_lost`` is active once no fix has come for
 ``gnss_lost_after_s`` and inactive with the first usable fix.
+
+A frozen receiver. A GNSS that fails by freezing keeps sending its last
+sentence: the same position, often the same time. Two signs make the fixes
+stale, not merely old: (1) the same position repeated while the boat, by its
+own figures, has moved ``frozen_distance_m`` (integrating the larger of the
+fix's SOG and the dead-reckoned ground speed: a static-hold receiver at anchor
+reports SOG 0 and water plus current is near zero there, so it is not taken
+for frozen); (2) a receiver time that has not advanced for ``frozen_time_s``.
+Then the fixes since the repetition began are dropped, dead reckoning runs
+from the last fix before it, and ``gnss_lost`` says the receiver is frozen (one
+failure, one alert). A fix with a new position and time ends it.
 """
 
 from __future__ import annotations
@@ -73,15 +93,15 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from datetime import datetime, timezone
 from typing import Any
 
 from geographiclib.geodesic import Geodesic
 
 from estimators.angles import KN_TO_MPS, from_east_north, to_east_north, wrap_360
+from estimators import wording
 from estimators.base import WARNING, Condition, Context, EstimatorBase, Output, Publication
 from estimators.params import param
-from estimators.samples import Fix, Heading, Sample, WaterSpeed
+from estimators.samples import Fix, GroundVelocity, Heading, Sample, WaterSpeed
 
 TOPIC = "position"
 ALERT_ID = "gnss_lost"
@@ -90,6 +110,9 @@ _GEOD = Geodesic.WGS84
 
 
 HDOP_KEEP_S = 5.0  # a fix without HDOP takes the receiver's latest this young
+GROUND_FROM_FIXES_MIN_S = 0.5  # two fixes at least this far apart (two epochs, not two sentences of one)
+GROUND_FROM_FIXES_MAX_S = 10.0  # and at most this far apart give a ground velocity
+FROZEN_MAX_STEP_S = 10.0  # repeats further apart than this (a gap in the data) say nothing of a frozen receiver
 
 @dataclass(frozen=True)
 class PositionParams:
@@ -109,6 +132,14 @@ class PositionParams:
     heading_offset_sigma_deg: float = param(3.0, "deg", 0.0, 45.0, "compass offset sigma when the current gives none")
     no_current_sigma_kn: float = param(1.0, "kn", 0.0, 10.0, "sigma of the current taken as zero when none is known")
     hold_sigma_kn: float = param(1.5, "kn", 0.0, 20.0, "velocity sigma while holding the last SOG/COG")
+    water_hold_sigma_kn: float = param(0.5, "kn", 0.0, 10.0,
+                                       "velocity sigma added while holding the last water velocity (heading and "
+                                       "log silent too)")
+    frozen_distance_m: float = param(50.0, "m", 5.0, 5000.0,
+                                     "one position repeated while the boat's own figures say it moved this far: "
+                                     "a frozen receiver")
+    frozen_time_s: float = param(30.0, "s", 5.0, 3600.0,
+                                 "a receiver time that has not advanced for this long: a frozen receiver")
 
 
 @dataclass
@@ -119,6 +150,8 @@ class PositionHealth:
     dr_steps: int = 0
     hold_steps: int = 0
     outages: int = 0
+    frozen: int = 0  # times a frozen receiver was detected
+    frozen_fixes: int = 0  # fixes dropped as repeats of a frozen receiver
 
     def as_dict(self) -> dict[str, int]:
         return dict(self.__dict__)
@@ -153,14 +186,24 @@ class _Velocity:
     east_kn: float
     north_kn: float
     sigma_kn: float
-    basis: str  # "water_and_current", "water_no_current" or "last_ground_velocity"
+    basis: str  # "water_and_current", "water_no_current", "last_water_and_current" or "last_ground_velocity"
+
+
+@dataclass(frozen=True)
+class _Water:
+    """The last water velocity k s u(psi + d) seen with a live heading and log, and its calibration variance."""
+
+    t_s: float
+    east_kn: float
+    north_kn: float
+    var_kn2: float
 
 
 class PositionEstimator(EstimatorBase):
     """GNSS fixes in, ``position`` out; dead reckoning through outages; the ``gnss_lost`` warning."""
 
     name = "position"
-    accepts = (Fix,)
+    accepts = (Fix, GroundVelocity)
 
     def __init__(self, params: PositionParams | None = None) -> None:
         self.params = params or PositionParams()
@@ -176,28 +219,43 @@ class PositionEstimator(EstimatorBase):
         self._jump_rejects = 0
         self._dr_error_m: float | None = None
         self._last_hdop: tuple[float | None, float | None] = (None, None)
+        self._water: _Water | None = None  # the last water velocity with a live heading and log
+        self._ground_v: tuple[float, float] | None = None  # last ground velocity (east, north kn)
+        self._prev_raw: Fix | None = None  # the last fix received, used or not
+        self._same_pos_start: Fix | None = None  # first fix of a run repeating one position
+        self._same_pos_moved_m = 0.0  # how far the boat moved by its own figures during that run
+        self._same_time_start: Fix | None = None  # first fix of a run repeating one receiver time
+        self._frozen: str | None = None  # "position" or "time" while a frozen receiver is seen
+        self._outage_frozen = False  # the present outage began with a frozen receiver
 
     # -- the protocol --------------------------------------------------------
 
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
+        if isinstance(sample, GroundVelocity):
+            self._note_ground_velocity(sample.sog_kn, sample.cog_deg)
+            return ()
         fix = sample
         if fix.hdop is not None:
             self._last_hdop = (fix.t_s, fix.hdop)
         if self._fix is not None and fix.t_s <= self._fix.t_s:
             return ()
+        self._note_current(ctx)
+        if self._repeats_a_frozen_receiver(fix, ctx):
+            self.health.frozen_fixes += 1
+            return ()
         if not self._usable(fix):
             return ()
-        self._note_current(ctx)
         out: list[Output] = []
         if self._dr is not None and self._dr.running:
             self._advance(fix.t_s, ctx)
             self._dr_error_m = _distance_m(self._dr.lat, self._dr.lon, fix.lat_deg, fix.lon_deg)
+        self._note_fix_velocity(fix)
         self._fix, self._fix_sigma_m = fix, self._sigma_of(fix)
         self._dr = _Reckoning(fix.lat_deg, fix.lon_deg, fix.t_s, self._fix_sigma_m)
         self.health.fixes_used += 1
         if self._lost:
             self._lost = False
-            out.append(Condition(fix.t_s, ALERT_ID, WARNING, False, "GNSS fixes have returned.", {}))
+            out.append(self._returned_condition(fix.t_s))
         if fix.t_s - self._last_pub_s >= self.params.publish_interval_s - _EPS_S or self._last_source != "gnss":
             out.append(self._gnss_publication(fix))  # the return to GNSS is news: published at once
         return out
@@ -208,6 +266,7 @@ class PositionEstimator(EstimatorBase):
 
     def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
         self._note_current(ctx)
+        self._note_water(t_s, ctx)
         if self._fix is None or self._dr is None:
             return ()
         gap = t_s - self._fix.t_s
@@ -222,6 +281,107 @@ class PositionEstimator(EstimatorBase):
             self._lost = True
             out.append(self._lost_condition(t_s, gap))
         return out
+
+    # -- a frozen receiver ---------------------------------------------------------
+
+    def _repeats_a_frozen_receiver(self, fix: Fix, ctx: Context) -> bool:
+        """True when ``fix`` repeats a receiver that has frozen (see the module text); not to be used."""
+        prev, self._prev_raw = self._prev_raw, fix
+        if prev is None:
+            return False
+        if fix.t_s - prev.t_s > FROZEN_MAX_STEP_S:
+            # a gap in the data (a logger switched off) is no evidence either way: start counting afresh
+            self._same_pos_start = self._same_time_start = None
+            self._frozen = None
+            return False
+        if (fix.lat_deg, fix.lon_deg) == (prev.lat_deg, prev.lon_deg):
+            if self._same_pos_start is None:
+                self._same_pos_start, self._same_pos_moved_m = prev, 0.0
+            claimed_kn = max(_num({"v": fix.sog_kn}, "v", 0.0), self._modelled_ground_kn(fix.t_s, ctx))
+            self._same_pos_moved_m += claimed_kn * KN_TO_MPS * (fix.t_s - prev.t_s)   # distance = v dt
+        else:
+            self._same_pos_start = None
+        if fix.gnss_time_s is not None and fix.gnss_time_s == prev.gnss_time_s:
+            if self._same_time_start is None:
+                self._same_time_start = prev
+        else:
+            self._same_time_start = None
+        p = self.params
+        reason, start = None, None
+        if self._same_pos_start is not None and self._same_pos_moved_m >= p.frozen_distance_m:
+            reason, start = "position", self._same_pos_start
+        elif self._same_time_start is not None and fix.t_s - self._same_time_start.t_s >= p.frozen_time_s:
+            reason, start = "time", self._same_time_start
+        if reason is None:
+            self._frozen = None
+            return False
+        if self._frozen is None:
+            self._freeze(start, reason)
+        return True
+
+    def _freeze(self, start: Fix, reason: str) -> None:
+        """Drop the repeated fixes: dead reckoning runs from the last fix before the repetition."""
+        self._frozen, self._outage_frozen = reason, True
+        self.health.frozen += 1
+        if self._fix is not None and self._fix.t_s > start.t_s and not (self._dr is not None and self._dr.running):
+            self._fix = start
+            self._dr = _Reckoning(start.lat_deg, start.lon_deg, start.t_s, self._fix_sigma_m)
+
+    # -- velocities seen while the sensors were alive -----------------------------------
+
+    def _note_ground_velocity(self, sog_kn: float | None, cog_deg: float | None) -> None:
+        if _finite(sog_kn) and _finite(cog_deg) and sog_kn >= 0.0:
+            self._ground_v = to_east_north(sog_kn, cog_deg)
+
+    def _note_fix_velocity(self, fix: Fix) -> None:
+        """The ground velocity from the fix's SOG/COG, or from the displacement since the last fix."""
+        if _finite(fix.sog_kn) and _finite(fix.cog_deg):
+            self._note_ground_velocity(fix.sog_kn, fix.cog_deg)
+            return
+        prev = self._fix
+        if prev is None or (prev.lat_deg, prev.lon_deg) == (fix.lat_deg, fix.lon_deg):
+            return  # a repeated position says nothing of the speed (a coarse or a frozen receiver)
+        # the receiver's own epochs where both fixes have them (exact, whatever the line timing)
+        if fix.gnss_time_s is not None and prev.gnss_time_s is not None:
+            dt = fix.gnss_time_s - prev.gnss_time_s
+        else:
+            dt = fix.t_s - prev.t_s
+        if not GROUND_FROM_FIXES_MIN_S <= dt <= GROUND_FROM_FIXES_MAX_S:
+            return  # two sentences of one epoch, or too far apart to say how the boat moves now
+        g = _GEOD.Inverse(prev.lat_deg, prev.lon_deg, fix.lat_deg, fix.lon_deg)
+        speed_kn = g["s12"] / dt / KN_TO_MPS                                     # v = s / dt
+        self._ground_v = to_east_north(speed_kn, wrap_360(g["azi1"]))
+
+    def _note_water(self, t_s: float, ctx: Context) -> None:
+        v = self._water_velocity(t_s, ctx)
+        if v is not None:
+            self._water = v
+
+    def _water_velocity(self, t_s: float, ctx: Context) -> _Water | None:
+        """k s u(psi + d) from a live heading and log, with its calibration variance; None without them."""
+        p = self.params
+        cur = self._current
+        if cur is not None and cur.get("log") == "suspect":
+            return None
+        heading = self._recent_heading(t_s, ctx)
+        log_kn = self._recent_log(t_s, ctx)
+        if heading is None or log_kn is None:
+            return None
+        k = _num(cur, "stw_scale", 1.0)
+        d = _num(cur, "heading_offset_deg", 0.0)
+        sigma_k = _num(cur, "stw_scale_sigma", p.stw_scale_sigma)
+        sigma_d = math.radians(_num(cur, "heading_offset_sigma_deg", p.heading_offset_sigma_deg))
+        we, wn = to_east_north(k * log_kn, wrap_360(heading + d))     # water velocity k s u(psi + d)
+        var = (log_kn * sigma_k) ** 2 + (k * log_kn * sigma_d) ** 2
+        return _Water(t_s, we, wn, var)
+
+    def _modelled_ground_kn(self, t_s: float, ctx: Context) -> float:
+        """|water + current| from live sensors, or 0 without them (for the frozen-receiver test)."""
+        w = self._water_velocity(t_s, ctx)
+        if w is None:
+            return 0.0
+        ce, cn, _ = self._current_vector()
+        return math.hypot(w.east_kn + ce, w.north_kn + cn)
 
     # -- fixes -------------------------------------------------------------------
 
@@ -295,28 +455,22 @@ class PositionEstimator(EstimatorBase):
             self.health.dr_steps += 1
 
     def _ground_velocity(self, t_s: float, ctx: Context) -> _Velocity:
-        p = self.params
-        cur = self._current
-        heading = self._recent_heading(t_s, ctx)
-        log_kn = self._recent_log(t_s, ctx)
-        if heading is None or log_kn is None or (cur is not None and cur.get("log") == "suspect"):
-            return self._held_velocity()
-        k = _num(cur, "stw_scale", 1.0)
-        d = _num(cur, "heading_offset_deg", 0.0)
-        sigma_k = _num(cur, "stw_scale_sigma", p.stw_scale_sigma)
-        sigma_d = math.radians(_num(cur, "heading_offset_sigma_deg", p.heading_offset_sigma_deg))
-        we, wn = to_east_north(k * log_kn, wrap_360(heading + d))     # water velocity k s u(psi + d)
         ce, cn, sigma_c = self._current_vector()
-        var = sigma_c ** 2 + (log_kn * sigma_k) ** 2 + (k * log_kn * sigma_d) ** 2
-        basis = "water_and_current" if cur is not None else "water_no_current"
-        return _Velocity(we + ce, wn + cn, math.sqrt(var), basis)
+        water = self._water_velocity(t_s, ctx)
+        if water is not None:
+            self._water = water
+            basis = "water_and_current" if self._current is not None else "water_no_current"
+            return _Velocity(water.east_kn + ce, water.north_kn + cn, math.sqrt(sigma_c ** 2 + water.var_kn2), basis)
+        held = self._water
+        log_suspect = self._current is not None and self._current.get("log") == "suspect"
+        if held is not None and not log_suspect and held.t_s >= self._fix.t_s - self.params.input_max_age_s:
+            # every feed stopped at once: the boat sails on as it last did through the water
+            var = sigma_c ** 2 + held.var_kn2 + self.params.water_hold_sigma_kn ** 2
+            return _Velocity(held.east_kn + ce, held.north_kn + cn, math.sqrt(var), "last_water_and_current")
+        return self._held_velocity()
 
     def _held_velocity(self) -> _Velocity:
-        fix = self._fix
-        if fix.sog_kn is not None and fix.cog_deg is not None and math.isfinite(fix.sog_kn):
-            e, n = to_east_north(fix.sog_kn, fix.cog_deg)
-        else:
-            e = n = 0.0
+        e, n = self._ground_v if self._ground_v is not None else (0.0, 0.0)
         return _Velocity(e, n, self.params.hold_sigma_kn, "last_ground_velocity")
 
     def _current_vector(self) -> tuple[float, float, float]:
@@ -364,19 +518,40 @@ class PositionEstimator(EstimatorBase):
         dr = self._dr
         payload = {
             "lat": dr.lat, "lon": dr.lon, "source": "dead_reckoning", "sigma_m": round(dr.sigma_m, 1),
-            "sog_kn": round(dr.sog_kn, 2), "cog_deg": round(dr.cog_deg, 1),
+            "sog_kn": round(dr.sog_kn, 2),
+            "cog_deg": round(dr.cog_deg, 1) if dr.sog_kn >= 0.05 else None,  # no course when not moving
             "dr_elapsed_s": round(t_s - self._fix.t_s, 1), "dr_basis": dr.basis,
         }
+        if self._frozen:
+            payload["gnss_frozen"] = self._frozen
         return Publication(t_s, TOPIC, payload)
 
     def _lost_condition(self, t_s: float, gap_s: float) -> Condition:
         fix, dr = self._fix, self._dr
-        text = (f"No GNSS fix for {gap_s:.0f} s, the last at {_clock(fix.t_s)} near {_latlon(fix.lat_deg, fix.lon_deg)}; "
-                f"the position shown is dead reckoning, uncertain by about {dr.sigma_m:.0f} m and growing. "
+        where = wording.position(fix.lat_deg, fix.lon_deg)
+        if self._frozen == "position":
+            seen = (f"GNSS frozen: the receiver has repeated one position since {wording.clock(fix.t_s)} "
+                    f"({where}) while the boat moved")
+        elif self._frozen == "time":
+            seen = f"GNSS frozen: the receiver's clock has stood still since {wording.clock(fix.t_s)}"
+        else:
+            seen = f"No GNSS fix for {wording.duration(gap_s)}, the last at {wording.clock(fix.t_s)} near {where}"
+        text = (f"{seen}; the position shown is dead reckoning {_BASIS_WORDS.get(dr.basis, '')}".rstrip() + ", "
+                f"uncertain by about {_metres(dr.sigma_m)} and growing. "
                 f"Check the GNSS receiver, its antenna and its cable.")
-        values = {"since_last_fix_s": round(gap_s, 1), "last_fix_lat": fix.lat_deg, "last_fix_lon": fix.lon_deg,
-                  "dr_sigma_m": round(dr.sigma_m, 1)}
+        values = {"since_last_fix_s": round(gap_s), "last_fix_lat": round(fix.lat_deg, 5),
+                  "last_fix_lon": round(fix.lon_deg, 5), "dr_sigma_m": round(dr.sigma_m), "frozen": self._frozen}
         return Condition(t_s, ALERT_ID, WARNING, True, text, values)
+
+    def _returned_condition(self, t_s: float) -> Condition:
+        what = "GNSS receiver frozen" if self._outage_frozen else "GNSS fixes lost"
+        self._outage_frozen = False
+        values: dict[str, Any] = {}
+        text = f"{what}; fixes back"
+        if self._dr_error_m is not None:
+            text += f", dead reckoning was {_metres(self._dr_error_m)} off"
+            values["dr_error_m"] = round(self._dr_error_m)
+        return Condition(t_s, ALERT_ID, WARNING, False, text + ".", values)
 
 
 def _distance_m(lat1: float, lon1: float, lat2: float, lon2: float) -> float:
@@ -395,10 +570,14 @@ def _num(payload: Mapping[str, Any] | None, key: str, default: float) -> float:
     return float(v) if _finite(v) else default
 
 
-def _clock(t_s: float) -> str:
-    """Data time of day for a text, ``08:40:12 UTC`` (never an ISO string inside a sentence)."""
-    return datetime.fromtimestamp(t_s, tz=timezone.utc).strftime("%H:%M:%S UTC")
+_BASIS_WORDS = {
+    "water_and_current": "from the log, the compass and the current",
+    "water_no_current": "from the log and the compass (no current known)",
+    "last_water_and_current": "from the last log, compass and current (those feeds are silent too)",
+    "last_ground_velocity": "from the last course and speed over ground",
+}
 
 
-def _latlon(lat: float, lon: float) -> str:
-    return f"{abs(lat):.4f}°{'N' if lat >= 0 else 'S'} {abs(lon):.4f}°{'E' if lon >= 0 else 'W'}"
+def _metres(m: float) -> str:
+    """A distance as a person reads it: ``40 m``, ``1.2 km`` is not a sea unit: ``0.65 nm``."""
+    return f"{m:.0f} m" if m < 1852.0 else f"{m / 1852.0:.2f} nm"

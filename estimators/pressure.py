@@ -1,4 +1,4 @@
-"""Pressure tendency: the barometer reduced to sea level, filtered, tide-corrected, judged.
+"""Pressure tendency: the barometer reduced to sea level, filtered, judged as observed and tide-corrected.
 
 Theory of operation
 -------------------
@@ -29,39 +29,55 @@ latitude and longitude.
    reading noise plus the quantisation step²/12. Each reading is gated on its
    normalised innovation (``gate_sigma``): a gust, a slammed hatch or a
    single spike is rejected and counted. If every reading is rejected for
-   ``reset_after_s`` the barometer has really moved (a new sensor, a
-   recalibration): the level is reset to the newest reading, the rate kept.
-   Joseph-form update.
+   ``reset_after_s`` the barometer has really moved: the level is reset to
+   the newest reading, the rate kept. A move of ``step_fault_hpa`` or more
+   (±20 hPa in minutes) is one no atmosphere makes at sea (the sharpest
+   pressure jumps of squall lines are a few hPa: from memory of the mesoscale
+   literature): it is a sensor fault (a new or recalibrated sensor, a
+   damaged one), counted, flagged in the payload (``sensor_step_hpa``) and
+   raised as the caution ``barometer_fault``; the filter is re-initialised
+   on the new readings and the histories are moved by the step, so the
+   tendency goes on from the new readings and no fall is judged across it.
+   A smaller lasting move is taken as weather. Joseph-form update.
 4. History: once a minute the filtered level goes into a 25-hour history,
    and the median of the minute's accepted readings into a second one. The
-   3-hour tendency is ``L(now) − L(now − 3 h)``, both tide-corrected
-   (``tendency_3h_hpa``) and as the barometer saw it with the tide
-   (``tendency_3h_raw_hpa``).
+   3-hour tendency is ``L(now) − L(now − 3 h)``: as the barometer on the
+   bulkhead shows it, tide included (``tendency_3h_hpa``, WMO's pressure
+   tendency), and with the modelled tide removed
+   (``tendency_3h_tide_corrected_hpa``).
 
 Judgement:
-- Descriptor from the 3-hour tendency rounded to 0.1 hPa, with the usual
-  marine bands (from memory of the usual marine convention, as in the
+- Descriptor from the observed 3-hour tendency rounded to 0.1 hPa, with the
+  usual marine bands (from memory of the usual marine convention, as in the
   shipping forecasts): steady ≤ 0.1; slowly 0.2–1.5; (plain) rising/falling
   1.6–3.5; quickly 3.6–6.0; very rapidly more than 6.0 hPa in 3 hours.
 - Characteristic: WMO code table 0200 (0–8), from the two halves of the
-  3-hour trace (see ``characteristic_0200``).
+  observed 3-hour trace (see ``characteristic_0200``), published with its
+  words (``characteristic_text``).
 - ``pressure_fall`` caution when the 3-hour fall is 3.6 hPa or more (rounded
   to 0.1, so from 3.55), upgraded to warning above 6.0 hPa (from 6.05);
-  cleared at 3.0 and 5.5 hPa (hysteresis).
+  cleared at 3.0 and 5.5 hPa (hysteresis). The fall judged is the larger of
+  the observed one and the tide-corrected one: a fall the barometer shows is
+  not argued away by a model, and a fall the tide hides is not missed. The
+  text says which figure it is and gives the other; its words ("falling
+  quickly") are the descriptor's for that figure. While it lasts the figures
+  follow the barometer (the alert manager rate-limits the updates).
   Early ``pressure_fall``: from the last hour alone, the least-squares slope
   ``b`` of the minute medians and its standard error ``se``: when even
   ``b + 2·se`` (the fall rate's 2-sigma bound toward zero) implies 3.6 hPa
   or more in 3 hours, i.e. ``−3 h · (b + 2·se) ≥ 3.6 hPa``, the caution is
   raised before three hours of fall have been seen. The measure the
   hysteresis sees is the larger of the measured fall and that implied fall.
+  Raised that way, the text says it is a rate ("falling at 2.1 hPa/h over the
+  last hour") and gives the 3-hour change so far; it does not call it
+  "falling quickly".
 - ``rapid_deepening`` warning: when the largest fall to now within the last
   24 hours reaches ``24 hPa · sin|φ| / sin 60°`` (Sanders & Gyakum 1980,
   the latitude-scaled explosive deepening rate; 13.9 hPa at 30°, 19.6 at 45°,
   24 at 60°). That criterion is for a low's central pressure; a boat sailing
   toward a low also measures its own track through the pressure field, and
-  the text says so. Not judged equatorward of ``rapid_min_lat_deg``.
-
-All thresholds apply to the tide-corrected values.
+  the text says so. Not judged equatorward of ``rapid_min_lat_deg``; judged
+  on the tide-corrected trace.
 """
 
 from __future__ import annotations
@@ -73,6 +89,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from estimators.limits import PRESSURE_HPA, within
+from estimators import wording
 from estimators.base import CAUTION, WARNING, Condition, Context, EstimatorBase, Output, Publication
 from estimators.fusion import FusionReport
 from estimators.params import param
@@ -109,6 +126,24 @@ class PressureParams:
     early_sigma: float = param(2.0, "sigma", 0.0, 5.0, "confidence of the early fall rule")
     rapid_ref_hpa: float = param(24.0, "hPa/24h", 5.0, 60.0, "Sanders-Gyakum rate at 60° latitude")
     rapid_min_lat_deg: float = param(20.0, "deg", 0.0, 60.0, "rapid_deepening is not judged nearer the equator")
+    step_fault_hpa: float = param(10.0, "hPa", 3.0, 100.0,
+                                  "a lasting jump of this much is a barometer fault, not weather")
+    step_fault_hold_s: float = param(3600.0, "s", 60.0, 86400.0,
+                                     "the barometer_fault caution shows this long after a jump")
+
+
+# WMO code table 0200, characteristic of pressure tendency (WMO-No. 306, as remembered; see characteristic_0200)
+CHARACTERISTIC_WORDS = {
+    0: "increasing, then decreasing; the same as or higher than 3 hours ago",
+    1: "increasing, then steady or increasing more slowly; higher than 3 hours ago",
+    2: "increasing steadily or unsteadily; higher than 3 hours ago",
+    3: "decreasing or steady, then increasing, or increasing more rapidly; higher than 3 hours ago",
+    4: "steady; the same as 3 hours ago",
+    5: "decreasing, then increasing; the same as or lower than 3 hours ago",
+    6: "decreasing, then steady or decreasing more slowly; lower than 3 hours ago",
+    7: "decreasing steadily or unsteadily; lower than 3 hours ago",
+    8: "steady or increasing, then decreasing, or decreasing more rapidly; lower than 3 hours ago",
+}
 
 
 # ------------------------------------------------------------------ pure helpers
@@ -287,7 +322,8 @@ class PressureTendency(EstimatorBase):
         self.p = params or PressureParams()
         self.height_m = float(barometer_height_m)
         self.kf = LevelTrendFilter(self.p.q_level_hpa2_per_h, self.p.q_rate_hpa2_per_h3)
-        self.counts = {"fused": 0, "rejected": 0, "faults": 0, "resets": 0}
+        self.counts = {"fused": 0, "rejected": 0, "faults": 0, "resets": 0, "step_faults": 0}
+        self._step: tuple[float, float] | None = None  # (time, hPa) of the last sensor step
         self.last_report: FusionReport | None = None
         self._air: AirTemperature | None = None
         self._pos: tuple[float, float] | None = None
@@ -387,12 +423,22 @@ class PressureTendency(EstimatorBase):
         if self._rejected_since is None:
             self._rejected_since = t_s
         elif t_s - self._rejected_since >= self.p.reset_after_s:
-            self.counts["resets"] += 1  # a lasting step: the barometer was moved or replaced
+            self.counts["resets"] += 1  # a lasting move: the barometer was moved, replaced, or failed
+            step = z - self.kf.x[0]  # the new readings against the level the filter expected
+            if abs(step) >= self.p.step_fault_hpa:
+                self._sensor_step(self._rejected_since, step)
             rate_var = self.kf.P[1][1]
             rate = self.kf.x[1]
             self.kf.start(t_s, z, r, rate_var)
             self.kf.x[1] = rate
             self._rejected_since = None
+
+    def _sensor_step(self, t_s: float, step: float) -> None:
+        """A jump no atmosphere makes: move the histories by it, so no tendency is judged across it."""
+        self.counts["step_faults"] += 1
+        self._step = (t_s, step)
+        self._minutes = deque(_Minute(m.t_s, m.level_hpa + step, m.tide_hpa) for m in self._minutes)
+        self._medians = deque((t, z + step) for t, z in self._medians)
 
     def _roll_minute(self, t_s: float) -> None:
         """Once a minute: the filtered level and the minute's median into the histories."""
@@ -460,10 +506,12 @@ class PressureTendency(EstimatorBase):
         return peak - float(self.kf.x[0])
 
     def _characteristic(self, t_s: float) -> int | None:
+        """WMO 0200 from the observed trace (the filtered level with the tide put back)."""
         a, m = self._level_at(t_s - 3 * 3600.0), self._level_at(t_s - 1.5 * 3600.0)
         if a is None or m is None:
             return None
-        return characteristic_0200(a.level_hpa, m.level_hpa, float(self.kf.x[0]))
+        return characteristic_0200(a.level_hpa + a.tide_hpa, m.level_hpa + m.tide_hpa,
+                                   float(self.kf.x[0]) + self._tide(t_s))
 
     # ------------------------------------------------------------------ publication and conditions
 
@@ -473,14 +521,19 @@ class PressureTendency(EstimatorBase):
         tend = self._tendency(t_s, 3 * 3600.0)
         implied, slope, se = self._implied_fall_3h(t_s)
         fall24 = self._fall_24h()
+        char = self._characteristic(t_s)
+        step = self._recent_step(t_s)
         payload = {
             "msl_hpa": round(level + tide, 2),
-            "tendency_3h_hpa": None if tend is None else round(tend[0], 2),
-            "tendency_3h_raw_hpa": None if tend is None else round(tend[1], 2),
+            # to the 0.1 hPa a barometer shows, the figure the descriptor is judged on
+            "tendency_3h_hpa": None if tend is None else round(tend[1], 1),  # observed: what the barometer did
+            "tendency_3h_tide_corrected_hpa": None if tend is None else round(tend[0], 1),
             "rate_hpa_per_h": round(rate, 3),
             "rate_sigma_hpa_per_h": round(math.sqrt(max(self.kf.P[1][1], 0.0)), 3),
-            "descriptor": descriptor(None if tend is None else tend[0]),
-            "characteristic": self._characteristic(t_s),
+            "descriptor": descriptor(None if tend is None else round(tend[1], 1)),  # from the figure shown
+            "characteristic": char,
+            "characteristic_text": None if char is None else CHARACTERISTIC_WORDS[char],
+            "sensor_step_hpa": None if step is None else round(step[1], 1),
             "air_temp_c": air,
             "station_hpa": self._last_station,
             "tide_hpa": round(tide, 3) if self._pos is not None and self.p.tide_correction else None,
@@ -491,29 +544,82 @@ class PressureTendency(EstimatorBase):
         out: list[Output] = [Publication(t_s, "pressure", payload)]
         out.extend(self._fall_condition(t_s, tend, implied, slope, se))
         out.extend(self._rapid_condition(t_s, fall24))
+        out.extend(self._fault_condition(t_s, step))
         return out
 
+    def _recent_step(self, t_s: float) -> tuple[float, float] | None:
+        if self._step is None or t_s - self._step[0] > self.p.step_fault_hold_s:
+            return None
+        return self._step
+
+    def _fault_condition(self, t_s: float, step: tuple[float, float] | None) -> list[Output]:
+        if step is None:
+            if self._step is None:
+                return []
+            t0, dp = self._step
+            self._step = None
+            return [Condition(t_s, "barometer_fault", CAUTION, False,
+                              f"Barometer jumped {wording.signed(dp)} hPa at {wording.clock(t0)}; steady since",
+                              {"step_hpa": round(dp, 1)})]
+        t0, dp = step
+        text = (f"Barometer reading jumped {wording.signed(dp)} hPa at {wording.clock(t0)} and stayed there: no "
+                f"weather does that in minutes. Taken as a sensor fault, not weather: the tendency goes on from "
+                f"the new readings and nothing is judged across the jump, but the pressure shown may be off by "
+                f"that much. Check the barometer, its static port and its feed.")
+        return [Condition(t_s, "barometer_fault", CAUTION, True, text, {"step_hpa": round(dp, 1)})]
+
     def _fall_condition(self, t_s: float, tend, implied, slope, se) -> list[Output]:
-        measured = None if tend is None else -tend[0]
+        """pressure_fall, judged on the larger fall of the observed and the tide-corrected 3-hour change."""
+        falls = self._falls(tend)
+        which, measured = max(falls, key=lambda f: f[1]) if falls else (None, None)
         measures = [v for v in (measured, implied) if v is not None]
         caution = self._fall.update(max(measures) if measures else None)
         warning = self._very.update(measured) and caution
         state = (caution, WARNING if warning else CAUTION)
-        if state == self._fall_state:
-            return []
-        self._fall_state = state
+        changed, self._fall_state = state != self._fall_state, state
+        values = {"fall_3h_hpa": _r(measured, 1), "fall_3h_is": which,
+                  "observed_3h_hpa": _r(None if tend is None else tend[1], 1),
+                  "tide_corrected_3h_hpa": _r(None if tend is None else tend[0], 1),
+                  "implied_fall_3h_hpa": _r(implied, 1), "rate_1h_hpa_per_h": _r(slope, 2),
+                  "rate_1h_se_hpa_per_h": _r(se, 2)}
         if not caution:
-            return [Condition(t_s, "pressure_fall", state[1], False, "Pressure no longer falling quickly.", {})]
-        if measured is not None and measured >= self.p.fall_caution_hpa - 0.05:
-            seen = f"Pressure fell {measured:.1f} hPa in the last 3 hours (tide-corrected)"
+            if not changed:
+                return []
+            text = "Pressure fell quickly" + (f"; now {self._three_hours_words(tend)}" if tend else "")
+            return [Condition(t_s, "pressure_fall", state[1], False, text, values)]
+        if measured is not None and (implied is None or slope is None or measured >= self.p.fall_caution_hpa - 0.05
+                                     or measured >= implied):
+            seen = f"Pressure fell {measured:.1f} hPa in the last 3 hours {_FIGURE_WORDS[which]}"
+            text = (f"{seen}{self._other_figure(which, tend)}: {descriptor(-measured)}. "
+                    f"Check the latest forecast and the sky to windward.")
         else:
-            seen = (f"Pressure has fallen at {-slope:.1f} hPa/h over the last hour, "
-                    f"at least {implied:.1f} hPa in 3 hours at that rate (95 % bound)")
-        how = "very rapidly" if warning else "quickly"
-        text = f"{seen}: falling {how}. Check the latest forecast and the sky to windward."
-        values = {"fall_3h_hpa": measured, "implied_fall_3h_hpa": implied,
-                  "rate_1h_hpa_per_h": slope, "rate_1h_se_hpa_per_h": se}
+            minutes = round(self.p.early_window_s / 60.0)
+            window = "hour" if minutes == 60 else f"{minutes} min"
+            so_far = self._three_hours_words(tend) if tend else "no 3-hour figure yet"
+            text = (f"Pressure falling at {-slope:.1f} hPa/h over the last {window}: at least {implied:.1f} hPa in "
+                    f"3 hours at that rate (95 % bound); {so_far}. "
+                    f"Check the latest forecast and the sky to windward.")
         return [Condition(t_s, "pressure_fall", state[1], True, text, values)]
+
+    def _falls(self, tend) -> list[tuple[str, float]]:
+        """(which, fall hPa) for the observed and, where a tide is modelled, the tide-corrected change."""
+        if tend is None:
+            return []
+        out = [("observed", -tend[1])]
+        if self._pos is not None and self.p.tide_correction:
+            out.append(("tide_corrected", -tend[0]))
+        return out
+
+    def _other_figure(self, which: str | None, tend) -> str:
+        if tend is None or self._pos is None or not self.p.tide_correction:
+            return ""
+        if which == "observed":
+            return f" ({wording.signed(tend[0])} hPa with the daily pressure tide removed)"
+        return f" (the barometer itself shows {wording.signed(tend[1])} hPa)"
+
+    @staticmethod
+    def _three_hours_words(tend) -> str:
+        return f"the barometer's 3-hour change is {wording.signed(tend[1])} hPa ({descriptor(tend[1])})"
 
     def _rapid_condition(self, t_s: float, fall24: float | None) -> list[Output]:
         if self._pos is None or fall24 is None or abs(self._pos[0]) < self.p.rapid_min_lat_deg:
@@ -522,14 +628,24 @@ class PressureTendency(EstimatorBase):
         thr = sanders_gyakum_hpa(lat, self.p.rapid_ref_hpa)
         was = self._rapid.active
         now = self._rapid.update(fall24 / thr)
-        if now == was:
-            return []
+        values = {"fall_24h_hpa": round(fall24, 1), "threshold_hpa": round(thr, 1), "lat": round(lat, 2)}
         if not now:
-            return [Condition(t_s, "rapid_deepening", WARNING, False, "The 24-hour fall is back below the explosive rate.", {})]
+            if not was:
+                return []
+            return [Condition(t_s, "rapid_deepening", WARNING, False,
+                              f"Pressure fell at an explosive rate; the 24-hour fall is now {fall24:.1f} hPa, "
+                              f"below {thr:.1f} hPa", values)]
         hemi = "N" if lat >= 0 else "S"
-        text = (f"Pressure here fell {fall24:.1f} hPa within the last 24 hours, past {thr:.1f} hPa, the "
+        text = (f"Pressure here fell {fall24:.1f} hPa within the last 24 hours (daily tide removed), past {thr:.1f} hPa, the "
                 f"explosive-deepening rate at {abs(lat):.0f}°{hemi} (Sanders & Gyakum). That criterion is defined "
                 f"for a low's central pressure; the boat's own track through the pressure field adds to what "
                 f"is measured here. Check the latest forecast.")
-        return [Condition(t_s, "rapid_deepening", WARNING, True, text,
-                          {"fall_24h_hpa": round(fall24, 2), "threshold_hpa": round(thr, 2), "lat": lat})]
+        return [Condition(t_s, "rapid_deepening", WARNING, True, text, values)]
+
+
+_FIGURE_WORDS = {"observed": "as the barometer shows it",
+                 "tide_corrected": "with the daily pressure tide removed"}
+
+
+def _r(x: float | None, decimals: int) -> float | None:
+    return None if x is None else round(x, decimals)

@@ -16,6 +16,14 @@ first sample after it is handled before any timeout is judged. Live, the
 service ticks with the wall clock every second, so a feed falling silent is
 still noticed.
 
+Sensors that lie: an estimator that finds one returns a ``Distrust`` of its
+sample kind. From then on the runner keeps that kind out of the history and
+from every estimator but those with ``sees_distrusted`` (the one watching the
+sensor, the displays), counts what it withheld (``distrusted``), and calls
+``on_distrust(kind, active, since_s)`` on any estimator that defines it, until
+a ``Distrust`` with ``active`` False ends it. Whether a sample is withheld is
+decided as it enters.
+
 This is the discrete-time event loop of a sans-I/O design: the caller does the
 I/O and decides what to do with the outputs (the daemon's pipeline publishes
 them and turns conditions into alerts; a test or a benchmark reads them).
@@ -23,13 +31,16 @@ them and turns conditions into alerts; a test or a benchmark reads them).
 
 from __future__ import annotations
 
+import logging
 import math
 from collections.abc import Iterable, Iterator, Sequence
 from typing import Any
 
-from estimators.base import Output, Publication
+from estimators.base import Distrust, Output, Publication
 from estimators.history import SampleHistory
-from estimators.samples import KIND_NAMES, Sample
+from estimators.samples import KIND_NAMES, Sample, kind_of
+
+log = logging.getLogger(__name__)
 
 LAST_COUNTABLE_S = 2.0 ** 52  # from here on t + 1 s == t in a float: the tick loop would never end
 MAX_TICKS_PER_GAP = 600  # a data gap longer than this (s) is crossed in one step, not one tick per second
@@ -87,21 +98,51 @@ class Runner:
         for est in self.estimators:
             for kind in est.accepts:
                 self._routes.setdefault(kind, []).append(est)
+        # kinds not believed now: kind -> [since (data time), reason, samples withheld]
+        self.distrusted: dict[str, list] = {}
 
     def tick(self, t_s: float) -> list[Output]:
         """Every estimator's tick at data time ``t_s``, in order."""
         out: list[Output] = []
         for est in self.estimators:
-            out += self.ctx.note(est.tick(t_s, self.ctx))
+            out += self._take(est.tick(t_s, self.ctx))
         return out
 
     def step(self, sample: Sample) -> list[Output]:
-        """The sample into the history, then to each estimator that accepts its type."""
-        self.ctx.history.add(sample)
+        """The sample into the history, then to each estimator that accepts its type (a distrusted
+        kind: only to those that see distrusted samples, and not into the history)."""
+        withheld = self.distrusted.get(kind_of(sample))
+        if withheld is None:
+            self.ctx.history.add(sample)
+        else:
+            withheld[2] += 1
         out: list[Output] = []
         for est in self._routes.get(type(sample), ()):
-            out += self.ctx.note(est.step(sample, self.ctx))
+            if withheld is None or getattr(est, "sees_distrusted", False):
+                out += self._take(est.step(sample, self.ctx))
         return out
+
+    def _take(self, outputs: Iterable[Output]) -> list[Output]:
+        outs = self.ctx.note(outputs)
+        for o in outs:
+            if isinstance(o, Distrust):
+                self._distrust(o)
+        return outs
+
+    def _distrust(self, d: Distrust) -> None:
+        """The one place a kind of sample stops (or starts again) reaching the fusing estimators."""
+        if d.active and d.kind not in self.distrusted:
+            self.distrusted[d.kind] = [d.t_s, d.reason, 0]
+            log.warning("%s samples withheld from the estimators: %s", d.kind, d.reason)
+        elif not d.active and d.kind in self.distrusted:
+            withheld = self.distrusted.pop(d.kind)[2]
+            log.warning("%s samples used again (%d withheld): %s", d.kind, withheld, d.reason)
+        else:
+            return
+        for est in self.estimators:  # an estimator may undo what it fused since the evidence began
+            hook = getattr(est, "on_distrust", None)
+            if hook is not None:
+                hook(d.kind, d.active, d.since_s)
 
     def feed(self, sample: Sample, tick: bool = True) -> Iterator[tuple[Sample | float, list[Output]]]:
         """The ticks the sample's time makes due (``(tick time, outputs)``), then ``(sample, outputs)``."""

@@ -12,7 +12,12 @@ from dataclasses import dataclass
 
 @dataclass(frozen=True, slots=True)
 class Fix:
-    """A valid GNSS fix. ``sog_kn``/``cog_deg`` are None where the sentence had none."""
+    """A valid GNSS fix. ``sog_kn``/``cog_deg`` are None where the sentence had none.
+
+    ``gnss_time_s`` is the receiver's own time of the fix (UNIX s) where the
+    sentence gave one: live, ``t_s`` is when it was received, so a receiver
+    whose clock stops shows as ``gnss_time_s`` standing still.
+    """
 
     t_s: float
     lat_deg: float
@@ -20,6 +25,7 @@ class Fix:
     sog_kn: float | None = None
     cog_deg: float | None = None
     hdop: float | None = None
+    gnss_time_s: float | None = None
 
 
 @dataclass(frozen=True, slots=True)

@@ -11,6 +11,13 @@ present kind is fresh again. A kind never seen is not missed: a boat without a
 barometer is not told so every second. With ``forget_after_s`` > 0 a kind
 silent for longer than that is taken as switched off and no longer counted.
 
+One failure, one alert: a kind whose silence has an alert of its own is left
+to that alert (``OWN_ALERT``: the GNSS fix has ``gnss_lost``, which says how
+long the fix has been missing), and so is the course and speed over ground
+while the fix is missing too (the same receiver, as a rule). The text says
+what is late and by how much: "Heading late by 3 s (none for 8 s; expected at
+least every 5 s)".
+
 "Now" is the tick's data time; the daemon ticks with the wall clock when live,
 so a feed that stops while all others are silent too is still noticed.
 """
@@ -20,11 +27,17 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+from estimators import wording
 from estimators.base import CAUTION, Condition, Context, EstimatorBase, Output
 from estimators.params import param
 from estimators.samples import KIND_NAMES, Sample, kind_of
 
 ALERT_ID = "sensor_stale"
+
+# Kinds whose silence another alert reports (its own text says how long): left out here.
+OWN_ALERT = {"fix": "gnss_lost"}
+# Kinds left out while the kind named is missing too: VTG stops with the fix when the receiver stops.
+FOLDED_WITH = {"ground_velocity": "fix"}
 
 # What to check when a kind goes silent: the instrument and its feed, never the helm.
 _CHECK = {
@@ -76,11 +89,13 @@ class StalenessWatch(EstimatorBase):
 
     name = "staleness"
     accepts = tuple(KIND_NAMES)
+    sees_distrusted = True  # a frozen compass still speaks: one failure, one alert (heading_suspect)
 
     def __init__(self, params: StalenessParams | None = None) -> None:
         self.params = params or StalenessParams()
         self._last: dict[str, float] = {}
         self._active = False
+        self._longest: dict[str, float] = {}  # this episode's longest silence per kind, s
 
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
         kind = kind_of(sample)
@@ -94,11 +109,28 @@ class StalenessWatch(EstimatorBase):
             if not self._active:
                 return ()
             self._active = False
-            return (Condition(t_s, ALERT_ID, CAUTION, False, "Every feed seen is fresh again.", {"feeds": []}),)
+            return (self._closing(t_s),)
         self._active = True
+        for kind, age in stale.items():
+            self._longest[kind] = max(age, self._longest.get(kind, 0.0))
         return (self._condition(t_s, stale),)
 
+    def _closing(self, t_s: float) -> Condition:
+        """The all-clear with the last figures: which feeds were silent, for how long at most."""
+        longest, self._longest = self._longest, {}
+        parts = [f"{_WHAT[k]} silent up to {wording.duration(age)}" for k, age in longest.items()]
+        text = ("; ".join(parts) + "; every feed fresh again") if parts else "Every feed fresh again"
+        return Condition(t_s, ALERT_ID, CAUTION, False, text[0].upper() + text[1:],
+                         {"feeds": [], "longest_s": {k: round(a) for k, a in longest.items()}})
+
     def stale_kinds(self, t_s: float) -> dict[str, float]:
+        """Kind -> age (s) for every present kind silent beyond its interval that no other alert
+        reports (see ``OWN_ALERT``), in KIND_NAMES order."""
+        silent = self.silent_kinds(t_s)
+        return {k: age for k, age in silent.items()
+                if k not in OWN_ALERT and FOLDED_WITH.get(k) not in silent}
+
+    def silent_kinds(self, t_s: float) -> dict[str, float]:
         """Kind -> age (s) for every present kind silent beyond its interval, in KIND_NAMES order."""
         forget = self.params.forget_after_s
         out = {}
@@ -112,10 +144,13 @@ class StalenessWatch(EstimatorBase):
         return out
 
     def _condition(self, t_s: float, stale: dict[str, float]) -> Condition:
-        sentences = [
-            f"No {_WHAT[k]} for {age:.0f} s (expected every {self.params.interval_s(k):g} s): {_CHECK[k]}."
-            for k, age in stale.items()
-        ]
+        sentences = []
+        for k, age in stale.items():
+            interval = self.params.interval_s(k)
+            late = wording.duration(max(1.0, age - interval))
+            what = _WHAT[k][0].upper() + _WHAT[k][1:]
+            sentences.append(f"{what} late by {late} (none for {wording.duration(age)}; expected at least every "
+                             f"{wording.duration(interval)}): {_CHECK[k]}.")
         values = {
             "feeds": list(stale),
             "age_s": {k: round(age, 1) for k, age in stale.items()},

@@ -1,114 +1,15 @@
-"""Shared fixtures: a Mosquitto broker of the test's own on a free loopback port."""
+"""Shared fixtures: a Mosquitto broker of the test's own on a free loopback port, the demo
+passage replayed once, a short simulated passage. Helpers live in ``tests/helpers.py``."""
 
 from __future__ import annotations
 
 import os
-
-import getpass
-import shutil
-import signal
-import socket
-import subprocess
-import time
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
 
-from daemon.outlets.broker import broker_answers
-
-MOSQUITTO = shutil.which("mosquitto") or "/usr/sbin/mosquitto"
-
-
-def free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-class Mosquitto:
-    """A Mosquitto process on 127.0.0.1:<port> with a config in a temp directory.
-
-    Unpacks as ``host, port = mosquitto``; ``restart()`` comes back on the same
-    port. Persistence is on (in the temp directory), so persistent sessions and
-    their queued QoS-1 messages survive a restart, as on a real boat.
-    """
-
-    def __init__(self, workdir: Path, listener_conf: str = "", persistence: bool = True) -> None:
-        """``listener_conf``: lines for the listener (e.g. cafile/certfile/keyfile for TLS);
-        ``persistence=False``: a restart forgets retained messages and sessions (Mosquitto's default)."""
-        self.host = "127.0.0.1"
-        self.port = free_port()
-        self.workdir = workdir
-        self.tls = "certfile" in listener_conf
-        self.conf = workdir / "mosquitto.conf"
-        self.log = workdir / "mosquitto.log"
-        self.conf.write_text(
-            f"listener {self.port} {self.host}\n"
-            f"{listener_conf}"
-            # started as root, mosquitto would drop to its own user, who cannot read the temp dir
-            f"user {getpass.getuser()}\n"
-            "allow_anonymous true\n"
-            f"persistence {'true' if persistence else 'false'}\n"
-            "autosave_interval 1\n"
-            f"persistence_location {workdir}/\n"
-            f"log_dest file {self.log}\n"
-            "log_type all\n")
-        self.proc: subprocess.Popen | None = None
-
-    def __iter__(self):
-        return iter((self.host, self.port))
-
-    def start(self, timeout_s: float = 10.0) -> None:
-        self.proc = subprocess.Popen([MOSQUITTO, "-c", str(self.conf)],
-                                     stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-        deadline = time.monotonic() + timeout_s
-        while not self._answers():
-            if self.proc.poll() is not None:
-                err = self.proc.stderr.read().decode(errors="replace") if self.proc.stderr else ""
-                raise RuntimeError(f"mosquitto exited with {self.proc.returncode}: {err}")
-            if time.monotonic() > deadline:
-                raise RuntimeError(f"mosquitto did not answer on port {self.port}")
-            time.sleep(0.05)
-
-    def _answers(self) -> bool:
-        if not self.tls:
-            return broker_answers(self.host, self.port, timeout=0.5)
-        try:  # a TLS listener: the MQTT probe speaks plain TCP, so a connect must do
-            socket.create_connection((self.host, self.port), timeout=0.5).close()
-            return True
-        except OSError:
-            return False
-
-    def stop(self) -> None:
-        if self.proc is not None and self.proc.poll() is None:
-            self.proc.terminate()  # SIGTERM: mosquitto saves its persistence file on the way out
-            try:
-                self.proc.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait()
-        self.proc = None
-
-    def kill(self) -> None:
-        """SIGKILL: gone without saving, like a power cut (what was saved a second ago survives)."""
-        if self.proc is not None:
-            self.proc.kill()
-            self.proc.wait()
-        self.proc = None
-
-    def freeze(self) -> None:
-        """SIGSTOP: the broker keeps its sockets but answers nothing (packets stay in flight)."""
-        assert self.proc is not None
-        self.proc.send_signal(signal.SIGSTOP)
-
-    def restart(self) -> None:
-        self.stop()
-        self.start()
-
-    @property
-    def running(self) -> bool:
-        return self.proc is not None and self.proc.poll() is None
+from tests.helpers import MOSQUITTO, PREFIX, Mosquitto
 
 
 @pytest.fixture
@@ -154,3 +55,33 @@ class DemoReplay:
 def demo_replay(tmp_path_factory) -> DemoReplay:
     """The committed demo passage through the whole pipeline, with the demo's own config."""
     return DemoReplay(tmp_path_factory.mktemp("demo"))
+
+
+@pytest.fixture(scope="module")
+def short_passage(tmp_path_factory) -> dict:
+    """A short simulated passage (30 min; invented boat and water): a 3-kn current, a +3 °C front, a
+    12 hPa/h pressure fall and a 40-s GNSS outage, so it makes every state topic, an event and several
+    alert changes. The NMEA file, a config for it (prefix ``PREFIX``) and its start time."""
+    from tools.simulator import (Front, Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
+                                  SteadyCurrent, WindField, simulate)
+    from tools.simulator.nmea_writer import WriterOptions, write_nmea
+    from tools.simulator.scenarios import MIN, along, utc
+
+    t0, lat, lon = utc(2026, 6, 1, 6), 43.3, -30.7
+    front = Front(*along(lat, lon, 90.0, 1.6), along_deg=0.0, delta_c=3.0, width_nm=0.3)
+    ocean = Ocean(currents=(SteadyCurrent(30.0, 3.0),), sea_temp=SeaTemperatureField(15.0, lat, lon, fronts=(front,)),
+                  pressure=PressureField(((t0, 1015.0), (t0 + 60 * MIN, 1003.0))),
+                  wind=WindField(((t0, 220.0, 12.0),)))
+    scenario = Scenario(
+        name="mqtt_end_to_end", start_utc=t0, duration_s=30 * MIN, start_lat=lat, start_lon=lon,
+        helm=(Steer(90.0, 6.0, 8 * MIN), Steer(180.0, 6.0, 8 * MIN), Steer(90.0, 6.0, 14 * MIN)), ocean=ocean,
+        sensors=SensorSpec(heading_hz=1.0, gnss_outages=((t0 + 4 * MIN, t0 + 4 * MIN + 40),)))
+    d = tmp_path_factory.mktemp("passage")
+    nmea = d / "short.nmea"
+    write_nmea(simulate(scenario, 7), nmea, WriterOptions())
+    cfg = d / "replay.toml"
+    # the early pressure-fall rule over its shortest window (15 min) so half an hour shows it;
+    # gnss_lost counts as gone 5 s after fixes return
+    cfg.write_text(f'[mqtt]\nprefix = "{PREFIX}"\n\n[pressure]\nearly_window_s = 900.0\n\n'
+                   "[alerts]\nclear_after_by_id = { gnss_lost = 5.0 }\n")
+    return {"nmea": nmea, "cfg": cfg, "t0": t0}

@@ -30,7 +30,8 @@ FAST = AlertParams(raise_after_alarm_s=2.0, raise_after_warning_s=5.0, raise_aft
 
 
 def cond(t: float, active: bool, alert_id: str = "pressure_fall", priority: str = WARNING, **values) -> Condition:
-    return Condition(T0 + t, alert_id, priority, active, f"seen {alert_id} at {t:.0f} s; check the barometer.", values)
+    """A condition whose text stays the same (a changed text is new figures, published as an update)."""
+    return Condition(T0 + t, alert_id, priority, active, f"seen {alert_id}; check the barometer.", values)
 
 
 def run(mgr: AlertManager, t_from: float, t_to: float, active: bool | None = None, alert_id: str = "pressure_fall",
@@ -191,15 +192,80 @@ def test_rectified_unacknowledged_alarm_stays_listed_until_acknowledged():
     mgr = AlertManager(FAST)
     run(mgr, 0, 9, active=True, alert_id="rapid_deepening", priority=ALARM)
     out = run(mgr, 10, 40, active=False, alert_id="rapid_deepening", priority=ALARM)
-    # THEN after the clear time (10 s) it is still active, with condition false (rectified)
-    assert states(out) == [(20.0, "active", False, 0)]
-    assert [(a["state"], a["condition"]) for a in mgr.listed()] == [("active", False)]
-    # AND it is still re-announced while unacknowledged
-    out = run(mgr, 41, 60, active=False, alert_id="rapid_deepening", priority=ALARM)
-    assert states(out) == [(50.0, "active", False, 1)]
+    # THEN after the clear time (10 s) it is rectified: listed, condition false
+    assert states(out) == [(20.0, "rectified", False, 0)]
+    assert [(a["state"], a["condition"]) for a in mgr.listed()] == [("rectified", False)]
+    # AND it is no longer announced (the demo's gnss_lost was repeated 33 times after GNSS returned)
+    out = run(mgr, 41, 400, active=False, alert_id="rapid_deepening", priority=ALARM)
+    assert out == []
     # WHEN acknowledged THEN it goes straight to cleared
-    assert states(mgr.acknowledge("rapid_deepening", T0 + 61)) == [(61.0, "cleared", False, 0)]
+    assert states(mgr.acknowledge("rapid_deepening", T0 + 401)) == [(401.0, "cleared", False, 0)]
     assert mgr.listed() == []
+
+
+def test_rectified_text_is_past_tense_with_the_time_span_and_the_closing_words():
+    # GIVEN a GNSS warning raised at 08:40:00 UTC whose fixes return at 08:42:30
+    t0 = 1_780_000_800.0  # 2026-05-28 20:40:00 UTC
+    mgr = AlertManager(replace(FAST, raise_after_by_id={"gnss_lost": 0.0}, clear_after_warning_s=0.0))
+    mgr.on_condition(Condition(t0, "gnss_lost", WARNING, True, "No GNSS fix for 10 s; dead reckoning.", {"gap_s": 10}))
+    # WHEN the estimator says it is over, with its closing words and last value
+    out = mgr.on_condition(Condition(t0 + 150, "gnss_lost", WARNING, False,
+                                     "GNSS fixes lost; dead reckoning was 80 m off when they returned.",
+                                     {"dr_error_m": 80.0}))
+    # THEN the text names the span, says what happened, asks for an acknowledgement
+    (msg,) = out
+    assert msg.payload["state"] == "rectified"
+    assert msg.payload["text"].startswith(
+        "20:40–20:42 UTC: GNSS fixes lost; dead reckoning was 80 m off when they returned. Acknowledge.")
+    assert "No GNSS fix for" not in msg.payload["text"]
+    assert msg.payload["values"]["dr_error_m"] == 80.0
+
+
+def test_an_active_alerts_figures_follow_the_condition_rate_limited():
+    # GIVEN a caution raised on a 2.0 kn current (update_min_s 60 s)
+    mgr = AlertManager(FAST)
+    def strong(t, kn):
+        return mgr.on_condition(Condition(T0 + t, "current_strong", CAUTION, True, f"Current of {kn:.1f} kn.",
+                                          {"drift_kn": kn})) + mgr.tick(T0 + t)
+    out = []
+    for t in range(0, 12):
+        out += strong(t, 2.0)
+    assert [m.payload["text"].split(" Advisory")[0] for m in out] == ["Current of 2.0 kn."]
+    # WHEN it grows to 4.2 kn, a new figure each second
+    out = []
+    for t in range(12, 200):
+        out += strong(t, 2.0 + 0.1 * min(22, t - 11))
+    # THEN the text follows it, no more than once a minute, and ends at the latest figure
+    times = [m.t_s - T0 for m in out]
+    assert all(b - a >= 60.0 for a, b in zip([10.0] + times, times))
+    assert out[-1].payload["text"].startswith("Current of 4.2 kn.")
+    assert out[-1].payload["values"] == {"drift_kn": pytest.approx(4.2)}
+    # AND the clearing message reports the last value, as the estimator closed it
+    out = []
+    for t in range(200, 240):
+        out += mgr.on_condition(Condition(T0 + t, "current_strong", CAUTION, False,
+                                          "Current eased to 2.3 kn.", {"drift_kn": 2.3})) + mgr.tick(T0 + t)
+    (gone,) = out
+    assert gone.payload["state"] == "cleared"
+    assert "Current eased to 2.3 kn." in gone.payload["text"]
+    assert gone.payload["values"]["drift_kn"] == 2.3
+
+
+def test_an_unchanged_text_is_not_republished_as_an_update():
+    mgr = AlertManager(FAST)
+    out = []
+    for t in range(0, 300):
+        out += mgr.on_condition(Condition(T0 + t, "current_strong", CAUTION, True, "Current of 3.1 kn.", {}))
+        out += mgr.tick(T0 + t)
+    assert len(out) == 1  # raised once; a caution is not re-announced and nothing changed
+
+
+def test_an_old_snapshot_with_an_active_alert_whose_condition_went_restores_as_rectified():
+    snap = {"version": 1, "alerts": [{"id": "gnss_lost", "priority": WARNING, "state": "active", "text": "x",
+                                      "values": {}, "condition": False, "since_s": T0, "last_announced_s": T0}]}
+    mgr = AlertManager.restore(FAST, snap)
+    assert [a["state"] for a in mgr.listed()] == ["rectified"]
+    assert mgr.tick(T0 + 1000) == []  # not re-announced
 
 
 def test_rectified_alarm_whose_condition_returns_is_active_again():
@@ -355,3 +421,20 @@ def test_hysteresis_refuses_thresholds_the_wrong_way_round():
         Hysteresis(-1.0, -2.0, above=False)
     with pytest.raises(ValueError, match="finite"):
         Hysteresis(float("inf"), 1.0)
+
+
+def test_a_figure_that_only_wavers_is_not_news():
+    # GIVEN a caution raised on a 4.2 kn current whose estimate then wavers 4.2 <-> 4.3 kn (2 %)
+    mgr = AlertManager(FAST)
+    out = []
+    for t in range(0, 900):
+        kn = 4.2 if (t // 30) % 2 == 0 else 4.3
+        out += mgr.on_condition(Condition(T0 + t, "current_strong", CAUTION, True, f"Current of {kn:.1f} kn.", {}))
+        out += mgr.tick(T0 + t)
+    # THEN it was raised once and not re-published with every wobble (update_min_change_pct 5 %)
+    assert len(out) == 1
+    # WHEN a figure moves by 5 % or more, or the words change, it is news (at most once a minute)
+    out = mgr.on_condition(Condition(T0 + 900, "current_strong", CAUTION, True, "Current of 4.5 kn.", {}))
+    assert [m.payload["text"].split(" Advisory")[0] for m in out] == ["Current of 4.5 kn."]
+    out = mgr.on_condition(Condition(T0 + 970, "current_strong", CAUTION, True, "Current of 4.5 kn, easing.", {}))
+    assert len(out) == 1

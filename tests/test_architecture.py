@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import json
 import pkgutil
+import re
 import subprocess
 import sys
+from pathlib import Path
 
 import daemon
 import estimators
@@ -71,3 +73,27 @@ def test_the_daemon_is_in_rooms():
     loose = sorted(p.name for p in Path(daemon.__path__[0]).glob("*.py")
                    if p.name not in ("__init__.py", "__main__.py", "errors.py"))
     assert loose == []
+
+
+TESTS = Path(__file__).resolve().parent
+
+
+def _test_sources() -> dict[str, str]:
+    return {p.name: p.read_text(encoding="utf-8") for p in sorted(TESTS.glob("*.py"))}
+
+
+def test_no_test_module_imports_another_or_the_conftest():
+    # shared helpers live in tests/helpers.py, tests/shared.py and tests/synth.py; fixtures in conftest.py
+    importing = re.compile(r"^\s*(from|import)\s+tests\.(test_\w+|conftest)\b", re.M)
+    bad = sorted(f"{name}: {m.group(0).strip()}" for name, text in _test_sources().items()
+                 for m in importing.finditer(text))
+    assert bad == []
+
+
+def test_no_test_asserts_on_the_wall_clock():
+    # timing figures belong in tools/bench and the README; a wait in a test is only a limit to give up
+    clock = re.compile(r"^\s*assert\b.*\b(monotonic|perf_counter|time)\(\)", re.M)
+    elapsed = re.compile(r"^\s*assert\b.*\b\w*(elapsed|took|wall)\w*\s*<\s*[0-9.]+", re.M)
+    bad = sorted(f"{name}: {m.group(0).strip()}" for name, text in _test_sources().items()
+                 for pattern in (clock, elapsed) for m in pattern.finditer(text))
+    assert bad == []

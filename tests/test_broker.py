@@ -14,21 +14,21 @@ import paho.mqtt.client as paho
 import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
-from daemon.outlets.broker import EmbeddedBroker, _connect_packet, _remaining_length, broker_answers
+from daemon.outlets.broker import EmbeddedBroker, connect_packet, remaining_length, broker_answers
 from tests.helpers import free_port
 
 
 def test_remaining_length_examples_of_the_standard():
     # MQTT 3.1.1 table 2.4: 0 -> 0x00, 127 -> 0x7F, 128 -> 0x80 0x01, 16383 -> 0xFF 0x7F, 16384 -> 0x80 0x80 0x01
-    assert _remaining_length(0) == b"\x00"
-    assert _remaining_length(127) == b"\x7f"
-    assert _remaining_length(128) == b"\x80\x01"
-    assert _remaining_length(16_383) == b"\xff\x7f"
-    assert _remaining_length(16_384) == b"\x80\x80\x01"
+    assert remaining_length(0) == b"\x00"
+    assert remaining_length(127) == b"\x7f"
+    assert remaining_length(128) == b"\x80\x01"
+    assert remaining_length(16_383) == b"\xff\x7f"
+    assert remaining_length(16_384) == b"\x80\x80\x01"
 
 
 def test_connect_packet_layout():
-    pkt = _connect_packet("ab", keepalive_s=10)
+    pkt = connect_packet("ab", keepalive_s=10)
     # fixed header 0x10, remaining length 14; "MQTT", level 4, clean session, keep alive 10, client id "ab"
     assert pkt == b"\x10\x0e\x00\x04MQTT\x04\x02\x00\x0a\x00\x02ab"
 

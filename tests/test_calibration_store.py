@@ -11,7 +11,7 @@ from daemon.core.calibration_store import calibration_path, load_calibration, sa
 from daemon.errors import OutputError
 from estimators.current import Calibration, CurrentEstimator, CurrentParams
 from estimators.runner import run
-from tests.test_current_synth import synth_passage, tacking_legs
+from tests.synth import synth_passage, tacking_legs
 
 
 def test_learnt_calibration_persists_and_reloads(tmp_path):

@@ -34,8 +34,12 @@ def cli(*args: str, timeout: float = 120.0) -> subprocess.CompletedProcess:
                           timeout=timeout, env=env)
 
 
+LOG_STAMP = re.compile(r"^(\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ )?")
+
+
 def error_lines(r: subprocess.CompletedProcess) -> list[str]:
-    return [x for x in r.stderr.splitlines() if x.strip() and not x.startswith(("INFO ", "DEBUG "))]
+    return [x for x in r.stderr.splitlines()
+            if x.strip() and not LOG_STAMP.sub("", x).startswith(("INFO ", "DEBUG "))]
 
 
 # --------------------------------------------------------------------------- version and help
@@ -116,7 +120,9 @@ def test_an_unknown_config_key_names_the_section_the_key_and_the_choices(tmp_pat
 def test_an_unknown_option_command_or_format_fails_and_says_so(argv):
     r = cli(*argv)
     assert r.returncode != 0
-    assert "usage: offwatch" in r.stderr and "error:" in r.stderr
+    # one line, as the README promises: what is wrong and where the help is
+    assert len(r.stderr.strip().splitlines()) == 1, r.stderr
+    assert r.stderr.startswith("offwatch") and "error:" in r.stderr and "--help" in r.stderr
     assert "Traceback" not in r.stderr
 
 

@@ -25,7 +25,8 @@ def _table(title: str, key: str, value) -> dict:
     if title != "inputs.NAME":
         return {title: {key: value}}
     # an input table is whole only with its kind's own key: a serial port with its device
-    whole = {"kind": "udp"} if key == "device" else {"kind": "serial", "device": "/dev/serial/by-id/usb-gps"}
+    serial = {"kind": "serial", "device": "/dev/serial/by-id/usb-gps"}
+    whole = {"kind": "tcp", "host": "192.168.4.1"} if key == "device" else serial
     return {"inputs": {"feed": {**whole, key: value}}}
 
 

@@ -28,7 +28,7 @@ from scipy.stats import chi2
 from estimators.current import ID, IK, CurrentEstimator, CurrentParams
 from estimators.runner import run
 from estimators.samples import Fix
-from tests.test_current_synth import T0, synth_passage
+from tests.synth import T0, synth_passage
 
 M, DUR, TURN = 16, 1200, 600
 CHECK_S = (TURN + 120, TURN + 300, DUR)   # 2 and 5 minutes after the course change, and the end

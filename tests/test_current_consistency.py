@@ -20,7 +20,7 @@ from scipy.stats import chi2
 from estimators.current import ID, IE, IK, IN, CurrentEstimator, CurrentParams
 from estimators.runner import run
 from estimators.samples import Fix
-from tests.test_current_synth import synth_passage, tacking_legs
+from tests.synth import synth_passage, tacking_legs
 
 M, DUR = 8, 900
 

@@ -136,7 +136,7 @@ def test_the_status_topic_carries_each_filters_fusion_health():
     from daemon.core.pipeline import Pipeline
     from daemon.core.readings import Reading
     from tests.helpers import Keep
-    from tests.test_pipeline import FakeAlerts
+    from tests.helpers import FakeAlerts
     # GIVEN a pipeline with the current estimator
     sink = Keep()
     pipe = Pipeline([CurrentEstimator(CurrentParams())], [sink], FakeAlerts(), prefix="boat")
@@ -153,7 +153,7 @@ def test_the_status_topic_carries_each_filters_fusion_health():
 
 def test_quality_is_degraded_with_a_reason_while_the_innovations_are_larger_than_the_model_says():
     from estimators.runner import run
-    from tests.test_current_synth import synth_passage, tacking_legs
+    from tests.synth import synth_passage, tacking_legs
     # GIVEN the same tacking passage read by a GNSS as noisy as configured, and by one four times noisier
     qualities = {}
     for gnss_sigma in (0.1, 0.4):

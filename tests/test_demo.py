@@ -21,14 +21,14 @@ from pathlib import Path
 
 import pytest
 
-from tests.test_mqtt_end_to_end import short_passage  # noqa: F401  (the module fixture)
-from tests.test_service import PREFIX, REPO, Display, free_port, integrity, wait_until
+from tests.helpers import PREFIX, Display, free_port, integrity, wait_until
+from tests.shared import REPO
 
 RECEIVED = re.compile(r"received (\d+) messages on (\d+) topics")
 
 
 @pytest.fixture
-def short_demo(monkeypatch, short_passage):  # noqa: F811
+def short_demo(monkeypatch, short_passage):
     """The demo, with the short simulated passage in place of the 7.5-hour one."""
     import daemon.commands.demo
 
@@ -63,6 +63,9 @@ def test_demo_starts_an_embedded_broker_when_none_answers(short_demo, tmp_path, 
     text = capsys.readouterr().out
     # THEN it says it started its own broker, on another port, and the display received messages on it
     assert rc == 0
+    # AND it published under a prefix of its own, and said so (invented data never under offwatch/)
+    assert "Publishing under offwatch-demo/, not offwatch/" in text
+    assert all(json.loads(x)["topic"].startswith("offwatch-demo/") for x in (out / "demo.jsonl").open())
     started = re.search(r"started an embedded demo broker on 127\.0\.0\.1:(\d+)", text)
     assert started, text
     assert int(started[1]) != port
@@ -78,9 +81,10 @@ def test_demo_uses_a_broker_that_answers(short_demo, tmp_path, capsys, mosquitto
     (out / "demo.sqlite").write_bytes(b"left over from an older demo, not a database")
     (out / "demo.jsonl").write_text('{"t": 0, "topic": "old/topic", "payload": {}}\n' * 3)
     # WHEN the demo runs against it
-    rc = short_demo(Namespace(mqtt=f"mqtt://{host}:{port}", out=str(out)))
+    rc = short_demo(Namespace(mqtt=f"mqtt://{host}:{port}", out=str(out), prefix=PREFIX))
     text = capsys.readouterr().out
     assert rc == 0
+    assert f"Publishing under {PREFIX}/" in text
     # THEN it says it used that broker, and its outputs replaced the old ones
     assert f"Using the MQTT broker at {host}:{port}" in text and "embedded" not in text, text
     check_outputs(out, text)
@@ -108,3 +112,14 @@ def test_full_demo_subprocess_with_the_embedded_broker(tmp_path):
         assert alert in done.stdout, done.stdout
     messages, topics = check_outputs(out, done.stdout)
     assert topics >= 10
+
+
+def test_the_demo_prefix_is_checked():
+    from daemon.commands.demo import DEMO_PREFIX, demo_prefix
+    from daemon.errors import ConfigError
+
+    assert DEMO_PREFIX != "offwatch" and demo_prefix(None) == DEMO_PREFIX
+    assert demo_prefix("trial/boat/") == "trial/boat"
+    for bad in ("", "a/#", "a/+/b", "x\x1b[2J"):
+        with pytest.raises(ConfigError, match="--prefix"):
+            demo_prefix(bad)

@@ -13,11 +13,9 @@ from __future__ import annotations
 import dataclasses
 import json
 import logging
-import math
 import re
 import subprocess
 import sys
-from datetime import datetime
 from pathlib import Path
 
 import pytest
@@ -28,7 +26,7 @@ from daemon.outlets.recorder import export_tag_nmea, parse_tag_line
 from daemon.commands.replay import run_replay
 from tools.simulator import scenarios, simulate
 from tools.simulator.nmea_writer import WriterOptions, write_nmea
-from tests.helpers import Keep as Collect
+from tests.helpers import Keep as Collect, interface_problems
 from tests.shared import REPO, SHARED, shared_path
 
 UNDER_WAY = ("real-captures", "under-way-94min-hdg-hdt-rmc.nmea")
@@ -53,125 +51,6 @@ def cli_parallel(*argvs: tuple[str, ...], timeout: float = 180.0) -> list[int]:
 
 def read_jsonl(path: Path) -> list[dict]:
     return [json.loads(line) for line in path.read_text(encoding="utf-8").splitlines()]
-
-
-ISO_Z = re.compile(r"^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d{1,6})?Z$")  # ISO 8601, UTC with Z (interface.md)
-QUALITIES = {"converging", "valid", "degraded", "unavailable"}        # interface.md, offwatch/current
-PRIORITIES = {"alarm", "warning", "caution"}                          # interface.md, alerts
-STATES = {"active", "acknowledged", "cleared"}                        # interface.md, alerts
-CURRENT_FIELDS = ("set_deg", "drift_kn", "east_kn", "north_kn", "set_sigma_deg", "drift_sigma_kn", "quality",
-                  "stw_scale", "heading_offset_deg")
-PRESSURE_FIELDS = ("msl_hpa", "tendency_3h_hpa", "rate_hpa_per_h", "descriptor", "characteristic")
-SEA_STATE_FIELDS = ("true_wind_from_deg", "true_wind_kn", "ground_wind_from_deg", "ground_wind_kn",
-                    "opposing_current_kn", "height_factor", "length_factor", "steepness_factor")
-
-
-def _utc_s(iso: str) -> float:
-    return datetime.fromisoformat(iso.replace("Z", "+00:00")).timestamp()
-
-
-def _num(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
-
-
-def _payload_problems(topic: str, p: dict) -> list[str]:
-    """What in one payload breaks interface.md's table of topics and payloads."""
-    name = topic.split("/", 1)[1] if "/" in topic else topic
-    bad: list[str] = []
-    if name == "status":
-        if p.get("state") not in ("online", "offline"):
-            bad.append(f"status state {p.get('state')!r}")
-        sensors = p.get("sensors")
-        if not isinstance(sensors, dict) or not all(_num(a) and a >= 0 for a in sensors.values()):
-            bad.append(f"status sensors {sensors!r}: per input kind its age in s")
-    elif name == "position":
-        if not (_num(p.get("lat")) and -90 <= p["lat"] <= 90 and _num(p.get("lon")) and -180 <= p["lon"] <= 180):
-            bad.append(f"position lat/lon {p.get('lat')!r}, {p.get('lon')!r}")
-        if p.get("source") not in ("gnss", "dead_reckoning"):
-            bad.append(f"position source {p.get('source')!r}")
-        if not (_num(p.get("sigma_m")) and p["sigma_m"] > 0):
-            bad.append(f"position sigma_m {p.get('sigma_m')!r}")
-    elif name == "current":
-        bad += [f"current lacks {k}" for k in CURRENT_FIELDS if k not in p]
-        if p.get("quality") not in QUALITIES:
-            bad.append(f"current quality {p.get('quality')!r}")
-        if all(_num(p.get(k)) for k in ("set_deg", "drift_kn", "east_kn", "north_kn")):
-            # set is the direction the current flows TOWARD, degrees true 0..<360 (interface.md, trade usage);
-            # east/north are the same vector: drift = |(e, n)|, set = atan2(e, n). 0.011 kn / 0.6 deg: rounding.
-            s, d, e, n = p["set_deg"], p["drift_kn"], p["east_kn"], p["north_kn"]
-            if not 0 <= s < 360 or d < 0:
-                bad.append(f"current set/drift {s}, {d}")
-            if abs(math.hypot(e, n) - d) > 0.011:
-                bad.append(f"current drift {d} but |(east, north)| = {math.hypot(e, n):.3f}")
-            if d > 0.05 and abs((math.degrees(math.atan2(e, n)) - s + 180) % 360 - 180) > 0.6 + 1.0 / d:
-                bad.append(f"current set {s} but atan2(east, north) = {math.degrees(math.atan2(e, n)) % 360:.1f}")
-    elif name == "pressure":
-        bad += [f"pressure lacks {k}" for k in PRESSURE_FIELDS if k not in p]
-        # MSL pressure stays within the observed world extremes, about 870 to 1084 hPa (WMO records, from memory)
-        if not (_num(p.get("msl_hpa")) and 860 <= p["msl_hpa"] <= 1090):
-            bad.append(f"pressure msl_hpa {p.get('msl_hpa')!r}")
-        c = p.get("characteristic")
-        if c is not None and (not isinstance(c, int) or not 0 <= c <= 8):  # WMO code table 0200: 0..8
-            bad.append(f"pressure characteristic {c!r}")
-    elif name == "sea_temperature":
-        bad += [f"sea_temperature lacks {k}" for k in ("temp_c", "gradient_c_per_nm") if k not in p]
-        if not (_num(p.get("temp_c")) and -2.5 <= p["temp_c"] <= 40):  # sea water freezes near -1.9 C
-            bad.append(f"sea_temperature temp_c {p.get('temp_c')!r}")
-    elif name == "sea_state":
-        bad += [f"sea_state lacks {k}" for k in SEA_STATE_FIELDS if k not in p]
-    elif name == "events":
-        bad += [f"event lacks {k}" for k in ("kind", "lat", "lon") if k not in p]
-        if p.get("kind") == "front_crossing":
-            bad += [f"front_crossing lacks {k}" for k in ("delta_c", "gradient_c_per_nm", "warmer") if k not in p]
-            if _num(p.get("delta_c")) and p.get("warmer") is not (p["delta_c"] > 0):
-                bad.append(f"front_crossing delta_c {p['delta_c']} but warmer {p.get('warmer')}")
-    elif name.startswith("alerts/"):
-        alert_id = name.split("/", 1)[1]
-        if p.get("id") != alert_id:
-            bad.append(f"alert id {p.get('id')!r} on {topic}")
-        if p.get("priority") not in PRIORITIES or p.get("state") not in STATES:
-            bad.append(f"alert priority/state {p.get('priority')!r}/{p.get('state')!r}")
-        # every alert text carries the advisory wording (the project's rules; daemon.core.payloads.ADVISORY)
-        if "not for navigation" not in str(p.get("text", "")).lower():
-            bad.append(f"alert {alert_id} text without the advisory: {p.get('text')!r}")
-        since = p.get("since")
-        if not (isinstance(since, str) and ISO_Z.match(since)) or _utc_s(since) > _utc_s(p["time"]) + 1e-3:
-            bad.append(f"alert since {since!r} (time {p.get('time')})")
-    else:
-        bad.append(f"topic {topic} is not in interface.md")
-    return bad
-
-
-def interface_problems(lines: list[str], prefix: str = "offwatch") -> list[str]:
-    """Every way the JSONL lines break interface.md, as readable strings (empty: all good).
-
-    Each line is ``{"t": <data time, UNIX s>, "topic": "<full topic>", "payload": {...}}``; the payload's
-    ``time`` is ISO 8601 UTC with ``Z`` and names the same instant as ``t``; lines are in order.
-    """
-    bad: list[str] = []
-    last_t = -math.inf
-    for i, line in enumerate(lines, start=1):
-        d = json.loads(line)
-        if set(d) != {"t", "topic", "payload"}:
-            bad.append(f"line {i}: keys {sorted(d)}")
-            continue
-        t, topic, p = d["t"], d["topic"], d["payload"]
-        where = f"line {i} ({topic})"
-        if not topic.startswith(prefix + "/"):
-            bad.append(f"{where}: topic outside {prefix}/")
-        time = p.get("time")
-        if not (isinstance(time, str) and ISO_Z.match(time)):
-            bad.append(f"{where}: payload time {time!r} is not ISO 8601 UTC with Z")
-        elif not (_num(t) and abs(_utc_s(time) - t) <= 0.0011):  # t to the ms, time to the ms
-            bad.append(f"{where}: t {t} is not payload time {time}")
-        if _num(t):
-            if t < last_t:
-                bad.append(f"{where}: t {t} before the line above ({last_t})")
-            last_t = max(last_t, t)
-        bad += [f"{where}: {b}" for b in _payload_problems(topic, p)]
-        if len(bad) > 20:
-            break
-    return bad
 
 
 def topic_payloads(messages: list[dict], name: str) -> list[dict]:

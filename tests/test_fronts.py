@@ -18,22 +18,12 @@ from geographiclib.geodesic import Geodesic
 from estimators.base import Condition, Publication
 from estimators.fronts import FrontDetector, FrontParams, format_lat_lon, step_distance_m
 from estimators.params import check
+from estimators.runner import Runner, RunContext
 from estimators.samples import Fix, SeaTemperature
 
 LAT0, LON0 = 36.2, -12.5  # invented open water
 T0 = 1_780_000_000.0
 M_PER_DEG_LON = Geodesic.WGS84.Inverse(LAT0, 0.0, LAT0, 1.0)["s12"]  # along the parallel (geographiclib)
-
-
-class FakeContext:
-    """Only what the detector reads: the newest publication on a topic."""
-
-    def __init__(self) -> None:
-        self.pubs: dict[str, Publication] = {}
-        self.history = None
-
-    def latest(self, topic: str) -> Publication | None:
-        return self.pubs.get(topic)
 
 
 def tanh_front(x0_nm: float, delta_c: float, width_nm: float) -> Callable[[float], float]:
@@ -46,10 +36,11 @@ def sail(sea: Callable[[float], float], *, hours: float, speed_kn: float = 6.0, 
          noise_c: float = 0.03, quantum_c: float = 0.1, in_time: Callable[[float], float] = lambda s: 0.0,
          spikes: tuple[tuple[float, float, float], ...] = (), gnss_jitter_m: float = 2.0,
          current: Callable[[float], tuple[float, float]] | None = None, params: FrontParams | None = None):
-    """Run the detector; returns (events as (payload, x_nm of the boat), conditions, publications, detector)."""
+    """Run the detector as the service does (the estimators' runner: history, a tick each data second);
+    returns (events as (payload, x_nm of the boat), conditions, publications, detector)."""
     rng = random.Random(seed)
     det = FrontDetector(params or FrontParams())
-    ctx = FakeContext()
+    runner = Runner([det])
     events, conditions, pubs = [], [], []
     for k in range(int(hours * 3600)):
         t = T0 + k
@@ -59,14 +50,14 @@ def sail(sea: Callable[[float], float], *, hours: float, speed_kn: float = 6.0, 
         lat = LAT0 + jitter_n / 111_000.0
         if current is not None:
             e, n = current(x_nm)
-            ctx.pubs["current"] = Publication(t, "current", {"east_kn": e, "north_kn": n})
-        outs = list(det.step(Fix(t, lat, lon, speed_kn, 90.0), ctx))
+            runner.ctx.note([Publication(t, "current", {"east_kn": e, "north_kn": n})])  # the current estimator's
+        outs = [o for _, got in runner.feed(Fix(t, lat, lon, speed_kn, 90.0)) for o in got]
         temp = 18.0 + sea(x_nm) + in_time(k) + rng.gauss(0.0, noise_c)
         for start, dur, amp in spikes:
             if start <= k < start + dur:
                 temp += amp
         temp = round(temp / quantum_c) * quantum_c
-        outs += det.step(SeaTemperature(t + 0.5, temp), ctx)
+        outs += [o for _, got in runner.feed(SeaTemperature(t + 0.5, temp)) for o in got]
         for out in outs:
             if isinstance(out, Condition):
                 conditions.append(out)
@@ -234,7 +225,7 @@ def test_stop_then_go_after_warming_is_not_a_front():
     def speed_at(k):  # seconds -> kn
         return 6.0 if k < 3600 or k >= 3 * 3600 else 0.0
     rng = random.Random(11)
-    det, ctx = FrontDetector(FrontParams()), FakeContext()
+    det, ctx = FrontDetector(FrontParams()), RunContext()
     x, events = 0.0, []
     for k in range(4 * 3600):
         x += speed_at(k) / 3600.0
@@ -264,7 +255,7 @@ def test_caution_clears_after_the_distance_and_reports_a_current_change():
 
 def test_sea_temperature_is_published_at_most_once_a_second():
     # GIVEN readings twice a second
-    det, ctx = FrontDetector(FrontParams()), FakeContext()
+    det, ctx = FrontDetector(FrontParams()), RunContext()
     pubs = []
     for k in range(120):
         t = T0 + 0.5 * k
@@ -289,15 +280,15 @@ def test_long_steps_fall_back_to_the_geodesic():
 
 
 def test_positions_in_degrees_and_minutes():
-    assert format_lat_lon(36.205, -12.5758) == "36°12.3'N 012°34.5'W"
-    assert format_lat_lon(-0.9999999, 0.0) == "01°00.0'S 000°00.0'E"
+    assert format_lat_lon(36.205, -12.5758) == "36°12.3′N 012°34.5′W"
+    assert format_lat_lon(-0.9999999, 0.0) == "01°00.0′S 000°00.0′E"
 
 
 # --------------------------------------------------------------------------- simulator scenario and a real capture
 
 
 def _fronts_on(run, params: FrontParams | None = None) -> list[Publication]:
-    det, ctx, events = FrontDetector(params or FrontParams()), FakeContext(), []
+    det, ctx, events = FrontDetector(params or FrontParams()), RunContext(), []
     for s in run.samples:
         if isinstance(s, (Fix, SeaTemperature)):
             events += [o for o in det.step(s, ctx) if isinstance(o, Publication) and o.topic == "events"]

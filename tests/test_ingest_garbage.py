@@ -12,7 +12,7 @@ from daemon.intake.counters import Counters
 from daemon.intake.ingest import Ingest
 from daemon.core.readings import RawLine, Reading
 from estimators.samples import Fix, Heading, SeaTemperature
-from tests.test_nmea_sentences import StandInVariation, s, xor_hex
+from tests.helpers import StandInVariation, nmea_checksum as xor_hex, sentence as s
 
 RMC1 = s("GPRMC,120000,A,3747.772,N,12220.041,W,5.2,218.2,100520,013.2,E,A")
 RMC2 = s("GPRMC,120010,A,3747.782,N,12220.031,W,5.2,218.2,100520,013.2,E,A")

@@ -30,18 +30,8 @@ from daemon.core.config import MqttSettings, build_config
 from daemon.outlets.mqtt import (BrokerUrl, MqttSink, encode_payload, nesting_depth, parse_ack,
                          parse_broker_url)
 from daemon.core.readings import Message
-
-REPO = Path(__file__).resolve().parents[1]
-PREFIX = "testboat"
-
-
-def wait_until(cond, timeout_s: float = 10.0, step_s: float = 0.02) -> bool:
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        if cond():
-            return True
-        time.sleep(step_s)
-    return cond()
+from tests.helpers import PREFIX, wait_until
+from tests.shared import REPO
 
 
 class Watcher:
@@ -470,7 +460,7 @@ def tls_mosquitto(tmp_path, request):
     (indirect parametrisation adds listener lines, e.g. require_certificate)."""
     import shutil as _shutil
 
-    from tests.conftest import MOSQUITTO, Mosquitto
+    from tests.helpers import MOSQUITTO, Mosquitto
 
     if not _shutil.which("openssl") or not Path(MOSQUITTO).exists():
         pytest.skip("needs openssl and mosquitto")
@@ -579,7 +569,7 @@ def test_tls_to_a_plain_port_is_named(mosquitto, sinks, caplog):
 
 
 def test_nothing_listening_is_named(sinks, caplog):
-    from tests.conftest import free_port
+    from tests.helpers import free_port
     caplog.set_level(logging.INFO, logger="daemon.outlets.mqtt")
     sink = sinks(MqttSettings(url=f"mqtt://127.0.0.1:{free_port()}", prefix=PREFIX, client_id="offwatch-none"))
     _said_once_and_retrying(sink, caplog, "nothing listens")
@@ -588,7 +578,7 @@ def test_nothing_listening_is_named(sinks, caplog):
 def test_bad_credentials_are_named_with_the_keys_to_check(tmp_path, sinks, caplog):
     import shutil as _shutil
 
-    from tests.conftest import MOSQUITTO, Mosquitto
+    from tests.helpers import MOSQUITTO, Mosquitto
     if not _shutil.which("mosquitto_passwd") or not Path(MOSQUITTO).exists():
         pytest.skip("needs mosquitto and mosquitto_passwd")
     passwords = tmp_path / "passwords"
@@ -642,3 +632,14 @@ def test_close_with_the_broker_gone_tells_what_was_not_delivered(mosquitto):
     sink.close()
     # THEN it accounts for each of them, by kind
     assert sink.undelivered() == {"alerts": 3, "events": 1, "states": 1}
+
+
+def test_the_watch_view_reads_received_payloads_bounded():
+    # issue 13 item 5 for the other subscriber, `offwatch watch`: a deep or huge payload is ignored unread
+    from daemon.commands.watch import View
+    view = View(PREFIX)
+    view.take(f"{PREFIX}/status", b"[" * 5000 + b"]" * 5000)
+    view.take(f"{PREFIX}/position", b'{"lat": ' + b"1" * 70_000 + b"}")
+    assert view.latest == {}
+    view.take(f"{PREFIX}/position", b'{"time": "2026-06-01T06:00:00.000Z", "lat": 48.1, "lon": -4.9}')
+    assert view.latest["position"]["lat"] == 48.1

@@ -26,38 +26,11 @@ from pathlib import Path
 
 import pytest
 
-from tests.test_service import PREFIX, REPO, Display, wait_until
+from tests.helpers import PREFIX, Display, wait_until
+from tests.shared import REPO
 
 SPEED = 100.0  # the paced replay: 30 min of data in 18 s
 STATE_TOPICS = ("status", "position", "current", "pressure", "sea_temperature")
-
-
-@pytest.fixture(scope="module")
-def short_passage(tmp_path_factory) -> dict:
-    """The simulated file, a config for it, and its start time."""
-    from tools.simulator import (Front, Ocean, PressureField, Scenario, SeaTemperatureField, SensorSpec, Steer,
-                                  SteadyCurrent, WindField, simulate)
-    from tools.simulator.nmea_writer import WriterOptions, write_nmea
-    from tools.simulator.scenarios import MIN, along, utc
-
-    t0, lat, lon = utc(2026, 6, 1, 6), 43.3, -30.7
-    front = Front(*along(lat, lon, 90.0, 1.6), along_deg=0.0, delta_c=3.0, width_nm=0.3)
-    ocean = Ocean(currents=(SteadyCurrent(30.0, 3.0),), sea_temp=SeaTemperatureField(15.0, lat, lon, fronts=(front,)),
-                  pressure=PressureField(((t0, 1015.0), (t0 + 60 * MIN, 1003.0))),
-                  wind=WindField(((t0, 220.0, 12.0),)))
-    scenario = Scenario(
-        name="mqtt_end_to_end", start_utc=t0, duration_s=30 * MIN, start_lat=lat, start_lon=lon,
-        helm=(Steer(90.0, 6.0, 8 * MIN), Steer(180.0, 6.0, 8 * MIN), Steer(90.0, 6.0, 14 * MIN)), ocean=ocean,
-        sensors=SensorSpec(heading_hz=1.0, gnss_outages=((t0 + 4 * MIN, t0 + 4 * MIN + 40),)))
-    d = tmp_path_factory.mktemp("passage")
-    nmea = d / "short.nmea"
-    write_nmea(simulate(scenario, 7), nmea, WriterOptions())
-    cfg = d / "replay.toml"
-    # the early pressure-fall rule over its shortest window (15 min) so half an hour shows it;
-    # gnss_lost counts as gone 5 s after fixes return
-    cfg.write_text(f'[mqtt]\nprefix = "{PREFIX}"\n\n[pressure]\nearly_window_s = 900.0\n\n'
-                   "[alerts]\nclear_after_by_id = { gnss_lost = 5.0 }\n")
-    return {"nmea": nmea, "cfg": cfg, "t0": t0}
 
 
 def replay_args(passage: dict, jsonl: Path, url: str, *extra: str) -> list[str]:
@@ -75,8 +48,7 @@ def alert_changes(messages) -> list[tuple[str, str]]:
 
 
 def received_alerts(display: Display) -> list[tuple[str, str]]:
-    with display._lock:
-        got = list(display.messages)
+    got = display.received()
     return [(m.topic, json.dumps(m.payload, sort_keys=True)) for m in got if "/alerts/" in m.topic]
 
 
@@ -169,8 +141,7 @@ def test_broker_killed_and_restarted_mid_replay_loses_no_alert_change(short_pass
 
         def first_new():
             """The first message offwatch sent after the restart (a retained one the broker kept is older)."""
-            with display._lock:
-                later = display.messages[n_before:]
+            later = display.received(n_before)
             return next((m for m in later if _unix(m.payload["time"]) > t_restart_data), None)
 
         assert wait_until(first_new, 20)
@@ -211,7 +182,7 @@ def _unix(iso: str) -> float:
 @pytest.fixture
 def forgetful_broker(mosquitto_broker, tmp_path):
     """A second Mosquitto without persistence: a restart forgets every retained message."""
-    from tests.conftest import Mosquitto
+    from tests.helpers import Mosquitto
     workdir = tmp_path / "forgetful"
     workdir.mkdir()
     broker = Mosquitto(workdir, persistence=False)
@@ -279,7 +250,7 @@ def test_the_data_stream_does_not_depend_on_the_broker(short_passage, forgetful_
 
 def test_replay_with_the_broker_gone_at_the_end_says_what_was_not_delivered(short_passage, tmp_path):
     """Issue 13 item 12: nothing undelivered is dropped in silence; exit status 3 (README, replay)."""
-    from tests.conftest import free_port
+    from tests.helpers import free_port
     # GIVEN a broker address where nothing answers (a broker that went and does not come back)
     out = tmp_path / "gone.jsonl"
     done = subprocess.run(replay_args(short_passage, out, f"mqtt://127.0.0.1:{free_port()}", "--mqtt-wait", "1"),

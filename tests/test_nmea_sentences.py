@@ -26,37 +26,7 @@ from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Heading, Pressure,
     SeaTemperature, WaterSpeed, WaterWind,
 )
-
-
-def xor_hex(body: str) -> str:
-    """The checksum, computed here independently of daemon.nmea0183.codec: a plain loop over ord()."""
-    x = 0
-    for ch in body:
-        x ^= ord(ch)
-    return f"{x:02X}"
-
-
-def s(body: str, start: str = "$") -> str:
-    return f"{start}{body}*{xor_hex(body)}"
-
-
-class StandInVariation:
-    """A tiny stand-in for daemon.intake.magvar.VariationProvider("sentence"): the latest noted value."""
-
-    def __init__(self, fixed: float | None = None) -> None:
-        self.value = fixed
-        self.noted: list[tuple[float, float]] = []
-        self.positions: list[tuple[float, float, float]] = []
-
-    def note_sentence_variation(self, east_deg: float, t_s: float) -> None:
-        self.value = east_deg
-        self.noted.append((east_deg, t_s))
-
-    def note_position(self, lat_deg: float, lon_deg: float, t_s: float) -> None:
-        self.positions.append((lat_deg, lon_deg, t_s))
-
-    def east_deg(self, t_s: float) -> float | None:
-        return self.value
+from tests.helpers import StandInVariation, nmea_checksum as xor_hex, sentence as s
 
 
 def values(sentence: str):

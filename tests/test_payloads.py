@@ -79,3 +79,30 @@ def test_a_payload_has_time_first_and_its_own_time_field_is_ignored():
 def test_alert_texts_end_with_the_advisory_sentence():
     assert with_advisory("Pressure falling quickly.") == "Pressure falling quickly. " + ADVISORY
     assert with_advisory("") == ADVISORY and "not for navigation" in ADVISORY
+
+
+def _float_fields(value, name: str = "", inherited: bool = False):
+    """(field name, covered) for every float in a payload; nested fields may take their parent's rule."""
+    if isinstance(value, dict):
+        for k, v in value.items():
+            yield from _float_fields(v, k, inherited or rule_for(name) is not None)
+    elif isinstance(value, list):
+        for v in value:
+            yield from _float_fields(v, name, inherited)
+    elif isinstance(value, float):
+        yield name, inherited or rule_for(name) is not None
+
+
+def test_every_float_the_service_publishes_has_a_rule_in_the_table(short_passage):
+    # GIVEN the short simulated passage (every state topic, an event, alert changes) through replay
+    from daemon.commands.replay import run_replay
+    from daemon.core.config import load_config
+    from tests.helpers import Keep
+
+    sink = Keep()
+    run_replay([str(short_passage["nmea"])], load_config(short_passage["cfg"]), progress=False, extra_sinks=[sink])
+    # THEN each float field is rounded by a rule of the table (its own or its parent's), not by the default
+    uncovered = {(m.topic.split("/", 1)[1].split("/")[0], name)
+                 for m in sink.messages for name, covered in _float_fields(dict(m.payload)) if not covered}
+    assert uncovered == set()
+    assert {m.topic.split("/", 1)[1] for m in sink.messages} >= {"position", "current", "pressure", "status"}

@@ -8,7 +8,7 @@ from daemon.core.pipeline import Pipeline
 from daemon.core.readings import Message, RawLine, Reading
 from estimators.base import Condition, EstimatorBase, Publication
 from estimators.samples import Heading, Pressure
-from tests.helpers import Keep
+from tests.helpers import FakeAlerts, Keep
 
 
 class Echo(EstimatorBase):
@@ -27,24 +27,6 @@ class Echo(EstimatorBase):
     def tick(self, t_s, ctx):
         self.ticks.append(t_s)
         return [Condition(t_s, "sensor_stale", "caution", active=t_s >= 1003)]
-
-
-class FakeAlerts:
-    def __init__(self):
-        self.conditions, self.acks = [], []
-
-    def on_condition(self, cond):
-        self.conditions.append(cond)
-        return []
-
-    def tick(self, t_s):
-        return []
-
-    def acknowledge(self, alert_id, t_s):
-        self.acks.append((alert_id, t_s))
-        if alert_id == "no_such_alert":  # as the real manager: an unknown id changes nothing
-            return []
-        return [Message(t_s, "boat/alerts/" + alert_id, {"id": alert_id}, True, 1, "alert")]
 
 
 def reading(sample):

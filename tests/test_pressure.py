@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 import random
+import re
 from collections.abc import Callable
 
 import numpy as np
@@ -18,20 +19,16 @@ import pytest
 from estimators.base import Condition, Publication
 from estimators.params import check
 from estimators.pressure import (
-    PressureParams, PressureTendency, characteristic_0200, descriptor, local_solar_hours, ols_slope,
+    CHARACTERISTIC_WORDS, PressureParams, PressureTendency, characteristic_0200, descriptor, local_solar_hours, ols_slope,
     reduce_to_msl, sanders_gyakum_hpa, solar_tide_hpa,
 )
 from estimators.samples import AirTemperature, Fix, Pressure
+from tests.helpers import station_from_msl
 
 H = 3600.0
 T0 = 1_780_000_000.0  # 2026-05-28 20:26:40 UTC
 LAT, LON = 45.0, -20.0  # invented open water
 HEIGHT_M = 2.0
-
-
-def station_from_msl(msl_hpa: float, height_m: float) -> float:
-    """ISO 2533 standard atmosphere: p = p0 (1 - 2.25577e-5 h)^5.25588 (independent of the reduction)."""
-    return msl_hpa * (1.0 - 2.25577e-5 * height_m) ** 5.25588
 
 
 def sim_tide(t_s: float, lat: float, lon: float, amp: float = 1.16) -> float:
@@ -211,25 +208,32 @@ def test_ols_slope_against_numpy():
 def test_twelve_hours_of_steady_noisy_pressure_raise_nothing():
     # GIVEN 12 h of steady weather with the tide, gusts, a +2.5 hPa spike and a -3 hPa one
     conditions, pubs, est = barometer(lambda s: 1013.0, 12.0, seed=3, spikes=((5 * H, 2.5), (8 * H, -3.0)))
-    # THEN no alert; the spikes were rejected by the gate; the tendency stayed small
+    # THEN no alert; the spikes were rejected by the gate; the tide-corrected tendency stayed small
+    # and the observed one within the tide's 3-hour swing (√2 × 1.16 cos³45° = 0.58 hPa) of it
     assert conditions == []
-    assert est.counts["rejected"] >= 2
-    tends = [p.payload["tendency_3h_hpa"] for p in pubs if p.payload["tendency_3h_hpa"] is not None]
-    assert max(abs(x) for x in tends) < 0.6
+    assert est.counts["rejected"] >= 2 and est.counts["step_faults"] == 0
+    late = [p.payload for p in pubs if p.payload["tendency_3h_hpa"] is not None]
+    assert max(abs(p["tendency_3h_tide_corrected_hpa"]) for p in late) < 0.6
+    assert max(abs(p["tendency_3h_hpa"]) for p in late) < 0.6 + 0.58
 
 
 def test_tide_is_removed_before_the_tendency_is_judged():
     # GIVEN steady weather and the full equatorial tide (±1.16 hPa) at 5°N
     _, pubs, _ = barometer(lambda s: 1013.0, 12.0, seed=4, lat=5.0, gusts=False)
     late = [p.payload for p in pubs if p.payload["tendency_3h_hpa"] is not None]
-    # THEN the barometer's own 3-hour change swings by well over a hPa, the corrected one does not
-    assert max(abs(p["tendency_3h_raw_hpa"]) for p in late) > 1.2
-    assert max(abs(p["tendency_3h_hpa"]) for p in late) < 0.35
-    assert all(p["descriptor"] in ("steady", "rising slowly", "falling slowly") for p in late)
+    # THEN the barometer's own 3-hour change (tendency_3h_hpa, as WMO defines it) swings by well over
+    # a hPa, the tide-corrected one does not
+    assert max(abs(p["tendency_3h_hpa"]) for p in late) > 1.2
+    assert max(abs(p["tendency_3h_tide_corrected_hpa"]) for p in late) < 0.35
+    # AND the descriptor and the characteristic go with the observed figure, the words with the code
+    assert all(p["descriptor"] == descriptor(p["tendency_3h_hpa"]) for p in late)
+    assert all(p["characteristic_text"] == CHARACTERISTIC_WORDS[p["characteristic"]] for p in late)
+    assert all((p["characteristic"] <= 3) == (p["tendency_3h_hpa"] > 0.1) for p in late
+               if abs(p["tendency_3h_hpa"]) >= 0.2 and p["characteristic"] not in (0, 5))
 
 
 def test_tendency_is_null_until_three_hours_and_published_at_most_every_10_s():
-    _, pubs, _ = barometer(lambda s: 1013.0, 3.5, seed=5)
+    _, pubs, _ = barometer(lambda s: 1013.0, 3.5, seed=5, tide=False)
     early = [p for p in pubs if p.t_s - T0 < 3 * H - 60]
     assert all(p.payload["tendency_3h_hpa"] is None and p.payload["characteristic"] is None for p in early)
     assert pubs[-1].payload["tendency_3h_hpa"] is not None and pubs[-1].payload["characteristic"] == 4
@@ -248,9 +252,13 @@ def test_fall_caution_then_warning_within_15_minutes_of_the_true_fall():
     assert caution is not None and 4.5 - 0.25 <= (caution.t_s - T0) / H <= 4.5 + 0.25
     assert warning is not None and 5.52 - 0.25 <= (warning.t_s - T0) / H <= 5.52 + 0.25
     assert "fell" in warning.text and "very rapidly" in warning.text
-    assert pubs[-1].payload["descriptor"] == "falling very rapidly"
+    assert pubs[-1].payload["descriptor"] == descriptor(pubs[-1].payload["tendency_3h_hpa"])
     assert pubs[-1].payload["characteristic"] == 7
-    assert pubs[-1].payload["tendency_3h_hpa"] == pytest.approx(-7.2, abs=0.3)
+    # the observed 3-hour change is the weather's -7.2 hPa plus the tide's own change over those hours
+    t_end = pubs[-1].t_s
+    tide_change = sim_tide(t_end, LAT, LON) - sim_tide(t_end - 3 * H, LAT, LON)
+    assert pubs[-1].payload["tendency_3h_hpa"] == pytest.approx(-7.2 + tide_change, abs=0.3)
+    assert pubs[-1].payload["tendency_3h_tide_corrected_hpa"] == pytest.approx(-7.2, abs=0.3)
 
 
 def test_early_rule_raises_the_caution_before_three_hours_of_data():
@@ -274,6 +282,7 @@ def test_caution_clears_when_the_fall_stops():
     # GIVEN -1.6 hPa/h for 3 h from 1 h in, then steady for 4 h
     conditions, _, _ = barometer(ramp(1 * H, -1.6, stop_s=4 * H), 8.0, seed=9)
     states = [c.active for c in conditions if c.alert_id == "pressure_fall"]
+    states = [a for i, a in enumerate(states) if i == 0 or a != states[i - 1]]  # new figures are not a change
     # THEN raised once and cleared once (hysteresis: no chatter)
     assert states == [True, False]
 
@@ -322,3 +331,86 @@ def test_filter_arithmetic_matches_the_matrix_form():
         P = A @ P @ A.T + r * K @ K.T
     # THEN the state and covariance agree to rounding
     assert np.allclose(kf.x, x, rtol=0, atol=1e-9) and np.allclose(np.array(kf.P), P, rtol=1e-9, atol=1e-15)
+
+
+# ------------------------------------------------------------------ what the crew reads, and a sensor step
+# A barometer step no atmosphere makes is a sensor fault, not a storm; which figure an alert uses and
+# what its words are.
+
+
+def _ids(conditions, alert_id):
+    return [c for c in conditions if c.alert_id == alert_id]
+
+
+@pytest.mark.parametrize("step_hpa", [-20.0, +20.0])
+def test_a_barometer_step_no_atmosphere_makes_is_a_sensor_fault_not_weather(step_hpa):
+    # GIVEN 5 h of steady weather, and from 4 h in a barometer that reads 20 hPa off (a sensor fault)
+    conditions, pubs, est = barometer(lambda s: 1013.0 + (step_hpa if s >= 4 * H else 0.0), 7.0, seed=21,
+                                      gusts=False)
+    # THEN no weather alert at all from it: neither pressure_fall nor rapid_deepening
+    assert _ids(conditions, "pressure_fall") == [] and _ids(conditions, "rapid_deepening") == []
+    # AND it is flagged: counted, in the payload, and the barometer_fault caution says what happened
+    assert est.counts["step_faults"] == 1
+    fault = first_raised(conditions, "barometer_fault")
+    assert fault is not None and fault.priority == "caution"
+    sign = "+" if step_hpa > 0 else "\u2212"
+    assert re.search(f"jumped \\{sign}20\\.[0-3] hPa" if sign == "+" else f"jumped {sign}20\\.[0-3] hPa", fault.text)
+    assert "sensor fault" in fault.text
+    late = [p.payload for p in pubs if p.t_s - T0 > 4.2 * H]
+    hour_after = [p.payload for p in pubs if 4.2 * H < p.t_s - T0 < 5.0 * H]
+    assert all(p["sensor_step_hpa"] == pytest.approx(step_hpa, abs=0.3) for p in hour_after)
+    assert late[-1]["sensor_step_hpa"] is None  # no longer flagged after step_fault_hold_s
+    # AND the filter was re-initialised on the new readings; the tendency goes on, steady (within the
+    # tide's 3-hour swing at 45°: 0.58 hPa), never the 20 hPa jump
+    assert late[-1]["msl_hpa"] == pytest.approx(1013.0 + step_hpa, abs=0.8)
+    assert max(abs(p["tendency_3h_tide_corrected_hpa"]) for p in late) < 0.6
+    assert max(abs(p["tendency_3h_hpa"]) for p in late) < 1.2
+
+
+def test_a_real_lasting_fall_of_a_few_hpa_is_still_weather():
+    # GIVEN a 4 hPa drop over 5 minutes that stays (a squall's pressure jump is a few hPa: weather)
+    conditions, pubs, est = barometer(lambda s: 1013.0 - 4.0 * min(max(s - 2 * H, 0.0), 300.0) / 300.0, 4.0,
+                                      seed=22, gusts=False)
+    # THEN it is not called a sensor fault
+    assert est.counts["step_faults"] == 0 and _ids(conditions, "barometer_fault") == []
+    assert pubs[-1].payload["sensor_step_hpa"] is None
+
+
+def test_the_fall_alert_says_which_figure_it_uses_and_its_words_agree_with_the_descriptor():
+    # GIVEN a steady 2.4 hPa/h fall from 3 h in (7.2 hPa in 3 h by 6 h); the early rule off
+    conditions, pubs, _ = barometer(ramp(3 * H, -2.4), 6.5, seed=23, params=PressureParams(early_rule=False))
+    active = [c for c in _ids(conditions, "pressure_fall") if c.active]
+    assert active
+    for c in active:
+        fig, which = c.values["fall_3h_hpa"], c.values["fall_3h_is"]
+        # THEN the text names the figure, says whether it is as the barometer shows it or tide-corrected,
+        assert f"fell {fig:.1f} hPa in the last 3 hours" in c.text
+        assert ("as the barometer shows it" in c.text) == (which == "observed")
+        assert ("with the daily pressure tide removed" in c.text.split("(")[0]) == (which == "tide_corrected")
+        # AND its words are the descriptor's for that very figure
+        assert f": {descriptor(-fig)}." in c.text
+        # AND the figure is the larger fall of the two
+        assert fig == pytest.approx(max(-c.values["observed_3h_hpa"], -c.values["tide_corrected_3h_hpa"]), abs=0.11)
+    # AND the figures follow the fall while it lasts: the estimator tells the manager each new figure
+    figs = [c.values["fall_3h_hpa"] for c in active]
+    assert figs[-1] > figs[0] + 2.0 and len(set(figs)) > 10
+
+
+def test_the_early_rule_says_it_is_a_rate_not_falling_quickly():
+    # GIVEN 2.5 hPa/h from the start: an hour of readings shows it before any 3-hour figure
+    conditions, _, _ = barometer(ramp(0.0, -2.5), 2.0, seed=7)
+    c = first_raised(conditions, "pressure_fall")
+    # THEN the text is a rate over the last hour, with its 3-hour bound, and no descriptor words
+    assert c.text.startswith("Pressure falling at ") and "hPa/h over the last hour" in c.text
+    assert "at least" in c.text and "no 3-hour figure yet" in c.text
+    assert "quickly" not in c.text and "rapidly" not in c.text
+    # AND no long floats in its values
+    assert all(v is None or isinstance(v, str) or round(v, 2) == v for v in c.values.values())
+
+
+def test_the_all_clear_reports_the_last_figure():
+    conditions, _, _ = barometer(ramp(1 * H, -1.6, stop_s=4 * H), 8.0, seed=9)
+    gone = [c for c in _ids(conditions, "pressure_fall") if not c.active]
+    assert len(gone) == 1
+    assert gone[0].text.startswith("Pressure fell quickly; now the barometer's 3-hour change is ")
+    assert gone[0].values["observed_3h_hpa"] is not None

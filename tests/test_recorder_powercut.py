@@ -78,6 +78,11 @@ def run_and_kill(path: Path, start: int, rng: random.Random, early: bool) -> lis
         time.sleep(rng.uniform(0.0, 0.12))  # start-up, schema creation or the first commits
     else:
         assert opened.wait(20), "the writer did not start"
+        # under way: a few hundred lines committed (however loaded the machine), then a random moment
+        deadline = time.monotonic() + 20
+        while time.monotonic() < deadline and not any(p[0].isdigit() and int(p.split()[0]) >= 200
+                                                      for p in list(printed) if p):
+            time.sleep(0.01)
         time.sleep(rng.uniform(0.0, 0.12))
     child.send_signal(signal.SIGKILL)
     child.wait(20)
@@ -120,4 +125,8 @@ def test_sigkill_at_random_moments_keeps_the_file_sound_and_committed_lines(tmp_
     codecs = {r[0] for r in conn.execute("SELECT codec FROM raw_block")}
     conn.close()
     assert kept > 1000
+    # AND the recording the kills left replays (interface.md: a recording is a replayable file)
+    done = subprocess.run([sys.executable, "-m", "daemon", "replay", str(path), "--quiet"], cwd=REPO,
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-2000:]
     assert "lzma" in codecs

@@ -11,14 +11,7 @@ import pytest
 from daemon.errors import InputError
 from daemon.core.readings import RawLine
 from daemon.intake.replayfiles import ProgressBar, detect_format, item_time, iter_replay, source_names
-
-
-def nmea_checksum(body: str) -> str:
-    # NMEA 0183 (v4.10, 5.2.3): XOR of every character between the delimiter and '*'.
-    x = 0
-    for ch in body:
-        x ^= ord(ch)
-    return f"{x:02X}"
+from tests.helpers import nmea_checksum
 
 
 def tagged(t_s: float, body: str) -> str:

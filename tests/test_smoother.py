@@ -10,7 +10,7 @@ from estimators.current import CurrentEstimator, CurrentParams
 from estimators.runner import run
 from estimators.samples import Fix
 from estimators.smoother import smooth_current
-from tests.test_current_synth import synth_passage, tacking_legs
+from tests.synth import synth_passage, tacking_legs
 
 
 def test_smoothed_error_is_lower_than_filtered():

@@ -194,3 +194,49 @@ def test_a_udp_input_made_without_a_bind_listens_on_loopback_only():
         assert reader.address[0] == "127.0.0.1"
     finally:
         reader.close()
+
+
+# -- the fault suite's input faults (issue 13) ------------------------------------------------------
+
+def test_a_tcp_source_that_accepts_and_never_sends_is_reconnected(stop, caplog):
+    """A multiplexer whose socket is open but dead (its Wi-Fi bridge hung) is taken as lost."""
+    from daemon.intake.sources import TcpReader
+    caplog.set_level(logging.INFO, logger="daemon.intake.sources")
+    # GIVEN a server that accepts every connection and never sends a byte
+    server = socket.create_server(("127.0.0.1", 0))
+    held: list[socket.socket] = []
+    accepting = threading.Thread(target=lambda: [held.append(server.accept()[0]) for _ in range(3)], daemon=True)
+    accepting.start()
+    # WHEN offwatch's TCP input (silence limit shortened from 30 s to 0.5 s) connects to it
+    cfg = InputConfig("tcp", host="127.0.0.1", port=server.getsockname()[1])
+    sup = SourceSupervisor("mux", cfg, TcpReader(cfg.host, cfg.port, silence_s=0.5), queue.Queue(maxsize=10), stop)
+    sup.start()
+    # THEN the silence counts as a lost connection: it reconnects, says why, and never hangs
+    assert wait_until(lambda: sup.health.snapshot()["reconnects"] >= 2, 15.0), sup.health.snapshot()
+    assert any("silent for" in r.getMessage() for r in caplog.records)
+    stop.set()
+    sup.join(5.0)
+    assert not sup.is_alive()
+    for conn in held:
+        conn.close()
+    server.close()
+
+
+def test_a_udp_flood_stays_within_the_queue_and_every_drop_is_counted(stop):
+    # GIVEN a UDP input whose consumer has stopped reading, with room for 50 chunks
+    q: queue.Queue = queue.Queue(maxsize=50)
+    sup = start_one("wifi", InputConfig("udp", bind="127.0.0.1", port=free_port(socket.SOCK_DGRAM)), q, stop)
+    assert wait_until(lambda: sup.reader.address is not None, 2.0)
+    tx = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+    # WHEN 5000 datagrams arrive as fast as the sender can go
+    for i in range(5000):
+        tx.sendto(b"$GPK%dX,1*00\r\n" % i, sup.reader.address)
+    tx.close()
+    # THEN what is held never grows past the bound, and each datagram taken is either queued or counted
+    # (the kernel may drop some before offwatch reads them: a UDP flood loses, never grows)
+    # (each put on the full queue waits PUT_TIMEOUT_S before it drops, so the reader drains slowly: no wait
+    # for the end, the invariant holds at every moment)
+    assert wait_until(lambda: sup.health.snapshot()["dropped_chunks"] >= 5, 10.0)
+    snap = sup.health.snapshot()
+    in_hand = snap["chunks"] - 50 - snap["dropped_chunks"]  # the one being offered to the queue, if any
+    assert q.qsize() == 50 and in_hand in (0, 1), snap

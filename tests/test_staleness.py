@@ -65,12 +65,17 @@ def test_a_vanished_heading_is_reported_after_its_interval_and_clears_when_it_re
     c = out[-1][1]
     assert (c.alert_id, c.priority) == ("sensor_stale", CAUTION)
     assert c.values["feeds"] == ["heading"] and c.values["age_s"] == {"heading": 12.0}
-    assert c.text == "No heading for 12 s (expected every 5 s): check the compass feed and its wiring."
+    # AND the text says what is late and by how much (7 s past the 5 s it was due), not "for 5 s (every 5 s)"
+    assert c.text == ("Heading late by 7 s (none for 12 s; expected at least every 5 s): "
+                      "check the compass feed and its wiring.")
     # WHEN the heading returns
     watch.step(Heading(T0 + 31.5, 91.0), ctx)
     back = ticks(watch, ctx, 32, 36)
     # THEN one inactive condition, then nothing while it is fresh (one sample: until 36.5 s)
     assert [(t, c.active) for t, c in back] == [(32, False)]
+    # AND the all-clear reports the last figure: the longest silence of the episode
+    assert back[0][1].text == "Heading silent up to 12 s; every feed fresh again"
+    assert back[0][1].values["longest_s"] == {"heading": 12}
     assert [(t, c.active) for t, c in ticks(watch, ctx, 37, 37)] == [(37, True)]
 
 
@@ -84,7 +89,7 @@ def test_each_feed_has_its_own_interval_and_never_seen_feeds_are_not_missed():
     assert list(watch.stale_kinds(T0 + 20)) == ["heading", "water_speed"]
     assert list(watch.stale_kinds(T0 + 61)) == ["heading", "water_speed", "pressure"]
     [c] = watch.tick(T0 + 61, ctx)
-    assert c.text.count("No ") == 3 and "check the barometer" in c.text
+    assert c.text.count(" late by ") == 3 and "check the barometer" in c.text
     assert c.values["expected_s"] == {"heading": 5.0, "water_speed": 10.0, "pressure": 60.0}
 
 
@@ -103,3 +108,20 @@ def test_a_late_sample_does_not_make_a_feed_younger():
     watch.step(Heading(T0 + 2, 0.0), ctx)
     assert watch.stale_kinds(T0 + 14) == {}
     assert watch.stale_kinds(T0 + 16) == {"heading": 6.0}
+
+
+def test_a_silent_gnss_is_left_to_gnss_lost_one_failure_one_alert():
+    # GIVEN fixes, VTG and heading at 1 Hz, then the GNSS receiver stops (fixes and VTG) at 20 s
+    from estimators.samples import GroundVelocity
+    watch, ctx = StalenessWatch(), Ctx()
+    feed(watch, ctx, 0, 20, lambda t: Fix(t, 40.0, -30.0))
+    feed(watch, ctx, 0, 20, lambda t: GroundVelocity(t, 5.0, 90.0))
+    feed(watch, ctx, 0, 60, lambda t: Heading(t, 90.0))
+    # THEN no sensor_stale at all while the heading is fresh: gnss_lost reports the GNSS
+    assert ticks(watch, ctx, 20, 59) == []
+    assert set(watch.silent_kinds(T0 + 59)) == {"fix", "ground_velocity"}
+    # WHEN VTG alone stops while fixes go on, it is reported: that is not gnss_lost
+    watch2 = StalenessWatch()
+    feed(watch2, ctx, 0, 60, lambda t: Fix(t, 40.0, -30.0))
+    feed(watch2, ctx, 0, 20, lambda t: GroundVelocity(t, 5.0, 90.0))
+    assert list(watch2.stale_kinds(T0 + 59.5)) == ["ground_velocity"]

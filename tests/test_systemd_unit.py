@@ -99,3 +99,29 @@ def test_sample_config_loads():
     cfg = load_config(SAMPLE)
     assert cfg.mqtt.url.startswith("mqtt://")
     assert all(c.device.startswith("/dev/serial/by-id/") for c in cfg.inputs.values() if c.kind == "serial")
+
+
+def test_documentation_points_at_files_that_exist_where_install_puts_the_code(unit):
+    # systemd.unit(5): Documentation= takes space-separated URIs (http, https, file, info, man)
+    install = (UNIT.parent / "INSTALL.md").read_text()
+    uris = one(unit, "Unit", "Documentation").split()
+    assert uris
+    for uri in uris:
+        assert uri.startswith("file:///opt/offwatch/src/"), uri
+        # INSTALL.md puts the code in /opt/offwatch/src: the file is the repository's own
+        assert (UNIT.parents[1] / uri.removeprefix("file:///opt/offwatch/src/")).is_file(), uri
+    assert "git clone" in install and "/opt/offwatch/src" in install and "not on PyPI" in install
+    assert "pip install /opt/offwatch/src" in install
+
+
+def test_a_config_without_inputs_suggests_a_stable_serial_name(tmp_path):
+    from argparse import Namespace
+
+    from daemon.commands.service import run_command
+    from daemon.errors import ConfigError
+
+    cfg = tmp_path / "empty.toml"
+    cfg.write_text("[installation]\nbarometer_height_m = 2.0\n")
+    with pytest.raises(ConfigError) as e:
+        run_command(Namespace(config=str(cfg), mqtt=None))
+    assert "/dev/serial/by-id/" in str(e.value) and "ttyUSB" not in str(e.value)

@@ -13,7 +13,7 @@ from daemon.intake.counters import Counters
 from daemon.intake.ingest import Ingest
 from daemon.core.readings import RawLine, Reading
 from daemon.intake.timing import GPS_WEEK_ROLLOVER_S, GnssDate, ReplayClock
-from tests.test_nmea_sentences import StandInVariation, s, xor_hex
+from tests.helpers import StandInVariation, nmea_checksum as xor_hex, sentence as s
 
 
 def utc(*args: int) -> float:

@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import sys
+import time
+from typing import NoReturn
 
 from daemon import __version__
 from daemon.errors import OffwatchError
@@ -29,9 +32,16 @@ examples:
 """
 
 
+class _OneLineParser(argparse.ArgumentParser):
+    """An unknown option or a bad value is one line on stderr, not the usage block (the README promises it)."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="offwatch", description=DESCRIPTION, epilog=EPILOG,
-                                formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = _OneLineParser(prog="offwatch", description=DESCRIPTION, epilog=EPILOG,
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--version", action="version", version=f"offwatch {__version__}")
     p.add_argument("-v", "--verbose", action="store_true", help="log more detail")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
@@ -57,6 +67,8 @@ def build_parser() -> argparse.ArgumentParser:
     demo = sub.add_parser("demo", help="replay the demo passage end to end, with a broker, and summarise")
     demo.add_argument("--mqtt", metavar="URL", help="broker to use (default: 127.0.0.1:1883, or an embedded one)")
     demo.add_argument("--out", metavar="DIR", default="demo-out", help="where the JSONL and recording go")
+    demo.add_argument("--prefix", metavar="PREFIX", default=None,
+                      help="topic prefix to publish under (default: offwatch-demo, never the service's offwatch)")
 
     exp = sub.add_parser("export", help="the track and the estimates as CSV, GPX or GeoJSON; a recording's raw NMEA",
                          description="csv, gpx, geojson: the track with the estimates beside each point, from a "
@@ -67,9 +79,14 @@ def build_parser() -> argparse.ArgumentParser:
     exp.add_argument("--out", metavar="FILE", required=True)
     exp.add_argument("--config", metavar="FILE")
 
-    watch = sub.add_parser("watch", help="a live terminal view of what the service publishes")
-    watch.add_argument("--mqtt", metavar="URL", default="mqtt://127.0.0.1:1883")
-    watch.add_argument("--prefix", default="offwatch")
+    watch = sub.add_parser("watch", help="a live terminal view of what the service publishes",
+                           description="A live view for the chart table (80 x 24 is enough): instruments, current, "
+                                       "barometer, alerts; arrow keys select an alert, Enter shows it whole, "
+                                       "a acknowledges it, q quits. Uses the service's [mqtt] settings "
+                                       "(user, password, TLS files) from --config.")
+    watch.add_argument("--config", metavar="FILE", help="the service's TOML config, for its [mqtt] settings")
+    watch.add_argument("--mqtt", metavar="URL", help="broker (overrides the config; default mqtt://127.0.0.1:1883)")
+    watch.add_argument("--prefix", help="topic prefix (overrides the config; default offwatch)")
     watch.add_argument("--once", action="store_true", help="print one view after a few seconds and exit")
 
     conf = sub.add_parser("config", help="every config key with its unit, range and default; or check a file",
@@ -82,13 +99,24 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+def setup_logging(level: int) -> None:
+    """Under journald (it sets JOURNAL_STREAM) the journal stamps each line; anywhere else a line
+    carries its own time, in UTC like every other time offwatch shows."""
+    fmt = "%(levelname)s %(name)s: %(message)s"
+    if not os.environ.get("JOURNAL_STREAM"):
+        fmt = "%(asctime)s " + fmt
+    logging.basicConfig(level=level, format=fmt, datefmt="%Y-%m-%dT%H:%M:%SZ")
+    for handler in logging.getLogger().handlers:
+        if handler.formatter is not None:
+            handler.formatter.converter = time.gmtime
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     # the service logs its life to the journal; a replay's account is its summary
     quiet = logging.INFO if args.command == "run" else logging.WARNING
-    logging.basicConfig(level=logging.DEBUG if args.verbose else quiet,
-                        format="%(levelname)s %(name)s: %(message)s")
+    setup_logging(logging.DEBUG if args.verbose else quiet)
     if args.command is None:
         parser.print_help()
         return 2

@@ -3,10 +3,15 @@
 Uses the broker at --mqtt (default 127.0.0.1:1883) when one answers; otherwise
 starts an embedded pure-Python broker on a free loopback port and says so. The
 service itself (``run``) never starts a broker.
+
+It publishes under a prefix of its own (``offwatch-demo/`` unless ``--prefix``
+says otherwise), never the service's ``offwatch/``: its retained positions and
+warnings are invented, and a boat's displays must not show them as the boat's.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import threading
 import time
@@ -15,9 +20,18 @@ from pathlib import Path
 from urllib.parse import urlparse
 
 from daemon.core.config import load_config
-from daemon.errors import InputError
+from daemon.errors import ConfigError, InputError
 
 RECORDED = Path(__file__).resolve().parents[2] / "recorded_runs"
+DEMO_PREFIX = "offwatch-demo"
+
+
+def demo_prefix(given: str | None) -> str:
+    """The demo's topic prefix: ``given`` when it is a usable MQTT topic prefix, else an error that says why."""
+    prefix = (DEMO_PREFIX if given is None else given).strip().rstrip("/")
+    if not prefix or any(c in prefix for c in "+#\0") or len(prefix) > 200 or not prefix.isprintable():
+        raise ConfigError(f"--prefix {given!r}: expected a topic prefix without + or #, e.g. --prefix {DEMO_PREFIX}")
+    return prefix
 
 
 def demo_files() -> tuple[list[str], str | None]:
@@ -62,6 +76,8 @@ def demo_command(args) -> int:
 
     files, cfg_path = demo_files()
     cfg = load_config(cfg_path)
+    prefix = demo_prefix(getattr(args, "prefix", None))
+    cfg = dataclasses.replace(cfg, mqtt=dataclasses.replace(cfg.mqtt, prefix=prefix))
     url = args.mqtt or "mqtt://127.0.0.1:1883"
     u = urlparse(url)
     host, port = u.hostname or "127.0.0.1", u.port or 1883
@@ -81,6 +97,8 @@ def demo_command(args) -> int:
     if record.exists():
         record.unlink()
     display = Display(host, port, cfg.mqtt.prefix)
+    print(f"Publishing under {prefix}/, not offwatch/: the demo's positions and alerts are invented, and a "
+          f"boat's displays listening to offwatch/ must not show them (choose another with --prefix).")
     try:
         print(f"Replaying {Path(files[0]).name} ...")
         t0 = time.monotonic()

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gzip
 import logging
 import sys
 import time
@@ -13,7 +14,7 @@ from daemon.core.config import Config, client_id_for, load_config
 from daemon.errors import ConfigError, InputError
 from daemon.outlets.jsonl import JsonlSink
 from daemon.core.readings import Sink
-from daemon.intake.replayfiles import ProgressBar, iter_replay
+from daemon.intake.replayfiles import ProgressBar, detect_format, iter_replay, source_names
 from daemon.commands.summary import SummarySink
 
 log = logging.getLogger(__name__)
@@ -47,8 +48,7 @@ def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, r
                mqtt_url: str | None = None, speed: float | None = None, progress: bool = True,
                extra_sinks: Sequence[Sink] = (), mqtt_wait_s: float = MQTT_WAIT_S) -> SummarySink:
     for p in paths:
-        if not Path(p).is_file():
-            raise InputError(f"replay file {p} not found")
+        _check_path(Path(p))
     hooks: dict = {}
     summary = SummarySink()
     outputs = open_outputs(cfg, jsonl=jsonl, record=record, mqtt_url=mqtt_url, pipeline_hooks=hooks,
@@ -71,7 +71,54 @@ def run_replay(paths: Sequence[str], cfg: Config, *, jsonl: str | None = None, r
         pipe.close()
         for out in outputs:
             summary.take_output_account(out)
+    _check_sentences_seen(paths, parts.counters)
     return summary
+
+
+def _check_path(path: Path) -> None:
+    """A replay file that is missing, a directory or empty is an error that says which."""
+    if path.is_dir():
+        raise InputError(f"replay file {path} is a directory: name the files in it (e.g. {path}/*.nmea.gz)")
+    if not path.exists():
+        raise InputError(f"replay file {path} not found")
+    if not path.is_file():
+        raise InputError(f"replay file {path} is not a regular file")
+    if path.stat().st_size == 0:
+        raise InputError(f"replay file {path} is empty")
+
+
+# line outcomes that show a real NMEA 0183 sentence (daemon/intake/counters.py)
+RECOGNISED = ("good", "bad_checksum", "unknown", "proprietary", "ais", "implausible")
+
+
+def _check_sentences_seen(paths: Sequence[str], counters) -> None:
+    """A text file in which not one line was an NMEA 0183 sentence is an error, not a quiet summary."""
+    totals_by_source = {src: d.get("totals", {}) for src, d in counters.snapshot().items()}
+    for path, source in zip(paths, source_names(paths)):
+        if detect_format(path) == "sqlite":
+            continue  # a recording's lines carry their own source names
+        totals = totals_by_source.get(source, {})
+        if sum(totals.get(k, 0) for k in RECOGNISED):
+            continue  # at least one real sentence, however damaged the rest
+        if _looks_binary(Path(path)):
+            raise InputError(f"replay file {path} holds binary data, not NMEA 0183 text")
+        if not sum(v for k, v in totals.items() if k not in ("not_sentence", "empty")):
+            raise InputError(f"replay file {path} holds not one NMEA 0183 sentence "
+                             f"(lines that start with $ or !, e.g. $GPRMC,...)")
+
+
+def _looks_binary(path: Path, probe: int = 4096) -> bool:
+    """NUL bytes or mostly non-text in the first bytes (decompressed when gzip)."""
+    try:
+        opener = gzip.open if detect_format(path) == "gzip" else open
+        with opener(path, "rb") as f:
+            head = f.read(probe)
+    except (OSError, EOFError):
+        return True
+    if not head:
+        return False
+    text = sum(1 for b in head if b in (9, 10, 13) or 32 <= b < 127)
+    return b"\0" in head or text < 0.7 * len(head)
 
 
 class _Pacer:

@@ -7,17 +7,21 @@ dead broker or a slow SD card never delays an input. The loop also ticks the
 pipeline with the wall clock once a second (a silent feed is noticed even when
 nothing at all arrives), pings the systemd watchdog only while the loop and
 the MQTT thread are alive, and saves the learnt calibration and the alert
-states in the state directory.
+states in the state directory. The recorder's health is published in the
+status and raises ``recording_fault`` (a caution) while lines are being lost.
 """
 
 from __future__ import annotations
 
 import logging
+import math
 import queue
 import signal
 import threading
 import time
+from collections.abc import Mapping, Sequence
 from pathlib import Path
+from typing import Any
 
 from daemon.outlets import sdnotify
 from daemon.core.assembly import build
@@ -25,6 +29,8 @@ from daemon.core.calibration_store import load_calibration, save_calibration
 from daemon.core.config import Config, client_id_for, load_config
 from daemon.errors import ConfigError, OffwatchError
 from daemon.core.statefiles import read_json, write_json_atomic
+from daemon.core.payloads import iso_utc
+from estimators.base import Condition
 
 log = logging.getLogger(__name__)
 
@@ -46,6 +52,7 @@ class Service:
         self.recorder = None
         self._open_outputs(mqtt_url or cfg.mqtt.url)
         self.alerts_changed = _AlertWatch()
+        self.recording_watch = RecordingWatch()
         sinks = [s for s in (self.recorder, self.mqtt, self.alerts_changed) if s is not None]
         self.parts = build(cfg, sinks, live=True, calibration=load_calibration(self.state_dir),
                            alert_snapshot=read_json(self.state_dir / ALERTS_FILE),
@@ -62,8 +69,19 @@ class Service:
             self.mqtt = MqttSink.from_config(client_id_for(self.cfg.mqtt, "run"), url=url, state_dir=self.state_dir,
                                              on_ack=lambda i, reply: self.parts.pipeline.acknowledge(i, reply))
 
+    def _judge_recording(self) -> None:
+        """``recording_fault`` (a caution) while commits fail, and for a while after lines were lost."""
+        pipe = self.parts.pipeline
+        if pipe.now_s is None or self.recorder is None:
+            return
+        cond = self.recording_watch.judge(self.recorder.stats, pipe.now_s, time.monotonic())
+        if cond is not None:
+            pipe.condition(cond)
+
     def _health(self) -> dict:
         out = {"sources": {h.name: h.snapshot() for h in getattr(self, "health", [])}}
+        if self.recorder is not None:
+            out["recording"] = recording_health(self.recorder.stats)
         if self.mqtt is not None:
             out["mqtt"] = self.mqtt.snapshot()
         return out
@@ -84,6 +102,7 @@ class Service:
                 now = time.monotonic()
                 if now >= next_tick:
                     pipe.tick(time.time())
+                    self._judge_recording()
                     self._watchdog()
                     if self.alerts_changed.take():
                         self._save_alerts()
@@ -132,7 +151,8 @@ class Service:
             return
         self.notifier.watchdog()
         cur = self.parts.pipeline.ctx.latest("current")
-        self.notifier.status(status_text(cur.payload if cur is not None else None))
+        self.notifier.status(status_text(cur.payload if cur is not None else None,
+                                         self.parts.pipeline.alerts.listed()))
 
     def _save_state(self) -> None:
         try:
@@ -149,14 +169,81 @@ class Service:
             log.error("cannot save the alert states in %s: %s", self.state_dir, e)
 
 
-def status_text(current: dict | None) -> str:
-    """The one line for ``systemctl status``; a current not yet estimable (fields None) says so."""
+def status_text(current: dict | None, alerts: Sequence[Mapping] = ()) -> str:
+    """The one line for ``systemctl status``: the trouble first, when there is any, then the current.
+
+    ``alerts`` are the listed alerts (payloads); a current not yet estimable (fields None) says so.
+    """
+    trouble = _trouble_words(alerts)
+    calm = _current_words(current)
+    return f"{trouble} | {calm}" if trouble else calm
+
+
+_STATE_RANK = {"active": 0, "acknowledged": 1, "rectified": 2}
+_PRIORITY_RANK = {"alarm": 0, "warning": 1, "caution": 2}
+STATUS_ALERTS_SHOWN = 3
+
+
+def _trouble_words(alerts: Sequence[Mapping]) -> str:
+    """``WARNING gnss_lost, CAUTION sensor_stale, +1 more``: the most urgent listed alerts first."""
+    listed = [a for a in alerts if isinstance(a, Mapping) and isinstance(a.get("state"), str)
+              and isinstance(a.get("priority"), str) and a["state"] in _STATE_RANK and a["priority"] in _PRIORITY_RANK]
+    listed.sort(key=lambda a: (_STATE_RANK[a["state"]], _PRIORITY_RANK[a["priority"]], str(a.get("id"))))
+    words = []
+    for a in listed[:STATUS_ALERTS_SHOWN]:
+        state = "" if a["state"] == "active" else f" ({a['state']})"
+        words.append(f"{a['priority'].upper()} {a.get('id')}{state}")
+    if len(listed) > STATUS_ALERTS_SHOWN:
+        words.append(f"+{len(listed) - STATUS_ALERTS_SHOWN} more")
+    return ", ".join(words)
+
+
+def _current_words(current: dict | None) -> str:
     if not current:
         return "running"
     drift, set_deg = current.get("drift_kn"), current.get("set_deg")
     if not isinstance(drift, (int, float)) or not isinstance(set_deg, (int, float)):
         return f"running; current {current.get('quality') or 'unavailable'}"
-    return f"current {drift:.1f} kn toward {set_deg:.0f}°, {current.get('quality')}"
+    return f"current {drift:.1f} kn toward {set_deg:03.0f}°, {current.get('quality')}"
+
+
+RECORDING_LOSS_HOLD_S = 60.0  # recording_fault stays raised this long after the latest loss
+
+
+def recording_health(stats: Any) -> dict:
+    """The recorder's health for the status topic."""
+    return {"path": stats.path, "ok": not stats.failing, "lost_lines": stats.lost_raw,
+            "lost_messages": stats.lost_messages, "gaps": stats.gaps, "gaps_not_yet_marked": stats.gaps_unwritten,
+            "write_errors": stats.write_errors, "queue_dropped": stats.dropped,
+            "loss_from": iso_utc(stats.loss_t_first) if stats.loss_t_first is not None else None,
+            "loss_to": iso_utc(stats.loss_t_last) if stats.loss_t_last is not None else None,
+            "last_error": stats.last_error or None}
+
+
+class RecordingWatch:
+    """Judges the ``recording_fault`` condition from the recorder's stats, once a second."""
+
+    def __init__(self, hold_s: float = RECORDING_LOSS_HOLD_S) -> None:
+        self.hold_s = hold_s
+        self._lost_seen = 0
+        self._last_loss_mono = -math.inf
+        self._active = False
+
+    def judge(self, stats: Any, t_s: float, mono: float) -> Condition | None:
+        """The condition when it holds, and once when it stops holding; None otherwise."""
+        lost = stats.lost_raw + stats.lost_messages
+        if lost > self._lost_seen:
+            self._lost_seen, self._last_loss_mono = lost, mono
+        active = bool(stats.failing) or mono - self._last_loss_mono < self.hold_s
+        if not active and not self._active:
+            return None
+        self._active = active
+        since = f" since {iso_utc(stats.loss_t_first)[11:16]} UTC" if stats.loss_t_first is not None else ""
+        why = stats.last_error.split(": ")[-1] if stats.last_error else "the writer fell behind"
+        text = (f"Recording: {lost} lines and messages not kept{since} ({why}); the gap is marked in the "
+                "recording. Check the free space on this computer's disk.")
+        return Condition(t_s, "recording_fault", "caution", active, text,
+                         {"lost_lines": stats.lost_raw, "lost_messages": stats.lost_messages, "gaps": stats.gaps})
 
 
 class _AlertWatch:
@@ -183,7 +270,8 @@ class _AlertWatch:
 def run_command(args) -> int:
     cfg = load_config(args.config)
     if not cfg.inputs:
-        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" device = \"/dev/ttyUSB0\"")
+        raise ConfigError(f"{cfg.path}: no [inputs.NAME] table: add one, e.g. [inputs.gps] kind = \"serial\" "
+                          f"device = \"/dev/serial/by-id/usb-...\" (the stable name: ls -l /dev/serial/by-id/)")
     service = Service(cfg, mqtt_url=args.mqtt)
 
     def on_signal(signum, frame):

@@ -4,7 +4,7 @@ Estimators say, at each moment, whether an alert's condition holds
 (``estimators.base.Condition``), with its priority, text and values. This
 manager turns that raw truth into alerts the way the trade's bridge alert
 management does (priorities alarm, warning, caution; states active,
-acknowledged, cleared):
+acknowledged, rectified, cleared):
 
 - Minimum times. A condition must hold for ``raise_after`` before its alert is
   raised, and be gone for ``clear_after`` before it counts as gone, so a value
@@ -12,10 +12,19 @@ acknowledged, cleared):
   per priority and may be overridden per alert id.
 - Alarm and warning. Raised as ``active``. Acknowledged while the condition
   lasts: ``acknowledged``, then ``cleared`` when the condition goes. If the
-  condition goes first, the alert stays listed as ``active`` with
-  ``condition: false`` (rectified, unacknowledged) until it is acknowledged,
-  and then it is ``cleared``. An unacknowledged alarm is re-announced every
-  ``reannounce_alarm_s``, a warning every ``reannounce_warning_s``.
+  condition goes first, the alert is ``rectified``: still listed (with
+  ``condition: false``) until it is acknowledged, then ``cleared``; no longer
+  announced as active, and its text says in the past tense what happened and
+  when ("08:40–08:42 UTC: GNSS fixes lost ...; acknowledge."). An active
+  unacknowledged alarm is re-announced every ``reannounce_alarm_s``, a warning
+  every ``reannounce_warning_s``; a rectified one never is. If the condition
+  comes back while rectified, the alert is active again.
+- Figures follow the condition. While an alert is listed and its condition
+  holds, an estimator's new text is published when it is a change worth
+  telling (its words changed, or one of its figures by ``update_min_change_pct``
+  or more: 2.0 -> 2.8 kn is news, 4.2 <-> 4.3 kn is not), at most once per
+  ``update_min_s``. When the condition goes, the text is the
+  estimator's closing words (the last value) after the time span.
 - Caution. Never acknowledged (an acknowledgement is logged and ignored): it
   shows as ``active`` while its condition lasts and is ``cleared`` when it goes.
 - Priority change. A condition may change priority while it holds (a pressure
@@ -34,6 +43,7 @@ from __future__ import annotations
 import json
 import logging
 import math
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -41,13 +51,14 @@ from typing import Any
 from daemon.errors import ConfigError
 from daemon.core.payloads import clean, iso_utc, with_advisory
 from daemon.core.readings import Message
+from estimators import wording
 from estimators.base import ALARM, CAUTION, PRIORITIES, WARNING, Condition
 from estimators.params import param
 
 log = logging.getLogger(__name__)
 
-ACTIVE, ACKNOWLEDGED, CLEARED = "active", "acknowledged", "cleared"
-STATES = (ACTIVE, ACKNOWLEDGED, CLEARED)
+ACTIVE, ACKNOWLEDGED, RECTIFIED, CLEARED = "active", "acknowledged", "rectified", "cleared"
+STATES = (ACTIVE, ACKNOWLEDGED, RECTIFIED, CLEARED)
 SNAPSHOT_VERSION = 1
 _RANK = {ALARM: 0, WARNING: 1, CAUTION: 2}  # lower is more urgent
 _EPS_S = 1e-6  # float slack on time comparisons (ticks land on whole seconds)
@@ -70,6 +81,10 @@ class AlertParams:
         doc="per alert id, overrides the priority's raise time (gnss_lost and sensor_stale already wait "
             "for a silent feed in their estimators); a table given in the config replaces this one")
     clear_after_by_id: dict[str, float] = param({}, "s", doc="per alert id, overrides the priority's clear time")
+    update_min_s: float = param(60.0, "s", 5.0, 3600.0,
+                                "an active alert's new figures are published at most this often")
+    update_min_change_pct: float = param(5.0, "%", 0.0, 100.0,
+                                         "a figure in an active alert's text must change by this much to be told")
     restore_confirm_s: float = param(120.0, "s", 1.0, 3600.0,
                                      "a restored alert whose condition is not re-asserted within this time is taken as gone")
     max_payload_bytes: int = param(4096, "bytes", 512, 262144,
@@ -107,6 +122,10 @@ class _Alert:
     since_s: float | None = None  # when it was raised
     last_announced_s: float | None = None
     repeat: int = 0  # re-announcements since the last change
+    published_text: str = ""  # the estimator text of the last message, to tell when figures changed
+    gone_text: str = ""  # the estimator's closing words, from its latest all-clear
+    gone_values: Mapping[str, Any] | None = None
+    gone_s: float | None = None  # when the condition went (debounced view's start)
 
 
 class AlertManager:
@@ -137,17 +156,21 @@ class AlertManager:
             rec.text, rec.values = cond.text, dict(cond.values)
             if cond.priority != rec.priority:
                 out += self._change_priority(rec, cond.priority, cond.t_s)
+        else:
+            rec.gone_text, rec.gone_values = cond.text, dict(cond.values)
         if rec.raw is not cond.active:
             rec.raw, rec.raw_since_s = cond.active, cond.t_s
         out += self._evaluate(rec, cond.t_s)
+        if not out:
+            out += self._update(rec, cond.t_s)
         return out
 
     def tick(self, t_s: float) -> list[Message]:
         """Data time has reached ``t_s``: minimum times run out, re-announcements fall due."""
         out: list[Message] = []
         for rec in list(self._alerts.values()):
-            out += self._evaluate(rec, t_s)
-            out += self._reannounce(rec, t_s)
+            changed = self._evaluate(rec, t_s)
+            out += changed or self._update(rec, t_s) or self._reannounce(rec, t_s)
         return out
 
     def acknowledge(self, alert_id: str, t_s: float) -> list[Message]:
@@ -167,7 +190,7 @@ class AlertManager:
         if rec.condition:
             rec.state = ACKNOWLEDGED
         else:
-            self._clear(rec)
+            self._clear(rec)  # rectified and now acknowledged: done
         log.info("alert %r acknowledged: now %s", alert_id, rec.state)
         return [self._message(rec, t_s)]
 
@@ -190,6 +213,7 @@ class AlertManager:
                     "id": rec.alert_id, "priority": rec.priority, "state": rec.state, "text": rec.text,
                     "values": clean(dict(rec.values or {})), "condition": rec.condition,
                     "since_s": rec.since_s, "last_announced_s": rec.last_announced_s,
+                    "gone_text": rec.gone_text, "gone_s": rec.gone_s,
                 })
         return {"version": SNAPSHOT_VERSION, "alerts": alerts}
 
@@ -231,15 +255,31 @@ class AlertManager:
         if not rec.listed:
             rec.listed, rec.state, rec.since_s = True, ACTIVE, t_s
             log.info("alert %r raised (%s)", rec.alert_id, rec.priority)
-        return [self._message(rec, t_s)]  # a new alert, or a rectified one whose condition came back
+        elif rec.state == RECTIFIED:
+            rec.state = ACTIVE  # its condition came back before anyone acknowledged it
+            log.info("alert %r active again", rec.alert_id)
+        return [self._message(rec, t_s)]
 
     def _condition_gone(self, rec: _Alert, t_s: float) -> list[Message]:
         if not rec.listed:
             return []
+        rec.gone_s = rec.raw_since_s if rec.raw_since_s is not None else t_s
         if rec.priority == CAUTION or rec.state == ACKNOWLEDGED:
             self._clear(rec)
-        # else: an unacknowledged alarm or warning stays listed, rectified
+        else:
+            rec.state = RECTIFIED  # listed until acknowledged, no longer announced
+            log.info("alert %r rectified: condition gone, not yet acknowledged", rec.alert_id)
         return [self._message(rec, t_s)]
+
+    def _update(self, rec: _Alert, t_s: float) -> list[Message]:
+        """New figures for a listed alert whose condition holds, at most once per ``update_min_s``."""
+        if not rec.listed or not rec.condition or not _worth_telling(rec.published_text, rec.text,
+                                                                      self.params.update_min_change_pct):
+            return []
+        last = rec.last_announced_s if rec.last_announced_s is not None else rec.since_s
+        if last is not None and t_s - last < self.params.update_min_s - _EPS_S:
+            return []  # rate-limited: the newest text goes out when the interval has passed
+        return [self._message(rec, t_s, repeat=rec.repeat)]
 
     def _change_priority(self, rec: _Alert, priority: str, t_s: float) -> list[Message]:
         upgrade = _RANK[priority] < _RANK[rec.priority]
@@ -270,21 +310,54 @@ class AlertManager:
     def _message(self, rec: _Alert, t_s: float, repeat: int = 0) -> Message:
         rec.last_announced_s = t_s
         rec.repeat = repeat
+        rec.published_text = rec.text
         payload = {"time": iso_utc(t_s), **self._payload(rec), "repeat": repeat}
         payload = _fit(payload, self.params.max_payload_bytes)
         return Message(t_s, f"{self.prefix}/alerts/{rec.alert_id}", payload, retain=True, qos=1, kind="alert")
 
     def _payload(self, rec: _Alert) -> dict[str, Any]:
-        text = with_advisory(rec.text)
+        text = _text_now(rec)
+        values = rec.values
+        if not rec.condition and rec.gone_values:
+            values = {**dict(rec.values or {}), **dict(rec.gone_values)}  # the last value, as the estimator closed it
         return {
             "id": rec.alert_id,
             "priority": rec.priority,
             "state": rec.state,
-            "text": text,
+            "text": with_advisory(text),
             "since": iso_utc(rec.since_s) if rec.since_s is not None else None,
             "condition": rec.condition,
-            "values": clean(dict(rec.values or {})),
+            "values": clean(dict(values or {})),
         }
+
+
+_NUMBER = re.compile(r"\d+(?:\.\d+)?")
+
+
+def _worth_telling(old: str, new: str, min_change_pct: float) -> bool:
+    """A new text is news when its words changed or one of its figures moved by ``min_change_pct``."""
+    if old == new:
+        return False
+    if _NUMBER.sub("#", old) != _NUMBER.sub("#", new):
+        return True  # other words, or another number of figures
+    for a, b in zip(_NUMBER.findall(old), _NUMBER.findall(new)):
+        x, y = float(a), float(b)
+        if abs(y - x) > 0.0 and abs(y - x) >= min_change_pct / 100.0 * abs(x):
+            return True
+    return False
+
+
+def _text_now(rec: _Alert) -> str:
+    """The estimator's present-tense text while the condition holds; once it has gone, the
+    time span and the estimator's closing words, in the past tense."""
+    if rec.condition or rec.since_s is None:
+        return rec.text
+    gone = rec.gone_s if rec.gone_s is not None else rec.since_s
+    closing = (rec.gone_text or "Condition gone").strip().rstrip(".")
+    text = f"{wording.span(rec.since_s, max(gone, rec.since_s))}: {closing}."
+    if rec.state == RECTIFIED:
+        text += " Acknowledge."
+    return text
 
 
 def _from_entry(entry: Any) -> _Alert | None:
@@ -295,13 +368,20 @@ def _from_entry(entry: Any) -> _Alert | None:
             condition=bool(entry["condition"]), listed=True, state=entry["state"],
             since_s=float(entry["since_s"]),
             last_announced_s=None if entry.get("last_announced_s") is None else float(entry["last_announced_s"]),
+            gone_text=str(entry.get("gone_text") or ""),
+            gone_s=None if entry.get("gone_s") is None else float(entry["gone_s"]),
         )
     except (KeyError, TypeError, ValueError, AttributeError):
         return None
-    if rec.priority not in PRIORITIES or rec.state not in (ACTIVE, ACKNOWLEDGED):
+    if rec.priority not in PRIORITIES or rec.state not in (ACTIVE, ACKNOWLEDGED, RECTIFIED):
         return None
+    if rec.state == ACTIVE and not rec.condition and rec.priority != CAUTION:
+        rec.state = RECTIFIED  # a snapshot from before the rectified state had its own name
     if rec.state == ACKNOWLEDGED and (rec.priority == CAUTION or not rec.condition):
         return None  # not a state this manager leaves an alert in
+    if rec.state == RECTIFIED and (rec.priority == CAUTION or rec.condition):
+        return None
+    rec.published_text = rec.text
     return rec
 
 

@@ -19,6 +19,8 @@ from daemon.intake.priority import PrioritySelector
 from daemon.core.readings import Sink
 from estimators.current import Calibration, CurrentEstimator
 from estimators.fronts import FrontDetector
+from estimators.instruments import InstrumentReadings
+from estimators.integrity import HeadingIntegrity
 from estimators.position import PositionEstimator
 from estimators.pressure import PressureTendency
 from estimators.samples import KIND_NAMES
@@ -36,11 +38,13 @@ def build_estimators(cfg: Config, calibration: Calibration | None = None) -> lis
     if calibration is None:
         calibration = initial_calibration(cfg)
     return [
+        HeadingIntegrity(cfg.section("integrity")),  # first: a distrust applies before the others see the fix
         CurrentEstimator(cfg.section("current"), calibration),
         PositionEstimator(cfg.section("position")),
         FrontDetector(cfg.section("front")),
         PressureTendency(cfg.section("pressure"), inst.barometer_height_m),
         StalenessWatch(cfg.section("staleness")),
+        InstrumentReadings(),
     ]
 
 
@@ -95,4 +99,5 @@ def build(cfg: Config, sinks: list[Sink], *, live: bool, calibration: Calibratio
     selector = PrioritySelector(cfg.priority, {k: staleness.interval_s(k) for k in KIND_NAMES.values()})
     pipeline = Pipeline(estimators, sinks, alerts, prefix=prefix, selector=selector, counters=counters,
                         extra_status=extra_status)
-    return Parts(pipeline, counters, variation, make_ingest, estimators[0])
+    current = next(e for e in estimators if isinstance(e, CurrentEstimator))
+    return Parts(pipeline, counters, variation, make_ingest, current)

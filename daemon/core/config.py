@@ -10,7 +10,7 @@ Sections (all optional):
   [inputs.NAME]    one table per live input (serial, tcp, udp)
   [priority]       kind = ["source", ...]: which source wins where two give the same kind
   [mqtt] [recording] [state] [alerts]      the service's outputs
-  [current] [position] [staleness] [front] [pressure]   estimator parameters
+  [current] [position] [staleness] [front] [pressure] [integrity]   estimator parameters
 """
 
 from __future__ import annotations
@@ -56,7 +56,7 @@ class MqttSettings:
     username: str = param("", doc="broker user (or in the URL); empty: none")
     password: str = param("", doc="broker password; shown as *** in the recording")
     password_file: str = param("", doc="a file holding only the broker password, readable only by the service "
-                                       "(chmod 600); instead of password")
+                                       "(chmod 600, or 640 with its group); instead of password")
     ca_file: str = param("", doc="CA certificate for mqtts://; empty: the system's CAs")
     cert_file: str = param("", doc="client certificate for mqtts:// (optional)")
     key_file: str = param("", doc="client key for mqtts:// (optional)")
@@ -161,6 +161,7 @@ def parameter_sections() -> dict[str, type]:
     from daemon.outlets.recorder import RecordingParams
     from estimators.current import CurrentParams
     from estimators.fronts import FrontParams
+    from estimators.integrity import IntegrityParams
     from estimators.position import PositionParams
     from estimators.pressure import PressureParams
     from estimators.staleness import StalenessParams
@@ -172,6 +173,7 @@ def parameter_sections() -> dict[str, type]:
         "position": PositionParams,
         "staleness": StalenessParams,
         "front": FrontParams,
+        "integrity": IntegrityParams,
         "pressure": PressureParams,
     }
 
@@ -384,13 +386,14 @@ def _with_password(mqtt: MqttSettings, where: str) -> MqttSettings:
 
 
 def warn_if_others_can_read(path: Path, what: str, fix: str) -> bool:
-    """Warn (once, at start) when a file holding a password is readable by group or others."""
+    """Warn (once, at start) when a file holding a password is world-readable (a group of the service's
+    own, as the install notes set up with mode 0640, is fine)."""
     try:
         mode = path.stat().st_mode
     except OSError:
         return False
-    if not mode & (stat.S_IRGRP | stat.S_IROTH):
+    if not mode & stat.S_IROTH:
         return False
-    log.warning("%s %s holds the MQTT password and other users on this computer can read it: chmod 600 %s (%s)",
-                what, path, path, fix)
+    log.warning("%s %s holds the MQTT password and every user on this computer can read it: chmod 600 %s, "
+                "or 640 with the service's group (%s)", what, path, path, fix)
     return True

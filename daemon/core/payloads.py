@@ -1,7 +1,8 @@
 """The payload layer: how every published payload is made, once.
 
-Estimators hand back plain numbers at full precision; here, and only here,
-they become what leaves the boat (MQTT, JSONL, the recording):
+Estimators hand back plain numbers (at full precision is best: a value an
+estimator rounds itself, to 0.001 say, is rounded a second time here); here,
+and only here, they become what leaves the boat (MQTT, JSONL, the recording):
 
 - ``time`` first, the data time as ISO 8601 UTC with milliseconds and a ``Z``
   (the interface's format), by ``iso_utc``;

@@ -3,7 +3,9 @@ outputs published and recorded.
 
 Every item passes through ``Pipeline.feed``: a raw line goes to the sinks (the
 recorder keeps it), a reading is checked against the source priority, added to
-the history and handed to each estimator that accepts its kind. What the
+the history and handed to each estimator that accepts its kind (a kind an
+estimator has said not to believe, ``Distrust``, is withheld by the runner and
+listed in the status). What the
 estimators return becomes Messages (publications) or alert changes (through the
 alert manager). Data time drives everything, kept by the estimators' runner
 (``estimators.runner``: the same loop, gap rule included, that the smoother,
@@ -23,9 +25,9 @@ import queue
 from collections.abc import Callable, Iterable, Sequence
 from typing import Any
 
-from daemon.core.payloads import payload as make_payload
+from daemon.core.payloads import iso_utc, payload as make_payload
 from daemon.core.readings import Message, RawLine, Reading, Sink
-from estimators.base import Condition, Publication
+from estimators.base import Condition, Distrust, Publication
 from estimators.runner import Runner
 from estimators.samples import kind_of
 
@@ -77,6 +79,11 @@ class Pipeline:
         """Wall-clock tick from ``run``: data time cannot stand still when feeds fall silent."""
         self._run_commands()
         self._advance(t_s)
+
+    def condition(self, cond: Condition) -> None:
+        """A condition judged outside the estimators (the recorder's health), handled as theirs.
+        Call it from the loop's own thread, as ``tick``."""
+        self._handle((cond,))
 
     def republish_alerts(self, t_s: float) -> None:
         """Announce the listed alerts again (after a restart restored them)."""
@@ -132,6 +139,8 @@ class Pipeline:
             self._next_status_s = t_s
         for tick_s in due:
             self._handle(self.runner.tick(tick_s))
+            if self.selector is not None:  # two receivers that disagree
+                self._handle(self.selector.tick(tick_s))
             self._emit_all(self.alerts.tick(tick_s))
         if t_s >= self._next_status_s:
             self._publish_status(t_s)
@@ -141,6 +150,8 @@ class Pipeline:
 
     def _handle(self, outputs: Iterable[Publication | Condition]) -> None:
         for out in outputs:
+            if isinstance(out, Distrust):
+                continue  # the runner acted on it; the status lists it
             if isinstance(out, Publication):
                 kind = "event" if out.topic == "events" else "state"
                 self._emit(Message(out.t_s, self._topic(out.topic), make_payload(out.t_s, out.payload),
@@ -164,6 +175,8 @@ class Pipeline:
         payload: dict[str, Any] = {
             "state": "online",
             "sensors": {k: t_s - seen for k, seen in sorted(self._last_seen.items())},
+            "distrusted": {k: {"since": iso_utc(since), "reason": why, "withheld": n}
+                           for k, (since, why, n) in sorted(self.runner.distrusted.items())},
         }
         if self.counters is not None:
             payload["inputs"] = self.counters.line_snapshot()

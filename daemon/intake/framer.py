@@ -60,6 +60,11 @@ class LineFramer:
         self._take(tail, out)
         return out
 
+    @property
+    def pending_bytes(self) -> int:
+        """Bytes of an unfinished line held so far (never more than ``max_line``)."""
+        return len(self._buf)
+
     def flush(self) -> list[bytes]:
         """End of stream: the last line even without its line ending (a file's last line)."""
         out: list[bytes] = []

@@ -41,6 +41,7 @@ Public API:
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import logging
 from dataclasses import dataclass
@@ -233,6 +234,8 @@ class Ingest:
                     self._note_parser_fault(exc)
                     counts.append(("implausible", 1))
                     continue
+                if type(sample) is Fix and item.gnss_utc is not None:
+                    sample = dataclasses.replace(sample, gnss_time_s=item.gnss_utc)  # a receiver clock that stops shows
                 if sample is not None:
                     readings.append(Reading(source, sample, recv, key, item.gnss_utc))
         out.append(RawLine(source, t, recv, item.text, key, tuple(counts), ex is not None))

@@ -11,6 +11,17 @@ seconds older than the newest data time seen by the selector. When the
 preferred source goes stale the next fresh one takes over; when the preferred
 one speaks again it takes back over at once. All times are data times
 (``sample.t_s``), so replay decides exactly as the live run did.
+
+Two GNSS receivers that are both fresh are also compared: when their newest
+fixes (at most ``PAIR_WITHIN_S`` apart in time) stay more than ``disagree_m``
+apart for ``DISAGREE_HOLD_S``, one of them is wrong (multipath, a receiver
+left on dead reckoning, a spoofed or jammed one) and the filters follow only
+one. ``tick`` then returns the warning ``gnss_disagree``, saying by how much
+they differ, which one is followed and where the other puts the boat; the
+status carries the same (``snapshot()["disagreement"]``). Two good receivers
+agree to some metres (common practice: a few metres 95 % for a modern GNSS
+in open sky), so the default of 500 m is far beyond their noise and well
+inside the mile that matters near a coast.
 """
 
 from __future__ import annotations
@@ -18,9 +29,13 @@ from __future__ import annotations
 import logging
 from collections.abc import Mapping, Sequence
 
+from geographiclib.geodesic import Geodesic
+
 from daemon.errors import ConfigError
 from daemon.core.readings import Reading
-from estimators.samples import KIND_NAMES, kind_of
+from estimators.base import WARNING, Condition
+from estimators import wording
+from estimators.samples import KIND_NAMES, Fix, kind_of
 
 log = logging.getLogger(__name__)
 
@@ -34,6 +49,11 @@ DEFAULT_STALE_S: dict[str, float] = {
 }
 OTHER_STALE_S = 30.0
 KINDS = frozenset(KIND_NAMES.values())
+DISAGREE_M = 500.0       # two fresh receivers' fixes further apart than this disagree
+DISAGREE_HOLD_S = 10.0   # ... for this long before it is said (one bad fix is not a disagreement)
+PAIR_WITHIN_S = 2.0      # fixes compared only when at most this far apart in time
+DISAGREE_ALERT = "gnss_disagree"
+NM_M = 1852.0
 
 
 class PrioritySelector:
@@ -44,7 +64,7 @@ class PrioritySelector:
     """
 
     def __init__(self, order: Mapping[str, Sequence[str]] | None = None,
-                 stale_s: Mapping[str, float] | None = None) -> None:
+                 stale_s: Mapping[str, float] | None = None, disagree_m: float = DISAGREE_M) -> None:
         order = dict(order or {})
         stale_s = dict(stale_s or {})
         _check_kinds(order, "priority")
@@ -60,6 +80,11 @@ class PrioritySelector:
         self._accepted: dict[str, dict[str, int]] = {}
         self._refused: dict[str, dict[str, int]] = {}
         self._now = float("-inf")
+        self._disagree_m = disagree_m
+        self._fixes: dict[str, Fix] = {}           # source -> its newest fix
+        self._apart_since: float | None = None     # data time the fresh receivers began to disagree
+        self._apart: tuple[str, str, float] | None = None  # (followed, other, distance m) while they do
+        self._said = False                         # the warning's condition was reported active
 
     def stale_after_s(self, kind: str) -> float:
         return self._stale_s.get(kind, OTHER_STALE_S)
@@ -74,6 +99,8 @@ class PrioritySelector:
         best = self._best_fresh(kind, seen)
         if best != self._active.get(kind):
             self._switch(kind, best, seen)
+        if isinstance(reading.sample, Fix):
+            self._compare_fixes(reading.source, reading.sample, best)
         ok = reading.source == best
         tally = self._accepted if ok else self._refused
         per_source = tally.setdefault(kind, {})
@@ -105,6 +132,50 @@ class PrioritySelector:
         else:
             log.warning("priority: %s now from %s (%s silent for %.0f s)", kind, best, previous, silent)
 
+    def _compare_fixes(self, source: str, fix: Fix, followed: str) -> None:
+        """Measure the followed receiver against every other fresh one (geodesic distance, WGS84)."""
+        self._fixes[source] = fix
+        ours = self._fixes.get(followed)
+        fresh = {other: theirs for other, theirs in self._fixes.items()
+                 if self._now - theirs.t_s <= self.stale_after_s("fix")}
+        if followed not in fresh or len(fresh) < 2:
+            self._apart_since, self._apart = None, None  # nothing left to compare with
+            return
+        worst: tuple[str, str, float] | None = None
+        for other, theirs in fresh.items():
+            if other == followed or abs(theirs.t_s - ours.t_s) > PAIR_WITHIN_S:
+                continue  # not of the same moment: judged at the next pair
+            d_m = Geodesic.WGS84.Inverse(ours.lat_deg, ours.lon_deg, theirs.lat_deg, theirs.lon_deg)["s12"]
+            if worst is None or d_m > worst[2]:
+                worst = (followed, other, d_m)
+        if worst is None:
+            return
+        if worst[2] > self._disagree_m:
+            if self._apart_since is None:
+                self._apart_since = fix.t_s
+            self._apart = worst
+        else:
+            self._apart_since, self._apart = None, None
+
+    def tick(self, t_s: float) -> list[Condition]:
+        """The ``gnss_disagree`` condition when it changes (or its figures do, while it holds)."""
+        apart = self._apart
+        if apart is not None and self._apart_since is not None and t_s - self._apart_since >= DISAGREE_HOLD_S:
+            followed, other, d_m = apart
+            where = self._fixes[other]
+            text = (f"GNSS receivers disagree by {d_m / NM_M:.2f} nm ({d_m:.0f} m): following {followed}; "
+                    f"{other} puts the boat at {wording.position(where.lat_deg, where.lon_deg)}. Check both against "
+                    f"another position (radar range, depth contour, a bearing) and the priority order.")
+            if not self._said:
+                log.warning("priority: %s", text)
+            self._said = True
+            return [Condition(t_s, DISAGREE_ALERT, WARNING, True, text,
+                              {"following": followed, "other": other, "distance_m": round(d_m)})]
+        if self._said and apart is None:
+            self._said = False
+            return [Condition(t_s, DISAGREE_ALERT, WARNING, False, "The GNSS receivers agree again.", {})]
+        return []
+
     def active(self, kind: str) -> str | None:
         """The source currently feeding ``kind``, or None before any reading of it."""
         return self._active.get(kind)
@@ -116,6 +187,8 @@ class PrioritySelector:
             "switches": dict(self._switches),
             "accepted": {k: dict(v) for k, v in self._accepted.items()},
             "refused": {k: dict(v) for k, v in self._refused.items()},
+            "disagreement": None if self._apart is None else {
+                "following": self._apart[0], "other": self._apart[1], "distance_m": round(self._apart[2])},
         }
 
 

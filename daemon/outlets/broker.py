@@ -26,7 +26,7 @@ from daemon.errors import OutputError
 log = logging.getLogger(__name__)
 
 
-def _connect_packet(client_id: str, keepalive_s: int = 10) -> bytes:
+def connect_packet(client_id: str, keepalive_s: int = 10) -> bytes:
     """An MQTT 3.1.1 CONNECT with a clean session and no will, user or password."""
 
     def utf8(s: str) -> bytes:
@@ -35,10 +35,10 @@ def _connect_packet(client_id: str, keepalive_s: int = 10) -> bytes:
 
     # variable header: protocol name "MQTT", level 4 (3.1.1), flags 0x02 (clean session), keep alive
     body = utf8("MQTT") + bytes([4, 0x02]) + struct.pack("!H", keepalive_s) + utf8(client_id)
-    return bytes([0x10]) + _remaining_length(len(body)) + body
+    return bytes([0x10]) + remaining_length(len(body)) + body
 
 
-def _remaining_length(n: int) -> bytes:
+def remaining_length(n: int) -> bytes:
     """The variable-length encoding of MQTT 3.1.1 section 2.2.3 (7 bits a byte, high bit = more)."""
     out = bytearray()
     while True:
@@ -53,7 +53,7 @@ def broker_answers(host: str, port: int, timeout: float = 1.0) -> bool:
     try:
         with socket.create_connection((host, port), timeout=timeout) as sock:
             sock.settimeout(timeout)
-            sock.sendall(_connect_packet(f"offwatch-probe-{os.getpid()}"))
+            sock.sendall(connect_packet(f"offwatch-probe-{os.getpid()}"))
             reply = b""
             while len(reply) < 4:
                 chunk = sock.recv(4 - len(reply))
@@ -107,7 +107,7 @@ def diagnose_broker(host: str, port: int, tls: ssl.SSLContext | None, *, cert_gi
         try:
             if tls is not None:
                 _early_tls_alert(sock)  # TLS 1.3: a refused client certificate comes after the handshake
-            sock.sendall(_connect_packet(f"offwatch-probe-{os.getpid()}"))
+            sock.sendall(connect_packet(f"offwatch-probe-{os.getpid()}"))
             reply = _read_up_to(sock, 4)
         except ssl.SSLEOFError:
             if tls is not None and not cert_given:

@@ -53,10 +53,9 @@ from urllib.parse import unquote, urlsplit
 import paho.mqtt.client as paho
 from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 
-from daemon.core.config import mask_url_password
 from daemon.errors import ConfigError
 from daemon.outlets.outbox import Outbox, Outgoing
-from daemon.core.config import MqttSettings, mqtt_problems
+from daemon.core.config import MqttSettings, mask_url_password, mqtt_problems
 from daemon.core.payloads import clean, iso_utc
 from daemon.core.readings import Message, RawLine
 
@@ -70,7 +69,6 @@ HOLD_RESENT_S = 10.0          # after a reconnect, how long new queued messages 
 CALLBACK_FAILURE_HOLD_S = 60.0  # healthy() stays False this long after a callback failed
 DIAGNOSE_EVERY_S = 30.0       # a failing link is probed for its reason at most this often
 DIAGNOSE_TIMEOUT_S = 3.0      # each step of that probe (TCP, TLS, CONNACK)
-DEFAULT_CLOSE_TIMEOUT_S = 2.0  # the service's stop: a bounded wait for the broker to take what is queued
 WORKER_STALL_S = 15.0         # healthy() is False when the worker has not looped for this long
 
 

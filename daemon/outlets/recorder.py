@@ -13,27 +13,37 @@ span about a minute of data (or 60 commits, or many lines) they are replaced,
 in the same transaction, by one lzma block. Alert changes are also kept in a
 plain table for plain SQL.
 
-## Recording file format (schema version 1)
+## Recording file format (schema version 2)
 
 One SQLite file per recording, named by its UTC start time,
 `offwatch-YYYYMMDDTHHMMSSZ.sqlite`. Times are UNIX seconds (UTC).
 
 | table | column | meaning |
 | --- | --- | --- |
-| `meta` | `key`, `value` | text pairs: `schema_version` (`1`), `created_utc` (ISO 8601), `software` (`offwatch <version>`), `config` (the effective configuration as JSON, rewritten by each `record_config`), `config_utc` |
-| `raw_block` | `seq_first` | recording-wide number (from 0) of the block's first line; blocks follow each other without gaps |
+| `meta` | `key`, `value` | text pairs: `schema_version` (`2`), `created_utc` (ISO 8601), `software` (`offwatch <version>`), `config` (the effective configuration as JSON, rewritten by each `record_config`), `config_utc` |
+| `raw_block` | `seq_first` | recording-wide number (from 0) of the block's first line; the numbers of lines that were lost (a full disk, a full queue) are skipped, never reused, so a hole in the numbering is a gap even where no `gap` row could be written |
 | | `n_lines` | lines in the block |
 | | `t_first`, `t_last` | earliest and latest data time in the block, s |
 | | `names` | JSON array of the source names; each line gives an index into it |
 | | `codec` | `zlib` (one commit's lines) or `lzma` (merged, about a minute) |
 | | `data` | the compressed lines |
 | `message_block` | as `raw_block` | `names` holds the full topics |
+| `gap` | `stream` | `raw` or `message`: which block table lost lines (version 2) |
+| | `seq_first`, `n_lost` | the numbers the lost lines would have had |
+| | `t_first`, `t_last` | their data times, s (null when unknown) |
+| | `wall_utc` | when it was noticed (UNIX s) |
+| | `reason` | e.g. `database or disk is full`, `queue full` |
 | `alert` | `t` | data time of the change, s |
 | | `alert_id`, `priority`, `state`, `text`, `since` | as published on `offwatch/alerts/<id>` (`since` is ISO 8601 UTC) |
 | | `topic`, `payload` | the full topic and the payload as JSON |
 
 Indexes: `raw_block(t_first)`, `message_block(t_first)`, `alert(t)`; each
-block table is unique on `seq_first` (the order to read in).
+block table is unique on `seq_first` (the order to read in). A gap's row is
+written with the first commit that works again; a gap at the very end of a
+recording, when the disk never freed, is the one a file cannot hold: the
+process says it (replay's exit status, run's ``recording_fault`` alert).
+Version 1 files (no `gap` table, no skipped numbers) are read as before, and
+appending to one upgrades it to version 2 (the table is added).
 
 A block decompresses (`zlib.decompress` or `lzma.decompress`) to ASCII JSON
 arrays, one line each, in arrival order:
@@ -101,7 +111,7 @@ from estimators.params import param
 
 log = logging.getLogger("offwatch.recorder")
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 NAME_PREFIX = "offwatch-"
 NAME_SUFFIX = ".sqlite"
 SQLITE_MAGIC = b"SQLite format 3\x00"  # the SQLite file format's 16-byte header string
@@ -168,6 +178,9 @@ CREATE TABLE IF NOT EXISTS alert (
     id INTEGER PRIMARY KEY, t REAL NOT NULL, alert_id TEXT NOT NULL, priority TEXT,
     state TEXT, text TEXT, since TEXT, topic TEXT NOT NULL, payload TEXT NOT NULL);
 CREATE INDEX IF NOT EXISTS alert_t ON alert (t);
+CREATE TABLE IF NOT EXISTS gap (
+    id INTEGER PRIMARY KEY, stream TEXT NOT NULL, seq_first INTEGER NOT NULL, n_lost INTEGER NOT NULL,
+    t_first REAL, t_last REAL, wall_utc REAL NOT NULL, reason TEXT NOT NULL);
 """
 
 
@@ -337,6 +350,23 @@ class _Stream:
                  pending_before: list[_Item]) -> None:
         self.small, self.next_seq, self.pending = small_before, seq_before, pending_before
 
+    def lose_pending(self) -> tuple[int, int, float | None, float | None]:
+        """The pending lines could not be written: skip their numbers (a visible hole) and seal the
+        committed small blocks, which a later merge would otherwise renumber across the hole.
+        Returns (seq_first, n_lost, t_first, t_last)."""
+        times = [it.t for it in self.pending if math.isfinite(it.t)]
+        lost = (self.next_seq, len(self.pending), min(times, default=None), max(times, default=None))
+        self.next_seq += len(self.pending)
+        self.pending, self.small = [], []
+        return lost
+
+    def skip(self, n: int) -> int:
+        """``n`` lines never reached the writer (a full queue): skip their numbers; returns the first."""
+        first = self.next_seq
+        self.next_seq += n
+        self.small = []
+        return first
+
     def _insert(self, conn: sqlite3.Connection, seq: int, items: list[_Item], codec: str) -> None:
         names, data, t_first, t_last = _pack(items, codec)
         conn.execute(f"INSERT INTO {self.table} (seq_first, n_lines, t_first, t_last, names, codec, data) "
@@ -355,6 +385,14 @@ class RecorderStats:
     commits: int = 0
     blocks_merged: int = 0    # small blocks replaced by merged ones
     write_errors: int = 0     # commits that failed (their lines are lost)
+    lost_raw: int = 0         # raw lines lost (failed commits and a full queue), this process
+    lost_messages: int = 0    # messages lost likewise
+    gaps: int = 0             # gaps opened (a run of losses counts once)
+    gaps_unwritten: int = 0   # gaps whose row is not in the file yet (the disk is still failing)
+    failing: bool = False     # the latest commit failed
+    loss_t_first: float | None = None  # data time span of everything lost
+    loss_t_last: float | None = None
+    last_error: str = ""
     removed_recordings: int = 0
     last_commit_s: float = 0.0  # wall time the last commit took
     path: str = ""
@@ -383,6 +421,10 @@ class RecordingWriter:
         self.message_stream = _Stream("message_block", self._next_seq("message_block"))
         self.pending_alerts: list[tuple] = []
         self.pending_meta: dict[str, str] = {}
+        self.pending_gaps: list[list] = []  # [stream, seq_first, n_lost, t_first, t_last, wall_utc, reason]
+        self.lost_raw = self.lost_messages = self.gaps_opened = 0
+        self.loss_t_first: float | None = None
+        self.loss_t_last: float | None = None
         self.pragmas = connection_pragmas(self.conn)
 
     def _prepare(self, now_utc: float) -> None:
@@ -394,6 +436,10 @@ class RecordingWriter:
                 ("schema_version", str(SCHEMA_VERSION)),
                 ("created_utc", _iso(now_utc)),
                 ("software", f"offwatch {__version__}")])
+            self.conn.execute("COMMIT")
+        elif int(found[0]) == 1:  # version 2 adds the gap table (created above): upgrade in place
+            self.conn.execute("BEGIN IMMEDIATE")
+            self.conn.execute("UPDATE meta SET value = ? WHERE key = 'schema_version'", (str(SCHEMA_VERSION),))
             self.conn.execute("COMMIT")
         elif int(found[0]) != SCHEMA_VERSION:
             raise OutputError(f"recording {self.path} has schema version {found[0]}, this offwatch "
@@ -420,7 +466,39 @@ class RecordingWriter:
         self.pending_meta["config_utc"] = _iso(now_utc if now_utc is not None else time.time())
 
     def has_pending(self) -> bool:
-        return bool(self.raw_stream.pending or self.message_stream.pending or self.pending_meta)
+        return bool(self.raw_stream.pending or self.message_stream.pending or self.pending_meta or self.pending_gaps)
+
+    def lose(self, stream: str, lost: tuple[int, int, float | None, float | None], reason: str) -> None:
+        """Count lost lines and keep their gap for the file."""
+        seq_first, n_lost, t_first, t_last = lost
+        if stream == "raw":
+            self.lost_raw += n_lost
+        else:
+            self.lost_messages += n_lost
+        self.loss_t_first = _min_known(self.loss_t_first, t_first)
+        self.loss_t_last = _max_known(self.loss_t_last, t_last)
+        if self.note_gap(stream, seq_first, n_lost, t_first, t_last, reason, time.time()):
+            self.gaps_opened += 1
+
+    def skip_dropped(self, stream: str, n: int, t_first: float | None, t_last: float | None) -> None:
+        """``n`` items of ``stream`` were dropped before reaching the writer (a full queue)."""
+        target = self.raw_stream if stream == "raw" else self.message_stream
+        self.lose(stream, (target.skip(n), n, t_first, t_last), "queue full")
+
+    def note_gap(self, stream: str, seq_first: int, n_lost: int, t_first: float | None, t_last: float | None,
+                 reason: str, wall_utc: float) -> bool:
+        """Keep a gap for the next commit that works; one that continues the previous gap of its
+        stream extends it. True when it opened a new gap."""
+        for gap in reversed(self.pending_gaps):
+            if gap[0] == stream:
+                if gap[1] + gap[2] == seq_first:
+                    gap[2] += n_lost
+                    gap[3] = _min_known(gap[3], t_first)
+                    gap[4] = _max_known(gap[4], t_last)
+                    return False
+                break
+        self.pending_gaps.append([stream, seq_first, n_lost, t_first, t_last, wall_utc, reason])
+        return True
 
     def commit(self, final: bool = False) -> tuple[int, int, int, int]:
         """Write everything pending in one transaction; (raw lines, messages, alerts, merged blocks).
@@ -433,7 +511,7 @@ class RecordingWriter:
         if not self.has_pending() and not (final and any(len(s.small) > 1 for s in streams)):
             return 0, 0, 0, 0
         counts = (len(self.raw_stream.pending), len(self.message_stream.pending), len(self.pending_alerts))
-        saved = [(list(s.small), s.next_seq) for s in streams]
+        saved = [(list(s.small), s.next_seq, list(s.pending)) for s in streams]
         merged = 0
         try:
             self.conn.execute("BEGIN IMMEDIATE")
@@ -444,15 +522,25 @@ class RecordingWriter:
                                   "VALUES (?, ?, ?, ?, ?, ?, ?, ?)", self.pending_alerts)
             self.conn.executemany("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
                                   list(self.pending_meta.items()))
+            self.conn.executemany("INSERT INTO gap (stream, seq_first, n_lost, t_first, t_last, wall_utc, reason) "
+                                  "VALUES (?, ?, ?, ?, ?, ?, ?)", [tuple(g) for g in self.pending_gaps])
             self.conn.execute("COMMIT")
         except (sqlite3.Error, ValueError, TypeError, OverflowError) as exc:  # SQLite, or a payload JSON refuses
             if self.conn.in_transaction:
-                self.conn.execute("ROLLBACK")
-            for stream, (small, seq) in zip(streams, saved):
-                stream.rollback(small, seq, [])
-            self.pending_alerts, self.pending_meta = [], {}
-            raise OutputError(f"recording {self.path}: commit failed, {sum(counts[:2])} items lost: {exc}") from exc
-        self.pending_alerts, self.pending_meta = [], {}
+                try:
+                    self.conn.execute("ROLLBACK")
+                except sqlite3.Error:
+                    pass  # SQLite has rolled back by itself after a full disk
+            for stream, (small, seq, pending) in zip(streams, saved):
+                stream.rollback(small, seq, pending)
+            reason = str(exc) or exc.__class__.__name__
+            for name, stream in (("raw", self.raw_stream), ("message", self.message_stream)):
+                if stream.pending:
+                    self.lose(name, stream.lose_pending(), reason)
+            self.pending_alerts = []  # the config (pending_meta) and the gap rows wait for the next commit
+            raise OutputError(f"recording {self.path}: commit failed, {counts[0]} lines and {counts[1]} messages "
+                              f"lost (their numbers are skipped and the gap is marked): {reason}") from exc
+        self.pending_alerts, self.pending_meta, self.pending_gaps = [], {}, []
         return (*counts, merged)
 
     def close(self) -> None:
@@ -465,6 +553,14 @@ class RecordingWriter:
 
 
 # --------------------------------------------------------------------------- where recordings go
+
+def _min_known(a: float | None, b: float | None) -> float | None:
+    return b if a is None else a if b is None else min(a, b)
+
+
+def _max_known(a: float | None, b: float | None) -> float | None:
+    return b if a is None else a if b is None else max(a, b)
+
 
 def recording_name(t_utc: float) -> str:
     """File name of a recording started at ``t_utc`` (UNIX s): offwatch-YYYYMMDDTHHMMSSZ.sqlite."""
@@ -610,8 +706,10 @@ class Recorder:
         self._enforce_every = enforce_every
         self._queue: queue.Queue = queue.Queue(maxsize=queue_size)
         self._stats = RecorderStats()
-        self._lock = threading.Lock()  # guards _stats between the writer and callers
+        self._lock = threading.Lock()  # guards _stats and _dropped between the writer and callers
+        self._dropped: dict[str, list] = {"raw": [0, None, None], "message": [0, None, None]}  # n, t_first, t_last
         self._config: dict[str, Any] | None = None
+        self._loss_base = (0, 0, 0)  # losses of the files before the current one
         self._closed = False
         self._error: BaseException | None = None
         self._started = threading.Event()
@@ -688,11 +786,23 @@ class Recorder:
             return
         try:
             self._queue.put(item, block=self._wait_when_full)
-            counter = "enqueued"
         except queue.Full:
-            counter = "dropped"
+            with self._lock:
+                self._stats.dropped += 1
+                drop = self._dropped["raw" if isinstance(item, RawLine) else "message"]
+                drop[0] += 1
+                drop[1], drop[2] = _min_known(drop[1], item.t_s), _max_known(drop[2], item.t_s)
+            return
         with self._lock:
-            setattr(self._stats, counter, getattr(self._stats, counter) + 1)
+            self._stats.enqueued += 1
+
+    def _take_drops(self, writer: RecordingWriter) -> None:
+        """Writer thread: give the items a full queue dropped their numbers and a gap."""
+        with self._lock:
+            drops = {k: v for k, v in self._dropped.items() if v[0]}
+            self._dropped = {"raw": [0, None, None], "message": [0, None, None]}
+        for stream, (n, t_first, t_last) in drops.items():
+            writer.skip_dropped(stream, n, t_first, t_last)
 
     # -- the writer thread
     def _open(self, path: Path) -> RecordingWriter:
@@ -751,10 +861,26 @@ class Recorder:
                 if isinstance(item, _Flush):
                     item.done.set()
         try:
-            self._commit(writer, failing)
+            writer, failing = self._commit(writer, failing)
             writer.close()
         except (OutputError, sqlite3.Error) as exc:
             log.error("recording %s: closing failed: %s", writer.path, exc)
+            failing = True
+        self._account_losses(writer, failing=failing)
+
+    def _account_losses(self, writer: RecordingWriter, failing: bool, error: str = "") -> None:
+        """Copy the writer's loss counters into the stats (lifetime of this process, every file)."""
+        with self._lock:
+            s, base = self._stats, self._loss_base
+            s.lost_raw = base[0] + writer.lost_raw
+            s.lost_messages = base[1] + writer.lost_messages
+            s.gaps = base[2] + writer.gaps_opened
+            s.gaps_unwritten = len(writer.pending_gaps)
+            s.loss_t_first = _min_known(s.loss_t_first, writer.loss_t_first)
+            s.loss_t_last = _max_known(s.loss_t_last, writer.loss_t_last)
+            s.failing = failing
+            if error:
+                s.last_error = error
 
     def _add(self, writer: RecordingWriter, item: object) -> None:
         if isinstance(item, RawLine):
@@ -772,11 +898,16 @@ class Recorder:
         except OutputError as exc:
             if not failing:
                 log.error("%s", exc)
+            self._account_losses(writer, failing=True, error=str(exc))
             with self._lock:
                 self._stats.write_errors += 1
             return writer, True
         if failing:
-            log.info("recording %s: commits work again", writer.path)
+            log.warning("recording %s: commits work again; the gap is marked in the file", writer.path)
+        # dropped items are newer than those just written (they found the queue full of them): their
+        # gap goes after this commit's lines, its row into the next commit
+        self._take_drops(writer)
+        self._account_losses(writer, failing=False)
         elapsed = time.perf_counter() - started
         with self._lock:
             s = self._stats
@@ -793,6 +924,8 @@ class Recorder:
             now = self._clock()
             if self._policy.needs_new(writer.path, now):
                 writer.close()
+                with self._lock:
+                    self._loss_base = (self._stats.lost_raw, self._stats.lost_messages, self._stats.gaps)
                 writer = self._open(self._policy.new_path(now))
             elif commits % self._enforce_every == 0:
                 self._enforce(writer.path)
@@ -853,6 +986,50 @@ def iter_messages(path: str | Path) -> Iterator[Message]:
     """The published messages of a recording in the order they were published."""
     for t, _, topic, (retain, qos, kind, payload) in _iter_block_rows(path, "message_block"):
         yield Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+
+
+@dataclass(frozen=True, slots=True)
+class Gap:
+    """Lines a recording lost: from its ``gap`` rows, or a hole in the block numbering."""
+
+    stream: str             # "raw" or "message"
+    seq_first: int
+    n_lost: int
+    t_first: float | None   # data time span, s (from the blocks around a hole when no row tells)
+    t_last: float | None
+    reason: str
+
+
+def recording_gaps(path: str | Path) -> list[Gap]:
+    """Every gap of a recording, in order per stream: the rows the writer left, and any hole in
+    the numbering no row covers (a gap whose row could not be written before the file ended)."""
+    conn = _open_for_reading(path)
+    try:
+        has_table = conn.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'gap'").fetchone()
+        rows = conn.execute("SELECT stream, seq_first, n_lost, t_first, t_last, reason FROM gap "
+                            "ORDER BY stream, seq_first").fetchall() if has_table else []
+        gaps = [Gap(*row) for row in rows]
+        for stream, table in (("raw", "raw_block"), ("message", "message_block")):
+            covered = {(g.seq_first, g.seq_first + g.n_lost) for g in gaps if g.stream == stream}
+            expected, t_before = 0, None
+            for seq_first, n_lines, t_first, t_last in conn.execute(
+                    f"SELECT seq_first, n_lines, t_first, t_last FROM {table} ORDER BY seq_first"):
+                if seq_first > expected and not _covered(covered, expected, seq_first):
+                    gaps.append(Gap(stream, expected, seq_first - expected, t_before, t_first,
+                                    "lines missing (no gap row: the writer could not record it)"))
+                expected, t_before = seq_first + n_lines, t_last
+    finally:
+        conn.close()
+    return sorted(gaps, key=lambda g: (g.stream, g.seq_first))
+
+
+def _covered(spans: set[tuple[int, int]], start: int, end: int) -> bool:
+    """Whether the rows' spans cover [start, end) (contiguous gap rows may split one hole)."""
+    at = start
+    for first, stop in sorted(spans):
+        if first <= at < stop:
+            at = stop
+    return at >= end
 
 
 def read_meta(path: str | Path) -> dict[str, Any]:
@@ -918,6 +1095,6 @@ def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
 
 __all__ = ["RecordingParams", "RecordingPolicy", "Recorder", "RecorderStats", "RecordingWriter",
            "SCHEMA_VERSION", "connect", "connection_pragmas", "recording_name", "is_recording",
-           "iter_raw", "iter_messages", "read_meta", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
+           "iter_raw", "iter_messages", "read_meta", "recording_gaps", "Gap", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
            "tag_block"]
 

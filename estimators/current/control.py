@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from estimators import wording
 from estimators.angles import circular_mean_deg, from_east_north, to_east_north, wrap_180
 from estimators.base import CAUTION, Condition, Output
 
@@ -273,8 +274,9 @@ class Control:
                     f"{self._log_values.get('sog_kn', 0):.1f} kn over ground: check the log's paddle wheel or "
                     f"transducer (weed, fouling, a cable). The current estimate is held meanwhile.")
         else:
-            text = (f"Speed log changed by {self._log_values.get('log_change_kn', 0):+.1f} kn while the speed over "
-                    f"ground along the heading changed by {self._log_values.get('sog_along_change_kn', 0):+.1f} kn: "
+            text = (f"Speed log changed by {wording.signed(self._log_values.get('log_change_kn', 0))} kn while the "
+                    f"speed over ground along the heading changed by "
+                    f"{wording.signed(self._log_values.get('sog_along_change_kn', 0))} kn: "
                     f"check the log's paddle wheel or transducer. The current estimate is held meanwhile.")
         return Condition(t, "log_suspect", CAUTION, True, text, dict(self._log_values))
 

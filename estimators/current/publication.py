@@ -85,14 +85,16 @@ class Publisher:
             self._strong.update(drift)
         elif quality == "unavailable":
             self._strong.update(0.0)
-        if self._strong.active == was:
-            return []
         if not self._strong.active:
-            return [Condition(t, "current_strong", CAUTION, False, f"Current has eased to {drift:.1f} kn.", {})]
-        text = (f"Current of {drift:.1f} kn setting toward {set_deg:03.0f} deg measured: check the tidal stream "
+            if self._strong.active == was:
+                return []
+            return [Condition(t, "current_strong", CAUTION, False, f"Strong current; eased to {drift:.1f} kn",
+                              {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
+        # said again with each estimate while it lasts: the alert's figures follow the current (rate-limited there)
+        text = (f"Current of {drift:.1f} kn setting toward {set_deg:03.0f}° measured: check the tidal stream "
                 f"atlas and the chart for the passage ahead.")
         return [Condition(t, "current_strong", CAUTION, True, text,
-                          {"drift_kn": round(drift, 2), "set_deg": round(set_deg, 1)})]
+                          {"drift_kn": round(drift, 1), "set_deg": round(set_deg)})]
 
     def _calibrated(self) -> tuple[bool, bool]:
         if self.ekf is None:

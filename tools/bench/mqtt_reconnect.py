@@ -22,7 +22,7 @@ from pathlib import Path
 from daemon.core.config import MqttSettings
 from daemon.outlets.mqtt import MqttSink
 from daemon.core.readings import Message
-from tests.conftest import Mosquitto
+from tests.helpers import Mosquitto
 
 
 def wait(cond, timeout_s: float = 30.0) -> None:

@@ -225,18 +225,31 @@ class SeaTemperatureField:
 # --------------------------------------------------------------------------- air and wind
 
 
+SEMIDIURNAL_EQUATOR_HPA = 1.2  # solar semidiurnal pressure tide at the equator (textbook, from memory)
+
+
+def semidiurnal_amplitude_hpa(lat_deg: float) -> float:
+    """The climatological amplitude of the solar semidiurnal pressure tide at a latitude, hPa."""
+    return SEMIDIURNAL_EQUATOR_HPA * math.cos(math.radians(lat_deg)) ** 3
+
+
 @dataclass(frozen=True)
 class PressureField:
     """MSL pressure: piecewise-linear in time, plus a semidiurnal tide and a spatial gradient.
 
-    ``knots`` are (t_s, hPa). The atmospheric tide peaks near 10 and 22 local
-    solar time (a textbook fact; amplitude about 1 hPa in the tropics, a few
-    tenths at mid-latitudes). ``gradient_hpa_per_nm`` rises toward ``gradient_toward_deg``
-    from (``ref_lat``, ``ref_lon``).
+    ``knots`` are (t_s, hPa). The atmospheric (solar semidiurnal) tide is part
+    of what a real barometer reads, so it is on unless a scenario turns it off
+    (``semidiurnal_hpa=0``): it peaks near 10 and 22 local solar time with an
+    amplitude of about 1.2 hPa · cos³(latitude) by default (a textbook fact,
+    from memory: about 1 hPa in the tropics, a few tenths at mid-latitudes);
+    a number given is the amplitude everywhere. Deliberately not the
+    estimator's model (1.16 hPa, peak 09:44): a real tide does not follow a
+    climatology either. ``gradient_hpa_per_nm`` rises toward
+    ``gradient_toward_deg`` from (``ref_lat``, ``ref_lon``).
     """
 
     knots: tuple[tuple[float, float], ...]
-    semidiurnal_hpa: float = 0.0
+    semidiurnal_hpa: float | None = None
     gradient_hpa_per_nm: float = 0.0
     gradient_toward_deg: float = 0.0
     ref_lat: float = 0.0
@@ -244,9 +257,10 @@ class PressureField:
 
     def msl_hpa(self, t_s: float, lat: float, lon: float) -> float:
         p = interp_knots(self.knots, t_s)
-        if self.semidiurnal_hpa:
+        amplitude = semidiurnal_amplitude_hpa(lat) if self.semidiurnal_hpa is None else self.semidiurnal_hpa
+        if amplitude:
             solar_h = (t_s / 3600.0 + lon / 15.0) % 24.0
-            p += self.semidiurnal_hpa * math.cos(2.0 * math.pi * (solar_h - 10.0) / 12.0)
+            p += amplitude * math.cos(2.0 * math.pi * (solar_h - 10.0) / 12.0)
         if self.gradient_hpa_per_nm:
             east, north = offset_m(self.ref_lat, self.ref_lon, lat, lon)
             e, n = to_east_north(1.0, self.gradient_toward_deg)

@@ -120,6 +120,25 @@ def gnss_outage() -> Scenario:
     )
 
 
+def stuck_compass() -> Scenario:
+    """Motoring 020 then 115 (a 95 deg course change at 30 min); the compass is frozen from 25 to 40 min."""
+    t0, lat, lon = utc(2026, 5, 8, 2), 39.20, -44.70
+    ocean = Ocean(
+        currents=(SteadyCurrent(250.0, 1.0),),
+        sea_temp=_plain_sea(lat, lon, 17.0),
+        pressure=_flat_pressure(t0, 1015.0),
+        wind=_steady_wind(t0, 60.0, 10.0),
+    )
+    return Scenario(
+        name="stuck_compass", start_utc=t0, duration_s=1 * H, start_lat=lat, start_lon=lon,
+        helm=(Steer(20.0, 6.0, 30 * MIN, motoring=True), Steer(115.0, 6.0, 30 * MIN, motoring=True)),
+        ocean=ocean,
+        sensors=SensorSpec(stw_scale=0.97, heading_offset_deg=1.0, heading_hz=2.0,
+                           heading_frozen=((t0 + 25 * MIN, t0 + 40 * MIN),)),
+        description="The compass repeats one reading from 0:25 to 0:40; the boat turns 95 deg at 0:30.",
+    )
+
+
 def front_crossing() -> Scenario:
     """Three hours south at 6 kn: a +3.0 °C front (0.5 nm wide) at 5 nm, patchiness, a −0.8 °C front at 14 nm."""
     t0, lat, lon = utc(2026, 5, 8, 7), 45.50, -25.80
@@ -324,6 +343,7 @@ SCENARIOS = {
     "tidal_box": tidal_box,
     "current_crossing": current_crossing,
     "gnss_outage": gnss_outage,
+    "stuck_compass": stuck_compass,
     "front_crossing": front_crossing,
     "pressure_fall": pressure_fall,
     "steady_pressure_12h": steady_pressure_12h,

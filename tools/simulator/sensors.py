@@ -10,6 +10,8 @@ Error models (all seeded through one ``numpy.random.Generator``):
 - log: reads ``stw_scale`` × the speed along the keel (STW·cos λ), white noise,
   quantised (a log reading 6 % low has ``stw_scale = 0.94``);
 - compass: reads ``heading_offset_deg`` more than the true heading, white noise;
+  inside a ``heading_frozen`` window it repeats its last reading before the
+  window (a fluxgate or a gateway that freezes rather than falls silent);
 - GNSS: position error a first-order Gauss–Markov process (σ, τ) per axis,
   SOG/COG from the true ground velocity with white noise per axis; no fix
   inside an outage window; a fix carries SOG/COG like an RMC does;
@@ -74,6 +76,7 @@ class SensorSpec:
     heading_offset_deg: float = 0.0  # compass reads this much more than the true heading
     heading_noise_deg: float = 0.5
     heading_hz: float = 10.0
+    heading_frozen: tuple[tuple[float, float], ...] = ()  # (start_s, end_s): the last reading repeats
     # GNSS
     fix_hz: float = 1.0
     position_sigma_m: float = 2.0
@@ -238,6 +241,11 @@ class _Sensors:
         t = sample_times(self.t0, self.dur, 1.0 / s.heading_hz, 0.05)
         h = self.at("heading_true_deg", t) + s.heading_offset_deg + self.rng.normal(0, s.heading_noise_deg, t.shape)
         h = h + self.wave_yaw_deg(t) + self.correlated(t, s.heading_correlated_noise_deg, s.heading_noise_tau_s)
+        for start, end in s.heading_frozen:
+            inside = (t >= start) & (t < end)
+            before = np.flatnonzero(t < start)
+            if inside.any() and before.size:
+                h[inside] = h[before[-1]]
         return t, np.mod(h, 360.0)
 
     def heading_samples(self, t: np.ndarray, h: np.ndarray) -> list[Sample]:
