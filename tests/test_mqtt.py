@@ -635,11 +635,11 @@ def test_close_with_the_broker_gone_tells_what_was_not_delivered(mosquitto):
 
 
 def test_the_watch_view_reads_received_payloads_bounded():
-    # issue 13 item 5 for the other subscriber, `offwatch watch`: a deep or huge payload is ignored unread
-    from daemon.commands.watch import View
-    view = View(PREFIX)
-    view.take(f"{PREFIX}/status", b"[" * 5000 + b"]" * 5000)
-    view.take(f"{PREFIX}/position", b'{"lat": ' + b"1" * 70_000 + b"}")
-    assert view.latest == {}
-    view.take(f"{PREFIX}/position", b'{"time": "2026-06-01T06:00:00.000Z", "lat": 48.1, "lon": -4.9}')
-    assert view.latest["position"]["lat"] == 48.1
+    # issue 13 item 5 for the other subscriber, `offwatch watch`: a deep or huge payload is refused unread
+    from daemon.commands.watch import WatchModel
+    model = WatchModel(prefix=PREFIX)
+    assert not model.take(f"{PREFIX}/status", b"[" * 5000 + b"]" * 5000, 0.0)
+    assert not model.take(f"{PREFIX}/position", b'{"lat": ' + b"1" * 70_000 + b"}", 0.0)
+    assert model.topics == {} and model.refused == 2
+    assert model.take(f"{PREFIX}/position", b'{"time": "2026-06-01T06:00:00.000Z", "lat": 48.1, "lon": -4.9}', 0.0)
+    assert model.topics["position"].data["lat"] == 48.1

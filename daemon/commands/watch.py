@@ -621,10 +621,10 @@ def broker_words(broker: Any) -> str:
 def make_client(s: Any, broker: Any, model: WatchModel, screen: Screen) -> Any:
     """A paho client set up as the service's (user and password from the settings or the URL, TLS as
     the service checks its files), subscribing to everything under the prefix."""
-    import ssl
-
     import paho.mqtt.client as paho
     from paho.mqtt.enums import CallbackAPIVersion
+
+    from daemon.outlets.mqtt import tls_context
 
     protocol = paho.MQTTv5 if s.protocol == "5" else paho.MQTTv311
     client = paho.Client(CallbackAPIVersion.VERSION2, client_id=s.client_id, protocol=protocol)
@@ -632,15 +632,7 @@ def make_client(s: Any, broker: Any, model: WatchModel, screen: Screen) -> Any:
     if username:
         client.username_pw_set(username, s.password or broker.password or None)
     if broker.tls:
-        for key in ("ca_file", "cert_file", "key_file"):
-            path = getattr(s, key)
-            if path and not os.path.isfile(path):
-                raise ConfigError(f"mqtt.{key} = {path!r}: no such file (give the PEM file for mqtts://)")
-        try:
-            client.tls_set(ca_certs=s.ca_file or None, certfile=s.cert_file or None, keyfile=s.key_file or None,
-                           cert_reqs=ssl.CERT_REQUIRED, tls_version=ssl.PROTOCOL_TLS_CLIENT)
-        except (ssl.SSLError, OSError, ValueError) as e:
-            raise ConfigError(f"mqtt.ca_file/cert_file/key_file: cannot use them for TLS: {e}") from None
+        client.tls_set_context(tls_context(s))  # the service's own checks and context
 
     def on_connect(c: Any, userdata: Any, flags: Any, reason: Any, properties: Any = None) -> None:
         screen.connected = not getattr(reason, "is_failure", False)

@@ -102,6 +102,25 @@ def parse_broker_url(url: str, key: str = "mqtt.url") -> BrokerUrl:
                      username=unquote(parts.username or ""), password=unquote(parts.password or ""))
 
 
+def tls_context(s: MqttSettings) -> ssl.SSLContext:
+    """The TLS context for mqtts:// from the settings' files (certificate and host name checked);
+    a ConfigError naming the key when a file is missing or unusable. The service and the watch view
+    both connect with it."""
+    for key in ("ca_file", "cert_file", "key_file"):
+        path = getattr(s, key)
+        if path and not Path(path).is_file():
+            raise ConfigError(f"mqtt.{key} = {path!r}: no such file (give the PEM file for mqtts://)")
+    if bool(s.cert_file) != bool(s.key_file):
+        raise ConfigError("mqtt.cert_file and mqtt.key_file: give both for a client certificate, or neither")
+    try:
+        ctx = ssl.create_default_context(cafile=s.ca_file or None)
+        if s.cert_file:
+            ctx.load_cert_chain(s.cert_file, s.key_file)
+    except (ssl.SSLError, OSError, ValueError) as e:
+        raise ConfigError(f"mqtt.ca_file/cert_file/key_file: cannot use them for TLS: {e}") from None
+    return ctx
+
+
 # -- payloads -----------------------------------------------------------------
 
 def encode_payload(payload: Mapping[str, Any]) -> bytes:
@@ -273,21 +292,9 @@ class MqttSink:
         return client
 
     def _set_tls(self, client: paho.Client) -> None:
-        s = self.settings
-        for key in ("ca_file", "cert_file", "key_file"):
-            path = getattr(s, key)
-            if path and not Path(path).is_file():
-                raise ConfigError(f"mqtt.{key} = {path!r}: no such file (give the PEM file for mqtts://)")
-        if bool(s.cert_file) != bool(s.key_file):
-            raise ConfigError("mqtt.cert_file and mqtt.key_file: give both for a client certificate, or neither")
-        try:
-            # our own context (certificate and host name checked), so the fault diagnosis uses the very same
-            ctx = ssl.create_default_context(cafile=s.ca_file or None)
-            if s.cert_file:
-                ctx.load_cert_chain(s.cert_file, s.key_file)
-            client.tls_set_context(ctx)
-        except (ssl.SSLError, OSError, ValueError) as e:
-            raise ConfigError(f"mqtt.ca_file/cert_file/key_file: cannot use them for TLS: {e}") from None
+        # our own context (certificate and host name checked), so the fault diagnosis uses the very same
+        ctx = tls_context(self.settings)
+        client.tls_set_context(ctx)
         self._tls_context = ctx
 
     # -- the Sink protocol (pipeline thread) ----------------------------------

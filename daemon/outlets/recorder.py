@@ -291,13 +291,17 @@ def _pack(items: list[_Item], codec: str) -> tuple[str, bytes, float | None, flo
             max(finite) if finite else None)
 
 
-def _unpack_rows(codec: str, names_json: str, data: bytes) -> Iterator[tuple[float, int, str, list]]:
-    """Decode one block into (time, ms, name, remaining fields) in order."""
+def _open_block(codec: str, names_json: str, data: bytes) -> tuple[list, str]:
+    """A block's names and its decompressed text; an InputError when it cannot be decoded."""
     try:
-        names = json.loads(names_json)
-        text = _CODECS[codec][1](data).decode("ascii")
+        return json.loads(names_json), _CODECS[codec][1](data).decode("ascii")
     except (KeyError, ValueError, zlib.error, lzma.LZMAError) as exc:
         raise InputError(f"a recording block cannot be decoded ({codec}): {exc}") from exc
+
+
+def _unpack_rows(codec: str, names_json: str, data: bytes) -> Iterator[tuple[float, int, str, list]]:
+    """Decode one block into (time, ms, name, remaining fields) in order."""
+    names, text = _open_block(codec, names_json, data)
     prev: tuple[int, int | None] = (0, 0)
     for line in text.split("\n"):
         row = json.loads(line)
@@ -1012,11 +1016,7 @@ def _unpack_kept(codec: str, names_json: str, data: bytes, keep: Callable[[str, 
     A message line starts ``[<time>,<topic index>,``: both are plain JSON
     numbers or a string of digits, never holding a comma.
     """
-    try:
-        names = json.loads(names_json)
-        text = _CODECS[codec][1](data).decode("ascii")
-    except (KeyError, ValueError, zlib.error, lzma.LZMAError) as exc:
-        raise InputError(f"a recording block cannot be decoded ({codec}): {exc}") from exc
+    names, text = _open_block(codec, names_json, data)
     prev: tuple[int, int | None] = (0, 0)
     for line in text.split("\n"):
         t_text, index_text, _ = line[1:].split(",", 2)
