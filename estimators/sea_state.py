@@ -483,11 +483,12 @@ class SeaStateEstimator(EstimatorBase):
                 value = waves["breaking_fraction"]
         was = self._against.active
         self._against.update(value if math.isfinite(value) else 1e9)
-        if self._against.active == was:
-            return []
         if not self._against.active:
+            if not was:
+                return []
             return [Condition(t, "wind_against_current", CAUTION, False,
                               "Wind and current no longer stack up the sea (estimate).", {})]
+        # said again while it lasts: the alert's figures follow the sea (the alert manager rate-limits the news)
         return [Condition(t, "wind_against_current", CAUTION, True, _against_text(water, waves),
                           {k: waves[k] for k in ("opposing_current_kn", "height_factor", "length_factor",
                                                  "steepness_factor", "peak_steepness_factor", "breaking_fraction",
@@ -503,9 +504,9 @@ class SeaStateEstimator(EstimatorBase):
         air, sea = self._temperatures(t, ctx)
         was = self._unstable.active
         self._unstable.update(None if air is None or sea is None else sea - air)
-        if self._unstable.active == was:
-            return []
         if not self._unstable.active:
+            if not was:
+                return []
             return [Condition(t, "unstable_air", CAUTION, False, "The air is no longer much colder than the sea.", {})]
         text = (f"Air {fixed(air)} °C is {fixed(sea - air)} °C colder than the sea ({fixed(sea)} °C): unstable air over "
                 f"warmer water breeds squalls; check the sky to windward, the barometer and the forecast.")

@@ -448,10 +448,15 @@ class Screen:
 
     def _sea_state_words(self, ss: dict) -> str | None:
         opp = num(ss.get("opposing_current_kn"), ".1f", " kn")
+        # the wind sea's peak period, as the caution judges it: the worst period of the band grows without
+        # bound near blocking in linear theory, a figure no sea shows
+        def factor(name: str) -> str | None:
+            value = ss.get("peak_" + name) if ss.get("peak_" + name) is not None else ss.get(name)
+            return num(value, ".1f")
         parts = [f"against current {opp}" if opp else None,
-                 _pair("height ×", num(ss.get("height_factor"), ".1f"), ""),
-                 _pair("length ×", num(ss.get("length_factor"), ".1f"), ""),
-                 _pair("steepness ×", num(ss.get("steepness_factor"), ".1f"), "")]
+                 _pair("height ×", factor("height_factor"), ""),
+                 _pair("length ×", factor("length_factor"), ""),
+                 _pair("steepness ×", factor("steepness_factor"), "")]
         words = "  ".join(p for p in parts if p)
         return words or None
 
