@@ -147,7 +147,7 @@ def _fields(payload: dict[str, Any]) -> str:
         keep = [k for k in payload if k not in ("time", "lat", "lon")]
     else:
         head, keep = [], [k for k in payload if k != "time"]
-    keep = [k for k in keep if payload[k] is not None and not isinstance(payload[k], (dict, list))][:8]
+    keep = [k for k in keep if payload[k] not in (None, "") and not isinstance(payload[k], (dict, list))][:8]
     return ", ".join(head + [f"{k}={_fmt(payload[k])}" for k in keep])
 
 
