@@ -36,6 +36,8 @@ _BY_NAME: dict[str, int] = {
     "hdop": 1,                # GGA sends HDOP to 0.1
     "last_seen": 3,           # UNIX seconds to the millisecond, as the payload's time
     "sensors": 1,             # status: each feed's age, s
+    "last_nis": 2,            # a normalised innovation squared: about 1 to 2 when all is well
+    "breaking_fraction": 2,   # the steepened sea's H/L as a share of the breaking limit
 }
 # Field name ending -> decimals, the longest ending that matches wins (units are in the names).
 _BY_SUFFIX: dict[str, int] = {
