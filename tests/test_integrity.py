@@ -186,6 +186,10 @@ def test_stuck_compass_scenario_through_the_service_pipeline(seed):
 
     assert after and max(error(m) for m in after) < 0.35
     assert sorted(error(m) for m in after)[len(after) // 2] < 0.3
+    # and while it is set aside, the current's own sigma owns up to what the lying compass fed it:
+    # the vector error within 3 published drift sigmas (sqrt 2 for the two axes)
+    late = [m for m in during if rel(m) >= rel(alerts[0]) + 30]
+    assert late and all(error(m) <= 3 * math.sqrt(2) * m.payload["drift_sigma_kn"] for m in late)
 
 
 def test_a_real_compass_under_way_all_round_the_compass_is_never_suspect():

@@ -92,6 +92,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._log_values: dict[str, float] = {}
         self._log_alert = False
         self._restart_next = False
+        self._withheld: set[str] = set()  # kinds the runner withholds as lying (see on_distrust)
         self._last_gv: tuple[float, float] | None = None
         self._last_inputs: WaterInputs | None = None
         self._slow: tuple[float, float, float, float] | None = None  # t, speed, heading unit vector (e, n)
@@ -127,6 +128,22 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         return self._publish(t_s)
 
 
+    def on_distrust(self, kind: str, active: bool, since_s: float) -> None:
+        """A compass or log found lying (the runner withholds its samples from now on): what it fed the
+        current since the evidence began cannot be believed either. The published sigma says so at once
+        (the current's covariance grows by ``reset_current_sigma_kn`` per axis), nothing is fused while
+        it lasts, and the current restarts from the first fix once the sensor is trusted again; k and d
+        keep what the steady legs taught."""
+        if kind not in ("heading", "water_speed"):
+            return
+        if active:
+            self._withheld.add(kind)
+            if self.ekf is not None:
+                self.ekf.P[:2, :2] += self.params.reset_current_sigma_kn ** 2 * np.eye(2)
+        else:
+            self._withheld.discard(kind)
+            self._restart_next = self.ekf is not None
+
     def _ground_velocity_epoch(self, sample: Sample, ctx: Any) -> Sequence[Output]:
         p = self.params
         t = sample.t_s
@@ -137,7 +154,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             self.health.duplicates += 1
             return ()
         self._seen["fix"] = t
-        inputs = self._water_inputs(t, ctx)
+        inputs = None if self._withheld else self._water_inputs(t, ctx)  # no water track from a lying sensor
         self.t_prev_gv = t
         self._last_gv = g
         out: list[Output] = []
