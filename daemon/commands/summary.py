@@ -6,6 +6,7 @@ from collections import Counter
 from datetime import datetime, timezone
 from typing import Any
 
+from daemon.core.alerts import AlertChanges
 from daemon.core.readings import Message, RawLine
 from estimators import wording
 
@@ -21,7 +22,7 @@ class SummarySink:
         self.first_t: float | None = None
         self.last_t: float | None = None
         self.latest: dict[str, Message] = {}
-        self._alert_state: dict[str, tuple] = {}
+        self._alert_changes = AlertChanges()
         self.counters: Any = None  # the ingest Counters, set by the replay for the full picture
         self.outputs: list[str] = []     # one line per output that gave an account (delivered, kept)
         self.shortfalls: list[str] = []  # what an output was asked to keep or deliver and did not
@@ -35,18 +36,10 @@ class SummarySink:
             self.first_t = msg.t_s
         self.last_t = msg.t_s
         self.latest[msg.topic.rsplit("/", 1)[-1] if msg.kind != "alert" else msg.topic] = msg
-        if msg.kind == "alert" and self._is_change(msg):
+        if msg.kind == "alert" and self._alert_changes.is_change(msg.topic, msg.payload):
             self.alert_changes.append(msg)
         elif msg.kind == "event":
             self.events.append(msg)
-
-    def _is_change(self, msg: Message) -> bool:
-        """A re-announcement repeats the same state and priority: not a change worth a line."""
-        key = (msg.payload.get("state"), msg.payload.get("priority"))
-        if self._alert_state.get(msg.topic) == key:
-            return False
-        self._alert_state[msg.topic] = key
-        return True
 
     def close(self) -> None:
         pass

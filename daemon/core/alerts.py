@@ -401,3 +401,18 @@ def _fit(payload: dict[str, Any], max_bytes: int) -> dict[str, Any]:
         if len(raw) <= 3:
             break
     return payload
+
+
+class AlertChanges:
+    """Which alert messages change an alert's state or priority: a re-announcement or an update of its
+    figures repeats both and is not a change worth a line (the replay summary, the exports)."""
+
+    def __init__(self) -> None:
+        self._seen: dict[str, tuple] = {}
+
+    def is_change(self, topic: str, payload: Mapping[str, Any]) -> bool:
+        key = (payload.get("state"), payload.get("priority"))
+        if self._seen.get(topic) == key:
+            return False
+        self._seen[topic] = key
+        return True

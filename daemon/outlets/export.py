@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any
 from xml.sax.saxutils import escape
 
+from daemon.core.alerts import AlertChanges
 from daemon.core.config import load_config
 from daemon.core.readings import Message, Reading
 from daemon.errors import ConfigError, InputError, OutputError
@@ -108,7 +109,7 @@ class PassageTrack:
         self.logbook: list[dict[str, Any]] = []
         self.positions_seen = 0
         self._latest: dict[str, dict[str, Any]] = {}
-        self._alert_state: dict[str, tuple] = {}
+        self._alert_changes = AlertChanges()
         self._last_row_t = -math.inf
         self._last_hour: int | None = None
         self._heading: float | None = None
@@ -127,7 +128,7 @@ class PassageTrack:
         if msg.kind == "event":
             self._happened(self._event(msg))
         elif msg.kind == "alert":
-            if self._is_change(msg):
+            if self._alert_changes.is_change(msg.topic, msg.payload):
                 self._happened(self._alert(msg))
         elif name == "position":
             self._position(msg)
@@ -200,14 +201,6 @@ class PassageTrack:
     def _where(self) -> tuple[float | None, float | None]:
         pos = self._latest.get("position", {})
         return pos.get("lat"), pos.get("lon")
-
-    def _is_change(self, msg: Message) -> bool:
-        """A re-announcement repeats the same state and priority: not a change worth a line."""
-        key = (msg.payload.get("state"), msg.payload.get("priority"))
-        if self._alert_state.get(msg.topic) == key:
-            return False
-        self._alert_state[msg.topic] = key
-        return True
 
     def _event(self, msg: Message) -> Happening:
         p = dict(msg.payload)
