@@ -227,3 +227,12 @@ def test_a_learnt_calibration_short_of_the_threshold_is_reported_but_not_called_
     assert last["stw_scale_sigma"] < p.initial_stw_scale_sigma / 2
     assert abs(last["stw_scale"] - 1.06) < 3 * last["stw_scale_sigma"]
     assert abs(last["heading_offset_deg"] - 3.0) < 3 * last["heading_offset_sigma_deg"]
+
+
+def test_retired_parameter_names_are_not_reused():
+    # GIVEN the names removed from [current] (estimators/current/params.py RETIRED)
+    from dataclasses import fields
+
+    from estimators.current.params import RETIRED
+    # THEN none of them names a parameter again: an old config setting one is refused, not misread
+    assert RETIRED and not set(RETIRED) & {f.name for f in fields(CurrentParams)}

@@ -27,8 +27,9 @@ M, DUR = 8, 900
 
 def test_nees_and_nis_within_chi_square_bounds():
     # GIVEN M seeded tacking runs whose truth follows the filter's model: white noise, so the
-    # calibration fit's effective sample count is told the noise is uncorrelated (N_eff = T / 2 tau)
-    p = CurrentParams(noise_correlation_s=0.5)
+    # filter is told its noise has no correlated part
+    p = CurrentParams(noise_correlation_s=0.5, heading_correlation_s=0.5, log_correlated_sigma_kn=0.0,
+                      heading_correlated_sigma_deg=0.0)
     nees = np.zeros((M, DUR))
     nis = np.full((M, DUR), np.nan)
     for m in range(M):
@@ -59,7 +60,6 @@ def test_nees_and_nis_within_chi_square_bounds():
     # ... and the NIS (2 measurements) averages to its dimension within the band of all epochs
     all_nis = nis[:, 60:][~np.isnan(nis[:, 60:])]  # after the first minute (the start's linearisation)
     n = all_nis.size
-    # The upper bound is the chi-square one. Below, k and d are consider states learnt by the batch fit,
-    # which fuses only the information the filter lacks: by design a little conservative (P a little
-    # larger than the error), so the NIS may sit up to 5 % under its dimension, never over the bound.
-    assert 0.95 * 2.0 < all_nis.mean() < chi2.ppf(0.999, 2 * n) / n
+    # both bounds are the chi-square ones (99.9 %, two-sided): neither over- nor under-confident
+    lo_nis, hi_nis = chi2.ppf(0.0005, 2 * n) / n, chi2.ppf(0.9995, 2 * n) / n
+    assert lo_nis < all_nis.mean() < hi_nis, f"mean NIS {all_nis.mean():.3f} outside ({lo_nis:.3f}, {hi_nis:.3f})"

@@ -158,7 +158,8 @@ def test_quality_is_degraded_with_a_reason_while_the_innovations_are_larger_than
     qualities = {}
     for gnss_sigma in (0.1, 0.4):
         syn = synth_passage(5, 2400, tacking_legs(2400, 300), gnss_sigma=gnss_sigma)
-        est = CurrentEstimator(CurrentParams(gnss_velocity_sigma_kn=0.1, noise_correlation_s=0.5))
+        est = CurrentEstimator(CurrentParams(gnss_velocity_sigma_kn=0.1, noise_correlation_s=0.5, heading_correlation_s=0.5,
+                                             log_correlated_sigma_kn=0.0, heading_correlated_sigma_deg=0.0))
         # WHEN the estimator runs, collect the published quality and its reason after 20 minutes
         pubs = [o.payload for s, outs in run(est, syn.samples) for o in outs
                 if getattr(o, "topic", None) == "current" and o.t_s - syn.samples[0].t_s > 1200]

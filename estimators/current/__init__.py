@@ -13,13 +13,14 @@ update are written out here, cheaper than the generic ones)::
 
 Process model: every state is a random walk (F = I). The current walks at
 ``current_walk_kn_per_sqrt_h`` per axis (tidal streams turn over hours). Fast
-at an edge, steady in between: an exponentially windowed NIS of each fix's
-innovation against that fix's own noise is the change detector; above twice its
-expectation it inflates the current's process noise step by step, and the
-inflation decays back once the innovations agree again (continuous noise level
-adjustment, Bar-Shalom, Li & Kirubarajan, "Estimation with Applications to
-Tracking and Navigation", 2001, sect. 11.2, from memory). k and d walk very
-slowly (fouling, a compass swung again).
+at an edge, steady in between: a CUSUM change detector (E. S. Page,
+"Continuous inspection schemes", Biometrika 41, 1954) sums each fix's NIS
+against that fix's own noise above its expectation less a reference value; while
+the sum is above its threshold it inflates the current's process noise step by
+step, and the inflation decays back once the sum falls (see ``control._adapt``).
+Its threshold sets how rarely it fires on steady water (about once in
+exp(0.4 h) fixes), so the steady legs keep the filter's full averaging. k and d
+walk very slowly (fouling, a compass swung again).
 
 Measurement (one fusion step per ground-velocity epoch, from ``Fix`` SOG/COG or
 ``GroundVelocity``)::
@@ -55,10 +56,16 @@ prior, and the status "calibrated" only once their sigmas fall below the
 ``calibrated_*`` thresholds (2 sigma: 2 % of STW, 1.5 deg); until then it says
 what would calibrate them.
 
-Correlated noise: the log's and the compass's errors are correlated over
-seconds (``noise_correlation_s``); fixes a second apart are not independent
-samples of them, so their part of R is multiplied by 2 tau / dt (the
-effective sample count) and the current's sigma holds under that noise.
+Correlated noise: each input's noise has a part independent from fix to fix
+(white noise averaged over the interval, wave yaw whose swings of a few seconds
+average out: ``log_sigma_kn``, ``heading_sigma_deg``) and a first-order
+Gauss-Markov part correlated over seconds (a paddle wheel, a compass card:
+``log_correlated_sigma_kn`` over ``noise_correlation_s``,
+``heading_correlated_sigma_deg`` over ``heading_correlation_s``). Fixes a second
+apart are not independent samples of the latter, so its part of R is multiplied
+by 2 tau / dt (the effective sample count): R carries each noise's long-run
+variance, and the current's sigma holds under that noise without counting the
+white part as correlated.
 
 Honest quality: the NIS of the last ``nis_check_fixes`` fixes against the
 covariance the filter uses is tested against its two-sided chi-square bounds

@@ -20,7 +20,9 @@ not n independent samples. The variance of the mean of a first-order
 Gauss-Markov noise over T >> tau is about sigma^2 * 2 tau / T: the block counts
 as N_eff = T / (2 tau) samples (Bayley & Hammersley, "The effective number of
 independent observations in an autocorrelated time series", J. R. Stat. Soc.
-Suppl. 8, 1946; tau = ``noise_correlation_s``). The fit's own residuals then
+Suppl. 8, 1946; tau = ``noise_correlation_s`` for the log, ``heading_correlation_s``
+for the compass; the part of the noise independent from fix to fix counts
+n times). The fit's own residuals then
 scale this (below), so a sea rougher than assumed widens the sigmas.
 
 The fit. Weighted nonlinear least squares (Gauss-Newton) over the blocks of
@@ -164,23 +166,27 @@ class CalibrationFit:
         k, d = k_start, d_start
         w = self._block_weights(blocks, k)                                  # 1 / sigma_b^2 per axis
         nb = len(blocks)
+        walk_w = self._walk_weights(blocks[-1].t_s - blocks[0].t_s)
+        n_walk = len(walk_w)
         for _ in range(4):
             cd, sd = math.cos(d), math.sin(d)
             Re = M[:, 0] * cd + M[:, 1] * sd                                # R(d) m, east
             Rn = -M[:, 0] * sd + M[:, 1] * cd                               # R(d) m, north
-            J = np.zeros((2 * nb + 2, n_cur + 2))
-            r = np.zeros(2 * nb + 2)
+            J = np.zeros((2 * nb + 2 + n_walk, n_cur + 2))
+            r = np.zeros(2 * nb + 2 + n_walk)
             for j in range(CURRENT_TERMS):                                  # d g / d c_j = t^j
                 J[:nb, 2 * j] = tau ** j
                 J[nb:2 * nb, 2 * j + 1] = tau ** j
             J[:nb, n_cur], J[nb:2 * nb, n_cur] = Re, Rn                     # d g / d k = R(d) m
             J[:nb, n_cur + 1], J[nb:2 * nb, n_cur + 1] = k * Rn, -k * Re    # d g / d d = k R'(d) m
-            W = np.concatenate([w, w, [1.0 / sk0 ** 2, 1.0 / sd0 ** 2]])
+            W = np.concatenate([w, w, [1.0 / sk0 ** 2, 1.0 / sd0 ** 2], walk_w])
             # residuals at the current (k, d), with the current's coefficients solved jointly: linear in c
             r[:nb] = G[:, 0] - k * Re
             r[nb:2 * nb] = G[:, 1] - k * Rn
             r[2 * nb], r[2 * nb + 1] = k0 - k, d0 - d
             J[2 * nb, n_cur], J[2 * nb + 1, n_cur + 1] = 1.0, 1.0
+            for i, col in enumerate(range(2, n_cur)):                       # c1, c2 ~ 0: the walk's prior
+                J[2 * nb + 2 + i, col] = 1.0
             # the current columns enter with the full coefficients (r excludes c): solve for [c, dk, dd]
             A = J.T @ (W[:, None] * J)
             b = J.T @ (W * r)
@@ -204,13 +210,31 @@ class CalibrationFit:
         self.last = FitResult(k, d, cov, chi2_red, nb, spread_deg(blocks))
         return self.last
 
+    def _walk_weights(self, span_s: float) -> np.ndarray:
+        """Weights of the prior c1 = c2 = 0 (per axis), from how far the current may walk over the window.
+
+        A random walk of sigma_w kn/sqrt(h) moves about sigma_w sqrt(W) over a window of W h: a
+        slope c1 ~ sigma_w / sqrt(W) and a curvature c2 (W/2)^2 ~ sigma_w sqrt(W), c2 ~ 4 sigma_w / W^1.5.
+        A short window (right after the first tack) then holds the current nearly constant instead
+        of letting the polynomial mimic any calibration; over hours the terms are free.
+        """
+        sw = max(self.params.current_walk_kn_per_sqrt_h, 1e-3)
+        span_h = max(span_s / S_PER_H, 0.1)
+        s1, s2 = sw / math.sqrt(span_h), 4.0 * sw / span_h ** 1.5
+        return np.array([1.0 / s1 ** 2, 1.0 / s1 ** 2, 1.0 / s2 ** 2, 1.0 / s2 ** 2])  # c1e, c1n, c2e, c2n
+
     def _block_weights(self, blocks: list[Block], k: float) -> np.ndarray:
         """1 / (nominal variance per axis of each block's triangle), with the effective sample count."""
         p = self.params
         out = np.empty(len(blocks))
         for i, b in enumerate(blocks):
-            per_fix = (p.gnss_velocity_sigma_kn ** 2 + k * k * p.log_sigma_kn ** 2
-                       + (k * b.speed_kn * math.radians(p.heading_sigma_deg)) ** 2)     # one fix, per axis (about)
-            n_eff = max(1.0, min(b.fixes, p.calibration_block_s / (2.0 * p.noise_correlation_s)))  # N_eff = T / 2 tau
-            out[i] = n_eff / per_fix
+            span = max(p.calibration_block_s, b.fixes * 1e-3)
+            ks = k * b.speed_kn
+            # the mean of n fixes: the independent part / n; a Gauss-Markov part sigma^2 2 tau / T (N_eff = T / 2 tau)
+            white = (p.gnss_velocity_sigma_kn ** 2 + k * k * p.log_sigma_kn ** 2
+                     + (ks * math.radians(p.heading_sigma_deg)) ** 2) / b.fixes
+            corr = (k * k * p.log_correlated_sigma_kn ** 2 * min(1.0, 2.0 * p.noise_correlation_s / span)
+                    + (ks * math.radians(p.heading_correlated_sigma_deg)) ** 2
+                    * min(1.0, 2.0 * p.heading_correlation_s / span))
+            out[i] = 1.0 / (white + corr)                                   # per axis (about: along and across mixed)
         return out

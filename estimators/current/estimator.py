@@ -73,7 +73,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.t_filter: float | None = None
         self.t_prev_gv: float | None = None
         self.q_inflation = 1.0
-        self.nis_avg = 2.0
+        self.cusum = 0.0  # the change detector's cumulative sum (see _adapt)
         self.consecutive_rejects = 0
         self.last_report: FusionReport | None = None
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
@@ -212,7 +212,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.t_filter = t
         self._restart_next = False
         self.consecutive_rejects = 0
-        self.q_inflation, self.nis_avg = 1.0, 2.0
+        self.q_inflation, self.cusum = 1.0, 0.0
         self.nis_check.reset()
         self._calfit = CalibrationFit(self.params, (k, d, sk, sd))  # blocks of a log trusted again start afresh
         self._record(t, restart=True)
@@ -245,7 +245,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             # the change detector reads the innovation against one fix's own noise (no allowance for
             # correlation: that would blunt it), the gate and the model check the covariance the filter uses
             S_fix = H @ P_prior @ H.T + measurement_cov(p, g, w, k, theta, correlated=False)
-            self._adapt(min(nis2(y, S_fix), 4.0 * self._gate), nis)
+            self._adapt(min(nis2(y, S_fix), self._gate), nis)  # one outlier alone cannot raise the alarm
         if up.reason == "gate":
             self.consecutive_rejects += 1
             if self.consecutive_rejects >= p.rejections_before_reset:

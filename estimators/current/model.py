@@ -114,18 +114,32 @@ def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k:
     # ... and, in a turn fused (longer than the hold), the unknown lag between the GNSS velocity and
     # the compass/log means: rate x lag (not on a steady course: there the rate is the readings' noise)
     lag = p.input_timing_sigma_s if w.turning else 0.0
-    cross = (k * s) ** 2 * (math.radians(p.heading_sigma_deg) ** 2 + (p.leeway_sigma_fraction * lam) ** 2
+    # Each input's noise has a part independent from fix to fix (white noise averaged over the interval,
+    # wave yaw whose swings of a few seconds average out) and a first-order Gauss-Markov part correlated
+    # over tau. Fixes closer than tau are not independent samples of the latter: for the filter, which
+    # averages over minutes, n fixes of it hold the information of n dt / (2 tau) independent ones (the
+    # effective sample count, Bayley & Hammersley 1946; see calibration), so that part of R is x 2 tau / dt:
+    # R then carries the noise's long-run variance (2 tau sigma^2 per second), not its variance per fix.
+    # ``correlated=False``: the variance per fix, what one innovation shows (the change detector's).
+    c_log = effective_factor(p.noise_correlation_s, w.interval_s) if correlated else 1.0
+    c_hdg = effective_factor(p.heading_correlation_s, w.interval_s) if correlated else 1.0
+    heading_var = math.radians(p.heading_sigma_deg) ** 2 + c_hdg * math.radians(p.heading_correlated_sigma_deg) ** 2
+    cross = (k * s) ** 2 * (heading_var + (p.leeway_sigma_fraction * lam) ** 2
                             + math.radians(w.spread_deg) ** 2 + math.radians(w.turn_rate_deg_s * lag) ** 2)
-    along = k ** 2 * (p.log_sigma_kn ** 2 + (w.speed_rate_kn_s * lag) ** 2)
-    # the log's and compass's errors are correlated over noise_correlation_s: fixes closer than that are not
-    # independent samples of them. For the slow states, fusing n such fixes must give the information of
-    # n dt / (2 tau) independent ones (the effective sample count, see calibration): R x 2 tau / dt
-    corr = max(1.0, 2.0 * p.noise_correlation_s / max(w.interval_s, 1e-3)) if correlated else 1.0
-    along, cross = along * corr, cross * corr
+    along = k ** 2 * (p.log_sigma_kn ** 2 + c_log * p.log_correlated_sigma_kn ** 2 + (w.speed_rate_kn_s * lag) ** 2)
     ue, un = math.sin(theta), math.cos(theta)                               # u = u(theta), n = (un, -ue)
     r2 = sg ** 2
     return np.array([[r2 + along * ue * ue + cross * un * un, (along - cross) * ue * un],   # sg^2 I + along u u'
                      [(along - cross) * ue * un, r2 + along * un * un + cross * ue * ue]])  #   + cross n n'
+
+
+def effective_factor(tau_s: float, dt_s: float) -> float:
+    """Variance factor of a Gauss-Markov noise sampled every ``dt_s``: 2 tau / dt, at least 1 (white).
+
+    The long-run variance of a first-order Gauss-Markov process is 2 tau sigma^2 (its autocovariance
+    sigma^2 exp(-|lag| / tau) integrated over all lags); per sample of spacing dt that is sigma^2 2 tau / dt.
+    """
+    return max(1.0, 2.0 * tau_s / max(dt_s, 1e-3))
 
 
 def jacobian(p: CurrentParams, w: WaterInputs, k: float, d: float) -> np.ndarray:

@@ -18,6 +18,13 @@ S_PER_DAY = 86400.0
 IE, IN, IK, ID = 0, 1, 2, 3  # state indices
 
 
+# Names once in [current] and removed; never reused for something else (an old config naming them is
+# refused with the list of keys): calibration_window_s, calibration_speed_change_fraction (the window
+# and the speed-change trigger of a calibration learnt at course changes, replaced by the batch fit).
+# nis_window_fixes, nis_trigger_ratio (the exponentially windowed NIS that triggered adaptation,
+# replaced by the CUSUM change detector: change_reference_nis, change_threshold).
+RETIRED = ("calibration_window_s", "calibration_speed_change_fraction", "nis_window_fixes", "nis_trigger_ratio")
+
 MANOEUVRE_SAMPLE_S = 10.0  # spacing of the course/speed history that detects a manoeuvre
 
 @dataclass(frozen=True)
@@ -33,8 +40,14 @@ class CurrentParams:
     gnss_velocity_sigma_kn: float = param(0.1, "kn", 0.005, 5.0, "GNSS ground-velocity noise per axis")
     low_sog_kn: float = param(0.5, "kn", 0.0, 5.0, "below this SOG the course is poor: velocity variance inflated")
     low_sog_inflation: float = param(4.0, "", 1.0, 100.0, "factor on the GNSS velocity sigma below low_sog_kn")
-    log_sigma_kn: float = param(0.1, "kn", 0.005, 5.0, "noise of the log speed averaged over one fix interval")
-    heading_sigma_deg: float = param(1.5, "deg", 0.05, 30.0, "noise of the heading averaged over one fix interval")
+    log_sigma_kn: float = param(
+        0.1, "kn", 0.005, 5.0, "the log speed's noise over one fix interval that is independent from fix to fix")
+    log_correlated_sigma_kn: float = param(
+        0.11, "kn", 0.0, 5.0, "the log speed's noise correlated over noise_correlation_s (a paddle wheel in a seaway)")
+    heading_sigma_deg: float = param(
+        1.5, "deg", 0.05, 30.0, "the heading's noise over one fix interval that averages out within seconds (white, wave yaw)")
+    heading_correlated_sigma_deg: float = param(
+        0.7, "deg", 0.0, 30.0, "the heading's noise correlated over heading_correlation_s (the compass card's swing)")
     leeway_coefficient: float = param(
         0.0, "deg kn^2 / deg", 0.0, 50.0, "K in leeway = K * heel / STW^2 (rule of thumb); 0: no leeway")
     leeway_sigma_fraction: float = param(0.5, "", 0.0, 2.0, "uncertainty of the leeway angle as a fraction of it")
@@ -52,10 +65,6 @@ class CurrentParams:
         0.75, "deg", 0.01, 45.0, "heading offset counts as calibrated below this sigma (2 sigma: 1.5 deg)")
     min_course_change_deg: float = param(
         60.0, "deg", 10.0, 180.0, "course change that calibrates (quoted in the advice); half of it opens the calibration window")
-    calibration_window_s: float = param(
-        900.0, "s", 60.0, 7200.0, "no longer used (the calibration fit decides); kept so older configs load")
-    calibration_speed_change_fraction: float = param(
-        0.3, "", 0.05, 1.0, "no longer used (the calibration fit decides); kept so older configs load")
     calibration_block_s: float = param(60.0, "s", 10.0, 900.0, "steady sailing is averaged over blocks this long for the calibration fit")
     calibration_fit_window_h: float = param(3.0, "h", 0.5, 24.0, "the calibration fit uses the steady blocks of this many hours")
     calibration_min_spread_deg: float = param(
@@ -64,14 +73,18 @@ class CurrentParams:
     calibration_fit_probability: float = param(
         0.9995, "", 0.9, 0.999999, "chi-square gate between a calibration fit and the filter's calibration")
     noise_correlation_s: float = param(
-        3.0, "s", 0.0, 120.0, "correlation time of the log's and compass's noise (effective sample count of a block)")
+        3.0, "s", 0.0, 120.0, "correlation time of the log's correlated noise (effective sample count)")
+    heading_correlation_s: float = param(
+        5.0, "s", 0.0, 120.0, "correlation time of the heading's correlated noise (effective sample count)")
     nis_check_fixes: int = param(120, "fixes", 10, 10000, "window of the NIS consistency test that decides 'degraded'")
     nis_check_probability: float = param(0.999, "", 0.9, 0.999999, "two-sided probability of that test's bounds")
     gate_probability: float = param(0.9995, "", 0.9, 0.999999, "chi-square gate on the ground-velocity innovation")
     rejections_before_reset: int = param(8, "fixes", 1, 1000, "a run of this many rejections inflates and accepts")
     reset_current_sigma_kn: float = param(1.0, "kn", 0.05, 10.0, "current sigma added per axis on such a reset")
-    nis_window_fixes: float = param(10.0, "fixes", 2.0, 1000.0, "time constant of the NIS average that drives adaptation")
-    nis_trigger_ratio: float = param(2.0, "", 1.1, 20.0, "average NIS above this times its expectation (2) inflates Q")
+    change_reference_nis: float = param(
+        2.0, "", 0.1, 50.0, "reference value nu of the CUSUM change detector: NIS above 2 + nu piles up")
+    change_threshold: float = param(
+        30.0, "", 1.0, 1000.0, "CUSUM threshold h: above it the current's process noise is inflated (false alarm about every exp(0.4 h) fixes)")
     q_inflation_step: float = param(2.0, "", 1.01, 100.0, "factor on the current's process noise per fix while triggered")
     q_inflation_decay: float = param(0.9, "", 0.1, 1.0, "factor per fix back towards 1 once the NIS is normal")
     q_inflation_max: float = param(400.0, "", 1.0, 1e6, "largest factor on the current's process noise")
