@@ -32,7 +32,7 @@ class CurrentParams:
     """Parameters of the current estimator ([current] in the config)."""
 
     current_walk_kn_per_sqrt_h: float = param(
-        0.4, "kn/sqrt(h)", 0.0, 10.0, "how fast the current may change (random walk, per axis): tidal streams over hours")
+        0.25, "kn/sqrt(h)", 0.0, 10.0, "how fast the current may change (random walk, per axis): a 3-kn tidal stream turning, within 1 sigma over the filter's memory")
     stw_scale_walk_per_sqrt_h: float = param(
         0.003, "1/sqrt(h)", 0.0, 0.5, "how fast the log's scale may drift (fouling)")
     heading_offset_walk_deg_per_sqrt_h: float = param(
@@ -96,7 +96,7 @@ class CurrentParams:
         2.0, "deg/s", 0.2, 30.0, "a heading rate above this (or a manoeuvre) holds the filter: prediction only")
     turn_hold_max_s: float = param(60.0, "s", 0.0, 600.0, "longest hold through one turn; a longer one is fused")
     jacobian_smoothing_s: float = param(
-        30.0, "s", 0.0, 600.0, "time constant of the low-passed log speed and heading used in the Jacobian")
+        120.0, "s", 0.0, 600.0, "time constant of the low-passed log speed and heading used in the Jacobian")
     manoeuvre_heading_deg: float = param(8.0, "deg", 0.5, 90.0, "a heading change beyond this is a manoeuvre (Jacobian follows)")
     manoeuvre_speed_kn: float = param(0.5, "kn", 0.05, 10.0, "a log speed change beyond this is a manoeuvre")
     stale_s: float = param(5.0, "s", 0.5, 600.0, "an input older than this makes the estimate degraded")
