@@ -99,11 +99,13 @@ def test_nees_of_the_current_under_correlated_noise_is_near_its_dimension():
         nees_by_time.append(row[:70])
     nees = np.array([r for r in nees_by_time if len(r) == 70])
     # THEN the run-averaged NEES (2 states) is rarely above the 95 % chi-square band (over-confidence, the
-    # dangerous failure), and on the whole neither over-confident nor useless. Measured: a mean of about
-    # 0.85, i.e. the published sigma is about 1.5 x the error here: conservative (the correlated-noise
-    # allowance in R, tuned so that the ordinary passage is not over-confident); see the README's figures.
+    # dangerous failure), and on the whole neither over-confident nor useless. On a stream that turns
+    # more slowly than the model's walk the expectation is about half the dimension, not 2: a filter
+    # allowing a change that does not happen carries error variance sqrt(qR)/2 against its covariance
+    # sqrt(qR) (steady-state random walk). Measured: a mean of 0.95, with R from the sensor model's
+    # independent and correlated parts (it was 0.85 with the compass's wave yaw counted as correlated).
     avg = nees.mean(axis=0)
     n = nees.shape[0]
     hi = chi2.ppf(0.975, 2 * n) / n
     assert np.mean(avg > hi) <= 0.10, (avg.round(2), hi)
-    assert 0.5 < avg.mean() < 2.6, avg.mean()
+    assert 0.75 < avg.mean() < 2.6, avg.mean()  # about 1 expected (above), 2 at most
