@@ -12,10 +12,24 @@ degrees true):
 - *wind over ground*: ``air/ground = apparent + boat/ground``
   (= air/water + current, since ``boat/ground = boat/water + current``).
 The boat's velocity through the water is ``stw_scale x log`` along
-``heading + heading_offset`` (the calibration the current estimator has
-learnt, read from its publication, never by importing it; leeway is not
-added: a few degrees at most under sail); its velocity over ground is the
-GNSS SOG/COG when fresh, else the water velocity plus the current.
+``heading + heading_offset + leeway`` (the calibration the current estimator
+has learnt, read from its publication, never by importing it), the same water
+track as the current estimator's triangle ``g = c + k s u(psi + d + lambda)``;
+its velocity over ground is the GNSS SOG/COG when fresh, else the water
+velocity plus the current.
+
+Leeway (``lambda``): the hull slides to leeward, so the water track is turned
+from the heading by a few degrees under sail. offwatch cannot measure it; it
+takes the same rule of thumb as the current estimator, ``lambda = K heel /
+STW^2`` with the heel of the interval (XDR attitude), from the one place the
+boat's hull is described, ``[current] leeway_coefficient`` (with its
+``leeway_max_deg`` and ``leeway_min_stw_kn``; ``estimators.current.leeway_deg``).
+By default K = 0: no leeway, and the frame of "true wind over water" is then
+the one along the heading; what that leaves out is ``STW sin(lambda)`` of the
+boat's velocity across the heading, which goes straight into the true wind:
+5 degrees at 6.5 kn is 0.57 kn, mostly along the wind on a reach (its speed),
+across it close-hauled and on a run (its direction). Published as
+``leeway_deg`` (the interval's leeway used, 0 without a coefficient or a heel).
 
 Averaging: the vane sits on a yawing, rolling hull. Each apparent wind sample
 is turned into the earth frame with the heading of its own moment (so the
@@ -45,6 +59,19 @@ period of the wind sea's band (and a swell: from the config, or as the crew repo
 on ``<prefix>/swell``, see ``daemon.intake.swell``) the factors
 are computed on the current component along that wave's travel; the published
 factors are those of the worst (steepest) period not blocked.
+
+Near blocking, linear theory's factors grow without bound (the energy piles up
+as the group speed over the ground falls to zero), a figure no sea shows: the
+waves break first. So ``height_factor``/``steepness_factor`` are published as
+linear theory gives them (the interface's fields) and beside them, bounded at
+breaking, ``bounded_height_factor``/``bounded_steepness_factor``: the factors
+at which the worst period's highest waves (``highest_wave_factor`` x the wind
+sea's Hs, the only height offwatch knows, on a still-water wavelength
+``L0(T)``) reach Michell's 1/7, ``steepness <= (1/7) / (2 Hs / L0(T))``,
+``height = steepness x length_factor``. ``near_blocking`` is true where the
+bound bites: the worst period's waves break on the current rather than grow.
+The caution, the watch view and the report judge by the wind sea's peak
+period (``peak_*``), never by the worst period's unbounded figures.
 
 ``wind_against_current`` (a caution): the wind sea's significant height and
 peak period from the wind (Pierson–Moskowitz, or JONSWAP with a fetch), made
@@ -77,10 +104,11 @@ from typing import Any
 
 from estimators.angles import KN_TO_MPS, from_east_north, to_east_north, wrap_180, wrap_360
 from estimators.base import CAUTION, Condition, Context, EstimatorBase, Output, Publication
+from estimators.current import CurrentParams, leeway_deg
 from estimators.params import check, param
 from estimators.samples import (
-    AirTemperature, ApparentWind, Depth, Fix, GroundVelocity, Heading, Sample, SeaTemperature, WaterSpeed,
-    WaterWind,
+    AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Heading, Sample, SeaTemperature,
+    WaterSpeed, WaterWind,
 )
 from estimators.thresholds import Hysteresis
 from estimators.wording import fixed
@@ -157,6 +185,7 @@ class Boat:
     ground: tuple[float, float] | None
     stw_scale: float
     heading_offset_deg: float
+    leeway_deg: float = 0.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -206,8 +235,11 @@ class SeaStateEstimator(EstimatorBase):
     name = "sea_state"
     accepts = (Fix, GroundVelocity, ApparentWind, WaterWind, Depth, AirTemperature, SeaTemperature)
 
-    def __init__(self, params: SeaStateParams | None = None) -> None:
+    def __init__(self, params: SeaStateParams | None = None, hull: CurrentParams | None = None) -> None:
+        """``hull``: the [current] section, whose leeway rule (``leeway_coefficient``...) describes the hull."""
         self.params = p = params or SeaStateParams()
+        self.hull = hull or CurrentParams()
+        self._leeway = 0.0  # the last interval's leeway, deg
         self._epochs: deque[WindEpoch] = deque()
         self._gust_speeds: deque[tuple[float, float]] = deque()  # (t, 3-s mean speed), descending speeds
         self._t_epoch: float | None = None
@@ -292,8 +324,11 @@ class SeaStateEstimator(EstimatorBase):
                            [to_east_north(1.0, heads[-1].true_deg + d)])
             in_interval = [w.speed_kn for w in logs if w.t_s > t0] or [logs[-1].speed_kn]
             stw = k * sum(in_interval) / len(in_interval)  # true STW = stw_scale x log
-            norm = math.hypot(ue, un) or 1.0
-            water = (stw * ue / norm, stw * un / norm)
+            heels = [a.heel_deg for a in hist.between(Attitude, t0, t1) if a.heel_deg is not None]
+            lam = leeway_deg(self.hull, sum(heels) / len(heels) if heels else None, stw)
+            _, track = from_east_north(ue, un)
+            water = to_east_north(stw, track + lam)  # along the water track: heading + offset + leeway
+            self._leeway = lam
         ground = None
         if ground_sample is not None and ground_sample.sog_kn is not None and ground_sample.cog_deg is not None:
             ground = to_east_north(ground_sample.sog_kn, ground_sample.cog_deg)
@@ -399,6 +434,7 @@ class SeaStateEstimator(EstimatorBase):
             "wind_mean_s": p.mean_window_s,
             "depth_m": depth_m,
             "depth_age_s": depth_age,
+            "leeway_deg": self._leeway,
         }
         air, sea = self._temperatures(t, ctx)
         payload["air_temp_c"] = air
@@ -425,6 +461,7 @@ class SeaStateEstimator(EstimatorBase):
                  "wind_sea_height_m": None, "wind_sea_period_s": None, "wind_sea_fully_developed": None,
                  "peak_height_factor": None, "peak_length_factor": None, "peak_steepness_factor": None,
                  "steepened_height_m": None, "breaking_fraction": None, "peak_blocked": None,
+                 "bounded_height_factor": None, "bounded_steepness_factor": None, "near_blocking": None,
                  "depth_used_m": depth_m}
         if not _usable(current):
             return empty
@@ -437,6 +474,7 @@ class SeaStateEstimator(EstimatorBase):
             runs.append(wave_on_current(self._swell[0], -_along(c, self._swell[1]) * KN_TO_MPS, depth_m))
         free = [r for r in runs if not r.blocked]
         worst = max(free, key=lambda r: r.steepness_factor) if free else None
+        bounded = _bounded_at_breaking(worst, p.highest_wave_factor * sea.significant_height_m, depth_m)
         peak = wave_on_current(sea.peak_period_s, -opposing * KN_TO_MPS, depth_m)
         h_peak = sea.significant_height_m * (peak.height_factor or 0.0)
         if peak.blocked:
@@ -451,6 +489,9 @@ class SeaStateEstimator(EstimatorBase):
             "length_factor": worst.length_factor if worst else None,
             "steepness_factor": worst.steepness_factor if worst else None,
             "worst_period_s": worst.period_s if worst else None,
+            "bounded_height_factor": bounded[0],
+            "bounded_steepness_factor": bounded[1],
+            "near_blocking": bounded[2],
             "blocking_period_s": _blocking(opposing, depth_m),
             "blocked_periods_s": [r.period_s for r in runs if r.blocked],
             "periods_s": [r.period_s for r in runs],
@@ -528,6 +569,23 @@ def _against_text(water: MeanWind, w: dict[str, Any]) -> str:
                f"waves near {w['breaking_fraction'] * 100:.0f} % of the breaking steepness 1/7; {stopped_text}")
     return (f"{seen}{sea}. An estimate from linear wave theory and a wind sea estimated from the wind: "
             f"check the sea itself.")
+
+
+def _bounded_at_breaking(worst: WaveOnCurrent | None, highest_m: float, depth_m: float | None
+                         ) -> tuple[float | None, float | None, bool | None]:
+    """(height, steepness factor, near_blocking) of the worst period bounded where its highest waves break.
+
+    Linear theory's steepening has no ceiling near blocking; a wave has: H/L = 1/7 (Michell 1893). The
+    still-water steepness of the highest waves at that period is s0 = H / L0(T), so the steepness factor
+    can reach (1/7) / s0 at most (never below 1: a sea already that steep in still water is not made less
+    so by the bound); the height factor is that steepness times the (bounded) length factor.
+    """
+    if worst is None:
+        return None, None, None
+    s0 = highest_m / wavelength_m(worst.period_s, depth_m)
+    ceiling = max(1.0, BREAKING_STEEPNESS / s0) if s0 > 0.0 else math.inf
+    steep = min(worst.steepness_factor, ceiling)
+    return steep * worst.length_factor, steep, worst.steepness_factor > ceiling  # height = steepness x length
 
 
 def _usable(current: dict[str, Any] | None) -> bool:
