@@ -55,8 +55,8 @@ used for the waves while younger than ``depth_max_age_s`` (else deep water).
 Waves against the current (see ``estimators.waves`` for the physics): the wind
 sea travels downwind of the true wind over water, so the current opposes it
 by ``opposing = current . u(wind from)`` (signed, positive against). For each
-period of the wind sea's band (and a swell: from the config, or as the crew reports it
-on ``<prefix>/swell``, see ``daemon.intake.swell``) the factors
+period of the wind sea's band (and a swell: from the config, or a ``Swell`` sample:
+what the crew reports on ``<prefix>/swell``, see ``daemon.intake.swell``) the factors
 are computed on the current component along that wave's travel; the published
 factors are those of the worst (steepest) period not blocked.
 
@@ -107,7 +107,7 @@ from estimators.base import CAUTION, Condition, Context, EstimatorBase, Output, 
 from estimators.current import CurrentParams, leeway_deg
 from estimators.params import check, param
 from estimators.samples import (
-    AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Heading, Sample, SeaTemperature,
+    AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Heading, Sample, SeaTemperature, Swell,
     WaterSpeed, WaterWind,
 )
 from estimators.thresholds import Hysteresis
@@ -233,7 +233,7 @@ class SeaStateEstimator(EstimatorBase):
     """Publishes ``sea_state``; raises ``wind_against_current`` and ``unstable_air``."""
 
     name = "sea_state"
-    accepts = (Fix, GroundVelocity, ApparentWind, WaterWind, Depth, AirTemperature, SeaTemperature)
+    accepts = (Fix, GroundVelocity, ApparentWind, WaterWind, Depth, AirTemperature, SeaTemperature, Swell)
 
     def __init__(self, params: SeaStateParams | None = None, hull: CurrentParams | None = None) -> None:
         """``hull``: the [current] section, whose leeway rule (``leeway_coefficient``...) describes the hull."""
@@ -253,15 +253,14 @@ class SeaStateEstimator(EstimatorBase):
 
     # -- the protocol ------------------------------------------------------------------------
 
-    def set_swell(self, period_s: float | None, from_deg: float | None) -> None:
-        """A swell reported by the crew (s, deg true); None: back to the config's swell (or none)."""
-        p = self.params
-        if period_s is not None and from_deg is not None:
-            self._swell = (period_s, from_deg)
-        else:
-            self._swell = (p.swell_period_s, p.swell_from_deg) if p.swell_period_s > 0 else None
-
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
+        if isinstance(sample, Swell):  # the crew's report; no period: back to the config's swell (or none)
+            p = self.params
+            if sample.period_s is not None and sample.from_deg is not None:
+                self._swell = (sample.period_s, sample.from_deg)
+            else:
+                self._swell = (p.swell_period_s, p.swell_from_deg) if p.swell_period_s > 0 else None
+            return ()
         if isinstance(sample, Depth):
             self._depth = Depth(sample.t_s, sample.depth_m + self.params.transducer_depth_m)
             return ()
