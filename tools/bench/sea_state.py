@@ -186,9 +186,10 @@ def _row(label: str, runs: list[dict[str, Any]], seeds: int) -> str:
     delays = [r["caution_after_entry_s"] / 60.0 for r in runs if r["cautions"] and r["caution_after_entry_s"] is not None]
     with_caution = sum(1 for r in runs if r["cautions"])
     delay = f"{statistics.median(delays):.1f} (max {max(delays):.1f})" if delays else "none"
+    band = f"{_q(agg['dir_band'], .5):.1f} / {_q(agg['spd_band'], .5):.2f}" if agg["dir_band"] else "–"  # no band
     return (f"| {label} | {_q(agg['dir'], .5):.1f} / {_q(agg['dir'], .95):.1f} | {_q(agg['spd'], .5):.2f} / "
             f"{_q(agg['spd'], .95):.2f} | {_q(agg['gust'], .5):.2f} / {_q(agg['gust'], .95):.2f} | "
-            f"{_q(agg['dir_band'], .5):.1f} / {_q(agg['spd_band'], .5):.2f} | "
+            f"{band} | "
             f"{_q(agg['inst_dir'], .5):.1f} / {_q(agg['inst_spd'], .5):.2f} | "
             f"{_q(agg['opp'], .5):.2f} / {_q(agg['opp'], .95):.2f} | {delay} | {with_caution}/{seeds} |")
 
