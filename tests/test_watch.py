@@ -288,7 +288,7 @@ def test_a_payload_dated_in_the_future_does_not_age_every_true_value():
 
 
 def sea_state_line(m: WatchModel) -> str:
-    return next(r.plain for r in online_screen(m)._lines(100, 24, NOW) if r.plain.startswith("Sea state"))
+    return next(r.plain for r in online_screen(m).styled_lines(100, 24, NOW) if r.plain.startswith("Sea state"))
 
 
 def test_near_blocking_the_sea_state_line_shows_the_peak_factors_and_where_waves_stop():
