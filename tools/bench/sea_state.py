@@ -1,6 +1,6 @@
 """Benchmark of true wind, the opposing current and the wind_against_current caution.
 
-``python -m tools.bench.sea_state [--seeds N]``
+``python -m tools.bench.sea_state [--seeds N] [--leeway K]``
 
 Runs the three wind-over-current scenarios of tools.simulator (a reach across
 a 4.5-kn current band with the wind against it, with it, and no band) through
@@ -29,6 +29,9 @@ learning the log and compass), and the bound (``true calibration``): the same
 sea-state estimator fed the simulator's true log scale, compass offset and
 current in place of the current estimator's publication, so the row says how
 far offwatch is from the best its wind averaging can do.
+
+``--leeway K`` runs the wind-against reach instead with a hull that makes
+leeway (K heel / STW^2), offwatch not told and told that K.
 
 Prints a markdown table. Timing belongs here, never in the tests.
 """
