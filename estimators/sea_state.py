@@ -64,14 +64,16 @@ Near blocking, linear theory's factors grow without bound (the energy piles up
 as the group speed over the ground falls to zero), a figure no sea shows: the
 waves break first. So ``height_factor``/``steepness_factor`` are published as
 linear theory gives them (the interface's fields) and beside them, bounded at
-breaking, ``bounded_height_factor``/``bounded_steepness_factor``: the factors
-at which the worst period's highest waves (``highest_wave_factor`` x the wind
-sea's Hs, the only height offwatch knows, on a still-water wavelength
-``L0(T)``) reach Michell's 1/7, ``steepness <= (1/7) / (2 Hs / L0(T))``,
+breaking, ``bounded_height_factor``/``bounded_steepness_factor`` (and the
+peak's, ``peak_bounded_*``): the steepness factor stops where the wind sea's
+highest waves (``highest_wave_factor`` x Hs on the peak's still-water
+wavelength, the one steepness offwatch estimates) reach Michell's 1/7,
+``steepness <= (1/7) / (2 Hs / L0(Tp))`` (about 2.8 for a fully developed sea),
 ``height = steepness x length_factor``. ``near_blocking`` is true where the
-bound bites: the worst period's waves break on the current rather than grow.
-The caution, the watch view and the report judge by the wind sea's peak
-period (``peak_*``), never by the worst period's unbounded figures.
+bound bites the worst period: its waves break on the current rather than grow.
+The caution judges by the wind sea's peak period (``breaking_fraction``, which
+passes 1 where linear theory would carry the peak's waves past breaking); the
+watch view shows the peak's bounded factors, never the worst period's unbounded ones.
 
 ``wind_against_current`` (a caution): the wind sea's significant height and
 peak period from the wind (Pierson–Moskowitz, or JONSWAP with a fetch), made
@@ -461,6 +463,7 @@ class SeaStateEstimator(EstimatorBase):
                  "peak_height_factor": None, "peak_length_factor": None, "peak_steepness_factor": None,
                  "steepened_height_m": None, "breaking_fraction": None, "peak_blocked": None,
                  "bounded_height_factor": None, "bounded_steepness_factor": None, "near_blocking": None,
+                 "peak_bounded_height_factor": None, "peak_bounded_steepness_factor": None,
                  "depth_used_m": depth_m}
         if not _usable(current):
             return empty
@@ -473,8 +476,9 @@ class SeaStateEstimator(EstimatorBase):
             runs.append(wave_on_current(self._swell[0], -_along(c, self._swell[1]) * KN_TO_MPS, depth_m))
         free = [r for r in runs if not r.blocked]
         worst = max(free, key=lambda r: r.steepness_factor) if free else None
-        bounded = _bounded_at_breaking(worst, p.highest_wave_factor * sea.significant_height_m, depth_m)
         peak = wave_on_current(sea.peak_period_s, -opposing * KN_TO_MPS, depth_m)
+        ceiling = _breaking_ceiling(p.highest_wave_factor * sea.significant_height_m, sea.peak_period_s, depth_m)
+        bounded, peak_bounded = _bounded(worst, ceiling), _bounded(peak, ceiling)
         h_peak = sea.significant_height_m * (peak.height_factor or 0.0)
         if peak.blocked:
             fraction = None
@@ -502,6 +506,8 @@ class SeaStateEstimator(EstimatorBase):
             "peak_height_factor": peak.height_factor,
             "peak_length_factor": peak.length_factor,
             "peak_steepness_factor": peak.steepness_factor,
+            "peak_bounded_height_factor": peak_bounded[0],
+            "peak_bounded_steepness_factor": peak_bounded[1],
             "steepened_height_m": h_peak if not peak.blocked else None,
             "breaking_fraction": fraction,
             "peak_blocked": peak.blocked,
@@ -530,8 +536,13 @@ class SeaStateEstimator(EstimatorBase):
                               "Wind and current no longer stack up the sea (estimate).", {})]
         # said again while it lasts: the alert's figures follow the sea (the alert manager rate-limits the news)
         return [Condition(t, "wind_against_current", CAUTION, True, _against_text(water, waves),
-                          {k: waves[k] for k in ("opposing_current_kn", "height_factor", "length_factor",
-                                                 "steepness_factor", "peak_steepness_factor", "breaking_fraction",
+                          # the peak's factors first (what the text says); the worst period's beside them,
+                          # linear theory's and bounded at breaking, with near_blocking (a display shows those)
+                          {k: waves[k] for k in ("opposing_current_kn", "peak_height_factor", "peak_length_factor",
+                                                 "peak_steepness_factor", "peak_bounded_height_factor",
+                                                 "peak_bounded_steepness_factor", "height_factor", "length_factor",
+                                                 "steepness_factor", "bounded_height_factor",
+                                                 "bounded_steepness_factor", "near_blocking", "breaking_fraction",
                                                  "wind_sea_height_m", "wind_sea_period_s", "blocking_period_s")}
                           | {"true_wind_kn": round(water.speed_kn, 1), "true_wind_from_deg": round(water.from_deg)})]
 
@@ -570,21 +581,27 @@ def _against_text(water: MeanWind, w: dict[str, Any]) -> str:
             f"check the sea itself.")
 
 
-def _bounded_at_breaking(worst: WaveOnCurrent | None, highest_m: float, depth_m: float | None
-                         ) -> tuple[float | None, float | None, bool | None]:
-    """(height, steepness factor, near_blocking) of the worst period bounded where its highest waves break.
+def _breaking_ceiling(highest_m: float, peak_period_s: float, depth_m: float | None) -> float:
+    """The largest steepness factor a wave of the wind sea can reach before it breaks.
 
     Linear theory's steepening has no ceiling near blocking; a wave has: H/L = 1/7 (Michell 1893). The
-    still-water steepness of the highest waves at that period is s0 = H / L0(T), so the steepness factor
-    can reach (1/7) / s0 at most (never below 1: a sea already that steep in still water is not made less
-    so by the bound); the height factor is that steepness times the (bounded) length factor.
+    wind sea's highest waves stand at s0 = H / L0(Tp) in still water (the one steepness offwatch
+    estimates; about 0.36 of the limit in a fully developed sea), so a factor of (1/7) / s0 brings them
+    to breaking: never below 1 (a sea already that steep is not made less so by the bound). The same
+    ceiling for every period, so a bounded worst period is never below the bounded peak.
     """
-    if worst is None:
+    s0 = highest_m / wavelength_m(peak_period_s, depth_m)
+    return max(1.0, BREAKING_STEEPNESS / s0) if s0 > 0.0 else math.inf
+
+
+def _bounded(run: WaveOnCurrent | None, ceiling: float) -> tuple[float | None, float | None, bool | None]:
+    """(height, steepness factor, beyond breaking) of one period, its steepness factor capped at the
+    ceiling; the height factor is that steepness times the length factor (which stays bounded: deep
+    water at blocking 1/4), since steepness = height / length."""
+    if run is None or run.blocked:
         return None, None, None
-    s0 = highest_m / wavelength_m(worst.period_s, depth_m)
-    ceiling = max(1.0, BREAKING_STEEPNESS / s0) if s0 > 0.0 else math.inf
-    steep = min(worst.steepness_factor, ceiling)
-    return steep * worst.length_factor, steep, worst.steepness_factor > ceiling  # height = steepness x length
+    steep = min(run.steepness_factor, ceiling)
+    return steep * run.length_factor, steep, run.steepness_factor > ceiling
 
 
 def _usable(current: dict[str, Any] | None) -> bool:

@@ -333,14 +333,26 @@ def test_near_blocking_the_worst_period_is_bounded_at_breaking():
     from estimators.waves import BREAKING_STEEPNESS, wavelength_m
 
     samples = boat_samples(300, 90.0, 6.0, 0.0, 20.0, current=(0.0, 4.5))
-    p = sea_states(drive([FixedCurrent(0.0, 4.5), SeaStateEstimator()], samples))[-1].payload
+    outs = drive([FixedCurrent(0.0, 4.5), SeaStateEstimator()], samples)
+    p = sea_states(outs)[-1].payload
     # THEN linear theory's factor for the worst free period runs away (published as it is) ...
     assert p["steepness_factor"] > 3.0 and p["near_blocking"] is True
-    # ... and the bounded one stops where its highest waves (2 Hs) reach Michell's (1893) H/L = 1/7
-    s0 = 2.0 * p["wind_sea_height_m"] / wavelength_m(p["worst_period_s"])
+    # ... and the bounded one stops where the sea's highest waves (2 Hs on the peak's still-water
+    # wavelength) reach Michell's (1893) H/L = 1/7
+    s0 = 2.0 * p["wind_sea_height_m"] / wavelength_m(p["wind_sea_period_s"])
     assert p["bounded_steepness_factor"] * s0 == pytest.approx(BREAKING_STEEPNESS, rel=1e-6)
     assert p["bounded_height_factor"] == pytest.approx(p["bounded_steepness_factor"] * p["length_factor"])
     assert p["bounded_height_factor"] < p["height_factor"]
+    # the peak here is carried past breaking too (breaking_fraction over 1): its bounded factors stop at the
+    # same ceiling, so the bounded worst period is never below the bounded peak
+    assert p["breaking_fraction"] > 1.0
+    assert p["peak_bounded_steepness_factor"] == pytest.approx(p["bounded_steepness_factor"])
+    assert p["peak_bounded_height_factor"] == pytest.approx(p["peak_bounded_steepness_factor"] * p["peak_length_factor"])
+    # ... and the caution carries both, its text the peak's linear figures and the fraction
+    cautions = [c for c in conditions(outs, "wind_against_current") if c.active]
+    v = cautions[-1].values
+    assert v["near_blocking"] is True and v["peak_bounded_steepness_factor"] < v["peak_steepness_factor"]
+    assert f"steepness x{v['peak_steepness_factor']:.1f}" in cautions[-1].text
     # AND with the current along the wind instead, nothing to bound: the same figures, not near blocking
     calm = sea_states(drive([FixedCurrent(180.0, 4.5), SeaStateEstimator()],
                             boat_samples(300, 90.0, 6.0, 0.0, 20.0, current=(180.0, 4.5))))[-1].payload
