@@ -169,3 +169,13 @@ def test_swell_over_a_real_broker(mosquitto):
             sink.close()
     assert got[0] == b'{"period_s": 11, "from_deg": 250}'
     assert sink.counters["swell_accepted"] == 2 and sink.counters["swell_ignored"] == 1
+
+
+def test_a_recorded_report_that_no_longer_parses_is_counted_and_gives_no_reading():
+    # a recording is data too: a damaged line (hand-edited, or from a future version) is never fatal
+    from daemon.intake.swell import replayed
+
+    good = replayed(RawLine(SWELL_SOURCE, T0, T0, '{"period_s":11.0,"from_deg":250.0}'))
+    assert [type(i).__name__ for i in good] == ["RawLine", "Reading"] and good[1].sample == Swell(T0, 11.0, 250.0)
+    bad = replayed(RawLine(SWELL_SOURCE, T0, T0, '{"period_s":"eleven"}'))
+    assert len(bad) == 1 and bad[0].counts == (("unparseable", 1),)
