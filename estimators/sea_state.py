@@ -187,7 +187,6 @@ class Boat:
     ground: tuple[float, float] | None
     stw_scale: float
     heading_offset_deg: float
-    leeway_deg: float = 0.0
 
 
 @dataclass(frozen=True, slots=True)
