@@ -228,6 +228,11 @@ class Control:
         while a jump of the current piles up within a few fixes. While the alarm
         lasts the current's process noise grows by ``q_inflation_step`` per fix; it
         decays back by ``q_inflation_decay`` per fix once the sum has fallen below h.
+        The decay is slow (minutes): an edge keeps rising after the alarm, and the
+        detector (its reference nu) does not see the lag of a few tenths of a knot
+        that a quickly decaying Q would leave behind (the demo's 0.8-nm edge: a
+        second alarm and a 0.35-kn lag over the next five minutes with a decay of
+        0.9 per fix). While Q is inflated the quality is 'degraded' (publication).
         """
         p = self.params
         self.nis_check.add(nis)

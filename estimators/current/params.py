@@ -86,7 +86,9 @@ class CurrentParams:
     change_threshold: float = param(
         30.0, "", 1.0, 1000.0, "CUSUM threshold h: above it the current's process noise is inflated (false alarm about every exp(0.4 h) fixes)")
     q_inflation_step: float = param(2.0, "", 1.01, 100.0, "factor on the current's process noise per fix while triggered")
-    q_inflation_decay: float = param(0.9, "", 0.1, 1.0, "factor per fix back towards 1 once the NIS is normal")
+    q_inflation_decay: float = param(
+        0.985, "", 0.1, 1.0, "factor per fix back towards 1 once the NIS is normal (0.985: from the largest factor to 1 in about 7 minutes, "
+        "the span of a sharp current edge's rise)")
     q_inflation_max: float = param(400.0, "", 1.0, 1e6, "largest factor on the current's process noise")
     min_fix_interval_s: float = param(0.5, "s", 0.0, 60.0, "a ground velocity closer than this to the last one is a duplicate")
     averaging_window_s: float = param(2.0, "s", 0.1, 60.0, "longest window for the mean heading and log speed before a fix")

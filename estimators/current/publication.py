@@ -30,7 +30,8 @@ class Publisher:
 
     def _quality(self, t: float, sigma_vec: float) -> tuple[str, str]:
         """(quality, why). 'valid' promises: sigma small, fresh inputs, a trusted log, and the filter's
-        innovations over the last ``nis_check_fixes`` as large as its model says (the windowed NIS test)."""
+        innovations over the last ``nis_check_fixes`` as large as its model says (the windowed NIS test), and no
+        change of the current beyond its model still being caught up with (the CUSUM detector's inflation of Q back to 1)."""
         p = self.params
         if self.ekf is None or sigma_vec > p.unavailable_sigma_kn:
             return "unavailable", "no estimate yet" if self.ekf is None else "uncertainty too large"
@@ -43,6 +44,11 @@ class Publisher:
             return "degraded", (f"GNSS, log and compass disagree more than their noise explains: the current may be "
                                 f"changing fast or an instrument misreading (mean NIS {self.nis_check.mean:.1f} over "
                                 f"the last {p.nis_check_fixes} fixes, expected at most {self.nis_check.high:.1f})")
+        if self.q_inflation > 1.0:
+            # the change detector's own evidence: the current changed faster than the model's walk, and the
+            # filter is still catching up with it (at a sharp edge its estimate lags the truth by more than sigma)
+            return "degraded", (f"the current is changing faster than the filter's model allows: its process noise "
+                                f"is raised {self.q_inflation:.0f} x until the innovations settle")
         if sigma_vec > p.valid_sigma_kn:
             return "converging", "uncertainty above the valid threshold"
         return "valid", ""
