@@ -97,6 +97,12 @@ class Control:
         6 kn with 5 % and 3 deg); a Jacobian that wanders with the wave surge and
         the compass swing by 1 % leaves P_c,kd out of step with it and the gain a
         fraction of the conditional one (a jet's edge followed minutes late).
+
+        After a manoeuvre, for ``jacobian_smoothing_s``, the Jacobian follows the
+        readings too: the boat regains the speed a tack cost over a minute or two,
+        and a low-pass restarted at the slowest moment lagged it by half a knot,
+        just when the first fixes on the new heading tell k and d from the current
+        (a beat: the current's sigma halved at once while it stayed 0.4 kn off).
         """
         p = self.params
         he, hn = to_east_north(1.0, w.heading_deg)
@@ -116,11 +122,15 @@ class Control:
         turn = abs(wrap_180(fast_heading - from_east_north(slow[1], slow[2])[1]))
         if turn > p.manoeuvre_heading_deg or abs(fast[0] - slow[0]) > p.manoeuvre_speed_kn:
             slow = now                                                             # a manoeuvre: no lag
+            self._settled_from = t + p.jacobian_smoothing_s
         # this epoch's Jacobian uses the slow value *before* this epoch's readings (in a manoeuvre, the
         # readings): their noise is then independent of the gain and cannot nudge k or d one way
         in_manoeuvre = slow is now
         w.manoeuvring = in_manoeuvre
-        ref = now if in_manoeuvre else self._slow[1:]
+        settling = t < self._settled_from
+        if settling:
+            slow = now   # the speed recovers after a tack: a low-pass restarted at its end would lag it
+        ref = now if (in_manoeuvre or settling) else self._slow[1:]
         w.slow_speed_kn = ref[0]
         w.slow_heading_deg = from_east_north(ref[1], ref[2])[1]
         self._slow, self._fast = (t, *slow), (t, *fast)
@@ -158,16 +168,23 @@ class Control:
         information that separates them from the current comes from the steady
         legs on either side, so the filter carries the current across the turn
         on its random walk. A turn longer than the cap (circling) is fused with
-        rate x lag in R.
+        rate x lag in R. The hold lasts ``turn_settle_s`` beyond the turn: the boat
+        regains the speed a tack cost (on a beat the first fixes after the turn,
+        the log rising 1 kn in 4 s, moved the current 0.3 kn the wrong way just
+        as the new heading halved its sigma: 'valid' and 0.4 kn off).
         """
         p = self.params
         turning = w.manoeuvring or abs(w.turn_rate_deg_s) > p.turn_rate_hold_deg_s
         if not turning:
             self._turn_since = None
+            if t < self._turn_ended + p.turn_settle_s:
+                w.turning = True    # settling: the log speed recovers by a knot in seconds, rate x lag again
+                return True
             return False
         if self._turn_since is None:
             self._turn_since = t
         w.turning = True
+        self._turn_ended = t
         return t - self._turn_since <= p.turn_hold_max_s
 
     def _learn_calibration(self, t: float, g: tuple[float, float], w: WaterInputs, fused: bool) -> None:

@@ -98,6 +98,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._slow: tuple[float, float, float, float] | None = None  # t, speed, heading unit vector (e, n)
         self._fast: tuple[float, float, float, float] | None = None
         self._turn_since: float | None = None
+        self._turn_ended = -math.inf    # the last epoch of a turn (the hold's settling, _turn_hold)
+        self._settled_from = -math.inf  # the Jacobian's low-pass resumes here after a manoeuvre (_slow_inputs)
         self._calfit: CalibrationFit | None = None
         self._cal_gate = chi2_quantile_2dof(self.params.calibration_fit_probability)
         self.cal_health = FusionHealth()  # the calibration fit's fusion step
