@@ -170,3 +170,26 @@ def test_quality_is_degraded_with_a_reason_while_the_innovations_are_larger_than
     noisy = [p for p in qualities[0.4] if p["quality"] == "degraded"]
     assert len(noisy) > 0.8 * len(qualities[0.4])
     assert all("NIS" in p["quality_reason"] for p in noisy)
+
+
+def test_quality_is_degraded_while_the_change_detector_has_raised_the_process_noise():
+    from estimators.runner import run
+    # GIVEN a steady boat (log 5 kn on 090) whose ground speed jumps from 5.5 to 6.3 kn after 20 minutes:
+    # a current of 0.5 kn east becoming 1.3 kn at once, far faster than the model's walk
+    samples = []
+    for i in range(1800):
+        t = 1000.0 + i
+        sog = 5.5 if i < 1200 else 6.3
+        samples += [Heading(t + 0.1, 90.0), WaterSpeed(t + 0.2, 5.0), Fix(t + 0.5, 50.0, -5.0, sog, 90.0, 0.9)]
+    est = CurrentEstimator(CurrentParams())
+    pubs = [(o.t_s, o.payload) for s, outs in run(est, samples) for o in outs if getattr(o, "topic", None) == "current"]
+    before = [p for t, p in pubs if 1600.0 < t < 2200.0]
+    after = [p for t, p in pubs if 2200.0 <= t < 2300.0]
+    # THEN before the jump nothing says the current changes faster than its model
+    assert before and not any(p["q_inflation"] > 1.0 or p["quality"] == "degraded" for p in before)
+    # ... and within 100 s after it the quality is 'degraded', saying why, with the process noise raised
+    raised = [p for p in after if p["quality"] == "degraded" and "changing faster" in p["quality_reason"]]
+    assert raised and all(p["q_inflation"] > 1.0 for p in raised)
+    # ... until the inflation has decayed back to 1 (minutes later), when it no longer says so
+    last = pubs[-1][1]
+    assert last["q_inflation"] == 1.0 and "changing faster" not in last["quality_reason"]
