@@ -191,7 +191,8 @@ def true_wind(apparent_air: tuple[float, float], boat_water: tuple[float, float]
 
 def _mean(vecs: Sequence[tuple[float, float]]) -> tuple[float, float]:
     n = len(vecs)
-    return sum(v[0] for v in vecs) / n, sum(v[1] for v in vecs) / n
+    # sum() of a list, in order: the same figures as a generator's, without a frame per item
+    return sum([v[0] for v in vecs]) / n, sum([v[1] for v in vecs]) / n
 
 
 def _along(current: tuple[float, float], toward_deg: float) -> float:
@@ -344,7 +345,7 @@ class SeaStateEstimator(EstimatorBase):
         self._epochs.append(epoch)
         while self._epochs and self._epochs[0].t_s < epoch.t_s - max(p.mean_window_s, GUST_AVERAGE_S):
             self._epochs.popleft()
-        recent = [e.water for e in self._epochs if e.t_s > epoch.t_s - GUST_AVERAGE_S]
+        recent = self._recent_water(epoch.t_s - GUST_AVERAGE_S)
         speed = math.hypot(*_mean(recent))
         q = self._gust_speeds
         while q and q[-1][1] <= speed:  # a monotone queue: the front is the window's maximum
@@ -353,23 +354,41 @@ class SeaStateEstimator(EstimatorBase):
         while q[0][0] < epoch.t_s - p.gust_window_s:
             q.popleft()
 
-    def _mean_wind(self, t: float, ground: bool) -> MeanWind | None:
+    def _recent_water(self, after_s: float) -> list[tuple[float, float]]:
+        """The water winds of the epochs after ``after_s``, oldest first (epochs come in time order,
+        so they are the deque's tail: walked from the newest instead of over the whole window)."""
+        recent = []
+        for e in reversed(self._epochs):
+            if e.t_s <= after_s:
+                break
+            recent.append(e.water)
+        recent.reverse()
+        return recent
+
+    def _ground_wind(self, t: float) -> tuple[float, float] | None:
+        """(from_deg, speed) of the mean wind over ground over the window (its spread is not published)."""
+        after_s = t - self.params.mean_window_s
+        vecs = [e.ground for e in self._epochs if e.t_s > after_s and e.ground is not None]
+        return wind_from(_mean(vecs)) if vecs else None
+
+    def _mean_wind(self, t: float) -> MeanWind | None:
+        """The mean wind over water over the window, with its sigmas."""
         p = self.params
-        vecs = [(e.ground if ground else e.water) for e in self._epochs if e.t_s > t - p.mean_window_s]
-        vecs = [v for v in vecs if v is not None]
+        after_s = t - p.mean_window_s
+        vecs = [e.water for e in self._epochs if e.t_s > after_s]
         if not vecs:
             return None
         me, mn = _mean(vecs)
         from_deg, speed = wind_from((me, mn))
         # the spread along and across the mean, as the sigma of a mean of n_eff independent samples
         ue, un = (me / speed, mn / speed) if speed > 1e-6 else (0.0, 1.0)
-        along = [(v[0] - me) * ue + (v[1] - mn) * un for v in vecs]
-        across = [(v[0] - me) * un - (v[1] - mn) * ue for v in vecs]
+        along = [(x - me) * ue + (y - mn) * un for x, y in vecs]
+        across = [(x - me) * un - (y - mn) * ue for x, y in vecs]
         n = len(vecs)
         span = min(p.mean_window_s, t - self._epochs[0].t_s + 1.0)
         n_eff = max(1.0, min(n, span / p.decorrelation_s))
-        s_along = math.sqrt(sum(a * a for a in along) / max(1, n - 1) / n_eff)
-        s_across = math.sqrt(sum(a * a for a in across) / max(1, n - 1) / n_eff)
+        s_along = math.sqrt(sum([a * a for a in along]) / max(1, n - 1) / n_eff)
+        s_across = math.sqrt(sum([a * a for a in across]) / max(1, n - 1) / n_eff)
         sigma_deg = 180.0 if speed < 1e-6 else min(180.0, math.degrees(math.atan2(s_across, speed)))
         return MeanWind(from_deg, speed, s_along, sigma_deg, n)
 
@@ -378,7 +397,7 @@ class SeaStateEstimator(EstimatorBase):
     def _maybe_publish(self, t: float, ctx: Context) -> list[Output]:
         if self._t_pub is not None and t - self._t_pub < self.params.publish_interval_s:
             return []
-        water = self._mean_wind(t, ground=False)
+        water = self._mean_wind(t)
         if water is None:
             return []
         self._t_pub = t
@@ -386,15 +405,15 @@ class SeaStateEstimator(EstimatorBase):
 
     def _publish(self, t: float, ctx: Context, water: MeanWind) -> list[Output]:
         p = self.params
-        ground = self._mean_wind(t, ground=True)
+        ground = self._ground_wind(t)
         current = self._current(ctx)
         depth_m, depth_age = self._depth_now(t)
         payload: dict[str, Any] = {
             "true_wind_from_deg": water.from_deg, "true_wind_kn": water.speed_kn,
             "true_wind_sigma_deg": water.sigma_deg, "true_wind_sigma_kn": water.sigma_kn,
             "true_wind_gust_kn": self._gust_speeds[0][1] if self._gust_speeds else None,
-            "ground_wind_from_deg": ground.from_deg if ground else None,
-            "ground_wind_kn": ground.speed_kn if ground else None,
+            "ground_wind_from_deg": ground[0] if ground else None,
+            "ground_wind_kn": ground[1] if ground else None,
             "wind_source": self._epochs[-1].source if self._epochs else None,
             "wind_mean_s": p.mean_window_s,
             "depth_m": depth_m,
