@@ -131,8 +131,12 @@ class HeadingIntegrity(EstimatorBase):
         tracks = list(self._tracks)
         before = tracks[-2][1] if len(tracks) >= 2 else None  # the fix before this one's COG
         # the cheapest test first: on a straight leg no earlier fix is a turn away, and the loop ends there
+        fmod = math.fmod
         for i, (t0, cog0, heading0) in enumerate(tracks[:-1]):
-            signed_turn = wrap_180(cog - cog0)
+            d = fmod(cog - cog0 + 180.0, 360.0)  # signed_turn = wrap_180(cog - cog0), written out: the hot loop
+            if d < 0.0:
+                d += 360.0
+            signed_turn = (0.0 if d >= 360.0 else d) - 180.0
             turn_cog = abs(signed_turn)
             if turn_cog < p.turn_deg:
                 continue

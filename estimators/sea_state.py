@@ -71,6 +71,7 @@ from __future__ import annotations
 import bisect
 import math
 from collections import deque
+from itertools import islice
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -210,6 +211,10 @@ class SeaStateEstimator(EstimatorBase):
     def __init__(self, params: SeaStateParams | None = None) -> None:
         self.params = p = params or SeaStateParams()
         self._epochs: deque[WindEpoch] = deque()
+        # the epochs' water and ground winds beside them, in the same order: the window's vectors are a
+        # slice of these (copied in C) rather than a walk over the epochs for each publication
+        self._waters: deque[tuple[float, float]] = deque()
+        self._grounds: deque[tuple[float, float] | None] = deque()
         self._gust_speeds: deque[tuple[float, float]] = deque()  # (t, 3-s mean speed), descending speeds
         self._t_epoch: float | None = None
         self._t_pub: float | None = None
@@ -343,8 +348,12 @@ class SeaStateEstimator(EstimatorBase):
         self.epochs_made += 1
         p = self.params
         self._epochs.append(epoch)
+        self._waters.append(epoch.water)
+        self._grounds.append(epoch.ground)
         while self._epochs and self._epochs[0].t_s < epoch.t_s - max(p.mean_window_s, GUST_AVERAGE_S):
             self._epochs.popleft()
+            self._waters.popleft()
+            self._grounds.popleft()
         recent = self._recent_water(epoch.t_s - GUST_AVERAGE_S)
         speed = math.hypot(*_mean(recent))
         q = self._gust_speeds
@@ -365,17 +374,26 @@ class SeaStateEstimator(EstimatorBase):
         recent.reverse()
         return recent
 
+    def _in_window(self, t: float) -> int:
+        """How many of the oldest epochs are outside the mean window ending at ``t`` (a few at most:
+        the epochs come in time order and are dropped as they leave the window)."""
+        after_s = t - self.params.mean_window_s
+        old = 0
+        for e in self._epochs:
+            if e.t_s > after_s:
+                break
+            old += 1
+        return old
+
     def _ground_wind(self, t: float) -> tuple[float, float] | None:
         """(from_deg, speed) of the mean wind over ground over the window (its spread is not published)."""
-        after_s = t - self.params.mean_window_s
-        vecs = [e.ground for e in self._epochs if e.t_s > after_s and e.ground is not None]
+        vecs = [v for v in islice(self._grounds, self._in_window(t), None) if v is not None]
         return wind_from(_mean(vecs)) if vecs else None
 
     def _mean_wind(self, t: float) -> MeanWind | None:
         """The mean wind over water over the window, with its sigmas."""
         p = self.params
-        after_s = t - p.mean_window_s
-        vecs = [e.water for e in self._epochs if e.t_s > after_s]
+        vecs = list(islice(self._waters, self._in_window(t), None))
         if not vecs:
             return None
         me, mn = _mean(vecs)

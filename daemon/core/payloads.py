@@ -118,8 +118,13 @@ def payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
     """A publication's payload: ``time`` first, then the fields, cleaned."""
     out: dict[str, Any] = {"time": iso_utc(t_s)}
     for k, v in fields.items():
-        if k != "time":
-            out[str(k)] = clean(v, decimals_for(str(k)), 1)
+        if k == "time":
+            continue
+        name = str(k)
+        if type(v) is float:  # clean()'s first case, without the call: most fields are floats
+            out[name] = round(v, decimals_for(name)) + 0.0 if math.isfinite(v) else None
+        else:
+            out[name] = clean(v, decimals_for(name), 1)
     return out
 
 
