@@ -99,18 +99,20 @@ def bracketed_root(f, lo: float, hi: float, xtol: float = 0.0) -> float:
         return lo
     if f_hi == 0.0:
         return hi
-    if (f_lo > 0.0) == (f_hi > 0.0):
+    lo_positive = f_lo > 0.0  # the sign of f at lo: the same at every lo that follows
+    if lo_positive == (f_hi > 0.0):
         raise ValueError(f"no sign change between {lo!r} and {hi!r}")
     for _ in range(200):
         mid = 0.5 * (lo + hi)
         f_mid = f(mid)
         if f_mid == 0.0:
             return mid
-        if (f_mid > 0.0) == (f_lo > 0.0):
-            lo, f_lo = mid, f_mid
+        if (f_mid > 0.0) == lo_positive:
+            lo = mid
         else:
             hi = mid
-        if hi - lo <= max(xtol, 1e-14 * abs(hi)):
+        tol = 1e-14 * abs(hi)  # max(xtol, 1e-14 |hi|), without the call
+        if hi - lo <= (tol if tol > xtol else xtol):
             break
     return 0.5 * (lo + hi)
 
