@@ -228,12 +228,15 @@ PYNMEA2_NAMES = {
     "DBT": {"depth_ft": "depth_feet", "ft_unit": "unit_feet", "depth_m": "depth_meters", "m_unit": "unit_meters",
             "depth_fathoms": "depth_fathoms", "fathoms_unit": "unit_fathoms"},
     "DPT": {"depth_m": "depth", "offset_m": "offset", "max_range_m": "range"},
+    "VDR": {"set_true": "deg_t", "true_mark": "true", "set_magnetic": "deg_m", "magnetic_mark": "magnetic",
+            "drift_kn": "current", "kn_unit": "unit_kn"},
 }
-NOT_IN_PYNMEA2 = {"THS"}  # pynmea2 has no THS class: its layout rests on NMEA 0183 v4.10 alone (from memory)
+# pynmea2 has no THS or ALR class: their layouts rest on NMEA 0183 v4.10 alone (from memory)
+NOT_IN_PYNMEA2 = {"THS", "ALR"}
 
 
 def test_the_layout_table_has_every_hand_parsed_sentence():
-    assert set(LAYOUTS) == set(EXTRACTORS)
+    assert set(LAYOUTS) == set(EXTRACTORS) | {"VDR", "ALR"}  # and the two the NMEA output writes
 
 
 @pytest.mark.parametrize("key", sorted(set(LAYOUTS) - NOT_IN_PYNMEA2))

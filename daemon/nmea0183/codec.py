@@ -71,8 +71,8 @@ _EPOCH_ORDINAL = dt.date(1970, 1, 1).toordinal()
 # Sentence -> its fields' names, in order (NMEA 0183 v4.10, from memory of the standard;
 # tests/test_codec_oracle.py checks every position against pynmea2's own field lists).
 # The one table of where a field stands: the parsers below take fields by these names
-# (``_RMC.status``: positions resolved here, at import) and the simulator places the
-# fields of what it writes by them (``place``). A ``_unit`` or ``_mark`` field is the
+# (``_RMC.status``: positions resolved here, at import); the simulator and the NMEA
+# output place the fields of what they write by them (``place``). A ``_unit`` or ``_mark`` field is the
 # letter beside the value before it (N knots, K km/h, T true, M magnetic or metres, ...).
 LAYOUTS: dict[str, tuple[str, ...]] = {
     "RMC": ("time", "status", "lat", "lat_hemi", "lon", "lon_hemi", "sog_kn", "cog_true", "date",
@@ -102,6 +102,9 @@ LAYOUTS: dict[str, tuple[str, ...]] = {
             "speed_mps", "mps_unit"),
     "DBT": ("depth_ft", "ft_unit", "depth_m", "m_unit", "depth_fathoms", "fathoms_unit"),
     "DPT": ("depth_m", "offset_m", "max_range_m"),  # max_range_m: v3.0+
+    # written only (the NMEA output of daemon/outlets/nmea_tcp.py): the current, and an alert's state
+    "VDR": ("set_true", "true_mark", "set_magnetic", "magnetic_mark", "drift_kn", "kn_unit"),
+    "ALR": ("time", "number", "condition", "acknowledged", "text"),
 }
 
 
