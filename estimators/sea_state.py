@@ -270,12 +270,13 @@ class SeaStateEstimator(EstimatorBase):
             return
         source = self._source(t1)
         current = self._current(ctx)
-        boat = self._boat(t0, t1, ctx, current, ground_sample)
+        heads = ctx.history.between(Heading, t0 - HEADING_MAX_AGE_S, t1)  # asked once, used by each step below
+        boat = self._boat(t0, t1, ctx, current, ground_sample, heads)
         epoch = None
         if source == "apparent":
-            epoch = self._apparent_epoch(t0, t1, ctx, boat)
+            epoch = self._apparent_epoch(t0, t1, ctx, boat, heads)
         elif source == "instrument":
-            epoch = self._instrument_epoch(t0, t1, ctx, boat, current)
+            epoch = self._instrument_epoch(t0, t1, ctx, boat, current, heads)
         if epoch is not None:
             self._add_epoch(epoch)
 
@@ -284,13 +285,11 @@ class SeaStateEstimator(EstimatorBase):
         return dict(pub.payload) if pub is not None else None
 
     def _boat(self, t0: float, t1: float, ctx: Context, current: dict[str, Any] | None,
-              ground_sample: Fix | GroundVelocity | None) -> Boat:
+              ground_sample: Fix | GroundVelocity | None, heads: list[Heading]) -> Boat:
         k, d = 1.0, 0.0
         if current is not None and current.get("stw_scale") is not None:
             k, d = float(current["stw_scale"]), float(current.get("heading_offset_deg") or 0.0)
-        hist = ctx.history
-        heads = hist.between(Heading, t0 - HEADING_MAX_AGE_S, t1)
-        logs = hist.between(WaterSpeed, t0 - LOG_MAX_AGE_S, t1)
+        logs = ctx.history.between(WaterSpeed, t0 - LOG_MAX_AGE_S, t1)
         water = None
         if heads and logs:
             # the heading's circular mean over the interval (as unit vectors), the log's mean, calibrated
@@ -307,11 +306,10 @@ class SeaStateEstimator(EstimatorBase):
             ground = (water[0] + current["east_kn"], water[1] + current["north_kn"])
         return Boat(water, ground, k, d)
 
-    def _apparent_epoch(self, t0: float, t1: float, ctx: Context, boat: Boat) -> WindEpoch | None:
+    def _apparent_epoch(self, t0: float, t1: float, ctx: Context, boat: Boat, heads: list[Heading]) -> WindEpoch | None:
         if boat.water is None:
             return None
         winds = ctx.history.between(ApparentWind, t0, t1)
-        heads = ctx.history.between(Heading, t0 - HEADING_MAX_AGE_S, t1)
         if not winds or not heads:
             return None
         times = [h.t_s for h in heads]
@@ -327,9 +325,8 @@ class SeaStateEstimator(EstimatorBase):
         return WindEpoch(t1, water, ground, "apparent")
 
     def _instrument_epoch(self, t0: float, t1: float, ctx: Context, boat: Boat,
-                          current: dict[str, Any] | None) -> WindEpoch | None:
+                          current: dict[str, Any] | None, heads: list[Heading]) -> WindEpoch | None:
         winds = ctx.history.between(WaterWind, t0, t1)
-        heads = ctx.history.between(Heading, t0 - HEADING_MAX_AGE_S, t1)
         vecs = []
         for w in winds:
             if w.from_true_deg is not None:
