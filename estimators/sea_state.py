@@ -215,6 +215,9 @@ class SeaStateEstimator(EstimatorBase):
         # slice of these (copied in C) rather than a walk over the epochs for each publication
         self._waters: deque[tuple[float, float]] = deque()
         self._grounds: deque[tuple[float, float] | None] = deque()
+        # neighbours in the deque out of time order (a sample stepped late can close an epoch older than
+        # the last one): while there are any, the window is found by testing every epoch, as it always was
+        self._inversions = 0
         self._gust_speeds: deque[tuple[float, float]] = deque()  # (t, 3-s mean speed), descending speeds
         self._t_epoch: float | None = None
         self._t_pub: float | None = None
@@ -344,13 +347,17 @@ class SeaStateEstimator(EstimatorBase):
     def _add_epoch(self, epoch: WindEpoch) -> None:
         self.epochs_made += 1
         p = self.params
+        if self._epochs and epoch.t_s <= self._epochs[-1].t_s:
+            self._inversions += 1
         self._epochs.append(epoch)
         self._waters.append(epoch.water)
         self._grounds.append(epoch.ground)
         while self._epochs and self._epochs[0].t_s < epoch.t_s - max(p.mean_window_s, GUST_AVERAGE_S):
-            self._epochs.popleft()
+            gone = self._epochs.popleft()
             self._waters.popleft()
             self._grounds.popleft()
+            if self._epochs and self._epochs[0].t_s <= gone.t_s:
+                self._inversions -= 1
         recent = self._recent_water(epoch.t_s - GUST_AVERAGE_S)
         speed = math.hypot(*_mean(recent))
         q = self._gust_speeds
@@ -363,6 +370,8 @@ class SeaStateEstimator(EstimatorBase):
     def _recent_water(self, after_s: float) -> list[tuple[float, float]]:
         """The water winds of the epochs after ``after_s``, oldest first (epochs come in time order,
         so they are the deque's tail: walked from the newest instead of over the whole window)."""
+        if self._inversions:
+            return [e.water for e in self._epochs if e.t_s > after_s]
         recent = []
         for e in reversed(self._epochs):
             if e.t_s <= after_s:
@@ -371,26 +380,28 @@ class SeaStateEstimator(EstimatorBase):
         recent.reverse()
         return recent
 
-    def _in_window(self, t: float) -> int:
-        """How many of the oldest epochs are outside the mean window ending at ``t`` (a few at most:
-        the epochs come in time order and are dropped as they leave the window)."""
+    def _window(self, t: float, vectors: deque) -> list:
+        """The ``vectors`` (waters or grounds) of the epochs inside the mean window ending at ``t``, oldest
+        first: in time order the epochs before it are a few at the deque's head, so the rest is a slice."""
         after_s = t - self.params.mean_window_s
+        if self._inversions:
+            return [v for e, v in zip(self._epochs, vectors) if e.t_s > after_s]
         old = 0
         for e in self._epochs:
             if e.t_s > after_s:
                 break
             old += 1
-        return old
+        return list(islice(vectors, old, None))
 
     def _ground_wind(self, t: float) -> tuple[float, float] | None:
         """(from_deg, speed) of the mean wind over ground over the window (its spread is not published)."""
-        vecs = [v for v in islice(self._grounds, self._in_window(t), None) if v is not None]
+        vecs = [v for v in self._window(t, self._grounds) if v is not None]
         return wind_from(_mean(vecs)) if vecs else None
 
     def _mean_wind(self, t: float) -> MeanWind | None:
         """The mean wind over water over the window, with its sigmas."""
         p = self.params
-        vecs = list(islice(self._waters, self._in_window(t), None))
+        vecs = self._window(t, self._waters)
         if not vecs:
             return None
         me, mn = _mean(vecs)
