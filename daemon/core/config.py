@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any
 
 from daemon.errors import ConfigError
+from daemon.intake.swell import SWELL_SOURCE
 from daemon.outlets.outbox import DEFAULT_MAX_QUEUED
 from estimators.params import check, param
 
@@ -301,6 +302,9 @@ def _inputs(table: Any, where: str) -> dict[str, InputConfig]:
         raise ConfigError(f"{where}: [inputs] must hold one table per input, e.g. [inputs.gps]")
     inputs = {}
     for name, values in table.items():
+        if name == SWELL_SOURCE:  # a recording replays that source's lines as the crew's swell reports
+            raise ConfigError(f"{where}: [inputs.{name}] the name {name!r} is reserved for the crew's swell "
+                              f"reports (MQTT <prefix>/swell): give this input another name")
         cfg = fill(InputConfig, values, f"{where}: [inputs.{name}]")
         for problem in input_problems(cfg)[:1]:
             raise ConfigError(f"{where}: [inputs.{name}] {problem}")

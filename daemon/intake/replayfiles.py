@@ -8,7 +8,8 @@ Each file gets its own Ingest (source name: the file name without ``.gz`` and
 its last suffix), read in 64 KiB chunks, flushed at its end. A recording holds
 the lines of several inputs: each stored source gets its own Ingest under its
 stored name, fed line by line with the stored times, so replaying a recording
-decides exactly as the run that made it. The items of several files are
+decides exactly as the run that made it; the crew's swell reports it holds
+(source ``SWELL_SOURCE``) become their readings again (``daemon.intake.swell``). The items of several files are
 merged in data-time order; each file's own items keep the order its Ingest
 gave them.
 """
@@ -29,6 +30,7 @@ from typing import IO, Any
 from daemon.errors import InputError
 from daemon.outlets.recorder import SQLITE_MAGIC, is_recording_header
 from daemon.core.readings import RawLine, Reading
+from daemon.intake.swell import SWELL_SOURCE, replayed
 
 log = logging.getLogger(__name__)
 
@@ -170,6 +172,9 @@ def _iter_recording(index: int, path: Path, size: int,
     step = max(1, n_total // 200)
     try:
         for n, line in enumerate(iter_raw(path), start=1):
+            if line.source == SWELL_SOURCE:  # the crew's swell report: JSON, not NMEA (daemon.intake.swell)
+                yield from replayed(line)
+                continue
             ingest = ingests.get(line.source)
             if ingest is None:
                 ingest = ingests[line.source] = make_ingest(line.source)
