@@ -332,7 +332,7 @@ class SeaStateEstimator(EstimatorBase):
                            [to_east_north(1.0, heads[-1].true_deg + d)])
             in_interval = [w.speed_kn for w in logs if w.t_s > t0] or [logs[-1].speed_kn]
             stw = k * sum(in_interval) / len(in_interval)  # true STW = stw_scale x log
-            heels = [a.heel_deg for a in hist.between(Attitude, t0, t1) if a.heel_deg is not None]
+            heels = [a.heel_deg for a in ctx.history.between(Attitude, t0, t1) if a.heel_deg is not None]
             lam = leeway_deg(self.hull, sum(heels) / len(heels) if heels else None, stw)
             _, track = from_east_north(ue, un)
             water = to_east_north(stw, track + lam)  # along the water track: heading + offset + leeway
