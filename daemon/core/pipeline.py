@@ -26,7 +26,8 @@ from collections.abc import Callable, Iterable, Sequence
 from typing import Any
 
 from daemon.core.payloads import iso_utc, payload as make_payload
-from daemon.core.readings import Message, RawLine, Reading, Sink
+from daemon.core.readings import Acknowledgement, Message, RawLine, Reading, Sink
+from daemon.intake.acks import ack_items
 from daemon.intake.swell import parse_swell, swell_items
 from estimators.base import Condition, Distrust, Publication
 from estimators.runner import Runner
@@ -56,11 +57,14 @@ class Pipeline:
 
     # -- the doorway -------------------------------------------------------
 
-    def feed(self, item: RawLine | Reading) -> None:
-        self._run_commands(item.t_s if isinstance(item, RawLine) else item.sample.t_s)
+    def feed(self, item: RawLine | Reading | Acknowledgement) -> None:
+        self._run_commands(item.sample.t_s if isinstance(item, Reading) else item.t_s)
         self._take(item)
 
-    def _take(self, item: RawLine | Reading) -> None:
+    def _take(self, item: RawLine | Reading | Acknowledgement) -> None:
+        if isinstance(item, Acknowledgement):  # a recorded one, replayed: the alert manager's, as live
+            self._emit_all(self.alerts.acknowledge(item.alert_id, item.t_s))
+            return
         if isinstance(item, RawLine):
             if self.counters is not None:
                 self.counters.take((item,))
@@ -140,6 +144,8 @@ class Pipeline:
             elif cmd == "ack":
                 alert_id, reply = arg
                 changes = self.alerts.acknowledge(alert_id, self.now_s) if self.now_s is not None else []
+                if changes:  # kept as an input (daemon.intake.acks): a replay of the recording repeats it
+                    self._take(ack_items(alert_id, self.now_s)[0])
                 self._emit_all(changes)
                 if reply is not None:
                     reply(alert_id, bool(changes))
