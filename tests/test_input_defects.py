@@ -19,30 +19,9 @@ from daemon.nmea0183 import codec
 from daemon.nmea0183.codec import checksum_hex, parse_line, parse_tag_block
 from estimators.limits import DATA_TIME_S
 from estimators.samples import Pressure
+from tests.helpers import FakeAlerts, StandInVariation, sentence
 
 T0 = 1778918400.0  # 2026-05-16T08:00:00Z
-
-
-class NoVariation:
-    """What Ingest needs of a variation provider; none known."""
-
-    def note_sentence_variation(self, east_deg: float, t_s: float) -> None:
-        pass
-
-    def note_position(self, lat_deg: float, lon_deg: float, t_s: float) -> None:
-        pass
-
-    def east_deg(self, t_s: float) -> float | None:
-        return None
-
-
-class NoAlerts:
-    def tick(self, t_s: float) -> tuple:
-        return ()
-
-
-def sentence(body: str) -> str:
-    return f"${body}*{checksum_hex(body)}"
 
 
 def tagged(t_s: float, body: str, unit_ms: bool = True) -> str:
@@ -52,7 +31,7 @@ def tagged(t_s: float, body: str, unit_ms: bool = True) -> str:
 
 def run_lines(lines: list[str], live: bool = False) -> tuple[list, Counters, Ingest]:
     counters = Counters()
-    ing = Ingest("src", counters=counters, variation=NoVariation(), live=live)
+    ing = Ingest("src", counters=counters, variation=StandInVariation(), live=live)
     data = "".join(x + "\r\n" for x in lines).encode()
     out = ing.feed(data, T0 if live else None) + ing.flush()
     counters.take(out)
@@ -114,7 +93,7 @@ def test_the_tag_time_range_is_the_gnss_epoch_to_2100():
 
 def test_the_pipeline_ignores_a_time_no_second_can_be_added_to():
     # GIVEN a pipeline (no estimators) and a reading stamped 1e19 s, where t + 1 == t
-    pipe = Pipeline([], [], NoAlerts())
+    pipe = Pipeline([], [], FakeAlerts())
     pipe.feed(Reading("src", Pressure(T0, 1013.0), T0, "MDA", None))
     # WHEN a reading with that time arrives THEN it returns (it hung in the tick loop)
     pipe.feed(Reading("src", Pressure(1e19, 1013.0), T0, "MDA", None))

@@ -21,7 +21,7 @@ from daemon.core.readings import Reading
 from estimators.base import Condition, Distrust, EstimatorBase, Publication
 from estimators.integrity import HeadingIntegrity
 from estimators.samples import Fix, Heading, Pressure
-from tests.helpers import Keep
+from tests.helpers import FakeAlerts, Keep
 from tools.simulator import scenarios
 from tools.simulator.run import simulate
 
@@ -130,17 +130,9 @@ class Fuser(EstimatorBase):
         self.hooks.append((kind, active, since_s))
 
 
-class NoAlerts:
-    def on_condition(self, cond):
-        return []
-
-    def tick(self, t_s):
-        return []
-
-
 def test_pipeline_withholds_a_distrusted_kind_from_fusers_only_and_says_so_in_status():
     watcher, fuser, sink = Watcher(), Fuser(), Keep()
-    pipe = Pipeline([watcher, fuser], [sink], NoAlerts(), prefix="boat", status_every_s=1.0)
+    pipe = Pipeline([watcher, fuser], [sink], FakeAlerts(), prefix="boat", status_every_s=1.0)
     for t in (1.0, 2.0, 3.0, 3.5, 4.0, 5.0, 6.0):
         sample = Pressure(t, 1010.0) if t == 3.5 else Heading(t, 20.0)
         pipe.feed(Reading("sensor", sample, t))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import threading
 
 from daemon.core.pipeline import Pipeline
-from daemon.core.readings import Message, RawLine, Reading
+from daemon.core.readings import RawLine, Reading
 from estimators.base import Condition, EstimatorBase, Publication
 from estimators.samples import Heading, Pressure
 from tests.helpers import FakeAlerts, Keep

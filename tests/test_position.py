@@ -18,24 +18,15 @@ from geographiclib.geodesic import Geodesic
 
 from estimators.angles import KN_TO_MPS, to_east_north
 from estimators.base import Publication, WARNING
-from estimators.history import SampleHistory
 from estimators.params import check
 from estimators.position import PositionEstimator, PositionParams
+from estimators.runner import RunContext
 from estimators.samples import Fix, Heading, WaterSpeed
 
 T0 = 1_780_000_000.0
 LAT0, LON0 = 38.0, -35.0
 A, F = 6378137.0, 1 / 298.257223563
 E2 = F * (2 - F)
-
-
-class Ctx:
-    def __init__(self) -> None:
-        self.history = SampleHistory()
-        self.pubs: dict[str, Publication] = {}
-
-    def latest(self, topic):
-        return self.pubs.get(topic)
 
 
 def current_pub(t: float, east: float = 1.0, north: float = 0.0, **over) -> Publication:
@@ -56,7 +47,7 @@ def sigma_v_mps(cur: dict, log_kn: float) -> float:
     return math.sqrt(var) * KN_TO_MPS
 
 
-def outage(est: PositionEstimator, ctx: Ctx, seconds: int, heading=lambda t: 0.0, log=lambda t: 6.0,
+def outage(est: PositionEstimator, ctx: RunContext, seconds: int, heading=lambda t: 0.0, log=lambda t: 6.0,
            current=None) -> list:
     """Heading and log at 1 Hz (half a second off the ticks), no fixes, a tick every second."""
     out = []
@@ -65,14 +56,14 @@ def outage(est: PositionEstimator, ctx: Ctx, seconds: int, heading=lambda t: 0.0
         for s in (Heading(t - 0.5, heading(t)), WaterSpeed(t - 0.5, log(t))):
             ctx.history.add(s)
         if current is not None:
-            ctx.pubs["current"] = current(t)
+            ctx.note([current(t)])
         out += est.tick(t, ctx)
     return out
 
 
-def start(est: PositionEstimator, ctx: Ctx, hdop: float = 1.0, sog=6.0, cog=0.0, cur: Publication | None = None) -> list:
+def start(est: PositionEstimator, ctx: RunContext, hdop: float = 1.0, sog=6.0, cog=0.0, cur: Publication | None = None) -> list:
     if cur is not None:
-        ctx.pubs["current"] = cur
+        ctx.note([cur])
     return list(est.step(Fix(T0, LAT0, LON0, sog, cog, hdop), ctx))
 
 
@@ -91,7 +82,7 @@ def test_defaults_pass_their_checks():
 
 def test_fix_is_published_with_hdop_times_uere_at_most_once_a_second():
     # GIVEN fixes at 10 Hz with HDOP 1.4 and the default UERE of 5 m
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     out = []
     for i in range(100):
         out += est.step(Fix(T0 + i * 0.1, LAT0, LON0 + i * 1e-6, 5.0, 90.0, 1.4), ctx)
@@ -105,16 +96,16 @@ def test_fix_is_published_with_hdop_times_uere_at_most_once_a_second():
 
 def test_dr_along_a_straight_line_matches_hand_computation_and_geographiclib():
     # GIVEN a fix, then 30 min of 6 kn through the water heading 000 and a 1 kn current toward east
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     start(est, ctx, cur=current_pub(T0))
     out = positions(outage(est, ctx, 1800, current=lambda t: current_pub(t)))
     last = out[-1].payload
     assert out[-1].t_s == T0 + 1800 and last["source"] == "dead_reckoning"
     # THEN the hand computation: 3.0 nm north (5556 m) and 0.5 nm east (926 m) on the WGS84 ellipsoid
     north_m, east_m = 6.0 * 1852 / 2, 1.0 * 1852 / 2
-    phi = math.radians(LAT0)
+    lat_hand = LAT0 + math.degrees(north_m / (A * (1 - E2)))  # first guess: the equator's meridian radius
     for _ in range(3):  # radii at the mid-latitude
-        mid = phi + (north_m / (A * (1 - E2))) / 2 if _ == 0 else math.radians((LAT0 + lat_hand) / 2)
+        mid = math.radians((LAT0 + lat_hand) / 2)
         M = A * (1 - E2) / (1 - E2 * math.sin(mid) ** 2) ** 1.5
         N = A / math.sqrt(1 - E2 * math.sin(mid) ** 2)
         lat_hand = LAT0 + math.degrees(north_m / M)
@@ -132,7 +123,7 @@ def test_dr_along_a_straight_line_matches_hand_computation_and_geographiclib():
 
 
 def test_dr_starts_after_dr_after_s_and_is_published_once_a_second():
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     start(est, ctx, cur=current_pub(T0))
     out = positions(outage(est, ctx, 12, current=lambda t: current_pub(t)))
     # THEN nothing at 1, 2, 3 s (gap not beyond 3 s), then every second from 4 s
@@ -143,7 +134,7 @@ def test_dr_starts_after_dr_after_s_and_is_published_once_a_second():
 def test_sigma_grows_monotonically_whatever_the_current_says():
     # GIVEN a current estimate whose stated uncertainty wanders (seeded)
     rng = random.Random(5)
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     start(est, ctx, cur=current_pub(T0))
 
     def wandering(t):
@@ -159,7 +150,7 @@ def test_sigma_grows_monotonically_whatever_the_current_says():
 
 def test_no_current_known_uses_zero_current_and_a_wider_sigma():
     # GIVEN no current ever published
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     start(est, ctx)
     out = positions(outage(est, ctx, 300))
     last = out[-1].payload
@@ -176,7 +167,7 @@ def test_no_current_known_uses_zero_current_and_a_wider_sigma():
 
 def test_calibration_from_the_current_corrects_log_and_heading():
     # GIVEN the current estimator's calibration: log reads 10 % low, compass 5 deg to port
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     cal = dict(east=0.0, north=0.0, stw_scale=1.1, heading_offset_deg=5.0)
     start(est, ctx, cur=current_pub(T0, **cal))
     out = positions(outage(est, ctx, 600, log=lambda t: 5.0, current=lambda t: current_pub(t, **cal)))
@@ -194,7 +185,7 @@ def test_dr_error_is_consistent_with_its_sigma_over_seeded_trials():
     sigma_c = math.hypot(cur["drift_sigma_kn"], math.radians(cur["set_sigma_deg"]))
     sq_err, sigmas = [], []
     for _ in range(40):
-        est, ctx = PositionEstimator(), Ctx()
+        est, ctx = PositionEstimator(), RunContext()
         start(est, ctx, cur=current_pub(T0))
         out = positions(outage(est, ctx, 120, heading=lambda t: 30.0, log=lambda t: 6.0,
                                current=lambda t: current_pub(t)))
@@ -219,7 +210,7 @@ def test_dr_error_is_consistent_with_its_sigma_over_seeded_trials():
 
 def test_gnss_lost_is_raised_after_10_s_and_cleared_by_a_good_fix_with_the_dr_error():
     # GIVEN a fix, then silence; the truth moves with a 1.5 kn current while 1.0 kn is estimated
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     start(est, ctx, cur=current_pub(T0))
     out = outage(est, ctx, 60, current=lambda t: current_pub(t))
     conds = conditions(out)
@@ -253,7 +244,7 @@ def _dr_at(t: float) -> tuple[float, float]:
 
 def test_without_heading_or_log_the_last_ground_velocity_is_held():
     # GIVEN a fix at 5 kn toward 090 and no heading or log at all
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     start(est, ctx, sog=5.0, cog=90.0)
     out = []
     for i in range(1, 121):
@@ -266,7 +257,7 @@ def test_without_heading_or_log_the_last_ground_velocity_is_held():
 
 
 def test_a_suspect_log_is_not_used_for_dead_reckoning():
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     start(est, ctx, sog=6.0, cog=0.0, cur=current_pub(T0, log="suspect"))
     out = positions(outage(est, ctx, 30, log=lambda t: 0.0, current=lambda t: current_pub(t, log="suspect")))
     assert out[-1].payload["dr_basis"] == "last_ground_velocity"
@@ -274,7 +265,7 @@ def test_a_suspect_log_is_not_used_for_dead_reckoning():
 
 def test_a_jumping_fix_is_rejected_but_not_forever():
     # GIVEN steady fixes, then one 10 km away a second later (a glitch), then the receiver insists
-    est, ctx = PositionEstimator(replace(PositionParams(), max_jump_rejects=2)), Ctx()
+    est, ctx = PositionEstimator(replace(PositionParams(), max_jump_rejects=2)), RunContext()
     est.step(Fix(T0, LAT0, LON0, 5.0, 0.0, 1.0), ctx)
     far = Geodesic.WGS84.Direct(LAT0, LON0, 45.0, 10_000.0)
     outs = [positions(est.step(Fix(T0 + i, far["lat2"], far["lon2"], 5.0, 0.0, 1.0), ctx)) for i in (1, 2, 3)]
@@ -297,7 +288,7 @@ def test_a_fix_without_hdop_takes_the_receivers_latest():
         def latest(self, topic):
             return None
 
-    est, ctx = PositionEstimator(PositionParams()), Ctx()
+    est, ctx = PositionEstimator(PositionParams()), RunContext()
     est.step(Fix(1000.0, 40.0, -30.0, hdop=0.9), ctx)
     pubs = est.step(Fix(1001.0, 40.00001, -30.0), ctx)
     # THEN the RMC fix is published with that HDOP and sigma = HDOP x UERE (0.9 x 5 m)

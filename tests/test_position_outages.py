@@ -16,8 +16,8 @@ from daemon.intake.counters import Counters
 from daemon.intake.ingest import Ingest
 from estimators.angles import KN_TO_MPS
 from estimators.base import Condition, Publication
-from estimators.history import SampleHistory
 from estimators.position import PositionEstimator
+from estimators.runner import RunContext
 from estimators.samples import Fix, Heading, WaterSpeed
 
 T0 = 1_780_000_000.0
@@ -27,15 +27,6 @@ WATER_KN, HEADING = 5.8, 0.0  # through the water, due north
 CUR_E, CUR_N = 1.0, 0.0  # a 1 kn current setting east
 GROUND_KN = math.hypot(WATER_KN + CUR_N, CUR_E)
 GROUND_COG = math.degrees(math.atan2(CUR_E, WATER_KN + CUR_N))
-
-
-class Ctx:
-    def __init__(self) -> None:
-        self.history = SampleHistory()
-        self.pubs: dict[str, Publication] = {}
-
-    def latest(self, topic):
-        return self.pubs.get(topic)
 
 
 def current_pub(t: float) -> Publication:
@@ -58,7 +49,7 @@ def sail(est, ctx, t_from: int, t_to: int, *, fixes=True, sensors=True, sog=True
         if sensors:
             for s in (Heading(t - 0.5, HEADING), WaterSpeed(t - 0.5, WATER_KN)):
                 ctx.history.add(s)
-            ctx.pubs["current"] = current_pub(t)
+            ctx.note([current_pub(t)])
         if fixes:
             fix = fix_of(t) if fix_of else Fix(t, *true_position(t), GROUND_KN if sog else None,
                                              GROUND_COG if sog else None, 1.0, t)
@@ -77,7 +68,7 @@ def lost(out) -> list[Condition]:
 
 def test_every_feed_cut_at_once_dead_reckoning_keeps_sailing():
     # GIVEN 60 s of sailing with GGA-like fixes (no SOG field), heading, log and a known current
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     sail(est, ctx, 0, 60, sog=False)
     # WHEN every feed stops at once (a multiplexer failing) and only the clock ticks on for 70 s
     out = sail(est, ctx, 61, 130, fixes=False, sensors=False)
@@ -104,7 +95,7 @@ def test_every_feed_cut_at_once_dead_reckoning_keeps_sailing():
 
 def test_no_log_or_compass_at_all_holds_the_last_moving_ground_velocity_from_the_fixes():
     # GIVEN a GGA-only receiver (no SOG) and neither log nor compass
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     sail(est, ctx, 0, 30, sog=False, sensors=False)
     # WHEN the fixes stop
     pubs = dr_positions(sail(est, ctx, 31, 60, fixes=False, sensors=False))
@@ -127,7 +118,7 @@ def frozen_at(t_freeze: float, *, sog: float | None = GROUND_KN, clock_stops: bo
 
 def test_a_gnss_frozen_on_one_fix_while_the_log_says_the_boat_moves_is_stale():
     # GIVEN a receiver that freezes at 60 s, repeating one sentence while the boat sails at 5.9 kn
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     out = sail(est, ctx, 0, 300, fix_of=frozen_at(T0 + 60, clock_stops=False))
     # THEN within the time the boat needs for 50 m (about 17 s at 5.9 kn) plus gnss_lost_after_s
     # the position is dead reckoning from the last good fix, moving, and gnss_lost says the receiver froze
@@ -151,7 +142,7 @@ def test_a_gnss_frozen_on_one_fix_while_the_log_says_the_boat_moves_is_stale():
 
 def test_a_receiver_clock_that_stops_is_stale_even_at_anchor():
     # GIVEN a boat at anchor (no log, SOG 0, one position) whose receiver time stops at 60 s
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     still = lambda t: Fix(t, LAT0, LON0, 0.0, None, 1.0, min(t, T0 + 60))  # noqa: E731
     out = sail(est, ctx, 0, 120, sensors=False, fix_of=still)
     # THEN gnss_lost after frozen_time_s (30 s) of a clock standing still, saying so
@@ -163,12 +154,12 @@ def test_a_receiver_clock_that_stops_is_stale_even_at_anchor():
 def test_a_static_hold_receiver_at_anchor_is_not_taken_for_frozen():
     # GIVEN a boat at anchor in a 2 kn stream: the log reads 2 kn, the current estimate cancels it,
     # and a receiver in static hold repeats one position with SOG 0 (its clock running)
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     for i in range(0, 600):
         t = T0 + i
         ctx.history.add(Heading(t - 0.5, 180.0))
         ctx.history.add(WaterSpeed(t - 0.5, 2.0))
-        ctx.pubs["current"] = Publication(t, "current", {**current_pub(t).payload, "east_kn": 0.0, "north_kn": 2.0})
+        ctx.note([Publication(t, "current", {**current_pub(t).payload, "east_kn": 0.0, "north_kn": 2.0})])
         out = list(est.step(Fix(t, LAT0, LON0, 0.0, None, 1.0, t), ctx)) + list(est.tick(t, ctx))
         # THEN every position is the receiver's and nothing is raised
         assert not lost(out)
@@ -192,7 +183,7 @@ def test_live_ingest_gives_each_fix_its_receiver_time():
 def test_a_gap_in_the_data_between_two_equal_positions_is_not_a_frozen_receiver():
     # GIVEN a logger switched off for two hours: the fix before and the fix after have one position
     # (a capture with two pieces; the boat lay still, its receiver says SOG 5 from before the gap)
-    est, ctx = PositionEstimator(), Ctx()
+    est, ctx = PositionEstimator(), RunContext()
     est.step(Fix(T0, LAT0, LON0, 5.0, 228.0, 1.0, T0), ctx)
     est.step(Fix(T0 + 1, LAT0, LON0, 5.0, 228.0, 1.0, T0 + 1), ctx)
     out = list(est.step(Fix(T0 + 7200, LAT0, LON0, 5.0, 228.0, 1.0, T0 + 7200), ctx))

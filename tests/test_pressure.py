@@ -16,7 +16,7 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 
-from estimators.base import Condition, Publication
+from estimators.base import Condition
 from estimators.params import check
 from estimators.pressure import (
     CHARACTERISTIC_WORDS, PressureParams, PressureTendency, characteristic_0200, descriptor, local_solar_hours, ols_slope,

@@ -15,7 +15,6 @@ import resource
 import sqlite3
 import subprocess
 import sys
-import time
 from pathlib import Path
 from types import SimpleNamespace
 

@@ -6,23 +6,15 @@ import random
 from dataclasses import replace
 
 from estimators.base import CAUTION
-from estimators.history import SampleHistory
 from estimators.params import check
+from estimators.runner import RunContext
 from estimators.samples import KIND_NAMES, Fix, Heading, Pressure, WaterSpeed
 from estimators.staleness import StalenessParams, StalenessWatch
 
 T0 = 1_780_000_000.0
 
 
-class Ctx:
-    def __init__(self) -> None:
-        self.history = SampleHistory()
-
-    def latest(self, topic):
-        return None
-
-
-def feed(watch: StalenessWatch, ctx: Ctx, t0: float, t1: float, make, rate_hz: float = 1.0, jitter: float = 0.0,
+def feed(watch: StalenessWatch, ctx: RunContext, t0: float, t1: float, make, rate_hz: float = 1.0, jitter: float = 0.0,
          rng: random.Random | None = None) -> None:
     n = int(round((t1 - t0) * rate_hz))
     for i in range(n):
@@ -30,7 +22,7 @@ def feed(watch: StalenessWatch, ctx: Ctx, t0: float, t1: float, make, rate_hz: f
         watch.step(make(T0 + t), ctx)
 
 
-def ticks(watch: StalenessWatch, ctx: Ctx, t0: int, t1: int) -> list:
+def ticks(watch: StalenessWatch, ctx: RunContext, t0: int, t1: int) -> list:
     out = []
     for t in range(t0, t1 + 1):
         out += [(t, c) for c in watch.tick(T0 + t, ctx)]
@@ -47,7 +39,7 @@ def test_accepts_every_sample_kind_and_defaults_check():
 def test_fresh_feeds_raise_nothing():
     # GIVEN heading at 10 Hz and fixes at 1 Hz with seeded jitter, for 60 s
     rng = random.Random(11)
-    watch, ctx = StalenessWatch(), Ctx()
+    watch, ctx = StalenessWatch(), RunContext()
     feed(watch, ctx, 0, 60, lambda t: Heading(t, 90.0), 10.0, 0.05, rng)
     feed(watch, ctx, 0, 60, lambda t: Fix(t, 40.0, -30.0), 1.0, 0.3, rng)
     # THEN ticking over that minute gives no condition at all
@@ -56,7 +48,7 @@ def test_fresh_feeds_raise_nothing():
 
 def test_a_vanished_heading_is_reported_after_its_interval_and_clears_when_it_returns():
     # GIVEN heading at 1 Hz for t in [0, 20) (last at 19 s), then silence
-    watch, ctx = StalenessWatch(), Ctx()
+    watch, ctx = StalenessWatch(), RunContext()
     feed(watch, ctx, 0, 20, lambda t: Heading(t, 90.0))
     out = ticks(watch, ctx, 19, 31)
     # THEN active from the first tick more than 5 s after the last heading (25 s is not, 25 > 24 is)
@@ -81,7 +73,7 @@ def test_a_vanished_heading_is_reported_after_its_interval_and_clears_when_it_re
 
 def test_each_feed_has_its_own_interval_and_never_seen_feeds_are_not_missed():
     # GIVEN heading, water speed and pressure all last seen at 0 s; no fix ever
-    watch, ctx = StalenessWatch(), Ctx()
+    watch, ctx = StalenessWatch(), RunContext()
     for s in (Heading(T0, 0.0), WaterSpeed(T0, 5.0), Pressure(T0, 1013.0)):
         watch.step(s, ctx)
     # THEN at 8 s only heading (5 s) is stale; at 20 s water speed (10 s) too; at 61 s pressure (60 s) too
@@ -94,7 +86,7 @@ def test_each_feed_has_its_own_interval_and_never_seen_feeds_are_not_missed():
 
 
 def test_configured_interval_and_forgetting_a_switched_off_feed():
-    watch, ctx = StalenessWatch(replace(StalenessParams(), heading_s=2.0, forget_after_s=600.0)), Ctx()
+    watch, ctx = StalenessWatch(replace(StalenessParams(), heading_s=2.0, forget_after_s=600.0)), RunContext()
     watch.step(Heading(T0, 0.0), ctx)
     assert [c.active for c in watch.tick(T0 + 3, ctx)] == [True]
     # WHEN silent for longer than forget_after_s THEN taken as switched off: the caution goes
@@ -103,7 +95,7 @@ def test_configured_interval_and_forgetting_a_switched_off_feed():
 
 
 def test_a_late_sample_does_not_make_a_feed_younger():
-    watch, ctx = StalenessWatch(), Ctx()
+    watch, ctx = StalenessWatch(), RunContext()
     watch.step(Heading(T0 + 10, 0.0), ctx)
     watch.step(Heading(T0 + 2, 0.0), ctx)
     assert watch.stale_kinds(T0 + 14) == {}
@@ -113,7 +105,7 @@ def test_a_late_sample_does_not_make_a_feed_younger():
 def test_a_silent_gnss_is_left_to_gnss_lost_one_failure_one_alert():
     # GIVEN fixes, VTG and heading at 1 Hz, then the GNSS receiver stops (fixes and VTG) at 20 s
     from estimators.samples import GroundVelocity
-    watch, ctx = StalenessWatch(), Ctx()
+    watch, ctx = StalenessWatch(), RunContext()
     feed(watch, ctx, 0, 20, lambda t: Fix(t, 40.0, -30.0))
     feed(watch, ctx, 0, 20, lambda t: GroundVelocity(t, 5.0, 90.0))
     feed(watch, ctx, 0, 60, lambda t: Heading(t, 90.0))

@@ -119,7 +119,7 @@ def test_a_stale_value_is_dimmed_and_a_fresh_one_not():
     m = full_model()
     publish(m, "sea_temperature", {"time": "2026-05-04T06:20:00.000Z", "temp_c": 18.0})  # 10 min old
     s = online_screen(m)
-    lines = s._lines(80, 24, NOW)
+    lines = s.styled_lines(80, 24, NOW)
     sea = next(r for r in lines if r.plain.startswith("Sea temp"))
     pos = next(r for r in lines if r.plain.startswith("Position"))
     assert "10m" in sea.plain

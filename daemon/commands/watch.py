@@ -289,9 +289,12 @@ class Screen:
     def render(self, width: int, height: int, now_s: float) -> Any:
         from rich.console import Group
 
+        return Group(*self.styled_lines(width, height, now_s)[:height])
+
+    def styled_lines(self, width: int, height: int, now_s: float) -> list[Any]:
+        """The frame as rich ``Text`` lines (styles and all), read under the model's lock."""
         with self.model.lock:
-            lines = self._lines(width, height, now_s)
-        return Group(*lines[:height])
+            return self._lines(width, height, now_s)
 
     def _lines(self, width: int, height: int, now_s: float) -> list[Any]:
         from rich.text import Text

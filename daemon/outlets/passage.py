@@ -7,8 +7,9 @@ own: it is replayed through the very same pipeline as ``replay``, in memory,
 and its messages are handed on as they leave.
 
 ``iter_readings`` gives the plausible readings of a source (parsed and timed
-by the ingest, no estimators): what the RTS smoother needs to go over the
-passage again afterwards.
+by the ingest, no estimators), one source per kind as the service's priority
+chose them: what the RTS smoother needs to go over the passage again
+afterwards, seeing what the live filters saw (never two receivers at once).
 """
 
 from __future__ import annotations
@@ -91,10 +92,12 @@ def _recorded_messages(source: Path, progress: Progress | None,
 
 
 def iter_readings(source: str | Path, cfg: Config) -> Iterator[Reading]:
-    """The plausible readings of a recording's raw lines or of an NMEA file, in data-time order."""
+    """The plausible readings of a recording's raw lines or of an NMEA file, in data-time order,
+    from the source the configured priority follows for each kind (as ``Pipeline.feed`` chooses)."""
     parts = build(cfg, [], live=False)
+    selector = parts.pipeline.selector
     for item in iter_replay([Path(source)], parts.make_ingest):
-        if isinstance(item, Reading):
+        if isinstance(item, Reading) and selector.accept(item):
             yield item
 
 
