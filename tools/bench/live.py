@@ -28,7 +28,7 @@ service under cProfile (``python -m cProfile``), which writes FILE when the
 service stops on SIGTERM: where the idle and feeding path spends its time.
 
 Several runs each; min / median / max printed. The figures depend on the
-machine and on what else runs on it (``uptime`` is printed with them): they
+machine and on what else runs on it (the load average is printed with them): they
 go into the README's benchmark table, never into a test.
 """
 
