@@ -114,9 +114,21 @@ class Attitude:
     pitch_deg: float | None = None
 
 
+@dataclass(frozen=True, slots=True)
+class Swell:
+    """A swell the crew reports (not an instrument): period s, where it comes from, degrees true.
+
+    ``period_s`` None: no swell reported any more (back to the configured one, or none).
+    """
+
+    t_s: float
+    period_s: float | None
+    from_deg: float | None
+
+
 Sample = (
     Fix | GroundVelocity | Heading | WaterSpeed | SeaTemperature | AirTemperature
-    | Pressure | ApparentWind | WaterWind | Depth | Attitude
+    | Pressure | ApparentWind | WaterWind | Depth | Attitude | Swell
 )
 
 # The name each kind goes by in status, staleness and priority settings.
@@ -132,7 +144,11 @@ KIND_NAMES: dict[type, str] = {
     WaterWind: "water_wind",
     Depth: "depth",
     Attitude: "attitude",
+    Swell: "swell",
 }
+
+# Kinds a person reports when something changes, not feeds: never stale, whatever their age.
+REPORTED_KINDS = frozenset({"swell"})
 
 
 def kind_of(sample: Sample) -> str:

@@ -12,10 +12,24 @@ degrees true):
 - *wind over ground*: ``air/ground = apparent + boat/ground``
   (= air/water + current, since ``boat/ground = boat/water + current``).
 The boat's velocity through the water is ``stw_scale x log`` along
-``heading + heading_offset`` (the calibration the current estimator has
-learnt, read from its publication, never by importing it; leeway is not
-added: a few degrees at most under sail); its velocity over ground is the
-GNSS SOG/COG when fresh, else the water velocity plus the current.
+``heading + heading_offset + leeway`` (the calibration the current estimator
+has learnt, read from its publication, never by importing it), the same water
+track as the current estimator's triangle ``g = c + k s u(psi + d + lambda)``;
+its velocity over ground is the GNSS SOG/COG when fresh, else the water
+velocity plus the current.
+
+Leeway (``lambda``): the hull slides to leeward, so the water track is turned
+from the heading by a few degrees under sail. offwatch cannot measure it; it
+takes the same rule of thumb as the current estimator, ``lambda = K heel /
+STW^2`` with the heel of the interval (XDR attitude), from the one place the
+boat's hull is described, ``[current] leeway_coefficient`` (with its
+``leeway_max_deg`` and ``leeway_min_stw_kn``; ``estimators.current.leeway_deg``).
+By default K = 0: no leeway, and the frame of "true wind over water" is then
+the one along the heading; what that leaves out is ``STW sin(lambda)`` of the
+boat's velocity across the heading, which goes straight into the true wind:
+5 degrees at 6.5 kn is 0.57 kn, mostly along the wind on a reach (its speed),
+across it close-hauled and on a run (its direction). Published as
+``leeway_deg`` (the interval's leeway used, 0 without a coefficient or a heel).
 
 Averaging: the vane sits on a yawing, rolling hull. Each apparent wind sample
 is turned into the earth frame with the heading of its own moment (so the
@@ -41,10 +55,25 @@ used for the waves while younger than ``depth_max_age_s`` (else deep water).
 Waves against the current (see ``estimators.waves`` for the physics): the wind
 sea travels downwind of the true wind over water, so the current opposes it
 by ``opposing = current . u(wind from)`` (signed, positive against). For each
-period of the wind sea's band (and a swell: from the config, or as the crew reports it
-on ``<prefix>/swell``, see ``daemon.intake.swell``) the factors
+period of the wind sea's band (and a swell: from the config, or a ``Swell`` sample:
+what the crew reports on ``<prefix>/swell``, see ``daemon.intake.swell``) the factors
 are computed on the current component along that wave's travel; the published
 factors are those of the worst (steepest) period not blocked.
+
+Near blocking, linear theory's factors grow without bound (the energy piles up
+as the group speed over the ground falls to zero), a figure no sea shows: the
+waves break first. So ``height_factor``/``steepness_factor`` are published as
+linear theory gives them (the interface's fields) and beside them, bounded at
+breaking, ``bounded_height_factor``/``bounded_steepness_factor`` (and the
+peak's, ``peak_bounded_*``): the steepness factor stops where the wind sea's
+highest waves (``highest_wave_factor`` x Hs on the peak's still-water
+wavelength, the one steepness offwatch estimates) reach Michell's 1/7,
+``steepness <= (1/7) / (2 Hs / L0(Tp))`` (about 2.8 for a fully developed sea),
+``height = steepness x length_factor``. ``near_blocking`` is true where the
+bound bites the worst period: its waves break on the current rather than grow.
+The caution judges by the wind sea's peak period (``breaking_fraction``, which
+passes 1 where linear theory would carry the peak's waves past breaking); the
+watch view shows the peak's bounded factors, never the worst period's unbounded ones.
 
 ``wind_against_current`` (a caution): the wind sea's significant height and
 peak period from the wind (Pierson–Moskowitz, or JONSWAP with a fetch), made
@@ -77,10 +106,11 @@ from typing import Any
 
 from estimators.angles import KN_TO_MPS, from_east_north, to_east_north, wrap_180, wrap_360
 from estimators.base import CAUTION, Condition, Context, EstimatorBase, Output, Publication
+from estimators.current import CurrentParams, leeway_deg
 from estimators.params import check, param
 from estimators.samples import (
-    AirTemperature, ApparentWind, Depth, Fix, GroundVelocity, Heading, Sample, SeaTemperature, WaterSpeed,
-    WaterWind,
+    AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Heading, Sample, SeaTemperature, Swell,
+    WaterSpeed, WaterWind,
 )
 from estimators.thresholds import Hysteresis
 from estimators.wording import fixed
@@ -204,10 +234,13 @@ class SeaStateEstimator(EstimatorBase):
     """Publishes ``sea_state``; raises ``wind_against_current`` and ``unstable_air``."""
 
     name = "sea_state"
-    accepts = (Fix, GroundVelocity, ApparentWind, WaterWind, Depth, AirTemperature, SeaTemperature)
+    accepts = (Fix, GroundVelocity, ApparentWind, WaterWind, Depth, AirTemperature, SeaTemperature, Swell)
 
-    def __init__(self, params: SeaStateParams | None = None) -> None:
+    def __init__(self, params: SeaStateParams | None = None, hull: CurrentParams | None = None) -> None:
+        """``hull``: the [current] section, whose leeway rule (``leeway_coefficient``...) describes the hull."""
         self.params = p = params or SeaStateParams()
+        self.hull = hull or CurrentParams()
+        self._leeway = 0.0  # the last interval's leeway, deg
         self._epochs: deque[WindEpoch] = deque()
         self._gust_speeds: deque[tuple[float, float]] = deque()  # (t, 3-s mean speed), descending speeds
         self._t_epoch: float | None = None
@@ -221,15 +254,14 @@ class SeaStateEstimator(EstimatorBase):
 
     # -- the protocol ------------------------------------------------------------------------
 
-    def set_swell(self, period_s: float | None, from_deg: float | None) -> None:
-        """A swell reported by the crew (s, deg true); None: back to the config's swell (or none)."""
-        p = self.params
-        if period_s is not None and from_deg is not None:
-            self._swell = (period_s, from_deg)
-        else:
-            self._swell = (p.swell_period_s, p.swell_from_deg) if p.swell_period_s > 0 else None
-
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
+        if isinstance(sample, Swell):  # the crew's report; no period: back to the config's swell (or none)
+            p = self.params
+            if sample.period_s is not None and sample.from_deg is not None:
+                self._swell = (sample.period_s, sample.from_deg)
+            else:
+                self._swell = (p.swell_period_s, p.swell_from_deg) if p.swell_period_s > 0 else None
+            return ()
         if isinstance(sample, Depth):
             self._depth = Depth(sample.t_s, sample.depth_m + self.params.transducer_depth_m)
             return ()
@@ -292,8 +324,11 @@ class SeaStateEstimator(EstimatorBase):
                            [to_east_north(1.0, heads[-1].true_deg + d)])
             in_interval = [w.speed_kn for w in logs if w.t_s > t0] or [logs[-1].speed_kn]
             stw = k * sum(in_interval) / len(in_interval)  # true STW = stw_scale x log
-            norm = math.hypot(ue, un) or 1.0
-            water = (stw * ue / norm, stw * un / norm)
+            heels = [a.heel_deg for a in hist.between(Attitude, t0, t1) if a.heel_deg is not None]
+            lam = leeway_deg(self.hull, sum(heels) / len(heels) if heels else None, stw)
+            _, track = from_east_north(ue, un)
+            water = to_east_north(stw, track + lam)  # along the water track: heading + offset + leeway
+            self._leeway = lam
         ground = None
         if ground_sample is not None and ground_sample.sog_kn is not None and ground_sample.cog_deg is not None:
             ground = to_east_north(ground_sample.sog_kn, ground_sample.cog_deg)
@@ -399,6 +434,7 @@ class SeaStateEstimator(EstimatorBase):
             "wind_mean_s": p.mean_window_s,
             "depth_m": depth_m,
             "depth_age_s": depth_age,
+            "leeway_deg": self._leeway,
         }
         air, sea = self._temperatures(t, ctx)
         payload["air_temp_c"] = air
@@ -425,6 +461,8 @@ class SeaStateEstimator(EstimatorBase):
                  "wind_sea_height_m": None, "wind_sea_period_s": None, "wind_sea_fully_developed": None,
                  "peak_height_factor": None, "peak_length_factor": None, "peak_steepness_factor": None,
                  "steepened_height_m": None, "breaking_fraction": None, "peak_blocked": None,
+                 "bounded_height_factor": None, "bounded_steepness_factor": None, "near_blocking": None,
+                 "peak_bounded_height_factor": None, "peak_bounded_steepness_factor": None,
                  "depth_used_m": depth_m}
         if not _usable(current):
             return empty
@@ -438,6 +476,8 @@ class SeaStateEstimator(EstimatorBase):
         free = [r for r in runs if not r.blocked]
         worst = max(free, key=lambda r: r.steepness_factor) if free else None
         peak = wave_on_current(sea.peak_period_s, -opposing * KN_TO_MPS, depth_m)
+        ceiling = _breaking_ceiling(p.highest_wave_factor * sea.significant_height_m, sea.peak_period_s, depth_m)
+        bounded, peak_bounded = _bounded(worst, ceiling), _bounded(peak, ceiling)
         h_peak = sea.significant_height_m * (peak.height_factor or 0.0)
         if peak.blocked:
             fraction = None
@@ -451,6 +491,9 @@ class SeaStateEstimator(EstimatorBase):
             "length_factor": worst.length_factor if worst else None,
             "steepness_factor": worst.steepness_factor if worst else None,
             "worst_period_s": worst.period_s if worst else None,
+            "bounded_height_factor": bounded[0],
+            "bounded_steepness_factor": bounded[1],
+            "near_blocking": bounded[2],
             "blocking_period_s": _blocking(opposing, depth_m),
             "blocked_periods_s": [r.period_s for r in runs if r.blocked],
             "periods_s": [r.period_s for r in runs],
@@ -462,6 +505,8 @@ class SeaStateEstimator(EstimatorBase):
             "peak_height_factor": peak.height_factor,
             "peak_length_factor": peak.length_factor,
             "peak_steepness_factor": peak.steepness_factor,
+            "peak_bounded_height_factor": peak_bounded[0],
+            "peak_bounded_steepness_factor": peak_bounded[1],
             "steepened_height_m": h_peak if not peak.blocked else None,
             "breaking_fraction": fraction,
             "peak_blocked": peak.blocked,
@@ -490,8 +535,13 @@ class SeaStateEstimator(EstimatorBase):
                               "Wind and current no longer stack up the sea (estimate).", {})]
         # said again while it lasts: the alert's figures follow the sea (the alert manager rate-limits the news)
         return [Condition(t, "wind_against_current", CAUTION, True, _against_text(water, waves),
-                          {k: waves[k] for k in ("opposing_current_kn", "height_factor", "length_factor",
-                                                 "steepness_factor", "peak_steepness_factor", "breaking_fraction",
+                          # the peak's factors first (what the text says); the worst period's beside them,
+                          # linear theory's and bounded at breaking, with near_blocking (a display shows those)
+                          {k: waves[k] for k in ("opposing_current_kn", "peak_height_factor", "peak_length_factor",
+                                                 "peak_steepness_factor", "peak_bounded_height_factor",
+                                                 "peak_bounded_steepness_factor", "height_factor", "length_factor",
+                                                 "steepness_factor", "bounded_height_factor",
+                                                 "bounded_steepness_factor", "near_blocking", "breaking_fraction",
                                                  "wind_sea_height_m", "wind_sea_period_s", "blocking_period_s")}
                           | {"true_wind_kn": round(water.speed_kn, 1), "true_wind_from_deg": round(water.from_deg)})]
 
@@ -528,6 +578,29 @@ def _against_text(water: MeanWind, w: dict[str, Any]) -> str:
                f"waves near {w['breaking_fraction'] * 100:.0f} % of the breaking steepness 1/7; {stopped_text}")
     return (f"{seen}{sea}. An estimate from linear wave theory and a wind sea estimated from the wind: "
             f"check the sea itself.")
+
+
+def _breaking_ceiling(highest_m: float, peak_period_s: float, depth_m: float | None) -> float:
+    """The largest steepness factor a wave of the wind sea can reach before it breaks.
+
+    Linear theory's steepening has no ceiling near blocking; a wave has: H/L = 1/7 (Michell 1893). The
+    wind sea's highest waves stand at s0 = H / L0(Tp) in still water (the one steepness offwatch
+    estimates; about 0.36 of the limit in a fully developed sea), so a factor of (1/7) / s0 brings them
+    to breaking: never below 1 (a sea already that steep is not made less so by the bound). The same
+    ceiling for every period, so a bounded worst period is never below the bounded peak.
+    """
+    s0 = highest_m / wavelength_m(peak_period_s, depth_m)
+    return max(1.0, BREAKING_STEEPNESS / s0) if s0 > 0.0 else math.inf
+
+
+def _bounded(run: WaveOnCurrent | None, ceiling: float) -> tuple[float | None, float | None, bool | None]:
+    """(height, steepness factor, beyond breaking) of one period, its steepness factor capped at the
+    ceiling; the height factor is that steepness times the length factor (which stays bounded: deep
+    water at blocking 1/4), since steepness = height / length."""
+    if run is None or run.blocked:
+        return None, None, None
+    steep = min(run.steepness_factor, ceiling)
+    return steep * run.length_factor, steep, run.steepness_factor > ceiling
 
 
 def _usable(current: dict[str, Any] | None) -> bool:

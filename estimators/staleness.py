@@ -24,13 +24,14 @@ so a feed that stops while all others are silent too is still noticed.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 from estimators import wording
 from estimators.base import CAUTION, Condition, Context, EstimatorBase, Output
 from estimators.params import param
-from estimators.samples import KIND_NAMES, Sample, kind_of
+from estimators.samples import KIND_NAMES, REPORTED_KINDS, Sample, kind_of
 
 ALERT_ID = "sensor_stale"
 
@@ -81,6 +82,8 @@ class StalenessParams:
                                   "a kind silent this long is taken as switched off and no longer counted; 0: never")
 
     def interval_s(self, kind: str) -> float:
+        if kind in REPORTED_KINDS:  # a crew's report is a state, said once: its age is no silence
+            return math.inf
         return getattr(self, f"{kind}_s")
 
 

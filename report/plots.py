@@ -350,11 +350,13 @@ def plot_wind(p: Passage, path: Path) -> Path:
         ss = p.sea_state
         ts = [_dt(r["t_s"]) for r in ss]
         # the wind sea's peak period, as the caution judges it (the band's worst period grows without bound
-        # near blocking in linear theory); recordings from before the peak fields: the worst period's
-        peak = any(r.get("peak_steepness_factor") is not None for r in ss)
-        steep = _column(ss, "peak_steepness_factor" if peak else "steepness_factor")
+        # near blocking in linear theory), bounded where its waves break; older recordings: the newest
+        # of those fields they have
+        name = next((n for n in ("peak_bounded_steepness_factor", "peak_steepness_factor", "steepness_factor")
+                     if any(r.get(n) is not None for r in ss)), "steepness_factor")
+        steep = _column(ss, name)
         a3.plot(ts, steep, color="#d7301f", lw=1.4,
-                label="steepness factor at the wind sea's peak period (1 = as in still water)")
+                label="steepness factor at the wind sea's peak period, to breaking (1 = as in still water)")
         a3.axhline(1.0, color="0.4", lw=0.7, ls=":")
         a3.set_ylim(0, max(2.0, float(np.nanmax(steep)) * 1.15) if np.isfinite(steep).any() else 2.0)
         a3.set_ylabel("wave steepness factor", color="#d7301f")

@@ -52,6 +52,7 @@ prefix = "fleet/tern"
     ({"installation": {"stw_scale": 3.0}}, ["stw_scale", "at most 1.5"]),
     ({"inputs": {"gps": {"kind": "serial"}}}, ["[inputs.gps]", "device"]),
     ({"inputs": {"gps": {"kind": "serial", "device": "/dev/x", "baud": "fast"}}}, ["baud", "whole number"]),
+    ({"inputs": {"swell-report": {"kind": "serial", "device": "/dev/x"}}}, ["[inputs.swell-report]", "reserved"]),
     ({"priority": {"compass": ["a"]}}, ["[priority]", "compass", "heading"]),
     ({"wibble": {}}, ["[wibble]", "installation"]),
     ({"installation": {"gnss_not_before": "last spring"}}, ["gnss_not_before", "ISO date"]),

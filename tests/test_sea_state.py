@@ -8,7 +8,9 @@ import pytest
 
 from estimators.angles import from_east_north, to_east_north, wrap_180
 from estimators.base import Condition, Publication
-from estimators.samples import AirTemperature, ApparentWind, Depth, Fix, Heading, SeaTemperature, WaterSpeed, WaterWind
+from estimators.samples import (
+    AirTemperature, ApparentWind, Attitude, Depth, Fix, Heading, SeaTemperature, Swell, WaterSpeed, WaterWind,
+)
 from estimators.sea_state import SeaStateEstimator, SeaStateParams, apparent_air_velocity, true_wind, wind_from
 from tools.bench.sea_state import drive
 
@@ -41,24 +43,28 @@ class FixedCurrent:
 
 
 def boat_samples(duration_s: float, heading_deg, stw_kn: float, true_from_deg: float, true_kn: float,
-                 current=(0.0, 0.0), log_scale: float = 1.0, extra=None):
+                 current=(0.0, 0.0), log_scale: float = 1.0, extra=None, leeway=None):
     """Sensor samples of a boat in a steady true wind (over water) and current, headings per second.
 
     ``heading_deg`` may be a function of time (yaw). The apparent wind is computed here independently:
-    apparent = air/water - boat/water, turned into an angle off the bow.
+    apparent = air/water - boat/water, turned into an angle off the bow. ``leeway`` = (degrees, heel):
+    the water track is the heading turned by that leeway, and an attitude sensor reads the heel.
     """
     out = []
     ce, cn = to_east_north(current[1], current[0])
     air_e, air_n = to_east_north(true_kn, true_from_deg + 180.0)
+    lam, heel = leeway or (0.0, None)
     for i in range(int(duration_s)):
         t = T0 + i
         hdg = heading_deg(t) if callable(heading_deg) else heading_deg
-        be, bn = to_east_north(stw_kn, hdg)
+        be, bn = to_east_north(stw_kn, hdg + lam)  # the water track: heading + leeway
         aws, toward = from_east_north(air_e - be, air_n - bn)
         awa = (toward + 180.0 - hdg) % 360.0
         sog, cog = from_east_north(be + ce, bn + cn)
-        out += [Heading(t + 0.1, hdg), WaterSpeed(t + 0.2, stw_kn / log_scale), ApparentWind(t + 0.3, awa, aws),
-                Fix(t + 0.9, 30.0, -40.0, sog, cog)]
+        out += [Heading(t + 0.1, hdg), WaterSpeed(t + 0.2, stw_kn / log_scale), ApparentWind(t + 0.3, awa, aws)]
+        if heel is not None:
+            out.append(Attitude(t + 0.4, heel, None))
+        out.append(Fix(t + 0.9, 30.0, -40.0, sog, cog))
         if extra:
             out += extra(t)
     return out
@@ -270,10 +276,9 @@ def test_a_reported_swell_is_taken_on_its_own_current_component():
     from estimators.angles import KN_TO_MPS
     from estimators.waves import wave_on_current
 
-    est = SeaStateEstimator()
-    est.set_swell(10.0, 135.0)
     samples = boat_samples(300, 90.0, 6.0, 45.0, 20.0, current=(135.0, 4.0))
-    p = sea_states(drive([FixedCurrent(135.0, 4.0), est], samples))[-1].payload
+    reported = [Swell(T0, 10.0, 135.0)] + samples  # the crew's report is a sample like any other
+    p = sea_states(drive([FixedCurrent(135.0, 4.0), SeaStateEstimator()], reported))[-1].payload
     # THEN the worst period is the swell's, with the factors of 10 s against 4 kn (tests/test_waves.py)
     ref = wave_on_current(10.0, -4.0 * KN_TO_MPS)
     assert p["opposing_current_kn"] == pytest.approx(0.0, abs=0.05)
@@ -281,10 +286,8 @@ def test_a_reported_swell_is_taken_on_its_own_current_component():
     assert p["worst_period_s"] == 10.0
     assert p["steepness_factor"] == pytest.approx(ref.steepness_factor, abs=0.01)
     # and cleared, the worst is the wind sea's again (about 1: no current along it)
-    again = SeaStateEstimator()
-    again.set_swell(10.0, 135.0)
-    again.set_swell(None, None)
-    p = sea_states(drive([FixedCurrent(135.0, 4.0), again], samples))[-1].payload
+    cleared = [Swell(T0, 10.0, 135.0), Swell(T0 + 0.01, None, None)] + samples
+    p = sea_states(drive([FixedCurrent(135.0, 4.0), SeaStateEstimator()], cleared))[-1].payload
     assert p["swell_period_s"] is None and p["steepness_factor"] == pytest.approx(1.0, abs=0.02)
 
 
@@ -301,3 +304,57 @@ def test_a_bad_sea_state_config_names_the_key(table, names):
 
     with pytest.raises(ConfigError, match=rf"\[sea_state\].*{names}"):
         build_config({"sea_state": table})
+
+
+@pytest.mark.parametrize("told", [False, True])
+def test_leeway_turns_the_water_track_when_the_hull_rule_is_given(told):
+    # GIVEN a boat heading 090 at 6 kn making 5 deg of leeway (heeled 20 deg: K = 5 x 6^2 / 20 = 9 in the
+    # rule lambda = K heel / STW^2 of [current] leeway_coefficient), true wind 20 kn from 000 over the water
+    from estimators.current import CurrentParams
+
+    hull = CurrentParams(leeway_coefficient=9.0 if told else 0.0)
+    samples = boat_samples(300, 90.0, 6.0, 0.0, 20.0, leeway=(5.0, 20.0))
+    p = sea_states(drive([SeaStateEstimator(hull=hull)], samples))[-1].payload
+    # THEN told, the wind triangle closes: air/water = apparent + boat/water (the definition of true wind;
+    # Bowditch, The American Practical Navigator, the wind triangle; from memory)
+    if told:
+        assert p["leeway_deg"] == pytest.approx(5.0)
+        assert p["true_wind_kn"] == pytest.approx(20.0, abs=0.01)
+        assert abs(wrap_180(p["true_wind_from_deg"])) < 0.05
+    else:  # not told, the boat's 6 sin 5 = 0.52 kn across the heading (toward the south) is missing
+        assert p["leeway_deg"] == 0.0
+        missing = 6.0 * math.sin(math.radians(5.0))
+        assert p["true_wind_kn"] == pytest.approx(20.0 - missing, abs=0.02)
+
+
+def test_near_blocking_the_worst_period_is_bounded_at_breaking():
+    # GIVEN 20 kn of wind from 000 over a 4.5-kn current setting 000, into it: blocking at 8 pi V / g = 5.9 s
+    # (deep water), inside the wind sea's band (5.6 to 9.6 s for a 7.7-s peak)
+    from estimators.waves import BREAKING_STEEPNESS, wavelength_m
+
+    samples = boat_samples(300, 90.0, 6.0, 0.0, 20.0, current=(0.0, 4.5))
+    outs = drive([FixedCurrent(0.0, 4.5), SeaStateEstimator()], samples)
+    p = sea_states(outs)[-1].payload
+    # THEN linear theory's factor for the worst free period runs away (published as it is) ...
+    assert p["steepness_factor"] > 3.0 and p["near_blocking"] is True
+    # ... and the bounded one stops where the sea's highest waves (2 Hs on the peak's still-water
+    # wavelength) reach Michell's (1893) H/L = 1/7
+    s0 = 2.0 * p["wind_sea_height_m"] / wavelength_m(p["wind_sea_period_s"])
+    assert p["bounded_steepness_factor"] * s0 == pytest.approx(BREAKING_STEEPNESS, rel=1e-6)
+    assert p["bounded_height_factor"] == pytest.approx(p["bounded_steepness_factor"] * p["length_factor"])
+    assert p["bounded_height_factor"] < p["height_factor"]
+    # the peak here is carried past breaking too (breaking_fraction over 1): its bounded factors stop at the
+    # same ceiling, so the bounded worst period is never below the bounded peak
+    assert p["breaking_fraction"] > 1.0
+    assert p["peak_bounded_steepness_factor"] == pytest.approx(p["bounded_steepness_factor"])
+    assert p["peak_bounded_height_factor"] == pytest.approx(p["peak_bounded_steepness_factor"] * p["peak_length_factor"])
+    # ... and the caution carries both, its text the peak's linear figures and the fraction
+    cautions = [c for c in conditions(outs, "wind_against_current") if c.active]
+    v = cautions[-1].values
+    assert v["near_blocking"] is True and v["peak_bounded_steepness_factor"] < v["peak_steepness_factor"]
+    assert f"steepness x{v['peak_steepness_factor']:.1f}" in cautions[-1].text
+    # AND with the current along the wind instead, nothing to bound: the same figures, not near blocking
+    calm = sea_states(drive([FixedCurrent(180.0, 4.5), SeaStateEstimator()],
+                            boat_samples(300, 90.0, 6.0, 0.0, 20.0, current=(180.0, 4.5))))[-1].payload
+    assert calm["near_blocking"] is False
+    assert calm["bounded_steepness_factor"] == calm["steepness_factor"]

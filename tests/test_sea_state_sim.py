@@ -1,6 +1,6 @@
 """The sea-state estimator behind the current estimator on the simulator's wind-over-current reaches.
 
-Truth is the simulator's (tools.simulator): its true wind over water and its current. The benchmark
+Truth is the simulator's (tools.simulator): its gusty true wind over water and its current. The benchmark
 (tools/bench/sea_state.py) runs many seeds; here one seed each checks the issue's targets hold.
 """
 
@@ -19,15 +19,23 @@ def against():
 
 
 def test_true_wind_over_water_on_the_reach(against):
-    # targets (issue 10): true wind over water within 3 deg and 0.5 kn (median) on the reach. The speed
-    # target is judged by the benchmark over many seeds: the simulator's gusts (15 %, 8-s time scale) are a
-    # sensor error against its gust-free truth, and leave a 10-min mean about 0.15 x 24 kn x sqrt(2 x 8 / 600)
-    # = 0.6 kn (1 sigma) off in each of the dozen independent windows of one run, so one seed's median
-    # wanders by more than the target; here the bound is twice that floor's median (0.4 kn)
+    # targets (issue 10): true wind over water within 3 deg and 0.5 kn (median) on the reach, against what
+    # the instrument is meant to show: the 10-minute vector mean of the simulated true wind over the
+    # water, gusts included, over the estimate's own window (WMO-No. 8's mean wind)
     assert statistics.median(against["dir"]) < 3.0
-    assert statistics.median(against["spd"]) < 1.0
+    assert statistics.median(against["spd"]) < 0.5
+    # the gust: within half a knot of the highest 3-s mean of that gusty wind in 10 minutes (WMO-No. 8's gust)
+    assert statistics.median(against["gust"]) < 0.5
     # and better than the instrument's own true wind, which takes the log and compass at face value
     assert statistics.median(against["dir"]) < statistics.median(against["inst_dir"])
+
+
+def test_the_true_calibration_bound_is_no_worse_than_offwatch(against):
+    # the bound (the simulator's true log scale, compass offset and current in place of the current
+    # estimator's) is the best this averaging can do: offwatch is within a few hundredths of it
+    bound = run_case("wind_against_current", seed=3, bound=True)
+    assert statistics.median(bound["spd"]) <= statistics.median(against["spd"]) + 0.02
+    assert statistics.median(bound["opp"]) < statistics.median(against["opp"])
 
 
 def test_opposing_current_and_the_caution_in_the_band(against):

@@ -285,3 +285,38 @@ def test_a_payload_dated_in_the_future_does_not_age_every_true_value():
     lines = draw(online_screen(m))
     assert "06:30:00 UTC" in lines[0]
     assert "Position" in lines[2] and lines[2].rstrip().endswith(" 0s")
+
+
+def sea_state_line(m: WatchModel) -> str:
+    return next(r.plain for r in online_screen(m).styled_lines(100, 24, NOW) if r.plain.startswith("Sea state"))
+
+
+def test_near_blocking_the_sea_state_line_shows_the_peak_factors_and_where_waves_stop():
+    # GIVEN a sea state near blocking: linear theory's worst-period factors run away (Longuet-Higgins &
+    # Stewart 1961: the height grows without bound as the group speed over the ground falls to zero)
+    m = full_model()
+    publish(m, "sea_state", {"time": T0, "opposing_current_kn": 4.5, "height_factor": 41.3, "length_factor": 0.27,
+                             "steepness_factor": 153.0, "bounded_height_factor": 1.1, "bounded_steepness_factor": 4.1,
+                             "peak_height_factor": 1.62, "peak_length_factor": 0.61, "peak_steepness_factor": 2.66,
+                             "peak_bounded_height_factor": 1.62, "peak_bounded_steepness_factor": 2.66,
+                             "breaking_fraction": 0.96,
+                             "near_blocking": True, "blocking_period_s": 5.93, "blocked_periods_s": [5.6],
+                             "peak_blocked": False, "wind_sea_period_s": 7.7})
+    line = sea_state_line(m)
+    # THEN the peak's factors, as the caution judges, and where the current stops the waves; never "x41"
+    assert "height ×1.6" in line and "steepness ×2.7" in line and "stopped under 5.9 s" in line
+    assert "41" not in line and "153" not in line and "breaking" not in line
+    # AND a peak that linear theory carries past breaking shows its factors bounded there, and says so
+    publish(m, "sea_state", {"time": T0, "opposing_current_kn": 4.5, "peak_height_factor": 2.4,
+                             "peak_length_factor": 0.55, "peak_steepness_factor": 4.4,
+                             "peak_bounded_height_factor": 1.53, "peak_bounded_steepness_factor": 2.78,
+                             "breaking_fraction": 1.58, "peak_blocked": False})
+    line = sea_state_line(m)
+    assert "height ×1.5" in line and "steepness ×2.8" in line and "at breaking" in line and "4.4" not in line
+    # AND where the peak itself is stopped, no factor at all: those waves break on the current
+    publish(m, "sea_state", {"time": T0, "opposing_current_kn": 6.0, "height_factor": 2.0, "steepness_factor": 5.0,
+                             "length_factor": 0.4, "peak_height_factor": None, "peak_steepness_factor": None,
+                             "peak_length_factor": None, "peak_blocked": True, "wind_sea_period_s": 7.7,
+                             "blocking_period_s": 7.9, "blocked_periods_s": [5.6, 6.5, 7.7]})
+    line = sea_state_line(m)
+    assert "peak 8-s waves stopped: they break" in line and "×" not in line

@@ -451,17 +451,33 @@ class Screen:
 
     def _sea_state_words(self, ss: dict) -> str | None:
         opp = num(ss.get("opposing_current_kn"), ".1f", " kn")
-        # the wind sea's peak period, as the caution judges it: the worst period of the band grows without
-        # bound near blocking in linear theory, a figure no sea shows
-        def factor(name: str) -> str | None:
-            value = ss.get("peak_" + name) if ss.get("peak_" + name) is not None else ss.get(name)
-            return num(value, ".1f")
-        parts = [f"against current {opp}" if opp else None,
-                 _pair("height ×", factor("height_factor"), ""),
-                 _pair("length ×", factor("length_factor"), ""),
-                 _pair("steepness ×", factor("steepness_factor"), "")]
+        parts = [f"against current {opp}" if opp else None]
+        length = None
+        if ss.get("peak_blocked") is True:  # no factor at all: the wind sea's own waves cannot get through
+            parts.append(_pair("peak", num(ss.get("wind_sea_period_s"), ".0f", "-s waves stopped: they break"), " "))
+        else:
+            parts += [_pair("height ×", self._factor(ss, "height_factor"), ""),
+                      _pair("steepness ×", self._factor(ss, "steepness_factor"), "")]
+            fraction = finite_number(ss.get("breaking_fraction"))
+            if fraction is not None and fraction >= 1.0:  # the factors above stop there: the waves break
+                parts.append("at breaking")
+            length = _pair("length ×", self._factor(ss, "length_factor"), "")
+        if ss.get("near_blocking") is True or ss.get("blocked_periods_s"):
+            parts.append(_pair("stopped under", num(ss.get("blocking_period_s"), ".1f", " s"), " "))
+        parts.append(length)  # last: what a narrow screen may cut matters least
         words = "  ".join(p for p in parts if p)
         return words or None
+
+    @staticmethod
+    def _factor(ss: dict, name: str) -> str | None:
+        """The wind sea's peak period's factor, as the caution judges it, bounded at breaking; without
+        those (an older service) the unbounded peak's, the worst period's bounded, and only then linear
+        theory's worst, which has no ceiling near blocking (a figure no sea shows). The length factor
+        needs no bound (at blocking, deep water: 1/4)."""
+        for key in ("peak_bounded_" + name, "peak_" + name, "bounded_" + name, name):
+            if finite_number(ss.get(key)) is not None:
+                return num(ss.get(key), ".1f")
+        return None
 
     def _age_of(self, key: str, data_now: float | None) -> float | None:
         m = self.model

@@ -44,7 +44,8 @@ def build_estimators(cfg: Config, calibration: Calibration | None = None) -> lis
         PositionEstimator(cfg.section("position")),
         FrontDetector(cfg.section("front")),
         PressureTendency(cfg.section("pressure"), inst.barometer_height_m),
-        SeaStateEstimator(cfg.section("sea_state")),  # after current: reads its calibration and set/drift
+        # after current: reads its calibration and set/drift; the hull's leeway rule is [current]'s
+        SeaStateEstimator(cfg.section("sea_state"), cfg.section("current")),
         StalenessWatch(cfg.section("staleness")),
         InstrumentReadings(),
     ]

@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any
 
 from daemon.errors import ConfigError
+from daemon.intake.crew import WHAT as CREW_SOURCES
 from daemon.outlets.outbox import DEFAULT_MAX_QUEUED
 from estimators.params import check, param
 
@@ -301,6 +302,9 @@ def _inputs(table: Any, where: str) -> dict[str, InputConfig]:
         raise ConfigError(f"{where}: [inputs] must hold one table per input, e.g. [inputs.gps]")
     inputs = {}
     for name, values in table.items():
+        if name in CREW_SOURCES:  # a recording replays that source's lines as what the crew said over MQTT
+            raise ConfigError(f"{where}: [inputs.{name}] the name {name!r} is reserved for "
+                              f"{CREW_SOURCES[name]}: give this input another name")
         cfg = fill(InputConfig, values, f"{where}: [inputs.{name}]")
         for problem in input_problems(cfg)[:1]:
             raise ConfigError(f"{where}: [inputs.{name}] {problem}")

@@ -26,8 +26,9 @@ from collections.abc import Callable, Iterable, Sequence
 from typing import Any
 
 from daemon.core.payloads import iso_utc, payload as make_payload
-from daemon.core.readings import Message, RawLine, Reading, Sink
-from daemon.intake.swell import parse_swell
+from daemon.core.readings import Acknowledgement, Message, RawLine, Reading, Sink
+from daemon.intake.acks import ack_items
+from daemon.intake.swell import parse_swell, swell_items
 from estimators.base import Condition, Distrust, Publication
 from estimators.runner import Runner
 from estimators.samples import kind_of
@@ -56,8 +57,14 @@ class Pipeline:
 
     # -- the doorway -------------------------------------------------------
 
-    def feed(self, item: RawLine | Reading) -> None:
-        self._run_commands()
+    def feed(self, item: RawLine | Reading | Acknowledgement) -> None:
+        self._run_commands(item.sample.t_s if isinstance(item, Reading) else item.t_s)
+        self._take(item)
+
+    def _take(self, item: RawLine | Reading | Acknowledgement) -> None:
+        if isinstance(item, Acknowledgement):  # a recorded one, replayed: the alert manager's, as live
+            self._emit_all(self.alerts.acknowledge(item.alert_id, item.t_s))
+            return
         if isinstance(item, RawLine):
             if self.counters is not None:
                 self.counters.take((item,))
@@ -78,7 +85,7 @@ class Pipeline:
 
     def tick(self, t_s: float) -> None:
         """Wall-clock tick from ``run``: data time cannot stand still when feeds fall silent."""
-        self._run_commands()
+        self._run_commands(t_s)
         self._advance(t_s)
 
     def condition(self, cond: Condition) -> None:
@@ -91,7 +98,7 @@ class Pipeline:
         self._emit_all(self.alerts.republish(t_s))
 
     def close(self) -> None:
-        self._run_commands()
+        self._run_commands(None)
         if self.now_s is not None:
             self._publish_status(self.now_s)
         for sink in self.sinks:
@@ -108,13 +115,19 @@ class Pipeline:
         self._commands.put(("ack", (alert_id, reply)))
 
     def report_swell(self, payload: bytes) -> str:
-        """Thread-safe: a swell report (``daemon.intake.swell``) for the estimators; returns why it was refused."""
+        """Thread-safe: a swell report (``daemon.intake.swell``); returns why it was refused.
+
+        An accepted one is fed in the loop as an input (a raw line the recorder keeps and a ``Swell``
+        reading), stamped with the data time of that moment, so a replay of the recording repeats it.
+        """
         report, why = parse_swell(payload)
         if report is not None:
             self._commands.put(("swell", report))
         return why
 
-    def _run_commands(self) -> None:
+    def _run_commands(self, t_next: float | None) -> None:
+        """The queued commands, in the loop. ``t_next``: the data time of what comes next, which stamps a
+        report that came before any data (a retained one comes at connect); None at close."""
         if self._commands.empty():  # the common case, on every item: no exception raised and caught
             return
         while True:
@@ -122,13 +135,17 @@ class Pipeline:
                 cmd, arg = self._commands.get_nowait()
             except queue.Empty:
                 return
-            if cmd == "swell":  # a state, kept even before the first data (a retained report comes first)
-                for est in self.estimators:
-                    if hasattr(est, "set_swell"):
-                        est.set_swell(arg.period_s, arg.from_deg)
+            if cmd == "swell":
+                t = self.now_s if self.now_s is not None else t_next
+                if t is None:
+                    continue  # closing without any data: nothing for it to change
+                for item in swell_items(arg, t):  # through the doorway, as a replay will feed it
+                    self._take(item)
             elif cmd == "ack":
                 alert_id, reply = arg
                 changes = self.alerts.acknowledge(alert_id, self.now_s) if self.now_s is not None else []
+                if changes:  # kept as an input (daemon.intake.acks): a replay of the recording repeats it
+                    self._take(ack_items(alert_id, self.now_s)[0])
                 self._emit_all(changes)
                 if reply is not None:
                     reply(alert_id, bool(changes))

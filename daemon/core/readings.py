@@ -30,6 +30,15 @@ class RawLine:
 
 
 @dataclass(frozen=True, slots=True)
+class Acknowledgement:
+    """The crew acknowledged alert ``alert_id`` at data time ``t_s`` (``daemon.intake.acks``)."""
+
+    source: str
+    t_s: float
+    alert_id: str
+
+
+@dataclass(frozen=True, slots=True)
 class Reading:
     """One plausible measurement from one source, stamped with data time in ``sample.t_s``."""
 

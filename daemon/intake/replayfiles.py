@@ -8,7 +8,8 @@ Each file gets its own Ingest (source name: the file name without ``.gz`` and
 its last suffix), read in 64 KiB chunks, flushed at its end. A recording holds
 the lines of several inputs: each stored source gets its own Ingest under its
 stored name, fed line by line with the stored times, so replaying a recording
-decides exactly as the run that made it. The items of several files are
+decides exactly as the run that made it; what the crew said over MQTT (swell
+reports, acknowledgements: ``daemon.intake.crew``) becomes the same items again. The items of several files are
 merged in data-time order; each file's own items keep the order its Ingest
 gave them.
 """
@@ -28,7 +29,8 @@ from typing import IO, Any
 
 from daemon.errors import InputError
 from daemon.outlets.recorder import SQLITE_MAGIC, is_recording_header
-from daemon.core.readings import RawLine, Reading
+from daemon.core.readings import Acknowledgement, RawLine, Reading
+from daemon.intake.crew import REPLAYERS
 
 log = logging.getLogger(__name__)
 
@@ -36,13 +38,13 @@ CHUNK_BYTES = 64 * 1024
 GZIP_MAGIC = b"\x1f\x8b"                  # RFC 1952, ID1 ID2
 FILE_RECV_UTC = None  # a text file has no receive times: the Ingest takes data time instead
 
-Item = RawLine | Reading
+Item = RawLine | Reading | Acknowledgement
 Progress = Callable[[int, int], None]
 
 
 def item_time(item: Item) -> float:
     """Data time of an item, UNIX seconds."""
-    return item.t_s if isinstance(item, RawLine) else item.sample.t_s
+    return item.sample.t_s if isinstance(item, Reading) else item.t_s
 
 
 def detect_format(path: str | Path) -> str:
@@ -170,6 +172,10 @@ def _iter_recording(index: int, path: Path, size: int,
     step = max(1, n_total // 200)
     try:
         for n, line in enumerate(iter_raw(path), start=1):
+            crew = REPLAYERS.get(line.source)
+            if crew is not None:  # the crew's swell report or acknowledgement: JSON, not NMEA (daemon.intake.crew)
+                yield from crew(line)
+                continue
             ingest = ingests.get(line.source)
             if ingest is None:
                 ingest = ingests[line.source] = make_ingest(line.source)

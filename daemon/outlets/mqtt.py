@@ -58,6 +58,7 @@ from daemon.outlets.outbox import Outbox, Outgoing
 from daemon.core.config import MqttSettings, mask_url_password, mqtt_problems
 from daemon.core.payloads import clean, iso_utc
 from daemon.core.readings import Message, RawLine
+from daemon.intake.acks import valid_alert_id
 
 log = logging.getLogger(__name__)
 
@@ -194,7 +195,7 @@ def parse_ack(payload: bytes) -> tuple[str | None, str]:
     alert_id = doc.get("id")
     if not isinstance(alert_id, str):
         return None, "no string field 'id'"
-    if not alert_id or len(alert_id) > 128 or not alert_id.isprintable() or any(c in alert_id for c in "+#"):
+    if not valid_alert_id(alert_id):
         return None, "'id' is empty, too long or has unprintable or wildcard characters"
     return alert_id, ""
 

@@ -107,6 +107,7 @@ from daemon import __version__
 from daemon.errors import InputError, OutputError
 from daemon.nmea0183.codec import has_tag_block, split_tag, tag_block
 from daemon.core.readings import Message, RawLine
+from daemon.intake.crew import REPLAYERS as CREW_SOURCES
 from estimators.params import param
 
 log = logging.getLogger("offwatch.recorder")
@@ -1179,12 +1180,15 @@ def export_tag_nmea(db_path: str | Path, out_path: str | Path) -> int:
     A line that already carries a TAG block is written as stored, byte for
     byte (so a recording of a TAG-block file exports as that file). Every other
     line gets ``\\c:<ms>,s:<source>*hh\\`` in front: the data time to the
-    millisecond and the source, the stored line unchanged after it.
+    millisecond and the source, the stored line unchanged after it. What the crew said over MQTT
+    (``daemon.intake.crew``: JSON, not NMEA) is left out: it stays in the recording.
     """
     n = 0
     try:
         with open(out_path, "w", encoding="utf-8", errors="surrogateescape", newline="") as out:
             for line in iter_raw(db_path):
+                if line.source in CREW_SOURCES:
+                    continue
                 if has_tag_block(line.text):
                     out.write(line.text + "\r\n")
                 else:

@@ -11,7 +11,7 @@ from estimators.samples import Sample
 
 from .boat import TRUTH_FIELDS, HelmModel, Leg, sail_track
 from .ocean import CurrentBand, Front, Ocean
-from .sensors import SensorSpec, TruthInterpolator, sense
+from .sensors import GustyAir, SensorSpec, TruthInterpolator, sense
 
 
 @dataclass(frozen=True)
@@ -99,7 +99,9 @@ class SimEvent:
 class SimRun:
     """One seeded run: the truth (numpy structured array, fields ``TRUTH_FIELDS``,
     one row every ``scenario.truth_dt_s``), the sensor samples in time order,
-    the scenario's checkable events, and the magnetic variation used (east +)."""
+    the scenario's checkable events, the magnetic variation used (east +), and
+    the gusty air the vane measured (``air``: the true wind over the water with its
+    gusts, at each vane time; the truth rows hold the wind without gusts)."""
 
     scenario: Scenario
     seed: int
@@ -108,6 +110,7 @@ class SimRun:
     events: tuple[SimEvent, ...]
     variation_deg: float
     _interp: TruthInterpolator = field(repr=False, compare=False, default=None)
+    air: GustyAir | None = field(repr=False, compare=False, default=None)
 
     def truth_at(self, t_s: float) -> TruthRow:
         """The truth interpolated at ``t_s`` (angles the short way round; motoring/leg from the row before)."""
@@ -128,6 +131,35 @@ class SimRun:
     def samples_of(self, kind: type) -> list[Sample]:
         return [s for s in self.samples if type(s) is kind]
 
+    def gusty_wind_mean(self, t_s: float, window_s: float) -> tuple[float, float]:
+        """(from_deg, kn) of the true wind over the water, gusts included, averaged as vectors over
+        (t - window, t]: what a mean wind over that window is (WMO-No. 8's block average)."""
+        a = self.air
+        i, j = np.searchsorted(a.t_s, [t_s - window_s, t_s], side="right")
+        j = max(j, i + 1)
+        e, n = float(a.east_kn[i:j].mean()), float(a.north_kn[i:j].mean())
+        return float(np.mod(np.degrees(np.arctan2(-e, -n)), 360.0)), math.hypot(e, n)
+
+    def gusty_wind_gust(self, t_s: float, window_s: float, average_s: float = 3.0) -> float:
+        """The highest ``average_s`` running vector-mean speed of the gusty true wind over the water in
+        (t - window, t], kn (WMO-No. 8's gust: the highest 3-s mean of the reporting period)."""
+        speeds = self._gust_speeds(average_s)
+        i, j = np.searchsorted(self.air.t_s, [t_s - window_s, t_s], side="right")
+        return float(speeds[i:max(j, i + 1)].max())
+
+    def _gust_speeds(self, average_s: float) -> np.ndarray:
+        """The speed of the running vector mean over (t - average_s, t] at every vane time (cached)."""
+        cache = self.__dict__.setdefault("_gusts", {})  # a frozen dataclass: kept beside its fields
+        if average_s not in cache:
+            a = self.air
+            ce = np.concatenate(([0.0], np.cumsum(a.east_kn)))
+            cn = np.concatenate(([0.0], np.cumsum(a.north_kn)))
+            hi = np.arange(1, a.t_s.size + 1)
+            lo = np.searchsorted(a.t_s, a.t_s - average_s, side="right")
+            count = hi - lo
+            cache[average_s] = np.hypot((ce[hi] - ce[lo]) / count, (cn[hi] - cn[lo]) / count)
+        return cache[average_s]
+
 
 def magnetic_variation_deg(lat: float, lon: float, t_s: float) -> float:
     """Declination (east +) from the World Magnetic Model (pygeomag), at sea level."""
@@ -143,11 +175,11 @@ def simulate(scenario: Scenario, seed: int) -> SimRun:
     yaw_phases = (float(rng.uniform(0, 2 * math.pi)), float(rng.uniform(0, 2 * math.pi)))
     truth = sail_track(scenario.ocean, scenario.helm, scenario.start_utc, scenario.duration_s,
                        scenario.start_lat, scenario.start_lon, scenario.boat, scenario.truth_dt_s, yaw_phases)
-    samples = sense(truth, scenario.sensors, rng)
+    samples, air = sense(truth, scenario.sensors, rng)
     var = scenario.variation_deg
     if var is None:
         var = round(magnetic_variation_deg(scenario.start_lat, scenario.start_lon, scenario.start_utc), 1)
-    run = SimRun(scenario, seed, truth, samples, find_events(scenario, truth), var)
+    run = SimRun(scenario, seed, truth, samples, find_events(scenario, truth), var, air=air)
     object.__setattr__(run, "_interp", TruthInterpolator(truth))
     return run
 

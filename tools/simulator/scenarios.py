@@ -207,7 +207,10 @@ def wind_over_current(current: str = "against") -> Scenario:
     ``current``: "against" (the band sets 000, into the wind), "with" (it sets 180,
     downwind) or "none" (no band). A 20-min run south first calibrates the log
     (4 % low) and the compass (2° high). The band's water is 4 °C warmer than
-    the 16 °C outside, the air 14.5 °C: unstable air in the band only.
+    the 16 °C outside, the air 14.5 °C: unstable air in the band only. The
+    instruments are the realistic small boat's (``realistic``: the hull yaws
+    and surges in the waves, the log and compass noise is correlated, the fix
+    arrives late), the gusts 15 % with an 8-s time scale.
     """
     t0, lat, lon = utc(2026, 5, 9, 5), 38.40, -44.70
     set_deg = {"against": 0.0, "with": 180.0, "none": 0.0}[current]
@@ -225,7 +228,7 @@ def wind_over_current(current: str = "against") -> Scenario:
         name=f"wind_over_current_{current}", start_utc=t0, duration_s=3 * H, start_lat=lat, start_lon=lon,
         helm=(Steer(90.0, 6.5, 25 * MIN), Steer(180.0, 6.5, 20 * MIN), Steer(90.0, 6.5, 135 * MIN)),
         ocean=ocean,
-        sensors=SensorSpec(stw_scale=0.96, heading_offset_deg=2.0),
+        sensors=realistic(stw_scale=0.96, heading_offset_deg=2.0),  # wave yaw and surge, correlated noise, latency
         description=f"Reaching east in 20 kn from the north across a 4.5-kn current band, wind {current} current.",
     )
 

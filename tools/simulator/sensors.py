@@ -23,7 +23,12 @@ Error models (all seeded through one ``numpy.random.Generator``):
   quantisation to the sentence's resolution;
 - wind vane: apparent wind with angle noise and correlated gusts; the
   instrument's own "true wind" (wind over water) computed from its apparent
-  wind, the log and the compass, so it carries their errors, as real ones do;
+  wind, the log and the compass, so it carries their errors, as real ones do.
+  The gusts are the air's, not the instrument's: the gusty apparent wind
+  (before the vane's angle noise and the hull's yaw) plus the boat's true
+  velocity through the water is the true wind over the water, gusts included,
+  kept at each vane time as ``GustyAir`` (what a perfect instrument's true
+  wind would average; the truth a 10-minute mean and a gust are judged by);
 - sounder, heel sensor, air thermometer: truth + noise;
 - every kind: independent dropouts with probability ``dropout_prob`` a sample.
 
@@ -211,6 +216,16 @@ class WaveMotion:
         return self._sum(t, self.surge_phase, self.surge_amp)
 
 
+@dataclass(frozen=True)
+class GustyAir:
+    """The true wind over the water, gusts included, at each vane time (UNIX s; air velocity
+    *toward*, east and north, kn): the air the simulated vane measured, without its errors."""
+
+    t_s: np.ndarray
+    east_kn: np.ndarray
+    north_kn: np.ndarray
+
+
 class _Sensors:
     def __init__(self, truth: np.ndarray, spec: SensorSpec, rng: np.random.Generator) -> None:
         self.at = TruthInterpolator(truth)
@@ -220,6 +235,7 @@ class _Sensors:
         self.dur = float(truth["t_s"][-1] - truth["t_s"][0])
         # drawn only when switched on, so a spec without waves keeps its random sequence
         self.waves = WaveMotion(spec, rng) if (spec.wave_yaw_deg or spec.surge_kn) else None
+        self.air: GustyAir | None = None  # made with the vane's readings (``wind``)
 
     def wave_yaw_deg(self, t: np.ndarray) -> np.ndarray | float:
         return self.waves.yaw_deg(t) if self.waves is not None else 0.0
@@ -320,6 +336,7 @@ class _Sensors:
         awa = awa - self.wave_yaw_deg(t)  # the vane swings with the hull: the bow turns toward the wind by the yaw
         gust = gauss_markov(self.rng, t.size, 1.0 / s.wind_hz, s.gust_intensity, s.wind_gust_tau_s)
         aws = np.clip(self.at("apparent_wind_kn", t) * (1.0 + gust), 0.0, None)
+        self.air = self.gusty_air(t, aws)
         awa = np.mod(awa, 360.0)
         # the instrument's wind over water: apparent + the boat's own motion (its log, its compass)
         log = np.interp(t, stw_t, stw)
@@ -334,6 +351,14 @@ class _Sensors:
         out += [WaterWind(float(a) + 0.01, round(float(b), 2), round(wrap_360(float(c) + float(d)), 1), round(float(c), 1))
                 for a, b, c, d in zip(t[k], tws[k], twa[k], hdg[k])]
         return out
+
+    def gusty_air(self, t: np.ndarray, aws: np.ndarray) -> GustyAir:
+        """air/water = apparent + boat/water: the gusty apparent wind along its true angle off the
+        true heading (toward = from + 180), plus the true water velocity (leeway included)."""
+        toward = np.radians(self.at("heading_true_deg", t) + self.at("apparent_wind_angle_deg", t) + 180.0)
+        east = aws * np.sin(toward) + self.at("water_east_kn", t)
+        north = aws * np.cos(toward) + self.at("water_north_kn", t)
+        return GustyAir(t, east, north)
 
     def depth(self) -> list[Sample]:
         s = self.spec
@@ -350,8 +375,8 @@ class _Sensors:
         return [Attitude(float(a), round(float(b), 1), None) for a, b in zip(t[k], h[k])]
 
 
-def sense(truth: np.ndarray, spec: SensorSpec, rng: np.random.Generator) -> list[Sample]:
-    """All sensor samples of a true track, in time order."""
+def sense(truth: np.ndarray, spec: SensorSpec, rng: np.random.Generator) -> tuple[list[Sample], GustyAir]:
+    """All sensor samples of a true track, in time order, and the gusty air the vane measured."""
     sensors = _Sensors(truth, spec, rng)
     head_t, head = sensors.headings()
     stw_t, stw = sensors.water_speed()
@@ -366,4 +391,4 @@ def sense(truth: np.ndarray, spec: SensorSpec, rng: np.random.Generator) -> list
     samples += sensors.depth()
     samples += sensors.attitude()
     samples.sort(key=lambda x: x.t_s)  # stable: equal times keep the order above
-    return samples
+    return samples, sensors.air
