@@ -144,7 +144,7 @@ class HeadingIntegrity(EstimatorBase):
             if turn_hdg > p.follow_ratio * turn_cog:
                 continue
             if self._lone(tracks[i - 1][1] if i else tracks[i + 1][1], cog0, tracks[i + 1][1]):
-                continue  # one multipath COG is no place to measure a turn from
+                continue  # one multipath COG is no place to measure a turn from (asked only past the turn test)
             # a turn builds up: the fix before already shows half of it, the same way (one multipath COG does not)
             turn_before = wrap_180(before - cog0) if before is not None else 0.0
             if turn_before * signed_turn <= 0 or abs(turn_before) < 0.5 * turn_cog:
