@@ -27,6 +27,7 @@ bench: $(STAMP)
 	$(BIN)/python -m tools.bench.faults
 	$(BIN)/python -m tools.bench.watch
 	$(BIN)/python -m tools.bench.handoffs
+	$(BIN)/python -m tools.bench.live
 
 clean:
 	rm -rf $(VENV) demo-out

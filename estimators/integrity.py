@@ -130,13 +130,21 @@ class HeadingIntegrity(EstimatorBase):
         matches = []
         tracks = list(self._tracks)
         before = tracks[-2][1] if len(tracks) >= 2 else None  # the fix before this one's COG
+        # the cheapest test first: on a straight leg no earlier fix is a turn away, and the loop ends there
+        fmod = math.fmod
         for i, (t0, cog0, heading0) in enumerate(tracks[:-1]):
-            if self._lone(tracks[i - 1][1] if i else tracks[i + 1][1], cog0, tracks[i + 1][1]):
-                continue  # one multipath COG is no place to measure a turn from
-            signed_turn = wrap_180(cog - cog0)
-            turn_cog, turn_hdg = abs(signed_turn), abs(wrap_180(heading_now - heading0))
-            if turn_cog < p.turn_deg or turn_hdg > p.follow_ratio * turn_cog:
+            d = fmod(cog - cog0 + 180.0, 360.0)  # signed_turn = wrap_180(cog - cog0), written out: the hot loop
+            if d < 0.0:
+                d += 360.0
+            signed_turn = (0.0 if d >= 360.0 else d) - 180.0
+            turn_cog = abs(signed_turn)
+            if turn_cog < p.turn_deg:
                 continue
+            turn_hdg = abs(wrap_180(heading_now - heading0))
+            if turn_hdg > p.follow_ratio * turn_cog:
+                continue
+            if self._lone(tracks[i - 1][1] if i else tracks[i + 1][1], cog0, tracks[i + 1][1]):
+                continue  # one multipath COG is no place to measure a turn from (asked only past the turn test)
             # a turn builds up: the fix before already shows half of it, the same way (one multipath COG does not)
             turn_before = wrap_180(before - cog0) if before is not None else 0.0
             if turn_before * signed_turn <= 0 or abs(turn_before) < 0.5 * turn_cog:

@@ -412,7 +412,7 @@ class PositionEstimator(EstimatorBase):
             return True  # nothing to compare with, or back from an outage: GNSS beats reckoning
         dt = fix.t_s - prev.t_s
         allowed = p.max_jump_kn * KN_TO_MPS * dt + 3.0 * (self._fix_sigma_m + self._sigma_of(fix))
-        if _distance_m(prev.lat_deg, prev.lon_deg, fix.lat_deg, fix.lon_deg) > allowed \
+        if _farther_than(prev.lat_deg, prev.lon_deg, fix.lat_deg, fix.lon_deg, allowed) \
                 and self._jump_rejects < p.max_jump_rejects:
             self._jump_rejects += 1
             self.health.rejected_jump += 1
@@ -556,6 +556,29 @@ class PositionEstimator(EstimatorBase):
 
 def _distance_m(lat1: float, lon1: float, lat2: float, lon2: float) -> float:
     return _GEOD.Inverse(lat1, lon1, lat2, lon2, Geodesic.DISTANCE)["s12"]
+
+
+# c = a^2 / b = a / sqrt(1 - e^2): the largest radius of curvature of the WGS84 ellipsoid (at the poles).
+_POLAR_CURVATURE_M = _GEOD.a / math.sqrt(1.0 - _GEOD.f * (2.0 - _GEOD.f))
+
+
+def distance_upper_bound_m(lat1: float, lon1: float, lat2: float, lon2: float) -> float:
+    """An upper bound of the geodesic distance, cheap: the length of a path along the meridian, then
+    along the parallel of lat2. The meridian's radius of curvature M and the prime vertical's N are
+    both at most c (M = a(1-e^2)/W^3, N = a/W, W = sqrt(1 - e^2 sin^2 lat): the ellipsoid's radii of
+    curvature, written from memory; tests/test_position.py checks the bound against geographiclib), so
+    that path is at most c (|dlat| + cos(lat2) |dlon|), and the geodesic, the shortest, no longer."""
+    dlon = abs(lon2 - lon1) % 360.0
+    dlon = min(dlon, 360.0 - dlon)
+    return _POLAR_CURVATURE_M * (abs(math.radians(lat2 - lat1)) + math.cos(math.radians(lat2)) * math.radians(dlon))
+
+
+def _farther_than(lat1: float, lon1: float, lat2: float, lon2: float, limit_m: float) -> bool:
+    """Whether the geodesic distance exceeds ``limit_m``: the exact geodesic (geographiclib) only when
+    the bound does not settle it (a fix a second apart is metres away, the limit tens of metres)."""
+    if distance_upper_bound_m(lat1, lon1, lat2, lon2) * (1.0 + 1e-9) < limit_m:  # 1e-9: rounding of the bound
+        return False
+    return _distance_m(lat1, lon1, lat2, lon2) > limit_m
 
 
 def _finite(v: Any) -> bool:

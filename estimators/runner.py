@@ -122,7 +122,9 @@ class Runner:
                 out += self._take(est.step(sample, self.ctx))
         return out
 
-    def _take(self, outputs: Iterable[Output]) -> list[Output]:
+    def _take(self, outputs: Iterable[Output]) -> Sequence[Output]:
+        if not outputs and isinstance(outputs, (tuple, list)):  # most steps say nothing: nothing to note
+            return outputs
         outs = self.ctx.note(outputs)
         for o in outs:
             if isinstance(o, Distrust):

@@ -102,6 +102,7 @@ import math
 from collections import deque
 from collections.abc import Sequence
 from dataclasses import dataclass
+from itertools import islice
 from typing import Any
 
 from estimators.angles import KN_TO_MPS, from_east_north, to_east_north, wrap_180, wrap_360
@@ -221,7 +222,8 @@ def true_wind(apparent_air: tuple[float, float], boat_water: tuple[float, float]
 
 def _mean(vecs: Sequence[tuple[float, float]]) -> tuple[float, float]:
     n = len(vecs)
-    return sum(v[0] for v in vecs) / n, sum(v[1] for v in vecs) / n
+    # sum() of a list, in order: the same figures as a generator's, without a frame per item
+    return sum([v[0] for v in vecs]) / n, sum([v[1] for v in vecs]) / n
 
 
 def _along(current: tuple[float, float], toward_deg: float) -> float:
@@ -242,6 +244,13 @@ class SeaStateEstimator(EstimatorBase):
         self.hull = hull or CurrentParams()
         self._leeway = 0.0  # the last interval's leeway, deg
         self._epochs: deque[WindEpoch] = deque()
+        # the epochs' water and ground winds beside them, in the same order: the window's vectors are a
+        # slice of these (copied in C) rather than a walk over the epochs for each publication
+        self._waters: deque[tuple[float, float]] = deque()
+        self._grounds: deque[tuple[float, float] | None] = deque()
+        # neighbours in the deque out of time order (a sample stepped late can close an epoch older than
+        # the last one): while there are any, the window is found by testing every epoch, as it always was
+        self._inversions = 0
         self._gust_speeds: deque[tuple[float, float]] = deque()  # (t, 3-s mean speed), descending speeds
         self._t_epoch: float | None = None
         self._t_pub: float | None = None
@@ -296,12 +305,13 @@ class SeaStateEstimator(EstimatorBase):
             return
         source = self._source(t1)
         current = self._current(ctx)
-        boat = self._boat(t0, t1, ctx, current, ground_sample)
+        heads = ctx.history.between(Heading, t0 - HEADING_MAX_AGE_S, t1)  # asked once, used by each step below
+        boat = self._boat(t0, t1, ctx, current, ground_sample, heads)
         epoch = None
         if source == "apparent":
-            epoch = self._apparent_epoch(t0, t1, ctx, boat)
+            epoch = self._apparent_epoch(t0, t1, ctx, boat, heads)
         elif source == "instrument":
-            epoch = self._instrument_epoch(t0, t1, ctx, boat, current)
+            epoch = self._instrument_epoch(t0, t1, ctx, boat, current, heads)
         if epoch is not None:
             self._add_epoch(epoch)
 
@@ -310,13 +320,11 @@ class SeaStateEstimator(EstimatorBase):
         return dict(pub.payload) if pub is not None else None
 
     def _boat(self, t0: float, t1: float, ctx: Context, current: dict[str, Any] | None,
-              ground_sample: Fix | GroundVelocity | None) -> Boat:
+              ground_sample: Fix | GroundVelocity | None, heads: list[Heading]) -> Boat:
         k, d = 1.0, 0.0
         if current is not None and current.get("stw_scale") is not None:
             k, d = float(current["stw_scale"]), float(current.get("heading_offset_deg") or 0.0)
-        hist = ctx.history
-        heads = hist.between(Heading, t0 - HEADING_MAX_AGE_S, t1)
-        logs = hist.between(WaterSpeed, t0 - LOG_MAX_AGE_S, t1)
+        logs = ctx.history.between(WaterSpeed, t0 - LOG_MAX_AGE_S, t1)
         water = None
         if heads and logs:
             # the heading's circular mean over the interval (as unit vectors), the log's mean, calibrated
@@ -324,7 +332,7 @@ class SeaStateEstimator(EstimatorBase):
                            [to_east_north(1.0, heads[-1].true_deg + d)])
             in_interval = [w.speed_kn for w in logs if w.t_s > t0] or [logs[-1].speed_kn]
             stw = k * sum(in_interval) / len(in_interval)  # true STW = stw_scale x log
-            heels = [a.heel_deg for a in hist.between(Attitude, t0, t1) if a.heel_deg is not None]
+            heels = [a.heel_deg for a in ctx.history.between(Attitude, t0, t1) if a.heel_deg is not None]
             lam = leeway_deg(self.hull, sum(heels) / len(heels) if heels else None, stw)
             _, track = from_east_north(ue, un)
             water = to_east_north(stw, track + lam)  # along the water track: heading + offset + leeway
@@ -336,11 +344,10 @@ class SeaStateEstimator(EstimatorBase):
             ground = (water[0] + current["east_kn"], water[1] + current["north_kn"])
         return Boat(water, ground, k, d)
 
-    def _apparent_epoch(self, t0: float, t1: float, ctx: Context, boat: Boat) -> WindEpoch | None:
+    def _apparent_epoch(self, t0: float, t1: float, ctx: Context, boat: Boat, heads: list[Heading]) -> WindEpoch | None:
         if boat.water is None:
             return None
         winds = ctx.history.between(ApparentWind, t0, t1)
-        heads = ctx.history.between(Heading, t0 - HEADING_MAX_AGE_S, t1)
         if not winds or not heads:
             return None
         times = [h.t_s for h in heads]
@@ -356,9 +363,8 @@ class SeaStateEstimator(EstimatorBase):
         return WindEpoch(t1, water, ground, "apparent")
 
     def _instrument_epoch(self, t0: float, t1: float, ctx: Context, boat: Boat,
-                          current: dict[str, Any] | None) -> WindEpoch | None:
+                          current: dict[str, Any] | None, heads: list[Heading]) -> WindEpoch | None:
         winds = ctx.history.between(WaterWind, t0, t1)
-        heads = ctx.history.between(Heading, t0 - HEADING_MAX_AGE_S, t1)
         vecs = []
         for w in winds:
             if w.from_true_deg is not None:
@@ -376,10 +382,18 @@ class SeaStateEstimator(EstimatorBase):
     def _add_epoch(self, epoch: WindEpoch) -> None:
         self.epochs_made += 1
         p = self.params
+        if self._epochs and epoch.t_s <= self._epochs[-1].t_s:
+            self._inversions += 1
         self._epochs.append(epoch)
+        self._waters.append(epoch.water)
+        self._grounds.append(epoch.ground)
         while self._epochs and self._epochs[0].t_s < epoch.t_s - max(p.mean_window_s, GUST_AVERAGE_S):
-            self._epochs.popleft()
-        recent = [e.water for e in self._epochs if e.t_s > epoch.t_s - GUST_AVERAGE_S]
+            gone = self._epochs.popleft()
+            self._waters.popleft()
+            self._grounds.popleft()
+            if self._epochs and self._epochs[0].t_s <= gone.t_s:
+                self._inversions -= 1
+        recent = self._recent_water(epoch.t_s - GUST_AVERAGE_S)
         speed = math.hypot(*_mean(recent))
         q = self._gust_speeds
         while q and q[-1][1] <= speed:  # a monotone queue: the front is the window's maximum
@@ -388,23 +402,54 @@ class SeaStateEstimator(EstimatorBase):
         while q[0][0] < epoch.t_s - p.gust_window_s:
             q.popleft()
 
-    def _mean_wind(self, t: float, ground: bool) -> MeanWind | None:
+    def _recent_water(self, after_s: float) -> list[tuple[float, float]]:
+        """The water winds of the epochs after ``after_s``, oldest first (epochs come in time order,
+        so they are the deque's tail: walked from the newest instead of over the whole window)."""
+        if self._inversions:
+            return [e.water for e in self._epochs if e.t_s > after_s]
+        recent = []
+        for e in reversed(self._epochs):
+            if e.t_s <= after_s:
+                break
+            recent.append(e.water)
+        recent.reverse()
+        return recent
+
+    def _window(self, t: float, vectors: deque) -> list:
+        """The ``vectors`` (waters or grounds) of the epochs inside the mean window ending at ``t``, oldest
+        first: in time order the epochs before it are a few at the deque's head, so the rest is a slice."""
+        after_s = t - self.params.mean_window_s
+        if self._inversions:
+            return [v for e, v in zip(self._epochs, vectors) if e.t_s > after_s]
+        old = 0
+        for e in self._epochs:
+            if e.t_s > after_s:
+                break
+            old += 1
+        return list(islice(vectors, old, None))
+
+    def _ground_wind(self, t: float) -> tuple[float, float] | None:
+        """(from_deg, speed) of the mean wind over ground over the window (its spread is not published)."""
+        vecs = [v for v in self._window(t, self._grounds) if v is not None]
+        return wind_from(_mean(vecs)) if vecs else None
+
+    def _mean_wind(self, t: float) -> MeanWind | None:
+        """The mean wind over water over the window, with its sigmas."""
         p = self.params
-        vecs = [(e.ground if ground else e.water) for e in self._epochs if e.t_s > t - p.mean_window_s]
-        vecs = [v for v in vecs if v is not None]
+        vecs = self._window(t, self._waters)
         if not vecs:
             return None
         me, mn = _mean(vecs)
         from_deg, speed = wind_from((me, mn))
         # the spread along and across the mean, as the sigma of a mean of n_eff independent samples
         ue, un = (me / speed, mn / speed) if speed > 1e-6 else (0.0, 1.0)
-        along = [(v[0] - me) * ue + (v[1] - mn) * un for v in vecs]
-        across = [(v[0] - me) * un - (v[1] - mn) * ue for v in vecs]
+        along = [(x - me) * ue + (y - mn) * un for x, y in vecs]
+        across = [(x - me) * un - (y - mn) * ue for x, y in vecs]
         n = len(vecs)
         span = min(p.mean_window_s, t - self._epochs[0].t_s + 1.0)
         n_eff = max(1.0, min(n, span / p.decorrelation_s))
-        s_along = math.sqrt(sum(a * a for a in along) / max(1, n - 1) / n_eff)
-        s_across = math.sqrt(sum(a * a for a in across) / max(1, n - 1) / n_eff)
+        s_along = math.sqrt(sum([a * a for a in along]) / max(1, n - 1) / n_eff)
+        s_across = math.sqrt(sum([a * a for a in across]) / max(1, n - 1) / n_eff)
         sigma_deg = 180.0 if speed < 1e-6 else min(180.0, math.degrees(math.atan2(s_across, speed)))
         return MeanWind(from_deg, speed, s_along, sigma_deg, n)
 
@@ -413,7 +458,7 @@ class SeaStateEstimator(EstimatorBase):
     def _maybe_publish(self, t: float, ctx: Context) -> list[Output]:
         if self._t_pub is not None and t - self._t_pub < self.params.publish_interval_s:
             return []
-        water = self._mean_wind(t, ground=False)
+        water = self._mean_wind(t)
         if water is None:
             return []
         self._t_pub = t
@@ -421,15 +466,15 @@ class SeaStateEstimator(EstimatorBase):
 
     def _publish(self, t: float, ctx: Context, water: MeanWind) -> list[Output]:
         p = self.params
-        ground = self._mean_wind(t, ground=True)
+        ground = self._ground_wind(t)
         current = self._current(ctx)
         depth_m, depth_age = self._depth_now(t)
         payload: dict[str, Any] = {
             "true_wind_from_deg": water.from_deg, "true_wind_kn": water.speed_kn,
             "true_wind_sigma_deg": water.sigma_deg, "true_wind_sigma_kn": water.sigma_kn,
             "true_wind_gust_kn": self._gust_speeds[0][1] if self._gust_speeds else None,
-            "ground_wind_from_deg": ground.from_deg if ground else None,
-            "ground_wind_kn": ground.speed_kn if ground else None,
+            "ground_wind_from_deg": ground[0] if ground else None,
+            "ground_wind_kn": ground[1] if ground else None,
             "wind_source": self._epochs[-1].source if self._epochs else None,
             "wind_mean_s": p.mean_window_s,
             "depth_m": depth_m,

@@ -63,6 +63,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 G = 9.80665  # standard gravity, m/s² (CGPM 1901)
 DEEP_KH = 20.0  # tanh(20) = 1 - 8e-18: deep water for every purpose here
@@ -98,18 +99,20 @@ def bracketed_root(f, lo: float, hi: float, xtol: float = 0.0) -> float:
         return lo
     if f_hi == 0.0:
         return hi
-    if (f_lo > 0.0) == (f_hi > 0.0):
+    lo_positive = f_lo > 0.0  # the sign of f at lo: the same at every lo that follows
+    if lo_positive == (f_hi > 0.0):
         raise ValueError(f"no sign change between {lo!r} and {hi!r}")
     for _ in range(200):
         mid = 0.5 * (lo + hi)
         f_mid = f(mid)
         if f_mid == 0.0:
             return mid
-        if (f_mid > 0.0) == (f_lo > 0.0):
-            lo, f_lo = mid, f_mid
+        if (f_mid > 0.0) == lo_positive:
+            lo = mid
         else:
             hi = mid
-        if hi - lo <= max(xtol, 1e-14 * abs(hi)):
+        tol = 1e-14 * abs(hi)  # max(xtol, 1e-14 |hi|), without the call
+        if hi - lo <= (tol if tol > xtol else xtol):
             break
     return 0.5 * (lo + hi)
 
@@ -131,6 +134,10 @@ def group_speed(k: float, h: float | None) -> float:
     return 0.5 * c * (1.0 + 2.0 * k * h / math.sinh(2.0 * k * h))
 
 
+# Pure functions of (period or current, depth), each a root search in shallow water: a publication asks
+# for the same ones several times (the blocking wavenumber once per period of the band, the peak's k0
+# again for its wavelength), so the last few answers are kept. The same numbers, found once.
+@lru_cache(maxsize=32, typed=True)
 def still_water_wavenumber(period_s: float, h: float | None) -> float:
     """k0 with omega^2 = g k tanh kh, rad/m."""
     omega = 2.0 * math.pi / period_s
@@ -152,6 +159,7 @@ def wavelength_m(period_s: float, h: float | None = None) -> float:
     return 2.0 * math.pi / still_water_wavenumber(period_s, h)
 
 
+@lru_cache(maxsize=32, typed=True)
 def _blocking_wavenumber(opposing_mps: float, h: float | None) -> float | None:
     """k where the relative group speed equals the opposing current (c_g(k) = V); None if V >= sqrt(gh)."""
     v = opposing_mps
@@ -189,7 +197,9 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
     k0 = still_water_wavenumber(period_s, h)
 
     def f(k: float) -> float:  # sigma(k) - (omega - k U): zero at the wave's wavenumber
-        return intrinsic_frequency(k, h) - omega + k * u
+        # intrinsic_frequency(k, h) written out: the root search calls this some fifty times a wave
+        tanh_kh = 1.0 if h is None or k * h > DEEP_KH else math.tanh(k * h)
+        return math.sqrt(G * k * tanh_kh) - omega + k * u
 
     if u == 0.0:  # still water: the input, exactly
         return WaveOnCurrent(period_s, u, h, False, k0, 1.0, 1.0, 1.0)

@@ -17,12 +17,13 @@ import pynmea2
 import pytest
 
 from daemon.nmea0183.codec import (
-    EXTRACTORS, KMH_TO_KN, MPS_TO_KN, MPH_TO_KN, LabelledHeading, Measured, SensorHeading, Variation,
-    WindFromMagnetic, WindOffBow, extract, parse_line,
+    EXTRACTORS, LAYOUTS, KMH_TO_KN, MPS_TO_KN, MPH_TO_KN, LabelledHeading, Measured, SensorHeading, Variation,
+    WindFromMagnetic, WindOffBow, extract, parse_line, place, positions,
 )
 from estimators.samples import (
     AirTemperature, ApparentWind, Depth, Fix, GroundVelocity, Pressure, SeaTemperature, WaterSpeed, WaterWind,
 )
+from tests.helpers import sentence
 from tests.shared import REPO, shared_path
 
 CAPTURES = ("berth-13min-mda-pressure.nmea", "sounder-survey-43min-dpt-mtw.nmea",
@@ -188,3 +189,84 @@ def test_every_hand_parsed_type_has_an_extractor():
     # issue 9: the sentences a boat sends most, parsed by hand
     assert set(EXTRACTORS) >= {"RMC", "GGA", "VTG", "ZDA", "HDG", "HDM", "HDT", "THS", "VHW", "VBW", "MTW",
                                "MDA", "XDR", "MWV", "MWD", "DPT", "DBT"}
+
+
+# Our field name -> pynmea2's name for the same field (its sentence classes' ``fields``): an outside
+# reader's positions for every field of the layout table. Our names where pynmea2 names a field alike.
+PYNMEA2_NAMES = {
+    "RMC": {"time": "timestamp", "sog_kn": "spd_over_grnd", "cog_true": "true_course", "date": "datestamp",
+            "lat_hemi": "lat_dir", "lon_hemi": "lon_dir", "variation": "mag_variation",
+            "variation_hemi": "mag_var_dir", "mode": "mode_indicator"},
+    "GGA": {"time": "timestamp", "lat_hemi": "lat_dir", "lon_hemi": "lon_dir", "quality": "gps_qual",
+            "satellites": "num_sats", "hdop": "horizontal_dil", "altitude_unit": "altitude_units",
+            "geoid_sep": "geo_sep", "geoid_sep_unit": "geo_sep_units", "dgps_age": "age_gps_data",
+            "dgps_station": "ref_station_id"},
+    "GLL": {"lat_hemi": "lat_dir", "lon_hemi": "lon_dir", "time": "timestamp", "mode": "faa_mode"},
+    "VTG": {"cog_true": "true_track", "true_mark": "true_track_sym", "cog_magnetic": "mag_track",
+            "magnetic_mark": "mag_track_sym", "sog_kn": "spd_over_grnd_kts", "kn_unit": "spd_over_grnd_kts_sym",
+            "sog_kmh": "spd_over_grnd_kmph", "kmh_unit": "spd_over_grnd_kmph_sym", "mode": "faa_mode"},
+    "ZDA": {"time": "timestamp", "zone_hours": "local_zone", "zone_minutes": "local_zone_minutes"},
+    "HDG": {"deviation_hemi": "dev_dir", "variation_hemi": "var_dir"},
+    "HDM": {"magnetic_mark": "magnetic"},
+    "HDT": {"true_mark": "hdg_true"},
+    "VHW": {"true_mark": "true", "magnetic_mark": "magnetic", "stw_kn": "water_speed_knots", "kn_unit": "knots",
+            "stw_kmh": "water_speed_km", "kmh_unit": "kilometers"},
+    "VBW": {"water_long_kn": "lon_water_spd", "water_trans_kn": "trans_water_spd",
+            "water_status": "data_validity_water_spd", "ground_long_kn": "lon_grnd_spd",
+            "ground_trans_kn": "trans_grnd_spd", "ground_status": "data_validity_grnd_spd"},
+    "MTW": {"temp": "temperature", "temp_unit": "units"},
+    "MDA": {"inhg": "b_pressure_inch", "inhg_unit": "inches", "bar": "b_pressure_bar", "bar_unit": "bars",
+            "air_temp_unit": "a_celsius", "water_temp_unit": "w_celsius", "dew_point_unit": "d_celsius",
+            "wind_from_true": "direction_true", "true_mark": "true", "wind_from_magnetic": "direction_magnetic",
+            "magnetic_mark": "magnetic", "wind_kn": "wind_speed_knots", "kn_unit": "knots",
+            "wind_mps": "wind_speed_meters", "mps_unit": "meters"},
+    "XDR": {"unit": "units", "name": "id"},
+    "MWV": {"angle": "wind_angle", "speed": "wind_speed", "speed_unit": "wind_speed_units"},
+    "MWD": {"from_true": "direction_true", "true_mark": "true", "from_magnetic": "direction_magnetic",
+            "magnetic_mark": "magnetic", "speed_kn": "wind_speed_knots", "kn_unit": "knots",
+            "speed_mps": "wind_speed_meters", "mps_unit": "meters"},
+    "DBT": {"depth_ft": "depth_feet", "ft_unit": "unit_feet", "depth_m": "depth_meters", "m_unit": "unit_meters",
+            "depth_fathoms": "depth_fathoms", "fathoms_unit": "unit_fathoms"},
+    "DPT": {"depth_m": "depth", "offset_m": "offset", "max_range_m": "range"},
+    "VDR": {"set_true": "deg_t", "true_mark": "true", "set_magnetic": "deg_m", "magnetic_mark": "magnetic",
+            "drift_kn": "current", "kn_unit": "unit_kn"},
+}
+# pynmea2 has no THS or ALR class: their layouts rest on NMEA 0183 v4.10 alone (from memory)
+NOT_IN_PYNMEA2 = {"THS", "ALR"}
+
+
+def test_the_layout_table_has_every_hand_parsed_sentence():
+    assert set(LAYOUTS) == set(EXTRACTORS) | {"VDR", "ALR"}  # and the two the NMEA output writes
+
+
+@pytest.mark.parametrize("key", sorted(set(LAYOUTS) - NOT_IN_PYNMEA2))
+def test_every_field_position_of_the_layout_table_is_pynmea2s(key):
+    # pynmea2's sentence classes list their fields in order (``fields``: (description, name, ...)): the
+    # position of each of our fields must be the position pynmea2 gives the same field
+    theirs = [f[1] for f in pynmea2.TalkerSentence.sentence_types[key].fields]
+    at = positions(key)
+    names = PYNMEA2_NAMES.get(key, {})
+    compared = 0
+    for ours in LAYOUTS[key]:
+        their_name = names.get(ours, ours)
+        if their_name not in theirs:
+            # only fields of later versions than pynmea2 knows: RMC's v4.1 navigational status and VBW's
+            # stern speeds (v3.0) are at the end of the sentence, after every field pynmea2 has
+            assert getattr(at, ours) >= len(theirs), f"{key}.{ours} is not in pynmea2's {theirs}"
+            continue
+        assert getattr(at, ours) == theirs.index(their_name), f"{key}.{ours}"
+        compared += 1
+    assert compared == len(theirs)  # every field pynmea2 knows has its name in the table
+
+
+def test_place_puts_each_field_where_the_table_says_and_pynmea2_reads_it_there():
+    # GIVEN an RMC made by name (as the simulator makes its sentences)
+    fields = place("RMC", time="123519.00", status="A", lat="4807.038", lat_hemi="N", lon="01131.000",
+                   lon_hemi="E", sog_kn="22.4", cog_true="84.4", date="230394", mode="A")
+    # THEN pynmea2 reads each value under its own name, and the fields stop after the last one given
+    m = pynmea2.parse(sentence("GPRMC," + ",".join(fields)))
+    assert (m.status, m.lat, m.lon_dir, m.spd_over_grnd, m.true_course, m.mode_indicator) == \
+        ("A", "4807.038", "E", 22.4, 84.4, "A")
+    assert len(fields) == positions("RMC").mode + 1
+    with pytest.raises(KeyError):
+        place("RMC", speed="1.0")

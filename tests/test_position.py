@@ -277,6 +277,25 @@ def test_a_jumping_fix_is_rejected_but_not_forever():
     assert est.health.rejected_hdop == 1
 
 
+def test_the_cheap_distance_bound_is_never_below_the_geodesic():
+    # GIVEN pairs of points all over the globe, near and far, across the antimeridian and near the poles
+    # THEN the jump check's cheap bound is at least the WGS84 geodesic distance (geographiclib, the
+    # outside reference; the bound decides alone only when it is below the limit), and within 50 %
+    # of it for the metres-apart fixes it is meant for (so it does decide them)
+    from estimators.position import distance_upper_bound_m
+
+    rng = random.Random(9)
+    for _ in range(3000):
+        lat1, lon1 = rng.uniform(-89.9, 89.9), rng.uniform(-180.0, 180.0)
+        step = rng.choice((10.0, 1000.0, 1e6, 1.5e7))
+        g = Geodesic.WGS84.Direct(lat1, lon1, rng.uniform(0.0, 360.0), rng.uniform(0.0, step))
+        exact = Geodesic.WGS84.Inverse(lat1, lon1, g["lat2"], g["lon2"])["s12"]
+        bound = distance_upper_bound_m(lat1, lon1, g["lat2"], g["lon2"])
+        assert bound >= exact * (1.0 - 1e-12)
+        if step == 10.0 and abs(lat1) < 80.0:
+            assert bound <= 1.5 * exact + 1e-6
+
+
 def test_a_fix_without_hdop_takes_the_receivers_latest():
     # GIVEN a GGA-like fix with HDOP 0.9, then RMC-like fixes (no HDOP) a second apart
     from estimators.position import PositionEstimator, PositionParams

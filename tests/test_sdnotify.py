@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import os
 import socket
+import threading
 import uuid
 
 import pytest
@@ -73,6 +74,23 @@ def test_a_vanished_socket_is_not_fatal(tmp_path):
     n = Notifier({"NOTIFY_SOCKET": str(tmp_path / "gone.sock")})
     assert n.ready() is False  # logged once, never raised
     assert n.watchdog() is False
+
+
+def test_a_manager_that_does_not_read_never_stalls_the_sender(listener):
+    # GIVEN a notify socket nobody reads (its queue holds net.unix.max_dgram_qlen datagrams, 10 by default)
+    path, sock = listener
+    n = Notifier({"NOTIFY_SOCKET": path})
+    results: list[bool] = []
+    # WHEN the service sends far more than the queue holds
+    sender = threading.Thread(target=lambda: results.extend(n.status(f"figure {i}") for i in range(500)))
+    sender.start()
+    sender.join(timeout=30)  # a blocking send would hang here for ever
+    # THEN every send returned, the ones that found the queue full dropped (not raised)
+    assert not sender.is_alive()
+    assert len(results) == 500 and results[0] is True and results[-1] is False
+    # AND what was queued is intact, in order
+    assert received(sock) == ["STATUS=figure 0"]
+    n.close()
 
 
 def test_watchdog_interval_is_half_of_watchdog_usec():

@@ -21,6 +21,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from datetime import datetime, timezone
+from functools import lru_cache
 from typing import Any
 
 # What offwatch can and cannot promise: appended to every alert text.
@@ -59,6 +60,7 @@ DEFAULT_DECIMALS = 3  # a float with no rule above: enough to read, never seven 
 MAX_DEPTH = 8         # payloads are shallow; anything deeper is cut (data, never trusted)
 
 
+@lru_cache(maxsize=1024)  # a few dozen field names, asked for with every payload
 def rule_for(name: str) -> int | None:
     """The table's decimals for field ``name``: by name, else by its unit ending; None without a rule."""
     if name in _BY_NAME:
@@ -81,6 +83,10 @@ def decimals_for(name: str, inherited: int | None = None) -> int:
 def clean(value: Any, decimals: int | None = None, depth: int = 0) -> Any:
     """JSON-safe ``value``: floats rounded (no negative zero, non-finite -> None), mappings and
     sequences cleaned field by field (a nested field without its own rule takes its parent's)."""
+    if type(value) is float:  # most of what is published: the test below, taken first
+        if not math.isfinite(value):
+            return None
+        return round(value, DEFAULT_DECIMALS if decimals is None else decimals) + 0.0
     if isinstance(value, bool) or value is None or isinstance(value, (int, str)):
         return value
     if isinstance(value, float):
@@ -100,16 +106,25 @@ def iso_utc(t_s: float) -> str:
     """ISO 8601 UTC with milliseconds and a Z, as every payload's ``time``."""
     ms = int(round(t_s * 1000.0))
     sec, milli = divmod(ms, 1000)
-    stamp = datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S")
-    return f"{stamp}.{milli:03d}Z"
+    return f"{_utc_second(sec)}.{milli:03d}Z"
+
+
+@lru_cache(maxsize=16)  # the messages of one data second share it
+def _utc_second(sec: int) -> str:
+    return datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S")
 
 
 def payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
     """A publication's payload: ``time`` first, then the fields, cleaned."""
     out: dict[str, Any] = {"time": iso_utc(t_s)}
     for k, v in fields.items():
-        if k != "time":
-            out[str(k)] = clean(v, decimals_for(str(k)), 1)
+        if k == "time":
+            continue
+        name = str(k)
+        if type(v) is float:  # clean()'s first case, without the call: most fields are floats
+            out[name] = round(v, decimals_for(name)) + 0.0 if math.isfinite(v) else None
+        else:
+            out[name] = clean(v, decimals_for(name), 1)
     return out
 
 

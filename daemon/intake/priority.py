@@ -96,7 +96,8 @@ class PrioritySelector:
         self._now = max(self._now, t_s)
         seen = self._seen.setdefault(kind, {})
         seen[reading.source] = max(t_s, seen.get(reading.source, t_s))
-        best = self._best_fresh(kind, seen)
+        # one receiver of this kind so far (the common case): it is the best there is
+        best = next(iter(seen)) if len(seen) == 1 else self._best_fresh(kind, seen)
         if best != self._active.get(kind):
             self._switch(kind, best, seen)
         if isinstance(reading.sample, Fix):

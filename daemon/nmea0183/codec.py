@@ -16,8 +16,9 @@ Two steps, both pure:
 
 The hot path is written by hand: the fields are the text between the address
 and the checksum split on commas (no regular expression, no foreign parser), and
-every value is taken by field position, as each ``ext_*`` docstring lays out.
-Field layouts follow NMEA 0183 v4.10, from memory of the standard and checked
+every value is taken by its field's position in one table, ``LAYOUTS`` (sentence ->
+field names in order; positions resolved at import), which the simulator's writer
+also places its fields by. Field layouts follow NMEA 0183 v4.10, from memory of the standard and checked
 against real devices' sentences in the tests (marked where older layouts are
 accepted too). pynmea2 is the tests' oracle: every sentence of these types in
 the real captures and the simulator's output is read by both, field by field
@@ -39,10 +40,12 @@ from __future__ import annotations
 import datetime as dt
 import math
 import re
+from collections import namedtuple
 from collections.abc import Iterable
 from dataclasses import dataclass
 from functools import lru_cache, reduce
 from operator import xor
+from typing import Any
 
 # Plausible ranges: one table for the parser and the estimators.
 from estimators.limits import (
@@ -62,6 +65,68 @@ FATHOM_TO_M = 1.8288  # 6 ft
 INHG_TO_HPA = 33.8639  # 1 inHg = 3386.39 Pa (standard conversion, from memory)
 TAG_MS_THRESHOLD = 1e11  # a TAG c: above this is milliseconds (interface.md)
 _EPOCH_ORDINAL = dt.date(1970, 1, 1).toordinal()
+
+# --- the field layouts ----------------------------------------------------------------
+
+# Sentence -> its fields' names, in order (NMEA 0183 v4.10, from memory of the standard;
+# tests/test_codec_oracle.py checks every position against pynmea2's own field lists).
+# The one table of where a field stands: the parsers below take fields by these names
+# (``_RMC.status``: positions resolved here, at import); the simulator and the NMEA
+# output place the fields of what they write by them (``place``). A ``_unit`` or ``_mark`` field is the
+# letter beside the value before it (N knots, K km/h, T true, M magnetic or metres, ...).
+LAYOUTS: dict[str, tuple[str, ...]] = {
+    "RMC": ("time", "status", "lat", "lat_hemi", "lon", "lon_hemi", "sog_kn", "cog_true", "date",
+            "variation", "variation_hemi", "mode", "nav_status"),  # mode v2.3+, nav_status v4.1
+    "GGA": ("time", "lat", "lat_hemi", "lon", "lon_hemi", "quality", "satellites", "hdop",
+            "altitude", "altitude_unit", "geoid_sep", "geoid_sep_unit", "dgps_age", "dgps_station"),
+    "GLL": ("lat", "lat_hemi", "lon", "lon_hemi", "time", "status", "mode"),  # status, mode: v2.3+
+    "VTG": ("cog_true", "true_mark", "cog_magnetic", "magnetic_mark", "sog_kn", "kn_unit",
+            "sog_kmh", "kmh_unit", "mode"),
+    "ZDA": ("time", "day", "month", "year", "zone_hours", "zone_minutes"),
+    "HDG": ("heading", "deviation", "deviation_hemi", "variation", "variation_hemi"),
+    "HDM": ("heading", "magnetic_mark"),
+    "HDT": ("heading", "true_mark"),
+    "THS": ("heading", "mode"),
+    "VHW": ("heading_true", "true_mark", "heading_magnetic", "magnetic_mark", "stw_kn", "kn_unit",
+            "stw_kmh", "kmh_unit"),
+    "VBW": ("water_long_kn", "water_trans_kn", "water_status", "ground_long_kn", "ground_trans_kn",
+            "ground_status", "stern_water_kn", "stern_water_status", "stern_ground_kn", "stern_ground_status"),
+    "MTW": ("temp", "temp_unit"),
+    "MDA": ("inhg", "inhg_unit", "bar", "bar_unit", "air_temp", "air_temp_unit", "water_temp",
+            "water_temp_unit", "rel_humidity", "abs_humidity", "dew_point", "dew_point_unit",
+            "wind_from_true", "true_mark", "wind_from_magnetic", "magnetic_mark", "wind_kn", "kn_unit",
+            "wind_mps", "mps_unit"),
+    "XDR": ("type", "value", "unit", "name"),  # one transducer; the group of four repeats
+    "MWV": ("angle", "reference", "speed", "speed_unit", "status"),
+    "MWD": ("from_true", "true_mark", "from_magnetic", "magnetic_mark", "speed_kn", "kn_unit",
+            "speed_mps", "mps_unit"),
+    "DBT": ("depth_ft", "ft_unit", "depth_m", "m_unit", "depth_fathoms", "fathoms_unit"),
+    "DPT": ("depth_m", "offset_m", "max_range_m"),  # max_range_m: v3.0+
+    # written only (the NMEA output of daemon/outlets/nmea_tcp.py): the current, and an alert's state
+    "VDR": ("set_true", "true_mark", "set_magnetic", "magnetic_mark", "drift_kn", "kn_unit"),
+    "ALR": ("time", "number", "condition", "acknowledged", "text"),
+}
+
+
+@lru_cache(maxsize=None)  # one per sentence of the table
+def positions(key: str) -> Any:
+    """The sentence's field positions by name (``positions("RMC").status == 1``), a named tuple."""
+    names = LAYOUTS[key]
+    return namedtuple(f"{key}Fields", names)(*range(len(names)))
+
+
+def place(key: str, **values: str) -> list[str]:
+    """A sentence's fields in their places: ``values`` by name, the fields between them empty, up to
+    the last one given (what a talker writes; the fields after it are left off)."""
+    at = positions(key)
+    unknown = set(values) - set(at._fields)
+    if unknown:
+        raise KeyError(f"{key} has no field {sorted(unknown)}")
+    out = [""] * (1 + max(getattr(at, name) for name in values))
+    for name, text in values.items():
+        out[getattr(at, name)] = text
+    return out
+
 
 # --- step 1: the frame of one line -------------------------------------------------
 
@@ -397,18 +462,29 @@ def _sog(x: float | None) -> float | None | bool:
     return x if 0.0 <= x < SOG_MAX_KN else False
 
 
+# each parser's positions, resolved once
+_RMC, _GGA, _GLL, _VTG, _ZDA = (positions(k) for k in ("RMC", "GGA", "GLL", "VTG", "ZDA"))
+_HDG, _HDM, _HDT, _THS = (positions(k) for k in ("HDG", "HDM", "HDT", "THS"))
+_VHW, _VBW, _MTW, _MDA, _XDR = (positions(k) for k in ("VHW", "VBW", "MTW", "MDA", "XDR"))
+_MWV, _MWD, _DBT, _DPT = (positions(k) for k in ("MWV", "MWD", "DBT", "DPT"))
+# VTG as talkers before NMEA 0183 v2.0 wrote it: four numbers, no unit letters (from memory)
+_VTG_UNLABELLED = namedtuple("VTGUnlabelled", ("cog_true", "cog_magnetic", "sog_kn", "sog_kmh"))(0, 1, 2, 3)
+
+
 def ext_rmc(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 RMC: 0 time, 1 status A/V, 2-3 lat, 4-5 lon, 6 SOG kn, 7 COG true,
     8 date ddmmyy, 9-10 variation E/W, 11 mode indicator (v2.3+), 12 navigational status (v4.1)."""
     ex = Extract()
-    if _get(f, 1) != "A" or _get(f, 11) == "N":  # void, or mode N "data not valid" (v4.10 field 12)
+    if _get(f, _RMC.status) != "A" or _get(f, _RMC.mode) == "N":  # void, or mode N "data not valid" (v4.10 field 12)
         ex.drop()  # a void sentence's other fields are often junk (89 deg 60'): not looked at
         return ex
-    tod, day = time_of_day(_get(f, 0)), rmc_date(_get(f, 8))
-    lat, lon = latlon(_get(f, 2), _get(f, 3), True), latlon(_get(f, 4), _get(f, 5), False)
-    sog, cog = _sog(num(_get(f, 6))), direction(_get(f, 7))
+    tod, day = time_of_day(_get(f, _RMC.time)), rmc_date(_get(f, _RMC.date))
+    lat = latlon(_get(f, _RMC.lat), _get(f, _RMC.lat_hemi), True)
+    lon = latlon(_get(f, _RMC.lon), _get(f, _RMC.lon_hemi), False)
+    sog, cog = _sog(num(_get(f, _RMC.sog_kn))), direction(_get(f, _RMC.cog_true))
     # a variation without E/W is no variation (some receivers send "0" and no hemisphere)
-    var = _east(num(_get(f, 9)), _get(f, 10)) if _get(f, 9) and _get(f, 10) in ("E", "W") else None
+    var_text, var_hemi = _get(f, _RMC.variation), _get(f, _RMC.variation_hemi)
+    var = _east(num(var_text), var_hemi) if var_text and var_hemi in ("E", "W") else None
     ex.tod_s, ex.day = tod, day
     if var is not None:
         if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
@@ -429,12 +505,13 @@ def ext_gga(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 GGA: 0 time, 1-2 lat, 3-4 lon, 5 quality, 6 satellites, 7 HDOP,
     8-9 altitude M, 10-11 geoid separation M, 12 age of differential data, 13 station."""
     ex = Extract()
-    if _get(f, 5) not in _GGA_FIX_QUALITIES:
+    if _get(f, _GGA.quality) not in _GGA_FIX_QUALITIES:
         ex.drop()
         return ex
-    tod = time_of_day(_get(f, 0))
-    lat, lon = latlon(_get(f, 1), _get(f, 2), True), latlon(_get(f, 3), _get(f, 4), False)
-    hdop = num(_get(f, 7))
+    tod = time_of_day(_get(f, _GGA.time))
+    lat = latlon(_get(f, _GGA.lat), _get(f, _GGA.lat_hemi), True)
+    lon = latlon(_get(f, _GGA.lon), _get(f, _GGA.lon_hemi), False)
+    hdop = num(_get(f, _GGA.hdop))
     ex.tod_s = tod
     if hdop is not None and not _in(hdop, 0.0, HDOP_MAX):
         hdop = None  # 99.9 and the like mean "unknown", not a bad fix
@@ -446,12 +523,13 @@ def ext_gll(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 GLL: 0-1 lat, 2-3 lon, 4 time, 5 status A/V, 6 mode (v2.3+).
     Older layouts without status (v1.5: four fields) are taken as valid positions."""
     ex = Extract()
-    status = _get(f, 5)
-    if status not in ("A", "") or _get(f, 6) == "N":
+    status = _get(f, _GLL.status)
+    if status not in ("A", "") or _get(f, _GLL.mode) == "N":
         ex.drop()
         return ex
-    lat, lon = latlon(_get(f, 0), _get(f, 1), True), latlon(_get(f, 2), _get(f, 3), False)
-    tod = time_of_day(_get(f, 4))
+    lat = latlon(_get(f, _GLL.lat), _get(f, _GLL.lat_hemi), True)
+    lon = latlon(_get(f, _GLL.lon), _get(f, _GLL.lon_hemi), False)
+    tod = time_of_day(_get(f, _GLL.time))
     if status == "A":
         ex.tod_s = tod
     _fix(ex, lat, lon)
@@ -462,10 +540,12 @@ def ext_vtg(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 VTG: 0 COG true, 1 T, 2 COG magnetic, 3 M, 4 SOG kn, 5 N, 6 SOG km/h, 7 K,
     8 mode (v2.3+). The old layout without unit letters (COG T, COG M, SOG kn, SOG km/h) too."""
     ex = Extract()
-    if len(f) >= 2 and f[1] not in ("T", ""):  # old layout: four numbers
-        cog, kn, kmh, mode = direction(_get(f, 0)), num(_get(f, 2)), num(_get(f, 3)), ""
+    if len(f) >= 2 and f[_VTG.true_mark] not in ("T", ""):  # old layout: four numbers
+        old = _VTG_UNLABELLED
+        cog, kn, kmh, mode = direction(_get(f, old.cog_true)), num(_get(f, old.sog_kn)), num(_get(f, old.sog_kmh)), ""
     else:
-        cog, kn, kmh, mode = direction(_get(f, 0)), num(_get(f, 4)), num(_get(f, 6)), _get(f, 8)
+        cog, kn, kmh = direction(_get(f, _VTG.cog_true)), num(_get(f, _VTG.sog_kn)), num(_get(f, _VTG.sog_kmh))
+        mode = _get(f, _VTG.mode)
     if mode == "N":
         ex.drop()
         return ex
@@ -482,8 +562,8 @@ def ext_vtg(f: list[str]) -> Extract:
 def ext_zda(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 ZDA: 0 time, 1 day, 2 month, 3 year (four digits), 4-5 local zone."""
     ex = Extract()
-    tod = time_of_day(_get(f, 0))
-    d, m, y = _get(f, 1), _get(f, 2), _get(f, 3)
+    tod = time_of_day(_get(f, _ZDA.time))
+    d, m, y = _get(f, _ZDA.day), _get(f, _ZDA.month), _get(f, _ZDA.year)
     if not (d and m and y):
         return ex
     if not (d.isdigit() and m.isdigit() and y.isdigit() and len(y) == 4):
@@ -503,14 +583,14 @@ def _heading(ex: Extract, s: str, ref: str) -> None:
 def ext_hdt(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 HDT: 0 heading, 1 T."""
     ex = Extract()
-    _heading(ex, _get(f, 0), "T")
+    _heading(ex, _get(f, _HDT.heading), "T")
     return ex
 
 
 def ext_hdm(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 HDM: 0 heading, 1 M."""
     ex = Extract()
-    _heading(ex, _get(f, 0), "M")
+    _heading(ex, _get(f, _HDM.heading), "M")
     return ex
 
 
@@ -518,10 +598,10 @@ def ext_ths(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 THS: 0 true heading, 1 mode: A autonomous, E estimated (dead reckoning),
     M manual, S simulator, V not valid. Only A and E are headings of this boat now."""
     ex = Extract()
-    deg = direction(_get(f, 0))
+    deg = direction(_get(f, _THS.heading))
     if deg is None:
         return ex
-    if deg is False or _get(f, 1) not in ("A", "E"):
+    if deg is False or _get(f, _THS.mode) not in ("A", "E"):
         ex.drop()
         return ex
     ex.values.append(LabelledHeading(deg, "T"))
@@ -532,9 +612,10 @@ def ext_hdg(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 HDG: 0 magnetic sensor heading, 1-2 deviation E/W, 3-4 variation E/W.
     Magnetic heading = sensor + deviation (E positive); true = magnetic + variation."""
     ex = Extract()
-    deg = direction(_get(f, 0))
-    dev = _east(num(_get(f, 1)), _get(f, 2)) if _get(f, 1) else None
-    var = _east(num(_get(f, 3)), _get(f, 4)) if _get(f, 3) else None
+    deg = direction(_get(f, _HDG.heading))
+    dev_text, var_text = _get(f, _HDG.deviation), _get(f, _HDG.variation)
+    dev = _east(num(dev_text), _get(f, _HDG.deviation_hemi)) if dev_text else None
+    var = _east(num(var_text), _get(f, _HDG.variation_hemi)) if var_text else None
     if var is not None:
         if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
             ex.values.append(Variation(var))
@@ -561,7 +642,7 @@ def ext_vhw(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 VHW: 0 heading true, 1 T, 2 heading magnetic, 3 M, 4 STW kn, 5 N,
     6 STW km/h, 7 K. (Headings here are not used: HDx/THS carry them.)"""
     ex = Extract()
-    _stw(ex, num(_get(f, 4)), num(_get(f, 6)))
+    _stw(ex, num(_get(f, _VHW.stw_kn)), num(_get(f, _VHW.stw_kmh)))
     return ex
 
 
@@ -569,10 +650,10 @@ def ext_vbw(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 VBW: 0 longitudinal water speed kn, 1 transverse water speed, 2 status
     A/V, 3 longitudinal ground speed, 4 transverse ground speed, 5 status, 6-9 stern speeds."""
     ex = Extract()
-    kn = num(_get(f, 0))
+    kn = num(_get(f, _VBW.water_long_kn))
     if kn is None:
         return ex
-    if _get(f, 2) != "A":
+    if _get(f, _VBW.water_status) != "A":
         ex.drop()
         return ex
     _stw(ex, kn, None)
@@ -600,9 +681,10 @@ def _pressure(ex: Extract, hpa: float | None) -> None:
 def ext_mtw(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 MTW: 0 water temperature, 1 C."""
     ex = Extract()
-    if _get(f, 1) not in ("C", ""):
-        raise Unparseable(_get(f, 1))
-    _temp(ex, num(_get(f, 0)), SeaTemperature, SEA_TEMP_C)
+    unit = _get(f, _MTW.temp_unit)
+    if unit not in ("C", ""):
+        raise Unparseable(unit)
+    _temp(ex, num(_get(f, _MTW.temp)), SeaTemperature, SEA_TEMP_C)
     return ex
 
 
@@ -619,10 +701,10 @@ def ext_mda(f: list[str]) -> Extract:
     out what they do not measure, some stop after the pressure).
     The wind here is not used: MWV/MWD carry it with a clear reference."""
     ex = Extract()
-    bar, inhg = _unit_value(f, 2, "B"), _unit_value(f, 0, "I")
+    bar, inhg = _unit_value(f, _MDA.bar, "B"), _unit_value(f, _MDA.inhg, "I")
     _pressure(ex, bar * 1000.0 if bar is not None else (inhg * INHG_TO_HPA if inhg is not None else None))
-    _temp(ex, _unit_value(f, 4, "C"), AirTemperature, AIR_TEMP_C)
-    _temp(ex, _unit_value(f, 6, "C"), SeaTemperature, SEA_TEMP_C)
+    _temp(ex, _unit_value(f, _MDA.air_temp, "C"), AirTemperature, AIR_TEMP_C)
+    _temp(ex, _unit_value(f, _MDA.water_temp, "C"), SeaTemperature, SEA_TEMP_C)
     return ex
 
 
@@ -639,9 +721,10 @@ def ext_xdr(f: list[str]) -> Extract:
     The names are the installer's choice; these are the common ones (from memory)."""
     ex = Extract()
     heel = pitch = None
-    for i in range(0, len(f) - 2, 4):
-        kind, value, unit = f[i], num(f[i + 1]), f[i + 2]
-        name = _get(f, i + 3).upper()
+    group = len(_XDR)
+    for i in range(0, len(f) - 2, group):
+        kind, value, unit = f[i + _XDR.type], num(f[i + _XDR.value]), f[i + _XDR.unit]
+        name = _get(f, i + _XDR.name).upper()
         if value is None:
             continue
         if kind == "P" and unit in ("B", "P"):
@@ -671,14 +754,14 @@ def ext_mwv(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 MWV: 0 wind angle 0..360 off the bow, 1 reference R relative /
     T theoretical, 2 speed, 3 unit K/M/N/S, 4 status A/V."""
     ex = Extract()
-    angle, speed, ref = direction(_get(f, 0)), num(_get(f, 2)), _get(f, 1)
+    angle, speed, ref = direction(_get(f, _MWV.angle)), num(_get(f, _MWV.speed)), _get(f, _MWV.reference)
     if angle is None or speed is None:
         return ex
-    factor = _WIND_UNITS.get(_get(f, 3))
+    factor = _WIND_UNITS.get(_get(f, _MWV.speed_unit))
     if factor is None or ref not in ("R", "T"):
         raise Unparseable(",".join(f[:4]))
     kn = speed * factor
-    if _get(f, 4) != "A" or angle is False or not _in(kn, 0.0, WIND_MAX_KN):
+    if _get(f, _MWV.status) != "A" or angle is False or not _in(kn, 0.0, WIND_MAX_KN):
         ex.drop()
         return ex
     if ref == "R":
@@ -692,8 +775,8 @@ def ext_mwd(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 MWD: 0 wind from, true, 1 T, 2 from, magnetic, 3 M, 4 speed kn, 5 N,
     6 speed m/s, 7 M."""
     ex = Extract()
-    true, mag = direction(_get(f, 0)), direction(_get(f, 2))
-    kn, mps = num(_get(f, 4)), num(_get(f, 6))
+    true, mag = direction(_get(f, _MWD.from_true)), direction(_get(f, _MWD.from_magnetic))
+    kn, mps = num(_get(f, _MWD.speed_kn)), num(_get(f, _MWD.speed_mps))
     speed = kn if kn is not None else (mps * MPS_TO_KN if mps is not None else None)
     if speed is None or (true is None and mag is None):
         return ex
@@ -718,7 +801,8 @@ def _depth(ex: Extract, metres: float | None) -> None:
 def ext_dbt(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 DBT: depth below transducer: 0-1 feet f, 2-3 metres M, 4-5 fathoms F."""
     ex = Extract()
-    m, ft, fa = _unit_value(f, 2, "M"), _unit_value(f, 0, "f"), _unit_value(f, 4, "F")
+    m, ft = _unit_value(f, _DBT.depth_m, "M"), _unit_value(f, _DBT.depth_ft, "f")
+    fa = _unit_value(f, _DBT.depth_fathoms, "F")
     _depth(ex, m if m is not None else ft * FT_TO_M if ft is not None else fa * FATHOM_TO_M if fa is not None else None)
     return ex
 
@@ -727,7 +811,7 @@ def ext_dpt(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 DPT: 0 depth below transducer m, 1 offset m (positive: transducer to
     waterline, added; negative: transducer to keel, not added), 2 maximum range (v3.0+)."""
     ex = Extract()
-    d, off = num(_get(f, 0)), num(_get(f, 1))
+    d, off = num(_get(f, _DPT.depth_m)), num(_get(f, _DPT.offset_m))
     if d is not None and off is not None and off > 0 and math.isfinite(off):
         d += off
     _depth(ex, d)

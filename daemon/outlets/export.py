@@ -31,7 +31,7 @@ from daemon.core.alerts import AlertChanges
 from daemon.core.config import load_config
 from daemon.core.readings import Message, Reading
 from daemon.errors import ConfigError, InputError, OutputError
-from daemon.outlets.passage import iter_passage, iter_readings, terminal_progress
+from daemon.outlets.passage import is_event_or_alert, iter_passage, iter_readings, terminal_progress
 from daemon.core.payloads import ADVISORY, iso_utc
 from estimators.samples import Heading, WaterSpeed, WaterWind
 
@@ -133,7 +133,7 @@ class PassageTrack:
         elif name == "position":
             self._position(msg)
         elif msg.kind == "state":
-            self._latest[name] = dict(msg.payload)
+            self._latest[name] = msg.payload  # read only when a row or a log line is written
 
     def reading(self, r: Reading) -> None:
         """Heading, STW and the wind over the water for the logbook (no message carries them)."""
@@ -149,7 +149,7 @@ class PassageTrack:
     # -- what is kept -------------------------------------------------------------
     def _position(self, msg: Message) -> None:
         self.positions_seen += 1
-        self._latest["position"] = dict(msg.payload)
+        self._latest["position"] = msg.payload
         if msg.t_s - self._last_row_t >= self.every_s or self.every_s <= 0:
             self._last_row_t = msg.t_s
             row = self._row(msg.payload)
@@ -451,10 +451,14 @@ WRITERS = {"csv": write_csv, "gpx": write_gpx, "geojson": write_geojson, "logboo
 
 def read_track(source: str | Path, cfg: Any, *, every_s: float = DEFAULT_EVERY_S, with_readings: bool = False,
                progress: Any = None) -> PassageTrack:
-    """The passage's messages (and, for the logbook, its readings) gathered into a PassageTrack."""
+    """The passage's messages (and, for the logbook, its readings) gathered into a PassageTrack.
+
+    A recording is read thin: only the topics a track is made of, each payload
+    decoded when a row or a log line reads it (about one in sixty of the fixes
+    and currents at a point a minute).
+    """
     track = PassageTrack(every_s)
-    # the status messages (the largest, every 10 s) carry nothing an export writes: never decoded
-    stream: Iterable[Message | Reading] = iter_passage(source, cfg, progress=progress, keep=_not_status)
+    stream: Iterable[Message | Reading] = iter_passage(source, cfg, progress=progress, keep=is_track_topic, lazy=True)
     if with_readings:
         stream = heapq.merge(stream, iter_readings(source, cfg), key=_item_time)
     for item in stream:
@@ -462,8 +466,13 @@ def read_track(source: str | Path, cfg: Any, *, every_s: float = DEFAULT_EVERY_S
     return track
 
 
-def _not_status(topic: str, t_s: float) -> bool:
-    return not topic.endswith("/status")
+# the state topics PassageTrack reads (rows, log lines, the wind); status (the largest) and the rest are skipped
+TRACK_STATES = frozenset({"position", "current", "sea_temperature", "pressure", "sea_state"})
+
+
+def is_track_topic(topic: str, t_s: float) -> bool:
+    """A ``keep`` for ``iter_passage``: the states a track is made of, events and alert changes."""
+    return topic.rsplit("/", 1)[-1] in TRACK_STATES or is_event_or_alert(topic)
 
 
 def _item_time(item: Message | Reading) -> float:

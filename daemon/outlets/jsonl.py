@@ -8,10 +8,13 @@ from daemon.errors import OutputError
 from daemon.core.readings import Message, RawLine
 
 
+# made once: json.dumps with options builds a new encoder for every message (the same text either way)
+_ENCODER = json.JSONEncoder(ensure_ascii=False, allow_nan=False)
+
+
 def encode_line(msg: Message) -> str:
     """The interface's line: ``{"t": <data time, UNIX s>, "topic": ..., "payload": {...}}``."""
-    return json.dumps({"t": round(msg.t_s, 3), "topic": msg.topic, "payload": msg.payload},
-                      ensure_ascii=False, allow_nan=False)
+    return _ENCODER.encode({"t": round(msg.t_s, 3), "topic": msg.topic, "payload": msg.payload})
 
 
 class JsonlSink:

@@ -43,7 +43,7 @@ from typing import Any
 from daemon.core.readings import Message, RawLine
 from daemon.errors import ConfigError
 from daemon.intake.magvar import VariationProvider
-from daemon.nmea0183.codec import checksum_hex
+from daemon.nmea0183.codec import checksum_hex, place
 from estimators.params import param
 
 log = logging.getLogger("offwatch.nmea_tcp")
@@ -90,7 +90,8 @@ def _deg(v: float) -> str:
 def vdr(talker: str, set_true_deg: float, drift_kn: float, variation_east_deg: float | None) -> str:
     """VDR: set (toward) true and magnetic, drift in knots."""
     set_mag = "" if variation_east_deg is None else _deg(set_true_deg - variation_east_deg)
-    return sentence(talker, "VDR", [_deg(set_true_deg), "T", set_mag, "M", f"{drift_kn:.2f}", "N"])
+    return sentence(talker, "VDR", place("VDR", set_true=_deg(set_true_deg), true_mark="T", set_magnetic=set_mag,
+                                         magnetic_mark="M", drift_kn=f"{drift_kn:.2f}", kn_unit="N"))
 
 
 def clean_text(text: str) -> str:
@@ -106,9 +107,12 @@ def clean_text(text: str) -> str:
 def alr(talker: str, t_s: float, number: int, exceeded: bool, acknowledged: bool, text: str) -> str:
     """ALR: one alert's state; the text cut to keep the sentence within 82 characters."""
     hhmmss = datetime.fromtimestamp(t_s, tz=timezone.utc).strftime("%H%M%S.00")
-    head = [hhmmss, f"{number:03d}", "A" if exceeded else "V", "A" if acknowledged else "V"]
-    room = MAX_SENTENCE - len(sentence(talker, "ALR", head + [""]))
-    return sentence(talker, "ALR", head + [clean_text(text)[:max(0, room)]])
+    def fields(description: str) -> list[str]:
+        return place("ALR", time=hhmmss, number=f"{number:03d}", condition="A" if exceeded else "V",
+                     acknowledged="A" if acknowledged else "V", text=description)
+
+    room = MAX_SENTENCE - len(sentence(talker, "ALR", fields("")))
+    return sentence(talker, "ALR", fields(clean_text(text)[:max(0, room)]))
 
 
 @dataclass

@@ -49,19 +49,21 @@ class _Keeper:
 
 
 def iter_passage(source: str | Path, cfg: Config, *, progress: Progress | None = None,
-                 keep: Callable[[str, float], bool] | None = None) -> Iterator[Message]:
+                 keep: Callable[[str, float], bool] | None = None, lazy: bool = False) -> Iterator[Message]:
     """Every message of the passage in the order it was published.
 
     ``progress(done, total)`` is called as the source is read (blocks of a
     recording, bytes of a text file). ``keep(topic, t)``, when given, may
     refuse messages of a recording before they are decoded (thinning a long
     passage for a plot); a replayed file's messages all come through.
+    ``lazy``: a recording's payloads are decoded when first read
+    (``recorder.LazyPayload``), for a reader that reads few of them.
     """
     source = Path(source)
     if not source.is_file():
         raise InputError(f"{source} not found (a recording or an NMEA file)")
     if is_recording_file(source):
-        yield from _recorded_messages(source, progress, keep)
+        yield from _recorded_messages(source, progress, keep, lazy)
         return
     keeper = _Keeper()
     parts = build(cfg, [keeper], live=False)
@@ -79,11 +81,11 @@ def iter_passage(source: str | Path, cfg: Config, *, progress: Progress | None =
 
 
 def _recorded_messages(source: Path, progress: Progress | None,
-                       keep: Callable[[str, float], bool] | None) -> Iterator[Message]:
+                       keep: Callable[[str, float], bool] | None, lazy: bool) -> Iterator[Message]:
     from daemon.outlets.recorder import count_message_blocks, iter_message_blocks
 
     total = count_message_blocks(source)
-    for done, block in enumerate(iter_message_blocks(source, keep), start=1):
+    for done, block in enumerate(iter_message_blocks(source, keep, lazy=lazy), start=1):
         yield from block
         if progress is not None:
             progress(done, total)
@@ -108,6 +110,11 @@ def passage_span_s(source: str | Path) -> float | None:
     return None if span is None else span[1] - span[0]
 
 
+def is_event_or_alert(topic: str) -> bool:
+    """``<prefix>/events`` or ``<prefix>/alerts/<id>`` (interface.md): kept whole by every thin reader."""
+    return "/alerts/" in topic or topic.rsplit("/", 1)[-1] == "events"
+
+
 class Thinner:
     """A ``keep`` for ``iter_passage``: each state topic at most once every ``every_s`` of data time
     (``status`` at most once every ``status_every_s``); events and alerts always."""
@@ -118,9 +125,9 @@ class Thinner:
         self._next: dict[str, float] = {}
 
     def __call__(self, topic: str, t: float) -> bool:
-        name = topic.rsplit("/", 1)[-1]
-        if "/alerts/" in topic or name == "events":
+        if is_event_or_alert(topic):
             return True
+        name = topic.rsplit("/", 1)[-1]
         due = self._next.get(topic)
         if due is not None and t < due:
             return False
@@ -135,4 +142,5 @@ def terminal_progress(label: str) -> ProgressBar | None:
     return ProgressBar(label=label)
 
 
-__all__ = ["iter_passage", "iter_readings", "is_recording_file", "terminal_progress", "passage_span_s", "Thinner"]
+__all__ = ["iter_passage", "iter_readings", "is_recording_file", "terminal_progress", "passage_span_s", "Thinner",
+           "is_event_or_alert"]

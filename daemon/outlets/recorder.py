@@ -214,17 +214,23 @@ def _encode_time(t: float, prev: tuple[int, int | None]) -> tuple[int | str | fl
     return float(t), (ms, ticks)
 
 
-def _decode_time(value: int | str | float, prev: tuple[int, int | None]) -> tuple[float, tuple[int, int | None]]:
-    prev_ms, prev_ticks = prev
+def _decode_time(value: int | str | float, prev: tuple[int, float]) -> tuple[float, tuple[int, float]]:
+    """A line's time from its field and the state (ms, time) of the previous line.
+
+    The previous line's tick count is worked out only for a step in ticks
+    (rare): a reader of millions of whole-ms steps does not pay for it.
+    """
+    prev_ms, prev_t = prev
     if isinstance(value, int):
-        t = (prev_ms + value) / 1000
-    elif isinstance(value, str):
-        t = (prev_ticks + int(value)) / _TICK
+        ms = prev_ms + value
+        return ms / 1000, (ms, ms / 1000)  # round((ms / 1000) * 1000) == ms: the error is far below 0.5
+    if isinstance(value, str):
+        t = (_ticks(prev_t) + int(value)) / _TICK  # the writer steps in ticks only from a whole tick count
     elif not math.isfinite(value):
         return value, prev
     else:
         t = value
-    return t, (round(t * 1000), _ticks(t))
+    return t, (round(t * 1000), t)
 
 
 def _encode_recv(recv: float, t: float, t_ms: int) -> int | float | None:
@@ -303,7 +309,7 @@ def _open_block(codec: str, names_json: str, data: bytes) -> tuple[list, str]:
 def _unpack_rows(codec: str, names_json: str, data: bytes) -> Iterator[tuple[float, int, str, list]]:
     """Decode one block into (time, ms, name, remaining fields) in order."""
     names, text = _open_block(codec, names_json, data)
-    prev: tuple[int, int | None] = (0, 0)
+    prev: tuple[int, float] = (0, 0.0)
     for line in text.split("\n"):
         row = json.loads(line)
         t, prev = _decode_time(row[0], prev)
@@ -993,39 +999,101 @@ def iter_messages(path: str | Path) -> Iterator[Message]:
         yield from block
 
 
-def iter_message_blocks(path: str | Path, keep: Callable[[str, float], bool] | None = None
-                        ) -> Iterator[list[Message]]:
+def iter_message_blocks(path: str | Path, keep: Callable[[str, float], bool] | None = None, *,
+                        lazy: bool = False) -> Iterator[list[Message]]:
     """The published messages a block at a time (about a minute of data each), in order.
 
     ``keep(topic, t)`` (optional) is asked for each message before its payload
     is decoded: a long recording read for a plot skips most of its JSON.
+    ``lazy``: each payload stays JSON text until it is first read (a
+    ``LazyPayload``): a reader that looks at few of the messages it is handed
+    (an export's track point a minute out of a fix a second) decodes only those.
     """
     conn = _open_for_reading(path)
     try:
         for codec, names, data in conn.execute("SELECT codec, names, data FROM message_block ORDER BY seq_first"):
-            rows = _unpack_rows(codec, names, data) if keep is None else _unpack_kept(codec, names, data, keep)
-            yield [Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
-                   for t, _, topic, (retain, qos, kind, payload) in rows]
+            if keep is None and not lazy:
+                yield [Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+                       for t, _, topic, (retain, qos, kind, payload) in _unpack_rows(codec, names, data)]
+            else:
+                yield list(_unpack_messages(codec, names, data, keep, lazy))
     finally:
         conn.close()
 
 
-def _unpack_kept(codec: str, names_json: str, data: bytes, keep: Callable[[str, float], bool]
-                 ) -> Iterator[tuple[float, int, str, list]]:
-    """As ``_unpack_rows`` for message blocks, reading only the time and topic of a line ``keep`` refuses.
+def _unpack_messages(codec: str, names_json: str, data: bytes, keep: Callable[[str, float], bool] | None,
+                     lazy: bool) -> Iterator[Message]:
+    """A message block's messages, reading only the time and topic of a line ``keep`` refuses.
 
     A message line starts ``[<time>,<topic index>,``: both are plain JSON
     numbers or a string of digits, never holding a comma.
     """
     names, text = _open_block(codec, names_json, data)
-    prev: tuple[int, int | None] = (0, 0)
+    prev: tuple[int, float] = (0, 0.0)
     for line in text.split("\n"):
-        t_text, index_text, _ = line[1:].split(",", 2)
+        t_text, index_text, rest = line[1:].split(",", 2)
         # mostly a step in whole ms: int() reads it far faster than json.loads
         t, prev = _decode_time(int(t_text) if t_text.lstrip("-").isdigit() else json.loads(t_text), prev)
         topic = names[int(index_text)]
-        if keep(topic, t):
-            yield t, prev[0], topic, json.loads(line)[2:]
+        if keep is None or keep(topic, t):
+            retain, qos, kind, payload = _message_fields(rest, lazy)
+            yield Message(t_s=t, topic=topic, payload=payload, retain=bool(retain), qos=qos, kind=kind)
+
+
+# the message kinds as the writer puts them (readings.Message.kind); any other is decoded the slow way
+_KIND_TEXT = {f'"{k}"': k for k in ("state", "event", "alert", "status")}
+
+
+def _message_fields(rest: str, lazy: bool) -> tuple[Any, Any, Any, Any]:
+    """(retain, qos, kind, payload) from a message line after its topic index: ``retain,qos,"kind",{...}]``.
+
+    Lazily, the payload is cut out as text: retain is ``1``/``0``, qos
+    digits and kind one of the known words, so the first three commas end
+    them; a line of any other shape is decoded whole.
+    """
+    if lazy:
+        head = rest.split(",", 3)
+        if len(head) == 4:
+            retain, qos, kind, payload = head
+            if retain in ("1", "0") and qos.isdigit() and kind in _KIND_TEXT and payload.endswith("]"):
+                return retain == "1", int(qos), _KIND_TEXT[kind], LazyPayload(payload[:-1])
+    return tuple(json.loads("[" + rest))  # type: ignore[return-value]
+
+
+class LazyPayload(Mapping):
+    """A recorded payload kept as its JSON text and decoded on first reading (then kept decoded)."""
+
+    __slots__ = ("_text", "_value")
+
+    def __init__(self, text: str) -> None:
+        self._text = text
+        self._value: dict[str, Any] | None = None
+
+    def _decoded(self) -> dict[str, Any]:
+        if self._value is None:
+            try:
+                value = json.loads(self._text)
+            except ValueError as exc:
+                raise InputError(f"a recorded message's payload cannot be decoded: {exc}") from None
+            if not isinstance(value, dict):
+                raise InputError("a recorded message's payload is not a JSON object")
+            self._value = value
+        return self._value
+
+    def __getitem__(self, key: str) -> Any:
+        return self._decoded()[key]
+
+    def get(self, key: str, default: Any = None) -> Any:
+        return self._decoded().get(key, default)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._decoded())
+
+    def __len__(self) -> int:
+        return len(self._decoded())
+
+    def __repr__(self) -> str:
+        return f"LazyPayload({self._decoded()!r})"
 
 
 def message_time_span(path: str | Path) -> tuple[float, float] | None:
@@ -1157,6 +1225,6 @@ def read_tag_nmea(path: str | Path) -> Iterator[RawLine]:
 
 __all__ = ["RecordingParams", "RecordingPolicy", "Recorder", "RecorderStats", "RecordingWriter",
            "SCHEMA_VERSION", "connect", "connection_pragmas", "recording_name", "is_recording",
-           "iter_raw", "iter_messages", "iter_message_blocks", "count_message_blocks", "message_time_span", "read_meta", "recording_gaps", "Gap", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
+           "iter_raw", "iter_messages", "iter_message_blocks", "LazyPayload", "count_message_blocks", "message_time_span", "read_meta", "recording_gaps", "Gap", "export_tag_nmea", "parse_tag_line", "read_tag_nmea",
            "tag_block"]
 

@@ -5,17 +5,24 @@
 For each passage: sentences per second of ``offwatch replay`` (framing, parsing,
 timing, every estimator, alerts, JSON) and of a bare loop that only calls
 ``pynmea2.parse`` on the same lines, both measured in this run on this machine,
-and their ratio (1.0: the whole pipeline is as fast as parsing alone).
+and their ratio (1.0: the whole pipeline is as fast as parsing alone). Each is
+timed twice: wall clock and this process's CPU time (``time.process_time``); on a
+machine shared with other work the CPU ratio is the steadier figure.
 
 Passages: the first 1 and 6 hours of the demo passage, and a 24-hour passage made
 of the demo repeated with its TAG times moved on by the demo's length each time
 (the boat jumps back to the start at each seam: fine for throughput, not for
 the estimators' figures). Or the files given. Prints a markdown table.
+
+``--split``: where the replay's CPU goes (the first passage only), without
+cProfile's cost per call: each estimator's step and tick timed with
+``time.process_time``, and the way in (framing, parsing, timing) run alone.
 """
 
 from __future__ import annotations
 
 import argparse
+import collections
 import gzip
 import re
 import resource
@@ -27,7 +34,9 @@ from pathlib import Path
 import pynmea2
 
 from daemon.commands.replay import run_replay
+from daemon.core.assembly import build
 from daemon.core.config import load_config
+from daemon.intake.replayfiles import iter_replay
 from daemon.nmea0183.codec import checksum_hex
 
 REPO = Path(__file__).resolve().parents[2]
@@ -72,12 +81,12 @@ def passage(hours: float) -> list[str]:
         k += 1
 
 
-def bare_pynmea2(lines: list[str]) -> float:
-    """Seconds for ``pynmea2.parse`` over every line (errors caught, as a reader must).
+def bare_pynmea2(lines: list[str]) -> tuple[float, float]:
+    """(wall, CPU) seconds for ``pynmea2.parse`` over every line (errors caught, as a reader must).
 
     pynmea2 does not read TAG blocks: the loop cuts one off first (that costs time too).
     """
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     for line in lines:
         if line.startswith("\\"):
             line = line[line.find("\\", 1) + 1:]
@@ -85,32 +94,82 @@ def bare_pynmea2(lines: list[str]) -> float:
             pynmea2.parse(line)
         except (pynmea2.ParseError, ValueError, AttributeError, TypeError):
             pass
-    return time.perf_counter() - t0
+    return time.perf_counter() - t0, time.process_time() - c0
 
 
-def whole_replay(path: Path) -> tuple[int, float]:
+def whole_replay(path: Path) -> tuple[int, float, float]:
+    """(lines, wall s, CPU s) of the replay (every payload made; no output file, as before)."""
     cfg = load_config(None)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     summary = run_replay([str(path)], cfg, progress=False)
-    return summary.raw_lines, time.perf_counter() - t0
+    return summary.raw_lines, time.perf_counter() - t0, time.process_time() - c0
+
+
+def _timed(est, spent: collections.Counter) -> None:
+    """Time every call of the estimator's step and tick into ``spent[est.name]`` (CPU seconds)."""
+    for method in ("step", "tick"):
+        call = getattr(est, method)
+
+        def timed(*args, _call=call, _name=est.name):
+            c0 = time.process_time()
+            try:
+                return _call(*args)
+            finally:
+                spent[_name] += time.process_time() - c0
+        setattr(est, method, timed)
+
+
+def split(path: Path) -> str:
+    """The replay's CPU by part: the way in alone, each estimator, and the rest (routing, alerts, payloads)."""
+    cfg = load_config(None)
+    way_in = build(cfg, [], live=False)
+    c0 = time.process_time()
+    for _ in iter_replay([str(path)], way_in.make_ingest):
+        pass
+    way_in_s = time.process_time() - c0
+    parts = build(cfg, [], live=False)
+    spent: collections.Counter = collections.Counter()
+    for est in parts.pipeline.estimators:
+        _timed(est, spent)
+    c0 = time.process_time()
+    for item in iter_replay([str(path)], parts.make_ingest):
+        parts.pipeline.feed(item)
+    parts.pipeline.close()
+    total_s = time.process_time() - c0
+    estimators_s = sum(spent.values())
+    rest_s = total_s - estimators_s - way_in_s
+    each = ", ".join(f"{name} {s / total_s:.0%}" for name, s in spent.most_common())
+    return (f"{path.name}: {total_s:.2f} s CPU. The way in (framing, parsing, timing) {way_in_s / total_s:.0%}; "
+            f"estimators {estimators_s / total_s:.0%} ({each}); the pipeline's own work (priority, routing, "
+            f"history, alerts, status, payloads) {rest_s / total_s:.0%}")
 
 
 def measure(name: str, lines: list[str], folder: Path) -> str:
     path = folder / f"{name}.nmea"
     path.write_text("".join(x + "\r\n" for x in lines), encoding="ascii", errors="replace")
-    parse_s = bare_pynmea2(lines)
-    n, replay_s = whole_replay(path)
-    return (f"| {name} | {n:,} | {replay_s:.1f} | {n / replay_s:,.0f} | {len(lines) / parse_s:,.0f} "
-            f"| {(n / replay_s) / (len(lines) / parse_s):.2f} |")
+    parse_s, parse_cpu = bare_pynmea2(lines)
+    n, replay_s, replay_cpu = whole_replay(path)
+    return (f"| {name} | {n:,} | {replay_s:.1f} | {replay_cpu:.1f} | {n / replay_s:,.0f} | {n / replay_cpu:,.0f} "
+            f"| {len(lines) / parse_s:,.0f} | {len(lines) / parse_cpu:,.0f} "
+            f"| {(n / replay_s) / (len(lines) / parse_s):.2f} | {(n / replay_cpu) / (len(lines) / parse_cpu):.2f} |")
 
 
 def main(argv: list[str]) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("files", nargs="*", type=Path)
     ap.add_argument("--hours", type=float, nargs="*", default=[1.0, 6.0, 24.0])
+    ap.add_argument("--split", action="store_true", help="where the CPU goes, for the first passage only")
     args = ap.parse_args(argv)
-    print("| passage | sentences | replay s | replay sentences/s | pynmea2.parse sentences/s | ratio |")
-    print("| --- | ---: | ---: | ---: | ---: | ---: |")
+    if args.split:
+        with tempfile.TemporaryDirectory() as tmp:
+            path = args.files[0] if args.files else Path(tmp) / "demo.nmea"
+            if not args.files:
+                path.write_text("".join(x + "\r\n" for x in passage(args.hours[0])), encoding="ascii")
+            print(split(path))
+        return 0
+    print("| passage | sentences | replay s | replay CPU s | replay sentences/s | per CPU s "
+          "| pynmea2.parse sentences/s | per CPU s | ratio | CPU ratio |")
+    print("| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |")
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         for f in args.files:

@@ -2,7 +2,8 @@
 
 Sentence layouts follow NMEA 0183 version 2.3/3.01 (field order of RMC, GGA,
 VTG, ZDA, HDG, HDT, VHW, MTW, MDA, MWV, DPT and XDR, with the mode indicator
-of 2.3 in RMC and VTG). The checksum is the XOR of every character between
+of 2.3 in RMC and VTG), each field placed by name from the codec's one table of
+field layouts (``daemon.nmea0183.codec.LAYOUTS``, through ``place``). The checksum is the XOR of every character between
 ``$`` and ``*``, two upper-case hex digits. TAG blocks follow NMEA 0183
 version 4.10: ``\\c:<UNIX time>,s:<source>*hh\\`` in front of the sentence,
 with the same checksum over the text between the backslashes; ``c:`` is in
@@ -33,7 +34,7 @@ from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 
-from daemon.nmea0183.codec import format_sentence, tag_block
+from daemon.nmea0183.codec import format_sentence, place, tag_block
 from estimators.angles import wrap_360
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, Heading, Pressure, SeaTemperature, WaterSpeed, WaterWind,
@@ -113,56 +114,64 @@ def rmc(fix: Fix, variation_deg: float, talker: str = "GP") -> str:
     la, ns = lat_field(fix.lat_deg)
     lo, ew = lon_field(fix.lon_deg)
     v, ve = _var(variation_deg)
-    return sentence(talker, "RMC", [time_field(fix.t_s), "A", la, ns, lo, ew, _num(fix.sog_kn, 2),
-                                    _num(fix.cog_deg, 1), date_field(fix.t_s), v, ve, "A"])
+    return sentence(talker, "RMC", place("RMC", time=time_field(fix.t_s), status="A", lat=la, lat_hemi=ns, lon=lo,
+                                         lon_hemi=ew, sog_kn=_num(fix.sog_kn, 2), cog_true=_num(fix.cog_deg, 1),
+                                         date=date_field(fix.t_s), variation=v, variation_hemi=ve, mode="A"))
 
 
 def rmc_void(t_s: float, talker: str = "GP") -> str:
-    return sentence(talker, "RMC", [time_field(t_s), "V", "", "", "", "", "", "", date_field(t_s), "", "", "N"])
+    return sentence(talker, "RMC", place("RMC", time=time_field(t_s), status="V", date=date_field(t_s), mode="N"))
 
 
 def gga(fix: Fix, antenna_height_m: float, talker: str = "GP") -> str:
     la, ns = lat_field(fix.lat_deg)
     lo, ew = lon_field(fix.lon_deg)
-    return sentence(talker, "GGA", [time_field(fix.t_s), la, ns, lo, ew, "1", "09", _num(fix.hdop, 1),
-                                    _num(antenna_height_m, 1), "M", "", "M", "", ""])
+    return sentence(talker, "GGA", place("GGA", time=time_field(fix.t_s), lat=la, lat_hemi=ns, lon=lo, lon_hemi=ew,
+                                         quality="1", satellites="09", hdop=_num(fix.hdop, 1),
+                                         altitude=_num(antenna_height_m, 1), altitude_unit="M", geoid_sep_unit="M",
+                                         dgps_station=""))
 
 
 def gga_void(t_s: float, talker: str = "GP") -> str:
-    return sentence(talker, "GGA", [time_field(t_s), "", "", "", "", "0", "00", "", "", "M", "", "M", "", ""])
+    return sentence(talker, "GGA", place("GGA", time=time_field(t_s), quality="0", satellites="00", altitude_unit="M",
+                                         geoid_sep_unit="M", dgps_station=""))
 
 
 def vtg(fix: Fix, talker: str = "GP") -> str:
     kmh = None if fix.sog_kn is None else fix.sog_kn * KMH_PER_KN
-    return sentence(talker, "VTG", [_num(fix.cog_deg, 1), "T", "", "M", _num(fix.sog_kn, 2), "N",
-                                    _num(kmh, 2), "K", "A"])
+    return sentence(talker, "VTG", place("VTG", cog_true=_num(fix.cog_deg, 1), true_mark="T", magnetic_mark="M",
+                                         sog_kn=_num(fix.sog_kn, 2), kn_unit="N", sog_kmh=_num(kmh, 2), kmh_unit="K",
+                                         mode="A"))
 
 
 def zda(t_s: float, talker: str = "GP") -> str:
     d = _utc(t_s)
-    return sentence(talker, "ZDA", [time_field(t_s), f"{d.day:02d}", f"{d.month:02d}", f"{d.year:04d}", "00", "00"])
+    return sentence(talker, "ZDA", place("ZDA", time=time_field(t_s), day=f"{d.day:02d}", month=f"{d.month:02d}",
+                                         year=f"{d.year:04d}", zone_hours="00", zone_minutes="00"))
 
 
 def hdg(h: Heading, variation_deg: float, talker: str = "HC") -> str:
     magnetic = wrap_360(round(h.true_deg - variation_deg, 1))  # true = magnetic + variation (east +)
     v, ve = _var(variation_deg)
-    return sentence(talker, "HDG", [f"{magnetic:.1f}", "", "", v, ve])
+    return sentence(talker, "HDG", place("HDG", heading=f"{magnetic:.1f}", variation=v, variation_hemi=ve))
 
 
 def hdt(h: Heading, talker: str = "HC") -> str:
-    return sentence(talker, "HDT", [f"{wrap_360(round(h.true_deg, 1)):.1f}", "T"])
+    return sentence(talker, "HDT", place("HDT", heading=f"{wrap_360(round(h.true_deg, 1)):.1f}", true_mark="T"))
 
 
 def hdm(h: Heading, variation_deg: float, talker: str = "HC") -> str:
-    return sentence(talker, "HDM", [f"{wrap_360(round(h.true_deg - variation_deg, 1)):.1f}", "M"])
+    return sentence(talker, "HDM", place("HDM", heading=f"{wrap_360(round(h.true_deg - variation_deg, 1)):.1f}",
+                                         magnetic_mark="M"))
 
 
 def vhw(w: WaterSpeed, talker: str = "VW") -> str:
-    return sentence(talker, "VHW", ["", "T", "", "M", _num(w.speed_kn, 2), "N", _num(w.speed_kn * KMH_PER_KN, 2), "K"])
+    return sentence(talker, "VHW", place("VHW", true_mark="T", magnetic_mark="M", stw_kn=_num(w.speed_kn, 2),
+                                         kn_unit="N", stw_kmh=_num(w.speed_kn * KMH_PER_KN, 2), kmh_unit="K"))
 
 
 def mtw(s: SeaTemperature, talker: str = "YX") -> str:
-    return sentence(talker, "MTW", [_num(s.temp_c, 2), "C"])
+    return sentence(talker, "MTW", place("MTW", temp=_num(s.temp_c, 2), temp_unit="C"))
 
 
 def mda(p: Pressure | None, air: AirTemperature | None, talker: str = "WI") -> str:
@@ -170,24 +179,28 @@ def mda(p: Pressure | None, air: AirTemperature | None, talker: str = "WI") -> s
     inhg = None if hpa is None else hpa / HPA_PER_INHG
     bar = None if hpa is None else hpa / 1000.0
     air_c = None if air is None else air.temp_c
-    return sentence(talker, "MDA", [_num(inhg, 4), "I", _num(bar, 4), "B", _num(air_c, 1), "C",
-                                    "", "C", "", "", "", "C", "", "T", "", "M", "", "N", "", "M"])
+    return sentence(talker, "MDA", place("MDA", inhg=_num(inhg, 4), inhg_unit="I", bar=_num(bar, 4), bar_unit="B",
+                                         air_temp=_num(air_c, 1), air_temp_unit="C", water_temp_unit="C",
+                                         dew_point_unit="C", true_mark="T", magnetic_mark="M", kn_unit="N",
+                                         mps_unit="M"))
 
 
 def xdr_pressure(p: Pressure, talker: str = "WI") -> str:
-    return sentence(talker, "XDR", ["P", _num(p.station_hpa / 1000.0, 5), "B", "BARO"])
+    return sentence(talker, "XDR", place("XDR", type="P", value=_num(p.station_hpa / 1000.0, 5), unit="B", name="BARO"))
 
 
 def mwv(angle_deg: float, reference: str, speed_kn: float, talker: str = "WI") -> str:
-    return sentence(talker, "MWV", [_num(wrap_360(angle_deg), 1), reference, _num(speed_kn, 1), "N", "A"])
+    return sentence(talker, "MWV", place("MWV", angle=_num(wrap_360(angle_deg), 1), reference=reference,
+                                         speed=_num(speed_kn, 1), speed_unit="N", status="A"))
 
 
 def dpt(d: Depth, offset_m: float, talker: str = "SD") -> str:
-    return sentence(talker, "DPT", [_num(d.depth_m - offset_m, 2), _num(offset_m, 1), "300"])
+    return sentence(talker, "DPT", place("DPT", depth_m=_num(d.depth_m - offset_m, 2), offset_m=_num(offset_m, 1),
+                                         max_range_m="300"))
 
 
 def xdr_heel(a: Attitude, talker: str = "II") -> str:
-    return sentence(talker, "XDR", ["A", _num(a.heel_deg, 1), "D", "HEEL"])
+    return sentence(talker, "XDR", place("XDR", type="A", value=_num(a.heel_deg, 1), unit="D", name="HEEL"))
 
 
 # --------------------------------------------------------------------------- a whole run
