@@ -87,7 +87,9 @@ class Publisher:
 
     def _strong_condition(self, t: float, drift: float, set_deg: float, quality: str) -> list[Output]:
         was = self._strong.active
-        if quality == "valid":
+        # a current found changing fast (Q raised) is followed: its rise into a strong stream is the caution's news
+        if quality == "valid" or (quality == "degraded" and self.q_inflation > 1.0 and not self._stale_inputs(t)
+                                  and self._log_state != "suspect"):
             self._strong.update(drift)
         elif quality == "unavailable":
             self._strong.update(0.0)
