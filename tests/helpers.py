@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import re
 import getpass
 import shutil
@@ -67,6 +68,50 @@ def nmea_checksum(body: str) -> str:
 def sentence(body: str, start: str = "$") -> str:
     """``body`` framed as a sentence with its checksum: ``$BODY*hh`` (no line ending)."""
     return f"{start}{body}*{nmea_checksum(body)}"
+
+
+class NotifyListener:
+    """The service manager's end of ``NOTIFY_SOCKET``: a datagram socket read all the time, as systemd reads it.
+
+    ``name`` is what ``NOTIFY_SOCKET`` takes: an abstract-namespace name (``@...``), or ``path`` when given.
+    Each datagram is kept with its ``time.monotonic()``.
+    """
+
+    def __init__(self, path: Path | None = None) -> None:
+        self.sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+        if path is None:
+            self.name = f"@offwatch-test-{os.getpid()}-{uuid.uuid4().hex[:8]}"
+            self.sock.bind(b"\0" + self.name[1:].encode())
+        else:
+            self.name = str(path)
+            self.sock.bind(self.name)
+        self.sock.settimeout(0.2)
+        self.datagrams: list[tuple[float, list[str]]] = []
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while not self._stop.is_set():
+            try:
+                data = self.sock.recv(4096)
+            except socket.timeout:
+                continue
+            except OSError:
+                return
+            self.datagrams.append((time.monotonic(), data.decode("utf-8", "replace").split("\n")))
+
+    def times_of(self, assignment: str) -> list[float]:
+        return [t for t, lines in list(self.datagrams) if assignment in lines]
+
+    def values_of(self, key: str) -> list[str]:
+        return [line[len(key) + 1:] for _, lines in list(self.datagrams) for line in lines
+                if line.startswith(key + "=")]
+
+    def close(self) -> None:
+        self._stop.set()
+        self._thread.join(2)
+        self.sock.close()
 
 
 class Keep:

@@ -38,49 +38,13 @@ from pathlib import Path
 
 import pytest
 
-from tests.helpers import PREFIX, Display, Received, free_port, integrity, wait_until
+from tests.helpers import PREFIX, Display, NotifyListener, Received, free_port, integrity, wait_until
 from tests.shared import REPO
 
 TCP_SOURCES = {"gnss", "compass", "log", "vane", "sounder", "attitude"}
 UDP_SOURCES = {"thermo", "baro"}
 PLAY_SPEED = 3.0          # simulated seconds per wall second on the live inputs
 WATCHDOG_USEC = 8_000_000  # systemd would restart a service silent this long
-
-
-class NotifyListener:
-    """The service manager's end of ``NOTIFY_SOCKET``: an abstract-namespace datagram socket."""
-
-    def __init__(self) -> None:
-        self.name = f"@offwatch-test-{os.getpid()}-{uuid.uuid4().hex[:8]}"
-        self.sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
-        self.sock.bind(b"\0" + self.name[1:].encode())
-        self.sock.settimeout(0.2)
-        self.datagrams: list[tuple[float, list[str]]] = []
-        self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._run, daemon=True)
-        self._thread.start()
-
-    def _run(self) -> None:
-        while not self._stop.is_set():
-            try:
-                data = self.sock.recv(4096)
-            except socket.timeout:
-                continue
-            except OSError:
-                return
-            self.datagrams.append((time.monotonic(), data.decode("utf-8", "replace").split("\n")))
-
-    def times_of(self, assignment: str) -> list[float]:
-        return [t for t, lines in list(self.datagrams) if assignment in lines]
-
-    def values_of(self, key: str) -> list[str]:
-        return [line[len(key) + 1:] for _, lines in list(self.datagrams) for line in lines
-                if line.startswith(key + "=")]
-
-    def close(self) -> None:
-        self._stop.set()
-        self._thread.join(2)
-        self.sock.close()
 
 
 def simulated_lines(minutes: float = 6.0, seed: int = 11) -> list[tuple[float, str, str]]:

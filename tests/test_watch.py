@@ -287,8 +287,22 @@ def test_a_payload_dated_in_the_future_does_not_age_every_true_value():
     assert "Position" in lines[2] and lines[2].rstrip().endswith(" 0s")
 
 
-def sea_state_line(m: WatchModel) -> str:
-    return next(r.plain for r in online_screen(m).styled_lines(100, 24, NOW) if r.plain.startswith("Sea state"))
+def sea_state_line(m: WatchModel, width: int = 100) -> str:
+    return next(r.plain for r in online_screen(m).styled_lines(width, 24, NOW) if r.plain.startswith("Sea state"))
+
+
+def test_a_line_too_long_for_the_screen_leaves_its_last_figures_out_whole_and_keeps_the_age():
+    # GIVEN a sea state near blocking with every figure (a line of about 90 characters)
+    m = full_model()
+    publish(m, "sea_state", {"time": T0, "opposing_current_kn": 4.2, "peak_bounded_height_factor": 1.7,
+                             "peak_bounded_steepness_factor": 2.8, "peak_length_factor": 0.6,
+                             "breaking_fraction": 0.9, "near_blocking": True, "blocking_period_s": 5.6,
+                             "blocked_periods_s": [5.2], "peak_blocked": False})
+    wide, narrow = sea_state_line(m, 120), sea_state_line(m, 80)
+    assert "length ×0.6" in wide and len(wide) > 80
+    # WHEN drawn 80 wide THEN the length factor (the least needed) is left out whole, the others and the age stay
+    assert len(narrow) <= 80 and "…" not in narrow and "le" not in narrow.split("stopped under 5.6 s")[1]
+    assert "height ×1.7" in narrow and "steepness ×2.8" in narrow and narrow.endswith("0s")
 
 
 def test_near_blocking_the_sea_state_line_shows_the_peak_factors_and_where_waves_stop():

@@ -381,7 +381,7 @@ class Screen:
                        "sea_state" if "depth_m" in ss else "depth")]),
         ]
         if ss:
-            rows.append(("Sea state", [(self._sea_state_words(ss), "sea_state")]))
+            rows.append(("Sea state", [(part, "sea_state") for part in self._sea_state_parts(ss)] or [(None, "sea_state")]))
         return rows
 
     def _current_words(self, cur: dict) -> str | None:
@@ -449,9 +449,10 @@ class Screen:
             return None
         return f"true {kn} from {frm or '?'}"
 
-    def _sea_state_words(self, ss: dict) -> str | None:
+    def _sea_state_parts(self, ss: dict) -> list[str]:
+        """The sea state's figures, most important first: a narrow screen leaves out the last ones whole."""
         opp = num(ss.get("opposing_current_kn"), ".1f", " kn")
-        parts = [f"against current {opp}" if opp else None]
+        parts = [f"opposing {opp}" if opp else None]
         length = None
         if ss.get("peak_blocked") is True:  # no factor at all: the wind sea's own waves cannot get through
             parts.append(_pair("peak", num(ss.get("wind_sea_period_s"), ".0f", "-s waves stopped: they break"), " "))
@@ -464,9 +465,8 @@ class Screen:
             length = _pair("length ×", self._factor(ss, "length_factor"), "")
         if ss.get("near_blocking") is True or ss.get("blocked_periods_s"):
             parts.append(_pair("stopped under", num(ss.get("blocking_period_s"), ".1f", " s"), " "))
-        parts.append(length)  # last: what a narrow screen may cut matters least
-        words = "  ".join(p for p in parts if p)
-        return words or None
+        parts.append(length)  # last: what a narrow screen leaves out matters least
+        return [p for p in parts if p]
 
     @staticmethod
     def _factor(ss: dict, name: str) -> str | None:
@@ -499,12 +499,20 @@ class Screen:
         shown = [(text, key) for text, key in parts if text is not None]
         if not shown:
             row.append("—", style="dim")
+        age_due: tuple[str, str] | None = None  # the age of the last part shown, when it is not written yet
         for i, (text, key) in enumerate(shown):
             age = self._age_of(key, data_now)
             stale = bool(offline) or age is None or age > STALE_AFTER_S.get(key, 60.0)
-            row.append(("  " if i else "") + text, style="dim" if stale else "")
+            piece, age_piece = ("  " if i else "") + text, (f" {age_words(age) or '?'}", "dim italic" if stale else "green")
+            if i and len(row.plain) + len(piece) + len(age_piece[0]) > width:
+                break  # a part that does not fit whole is left out, never cut mid-word (the first is cut at the edge)
+            row.append(piece, style="dim" if stale else "")
+            age_due = age_piece
             if i + 1 == len(shown) or shown[i + 1][1] != key:
-                row.append(f" {age_words(age) or '?'}", style="dim italic" if stale else "green")
+                row.append(*age_due)
+                age_due = None
+        if age_due is not None:
+            row.append(*age_due)
         return row
 
     def _alert_rows(self, alerts: list[Alert], width: int, room: int, data_now: float | None) -> list[Any]:

@@ -47,6 +47,8 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+from tests.helpers import NotifyListener  # the service manager's end of sd_notify, as the service test has it
+
 REPO = Path(__file__).resolve().parents[2]
 CLOCK_TICKS = os.sysconf("SC_CLK_TCK")
 WARM_UP_S = 30.0  # the estimators converge and the first recording blocks are merged before CPU is counted
@@ -176,46 +178,15 @@ def write_config(work: Path, mux_port: int, broker_port: int) -> Path:
     return cfg
 
 
-class NotifyListener:
-    """The service manager's end of sd_notify: a datagram socket read all the time, as systemd reads it."""
-
-    def __init__(self, path: Path) -> None:
-        self.path = path
-        self.sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
-        self.sock.bind(str(path))
-        self.sock.settimeout(0.2)
-        self.ready_at: float | None = None  # perf_counter() when READY=1 came
-        self.received = 0
-        self.closing = threading.Event()
-        self.thread = threading.Thread(target=self._read, daemon=True)
-        self.thread.start()
-
-    def _read(self) -> None:
-        while not self.closing.is_set():
-            try:
-                data = self.sock.recv(4096)
-            except socket.timeout:
-                continue
-            except OSError:
-                return
-            self.received += 1
-            if self.ready_at is None and b"READY=1" in data.split(b"\n"):
-                self.ready_at = time.perf_counter()
-
-    def wait_ready(self, proc: subprocess.Popen, t_exec: float, timeout_s: float = 30.0) -> float:
-        """Seconds from the exec to READY=1."""
-        while self.ready_at is None:
-            if proc.poll() is not None:
-                raise RuntimeError(f"offwatch run exited with {proc.returncode} before READY=1")
-            if time.perf_counter() - t_exec > timeout_s:
-                raise RuntimeError(f"no READY=1 within {timeout_s:.0f} s")
-            time.sleep(0.005)
-        return self.ready_at - t_exec
-
-    def close(self) -> None:
-        self.closing.set()
-        self.thread.join(timeout=5)
-        self.sock.close()
+def wait_ready(notify: NotifyListener, proc: subprocess.Popen, t_exec: float, timeout_s: float = 30.0) -> float:
+    """Seconds from the exec (``time.monotonic()``) to READY=1."""
+    while not notify.times_of("READY=1"):
+        if proc.poll() is not None:
+            raise RuntimeError(f"offwatch run exited with {proc.returncode} before READY=1")
+        if time.monotonic() - t_exec > timeout_s:
+            raise RuntimeError(f"no READY=1 within {timeout_s:.0f} s")
+        time.sleep(0.005)
+    return notify.times_of("READY=1")[0] - t_exec
 
 
 def live_run(work: Path, env: dict[str, str], broker_port: int, seconds: float, seed: int,
@@ -224,15 +195,15 @@ def live_run(work: Path, env: dict[str, str], broker_port: int, seconds: float, 
     mux = Multiplexer(simulated_feed(t0, seconds + 5.0, seed))
     cfg = write_config(work, mux.port, broker_port)
     notify = NotifyListener(work / "notify")
-    env = dict(env, NOTIFY_SOCKET=str(notify.path))
-    t_exec = time.perf_counter()
+    env = dict(env, NOTIFY_SOCKET=notify.name)
+    t_exec = time.monotonic()
     # cProfile writes its figures when the service returns from SIGTERM (a normal exit)
     command = offwatch("run", "--config", str(cfg)) if profile is None else \
         [sys.executable, "-m", "cProfile", "-o", str(profile), "-m", "daemon", "run", "--config", str(cfg)]
     proc = subprocess.Popen(command, cwd=REPO, env=env,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
-        ready_s = notify.wait_ready(proc, t_exec)
+        ready_s = wait_ready(notify, proc, t_exec)
         ready_cpu_s = cpu_s(proc.pid)
         time.sleep(WARM_UP_S)
         rss = [rss_mb(proc.pid)]
