@@ -39,7 +39,7 @@ from daemon.outlets.recorder import Recorder
 path, start = sys.argv[1], int(sys.argv[2])
 
 def report(stats):
-    print(stats.raw_lines, stats.dropped, flush=True)
+    print(f"{stats.raw_lines} {stats.dropped}", flush=True)  # one write: unbuffered, print writes each piece
 
 rec = Recorder(path, commit_interval_s=0.02, block_span_s=2.0, queue_size=200000, on_commit=report)
 print("open", flush=True)
@@ -68,6 +68,8 @@ def run_and_kill(path: Path, start: int, rng: random.Random, early: bool) -> lis
 
     def read() -> None:
         for line in child.stdout:
+            if not line.endswith("\n"):
+                break  # the kill cut the child's last write short: not a report
             printed.append(line.strip())
             if line.startswith("open"):
                 opened.set()
