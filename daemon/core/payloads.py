@@ -72,6 +72,7 @@ def rule_for(name: str) -> int | None:
     return _BY_SUFFIX[best] if best else None
 
 
+@lru_cache(maxsize=4096)  # asked for every field of every payload: one cached call, not two
 def decimals_for(name: str, inherited: int | None = None) -> int:
     """Decimals for field ``name``: its rule, else the enclosing field's, else the default."""
     rule = rule_for(name)

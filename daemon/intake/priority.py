@@ -39,7 +39,7 @@ from daemon.errors import ConfigError
 from daemon.core.readings import Reading
 from estimators.base import WARNING, Condition
 from estimators import wording
-from estimators.samples import KIND_NAMES, Fix, kind_of
+from estimators.samples import KIND_NAMES, Fix
 
 log = logging.getLogger(__name__)
 
@@ -100,21 +100,27 @@ class PrioritySelector:
 
     def accept(self, reading: Reading) -> bool:
         """True when ``reading`` comes from the source that should feed the estimators now."""
-        kind = kind_of(reading.sample)
-        t_s = reading.sample.t_s
-        self._now = max(self._now, t_s)
-        seen = self._seen.setdefault(kind, {})
-        seen[reading.source] = max(t_s, seen.get(reading.source, t_s))
+        sample, source = reading.sample, reading.source
+        kind = KIND_NAMES[type(sample)]  # kind_of, without the call: asked for every reading
+        t_s = sample.t_s
+        if t_s > self._now:  # max(), written out: NaN never moves it
+            self._now = t_s
+        seen = self._seen.get(kind)
+        if seen is None:
+            seen = self._seen[kind] = {}
+        newest = seen.get(source)
+        seen[source] = newest if newest is not None and newest > t_s else t_s
         # one receiver of this kind so far (the common case): it is the best there is
-        best = next(iter(seen)) if len(seen) == 1 else self._best_fresh(kind, seen)
+        best = source if len(seen) == 1 else self._best_fresh(kind, seen)
         if best != self._active.get(kind):
             self._switch(kind, best, seen)
-        if isinstance(reading.sample, Fix):
-            self._compare_fixes(reading.source, reading.sample, best)
-        ok = reading.source == best
-        tally = self._accepted if ok else self._refused
-        per_source = tally.setdefault(kind, {})
-        per_source[reading.source] = per_source.get(reading.source, 0) + 1
+        if type(sample) is Fix:
+            self._compare_fixes(source, sample, best)
+        ok = source == best
+        per_source = (self._accepted if ok else self._refused).get(kind)
+        if per_source is None:
+            per_source = (self._accepted if ok else self._refused)[kind] = {}
+        per_source[source] = per_source.get(source, 0) + 1
         return ok
 
     def _ranked(self, kind: str, seen: Mapping[str, float]) -> list[str]:
