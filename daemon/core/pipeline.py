@@ -16,6 +16,12 @@ a silent feed is noticed when nothing arrives at all.
 
 Adding a topic is adding an estimator to ``build_estimators``: the pipeline
 publishes whatever it returns.
+
+A high-rate sentence (a 10 Hz compass, a 5 Hz log) walks the whole way as one
+reading each, not as sums kept between fixes: the estimators use each heading
+at its own time (the apparent wind takes the heading nearest before it, the
+frozen-compass check the spread of the headings across a turn), which a mean
+or a circular sum would not keep. The per-item path is kept short instead.
 """
 
 from __future__ import annotations
