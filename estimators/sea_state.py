@@ -443,13 +443,14 @@ class SeaStateEstimator(EstimatorBase):
         from_deg, speed = wind_from((me, mn))
         # the spread along and across the mean, as the sigma of a mean of n_eff independent samples
         ue, un = (me / speed, mn / speed) if speed > 1e-6 else (0.0, 1.0)
-        along = [(x - me) * ue + (y - mn) * un for x, y in vecs]
-        across = [(x - me) * un - (y - mn) * ue for x, y in vecs]
+        # each departure squared as it is made (one list each, not two): the same products, summed in order
+        along2 = [a * a for x, y in vecs for a in ((x - me) * ue + (y - mn) * un,)]
+        across2 = [a * a for x, y in vecs for a in ((x - me) * un - (y - mn) * ue,)]
         n = len(vecs)
         span = min(p.mean_window_s, t - self._epochs[0].t_s + 1.0)
         n_eff = max(1.0, min(n, span / p.decorrelation_s))
-        s_along = math.sqrt(sum([a * a for a in along]) / max(1, n - 1) / n_eff)
-        s_across = math.sqrt(sum([a * a for a in across]) / max(1, n - 1) / n_eff)
+        s_along = math.sqrt(sum(along2) / max(1, n - 1) / n_eff)
+        s_across = math.sqrt(sum(across2) / max(1, n - 1) / n_eff)
         sigma_deg = 180.0 if speed < 1e-6 else min(180.0, math.degrees(math.atan2(s_across, speed)))
         return MeanWind(from_deg, speed, s_along, sigma_deg, n)
 
@@ -488,7 +489,7 @@ class SeaStateEstimator(EstimatorBase):
         payload.update(waves)
         out: list[Output] = [Publication(t, TOPIC, payload)]
         out.extend(self._against_condition(t, water, waves, current))
-        out.extend(self._unstable_condition(t, ctx))
+        out.extend(self._unstable_condition(t, air, sea))
         return out
 
     def _depth_now(self, t: float) -> tuple[float | None, float | None]:
@@ -595,8 +596,8 @@ class SeaStateEstimator(EstimatorBase):
         age = self.params.temperature_max_age_s
         return _recent_mean(ctx, AirTemperature, t, age), _recent_mean(ctx, SeaTemperature, t, age)
 
-    def _unstable_condition(self, t: float, ctx: Context) -> list[Output]:
-        air, sea = self._temperatures(t, ctx)
+    def _unstable_condition(self, t: float, air: float | None, sea: float | None) -> list[Output]:
+        """The caution from the minute's means the publication carries (taken once, at the same time)."""
         was = self._unstable.active
         self._unstable.update(None if air is None or sea is None else sea - air)
         if not self._unstable.active:
