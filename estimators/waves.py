@@ -124,9 +124,9 @@ def rising_root(f_and_slope, lo: float, hi: float, start: float, xtol: float = 0
     Newton's steps, each kept inside the bracket that still holds the sign change (a step that
     would leave it, or that does not at least halve the one before, is a bisection instead: the
     safeguard of Numerical Recipes' rtsafe, Press et al. 1992, ch. 9.4). The caller knows the
-    signs at the ends (f(lo) <= 0 <= f(hi)), so they are not evaluated again. The same root as
-    halving the bracket to 1e-14 of it, in a handful of steps instead of some fifty: the dispersion
-    roots are asked for with every sea-state publication.
+    signs at the ends (f(lo) <= 0 <= f(hi)), so they are not evaluated again. Done when a step is
+    under 1e-14 of the root (or ``xtol``): the root to rounding, in a handful of steps instead of
+    some fifty bisections; the dispersion roots are asked for with every sea-state publication.
     """
     x, step_before = start, hi - lo
     for _ in range(200):
@@ -137,7 +137,7 @@ def rising_root(f_and_slope, lo: float, hi: float, start: float, xtol: float = 0
             hi = x
         else:
             lo = x
-        tol = 1e-14 * abs(hi)
+        tol = 1e-14 * abs(x)  # relative to the root, whatever the bracket's width
         if tol < xtol:
             tol = xtol
         if hi - lo <= tol:
@@ -244,12 +244,13 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
     if u == 0.0:  # still water: the input, exactly
         return WaveOnCurrent(period_s, u, h, False, k0, 1.0, 1.0, 1.0)
     if u > 0.0:  # following: f rises monotonically; f(k0) = k0 U > 0, so the root is below k0
-        k = rising_root(f_and_slope, k0 * 1e-6, k0, k0, xtol=1e-14 * k0)
+        lo, hi = k0 * 1e-6, k0
     else:  # against: f rises up to the blocking wavenumber (c_g + U > 0 below it); f(k0) = k0 U < 0
         kb = _blocking_wavenumber(-u, h)
         if kb is None or f_and_slope(kb)[0] < 0.0:  # the wave's period is below the blocking period
             return WaveOnCurrent(period_s, u, h, True, None, None, None, None)
-        k = rising_root(f_and_slope, k0, kb, k0, xtol=1e-14 * kb)
+        lo, hi = k0, kb
+    k = rising_root(f_and_slope, lo, hi, k0)  # from still water's k0, at one end of the bracket
     sigma = intrinsic_frequency(k, h)
     cg_ground = group_speed(k, h) + u
     if cg_ground <= 0.0:  # at the blocking point itself (within rounding)

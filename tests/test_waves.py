@@ -183,7 +183,7 @@ def _dispersion_root(period_s, u, h):
     (7.0, 1.5, None), (5.2, 0.26, 80.0), (10.0, -5.0 * KN_TO_MPS, None), (4.1, -0.3, 80.0), (12.0, -1.0, 15.0),
     # currents of a hundredth of a knot and less against the waves (a current nearly across the wind): the
     # blocking wavenumber is then a million times the wave's, and a tolerance scaled to it would not do
-    (6.0, -0.005, None), (10.8, -7.9e-6, 200.0), (5.5, -1e-4, 80.0),
+    (6.0, -0.005, None), (10.8, -7.9e-6, 200.0), (5.5, -1e-4, 80.0), (9.0, 0.8, 6.0), (14.0, -0.9, 8.0),
 ])
 def test_the_wavenumber_on_a_current_is_the_dispersion_root(period_s, u, h):
     # reference library: scipy.optimize.brentq on (omega - k U)^2 = g k tanh kh (linear theory, as above), to
