@@ -248,9 +248,9 @@ class WindowSums:
 
     Taken about a reference vector (the first added to an empty window, or the newest when summed
     afresh): the departures from it are small beside the wind's speed, so the sums of squares keep
-    their digits when the mean's part is taken away. Summed afresh from the vectors once as many have left as the window holds, so the
-    rounding of adding and taking away never builds up past one window's worth (parts in 1e14 of the
-    figures, published to 0.01 at most).
+    their digits when the mean's part is taken away. Summed afresh from the vectors once as many
+    have left as the window holds, so the rounding of adding and taking away never builds up past
+    one window's worth (parts in 1e14 of the figures, published to 0.01 at most).
     """
 
     def __init__(self) -> None:
@@ -297,7 +297,8 @@ class WindowSums:
         if n <= 0:
             return None
         me, mn = se / n, sn / n  # the mean's departure from the reference
-        return Spread(n, (re + me, rn + mn), max(0.0, see - n * me * me), sen - n * me * mn, max(0.0, snn - n * mn * mn))
+        return Spread(n, (re + me, rn + mn),
+                      max(0.0, see - n * me * me), sen - n * me * mn, max(0.0, snn - n * mn * mn))
 
 
 class SeaStateEstimator(EstimatorBase):

@@ -414,7 +414,8 @@ def test_the_published_mean_wind_is_the_window_summed_afresh():
                 from_deg, speed = wind_from((me, mn))
                 ue, un = me / speed, mn / speed
                 n_eff = max(1.0, min(len(vecs), min(60.0, t - self._epochs[0].t_s + 1.0) / 10.0))
-                along = math.sqrt(sum(((x - me) * ue + (y - mn) * un) ** 2 for x, y in vecs) / max(1, len(vecs) - 1) / n_eff)
+                squares = sum(((x - me) * ue + (y - mn) * un) ** 2 for x, y in vecs)
+                along = math.sqrt(squares / max(1, len(vecs) - 1) / n_eff)
                 self.seen.append((got, (from_deg, speed, along, len(vecs))))
             return got
 
