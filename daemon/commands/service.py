@@ -24,7 +24,6 @@ from pathlib import Path
 from typing import Any
 
 from daemon.outlets import sdnotify
-from daemon.core.assembly import build
 from daemon.core.calibration_store import load_calibration, save_calibration
 from daemon.core.config import Config, client_id_for, load_config
 from daemon.errors import ConfigError, OffwatchError
@@ -55,6 +54,7 @@ class Service:
         self.alerts_changed = _AlertWatch()
         self.recording_watch = RecordingWatch()
         sinks = [s for s in (self.recorder, self.mqtt, self.nmea_out, self.alerts_changed) if s is not None]
+        from daemon.core.assembly import build  # the estimators and numpy: only once the config is known good
         self.parts = build(cfg, sinks, live=True, calibration=load_calibration(self.state_dir),
                            alert_snapshot=read_json(self.state_dir / ALERTS_FILE),
                            extra_status=self._health)
