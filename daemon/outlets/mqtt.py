@@ -56,8 +56,8 @@ from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 from daemon.errors import ConfigError
 from daemon.outlets.outbox import Outbox, Outgoing
 from daemon.core.config import MqttSettings, mask_url_password, mqtt_problems
-from daemon.core.payloads import clean, iso_utc
-from daemon.core.readings import Message, RawLine
+from daemon.core.payloads import iso_utc
+from daemon.core.readings import Message, RawLine, encode_json
 from daemon.intake.acks import valid_alert_id
 
 log = logging.getLogger(__name__)
@@ -125,13 +125,8 @@ def tls_context(s: MqttSettings) -> ssl.SSLContext:
 # -- payloads -----------------------------------------------------------------
 
 def encode_payload(payload: Mapping[str, Any]) -> bytes:
-    """Compact UTF-8 JSON. Payloads come cleaned from the payload layer; one that is not JSON
-    (a non-finite number from elsewhere) is cleaned there, never sent as NaN."""
-    try:
-        text = json.dumps(payload, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
-    except ValueError:
-        text = json.dumps(clean(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
-    return text.encode("utf-8")
+    """Compact UTF-8 JSON, as every message's payload is sent (``Message.payload_json``)."""
+    return encode_json(payload).encode("utf-8")
 
 
 def offline_payload(reason: str, now_s: float | None = None) -> bytes:
@@ -310,7 +305,8 @@ class MqttSink:
         if self._work.qsize() >= MAX_WORK_ITEMS:
             self.counters["dropped_work_queue_full"] += 1
             return
-        item = ("msg", Outgoing(msg.topic, encode_payload(msg.payload), msg.qos, msg.retain))
+        # the text is made once per message and shared with the recording
+        item = ("msg", Outgoing(msg.topic, msg.payload_json().encode("utf-8"), msg.qos, msg.retain))
         self._accepted += 1  # before put: the worker may store it at once
         self._work.put(item)
 

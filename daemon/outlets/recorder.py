@@ -106,7 +106,7 @@ from typing import Any
 from daemon import __version__
 from daemon.errors import InputError, OutputError
 from daemon.nmea0183.codec import has_tag_block, split_tag, tag_block
-from daemon.core.readings import Message, RawLine
+from daemon.core.readings import Message, RawLine, json_default, ascii_json
 from daemon.intake.crew import REPLAYERS as CREW_SOURCES
 from estimators.params import param
 
@@ -250,19 +250,8 @@ def _decode_recv(value: int | float | None, t: float, t_ms: int) -> float:
     return value
 
 
-def _json_default(obj: Any) -> Any:
-    """numpy scalars and other number-likes become plain numbers; mappings become dicts."""
-    if isinstance(obj, Mapping):
-        return dict(obj)
-    if hasattr(obj, "item"):
-        return obj.item()
-    if isinstance(obj, (set, frozenset, tuple)):
-        return list(obj)
-    return str(obj)
-
-
 def _dumps(value: Any) -> str:
-    return json.dumps(value, ensure_ascii=True, separators=(",", ":"), default=_json_default)
+    return json.dumps(value, ensure_ascii=True, separators=(",", ":"), default=json_default)
 
 
 _CODECS: dict[str, tuple[Callable[[bytes], bytes], Callable[[bytes], bytes]]] = {
@@ -277,7 +266,7 @@ class _Item:
 
     t: float
     name: str
-    fields: tuple[Any, ...]  # raw: (recv, text); message: (retain, qos, kind, payload)
+    fields: tuple[Any, ...]  # raw: (recv, text); message: (retain, qos, kind, payload as ASCII JSON text)
 
 
 def _pack(items: list[_Item], codec: str) -> tuple[str, bytes, float | None, float | None]:
@@ -291,8 +280,9 @@ def _pack(items: list[_Item], codec: str) -> tuple[str, bytes, float | None, flo
         if len(it.fields) == 2:  # raw line: recv relative to its own time
             recv, text = it.fields
             rows.append(_dumps([t_field, _encode_recv(recv, it.t, prev[0]), index, text]))
-        else:
-            rows.append(_dumps([t_field, index, *it.fields]))
+        else:  # the payload's JSON is the message's own text (made once, shared with MQTT), spliced in
+            retain, qos, kind, payload_text = it.fields
+            rows.append(f"{_dumps([t_field, index, retain, qos, kind])[:-1]},{payload_text}]")
     data = _CODECS[codec][0]("\n".join(rows).encode("ascii"))
     return (_dumps(list(names)), data, min(finite) if finite else None,
             max(finite) if finite else None)
@@ -464,13 +454,16 @@ class RecordingWriter:
         self.raw_stream.pending.append(_Item(line.t_s, line.source, (line.recv_utc, line.text)))
 
     def add_message(self, msg: Message) -> None:
-        payload = dict(msg.payload)
+        if not isinstance(msg.payload, Mapping):  # a payload is a JSON object, or nothing to keep
+            raise TypeError(f"a message payload must be a mapping, found {type(msg.payload).__name__}")
+        text = ascii_json(msg.payload_json())  # the blocks are ASCII (schema above)
         self.message_stream.pending.append(
-            _Item(msg.t_s, msg.topic, (int(bool(msg.retain)), int(msg.qos), msg.kind, payload)))
+            _Item(msg.t_s, msg.topic, (int(bool(msg.retain)), int(msg.qos), msg.kind, text)))
         if msg.kind == "alert":
+            payload = msg.payload
             alert_id = payload.get("id") or msg.topic.rsplit("/", 1)[-1]
             self.pending_alerts.append((msg.t_s, str(alert_id), payload.get("priority"), payload.get("state"),
-                                        payload.get("text"), payload.get("since"), msg.topic, _dumps(payload)))
+                                        payload.get("text"), payload.get("since"), msg.topic, text))
 
     def set_config(self, effective: Mapping[str, Any], now_utc: float | None = None) -> None:
         self.pending_meta["config"] = _dumps(dict(effective))
