@@ -249,8 +249,12 @@ def _decode_recv(value: int | float | None, t: float, t_ms: int) -> float:
     return value
 
 
+# made once: json.dumps with options builds a new encoder at every call (the same text either way)
+_ASCII_JSON = json.JSONEncoder(ensure_ascii=True, separators=(",", ":"), default=json_default)
+
+
 def _dumps(value: Any) -> str:
-    return json.dumps(value, ensure_ascii=True, separators=(",", ":"), default=json_default)
+    return _ASCII_JSON.encode(value)
 
 
 _CODECS: dict[str, tuple[Callable[[bytes], bytes], Callable[[bytes], bytes]]] = {
