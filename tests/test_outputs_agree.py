@@ -1,11 +1,12 @@
-"""Every output says the same: the recording keeps each message byte for byte as the JSONL and MQTT have it.
+"""Every output says the same: the recording and MQTT keep each message byte for byte as the JSONL has it.
 
 interface.md: the JSONL holds every message a replay publishes, in order, one
 ``{"t": ..., "topic": ..., "payload": {...}}`` a line; MQTT sends the payload
 as compact UTF-8 JSON; the recording (schema in daemon/outlets/recorder.py)
 keeps each payload as compact ASCII JSON inside its block's row. The three are
 made from one encoding of each payload (``Message.payload_json``); here they
-are compared as bytes on a real capture and on the demo slice, with the
+are compared as bytes on a real capture (recording, MQTT outbox, JSONL) and on
+the demo slice (recording, JSONL), with the
 expected texts written by Python's own json module (its documented defaults:
 ``", "`` and ``": "`` separators; ``ensure_ascii=True`` escapes every character
 outside printable ASCII as ``\\uXXXX``, RFC 8259 section 7), never by the
@@ -26,8 +27,13 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from daemon.commands.replay import run_replay
+from daemon.core.config import MqttSettings, load_config
 from daemon.core.readings import Message, ascii_json, encode_json
+from daemon.outlets.mqtt import MqttSink
+from daemon.outlets.outbox import Outbox
 from daemon.outlets.recorder import iter_messages
+from tests.helpers import free_port
 from tests.shared import REPO, shared_path
 
 BERTH = ("real-captures", "berth-13min-mda-pressure.nmea")  # 13 min at a berth: alert texts with ° and ′
@@ -63,11 +69,27 @@ def assert_recording_matches_jsonl(db: Path, jsonl: Path) -> int:
     return sum(1 for text in texts if "\\u" in text)
 
 
-def test_a_real_captures_recording_holds_the_jsonl_byte_for_byte(tmp_path):
-    db, jsonl = tmp_path / "berth.sqlite", tmp_path / "berth.jsonl"
-    replay(shared_path(*BERTH), "--jsonl", str(jsonl), "--record", str(db))
+def compact_utf8(payload: dict) -> bytes:
+    return json.dumps(payload, ensure_ascii=False, separators=(",", ":")).encode("utf-8")
+
+
+def test_a_real_captures_recording_and_mqtt_payloads_hold_the_jsonl_byte_for_byte(tmp_path):
+    db, jsonl, outbox = tmp_path / "berth.sqlite", tmp_path / "berth.jsonl", tmp_path / "outbox.sqlite"
+    # GIVEN the MQTT sink with a broker that never answers: it keeps in its outbox file every message that
+    # must arrive (alerts, events, the status), in order, and the latest of each retained topic
+    settings = MqttSettings(url=f"mqtt://127.0.0.1:{free_port()}", client_id="outputs-agree", close_timeout_s=0.0)
+    run_replay([str(shared_path(*BERTH))], load_config(None), jsonl=str(jsonl), record=str(db), progress=False,
+               extra_sinks=[MqttSink(settings, outbox)])
     escaped = assert_recording_matches_jsonl(db, jsonl)
     assert escaped > 0  # the capture's alert texts carry non-ASCII characters: the escapes were checked
+    # THEN the bytes MQTT would send are the compact UTF-8 of the JSONL's payloads
+    lines = [json.loads(line) for line in jsonl.read_text(encoding="utf-8").splitlines()]
+    must_arrive = [compact_utf8(m["payload"]) for m in lines
+                   if m["topic"].split("/", 1)[1].split("/")[0] in ("alerts", "events", "status")]
+    latest = {m["topic"]: compact_utf8(m["payload"]) for m in lines if not m["topic"].endswith("/events")}
+    kept = Outbox(outbox)
+    assert [o.payload for o in kept.queued(limit=len(lines))] == must_arrive
+    assert {o.topic: o.payload for o in kept.latest_states()} == latest
 
 
 def test_the_demo_slices_recording_holds_its_replays_jsonl_byte_for_byte(demo_slice, tmp_path):
