@@ -466,7 +466,8 @@ class FrontDetector(EstimatorBase):
         win = [b for b in self._bins if b.d_nm >= start] or [self._bins[-1]]
         smooth = _running_mean([b.temp_c for b in win], 3)  # three bins take the edge off sensor noise
         pick = min if sign > 0 else max
-        before_peak = [k for k in range(len(win)) if win[k].d_nm <= run.peak_d] or [0]
+        peak_d = run.peak_d  # the steepest point's centroid, over the run's top: found once, not per bin
+        before_peak = [k for k in range(len(win)) if win[k].d_nm <= peak_d] or [0]
         i = pick(before_peak, key=lambda k: smooth[k])
         delta = smooth[-1] - smooth[i]  # measured: newest less the far side
         # The front's width: from the last bin still within 10 % of the change of the far side's extreme.

@@ -30,20 +30,21 @@ class InstrumentReadings(EstimatorBase):
     sees_distrusted = True  # the display shows what the instruments say; an alert says when not to believe it
 
     def __init__(self) -> None:
-        self._latest: dict[str, tuple[float, dict[str, float | None]]] = {}
+        # name -> (time, the newest sample): its display figures are made when published, at most once a
+        # second, not for each of the several samples a second brings
+        self._latest: dict[str, tuple[float, Sample]] = {}
         self._fresh = False
         self._last_pub_s = float("-inf")
 
     def step(self, sample: Sample, ctx: Context) -> Sequence[Output]:
         if isinstance(sample, Heading):
-            self._keep("heading", sample.t_s, {"heading_deg": round(sample.true_deg, 1)})
+            self._keep("heading", sample)
         elif isinstance(sample, WaterSpeed):
-            self._keep("stw", sample.t_s, {"stw_kn": round(sample.speed_kn, 2)})
+            self._keep("stw", sample)
         elif isinstance(sample, Depth):
-            self._keep("depth", sample.t_s, {"depth_m": round(sample.depth_m, 1)})
+            self._keep("depth", sample)
         elif isinstance(sample, WaterWind) and sample.from_true_deg is not None:
-            self._keep("wind", sample.t_s, {"wind_from_deg": round(sample.from_true_deg, 0),
-                                            "wind_kn": round(sample.speed_kn, 1)})
+            self._keep("wind", sample)
         return ()
 
     def tick(self, t_s: float, ctx: Context) -> Sequence[Output]:
@@ -52,12 +53,24 @@ class InstrumentReadings(EstimatorBase):
         self._fresh = False
         self._last_pub_s = t_s
         payload: dict[str, float | None] = {}
-        for name, (seen_s, values) in self._latest.items():
-            payload.update(values)
+        for name, (seen_s, sample) in self._latest.items():
+            payload.update(_figures(sample))
             payload[f"{name}_age_s"] = round(max(0.0, t_s - seen_s), 1)
         return (Publication(t_s, TOPIC, payload),)
 
-    def _keep(self, name: str, t_s: float, values: dict[str, float | None]) -> None:
-        if t_s >= self._latest.get(name, (float("-inf"), {}))[0]:
-            self._latest[name] = (t_s, values)
+    def _keep(self, name: str, sample: Sample) -> None:
+        kept = self._latest.get(name)
+        if kept is None or sample.t_s >= kept[0]:
+            self._latest[name] = (sample.t_s, sample)
             self._fresh = True
+
+
+def _figures(sample: Sample) -> dict[str, float | None]:
+    """A kept sample's display figures, rounded as a display shows them."""
+    if isinstance(sample, Heading):
+        return {"heading_deg": round(sample.true_deg, 1)}
+    if isinstance(sample, WaterSpeed):
+        return {"stw_kn": round(sample.speed_kn, 2)}
+    if isinstance(sample, Depth):
+        return {"depth_m": round(sample.depth_m, 1)}
+    return {"wind_from_deg": round(sample.from_true_deg, 0), "wind_kn": round(sample.speed_kn, 1)}

@@ -83,6 +83,13 @@ class HeadingIntegrity(EstimatorBase):
         self.params = params or IntegrityParams()
         self._headings: deque[tuple[float, float]] = deque()
         self._tracks: deque[tuple[float, float, float]] = deque()  # (t, cog, heading then)
+        # The COG unwrapped (each fix's turn from the one before added on) and the window's highest and
+        # lowest of it (monotone queues of (fix number, unwrapped)): no earlier fix can be a turn away
+        # while both are nearer the newest than turn_deg, so a straight leg costs a comparison, not a scan.
+        self._unwrapped = 0.0
+        self._tracks_added = 0
+        self._highest: deque[tuple[int, float]] = deque()
+        self._lowest: deque[tuple[int, float]] = deque()
         self._frozen_at: float | None = None  # the heading value it froze at, while suspect
 
     @property
@@ -114,15 +121,45 @@ class HeadingIntegrity(EstimatorBase):
         if not self._headings or sog < p.min_sog_kn:
             return ()
         heading_now = self._headings[-1][1]
+        self._note_turn(cog)
         self._tracks.append((t_s, cog, heading_now))
         self._forget(t_s)
-        if self.suspect:
+        if self.suspect or not self._turned_in_window():
             return ()
         matches = self._convicting(t_s, cog, heading_now)
         if not matches:
             return ()
         t0, turn_cog, turn_hdg, spread = matches[-1]  # the quickest turn tells it best
         return self._raise(t_s, heading_now, turn_cog, turn_hdg, t0, spread, since_s=matches[0][0])
+
+    def _note_turn(self, cog: float) -> None:
+        """Carry the unwrapped COG on to this fix and keep the monotone queues of its extremes."""
+        if self._tracks:
+            self._unwrapped += wrap_180(cog - self._tracks[-1][1])
+        else:  # a new start: the queues' values belong to the old one
+            self._unwrapped = cog
+            self._highest.clear()
+            self._lowest.clear()
+        n, u = self._tracks_added, self._unwrapped
+        self._tracks_added += 1
+        while self._highest and self._highest[-1][1] <= u:
+            self._highest.pop()
+        self._highest.append((n, u))
+        while self._lowest and self._lowest[-1][1] >= u:
+            self._lowest.pop()
+        self._lowest.append((n, u))
+
+    def _turned_in_window(self) -> bool:
+        """Whether some fix in the window may lie turn_deg or more from the newest. |wrap(COG - COG0)| is at
+        most the unwrapped difference, so nearer extremes mean none does; the margin covers the rounding of
+        the sum (1e-9 deg after a million fixes), so the scan decides every case near the threshold."""
+        oldest = self._tracks_added - len(self._tracks)  # fixes leave the window oldest first, by number
+        for q in (self._highest, self._lowest):
+            while q[0][0] < oldest:  # the newest fix is in both queues and in the window: they never empty
+                q.popleft()
+        reach = self.params.turn_deg - 1e-6
+        u = self._unwrapped
+        return self._highest[0][1] - u >= reach or u - self._lowest[0][1] >= reach
 
     def _convicting(self, t_s: float, cog: float, heading_now: float) -> list[tuple[float, float, float, float]]:
         """(t0, track turn, heading turn, spread) of every earlier fix in the window that convicts the compass."""

@@ -213,6 +213,7 @@ class PositionEstimator(EstimatorBase):
         self._dr: _Reckoning | None = None
         self._current: Mapping[str, Any] | None = None  # last usable current payload
         self._current_unavailable = False
+        self._current_seen: Publication | None = None  # the publication those two were taken from
         self._last_pub_s = -math.inf
         self._last_source = ""
         self._lost = False
@@ -488,8 +489,9 @@ class PositionEstimator(EstimatorBase):
 
     def _note_current(self, ctx: Context) -> None:
         pub = ctx.latest("current")
-        if pub is None:
+        if pub is None or pub is self._current_seen:  # the same publication as at the last fix or tick: taken
             return
+        self._current_seen = pub
         payload = pub.payload
         usable = (payload.get("quality") != "unavailable"
                   and all(_finite(payload.get(k)) for k in ("east_kn", "north_kn")))

@@ -38,12 +38,13 @@ from typing import Any
 
 from estimators.base import Distrust, Output, Publication
 from estimators.history import SampleHistory
-from estimators.samples import KIND_NAMES, Sample, kind_of
+from estimators.samples import KIND_NAMES, Sample
 
 log = logging.getLogger(__name__)
 
 LAST_COUNTABLE_S = 2.0 ** 52  # from here on t + 1 s == t in a float: the tick loop would never end
 MAX_TICKS_PER_GAP = 600  # a data gap longer than this (s) is crossed in one step, not one tick per second
+_SILENT = (tuple, list)  # an empty one of these is an estimator saying nothing (a generator is never taken so)
 
 
 class RunContext:
@@ -105,21 +106,26 @@ class Runner:
         """Every estimator's tick at data time ``t_s``, in order."""
         out: list[Output] = []
         for est in self.estimators:
-            out += self._take(est.tick(t_s, self.ctx))
+            said = est.tick(t_s, self.ctx)
+            if said or type(said) not in _SILENT:  # as in step
+                out += self._take(said)
         return out
 
     def step(self, sample: Sample) -> list[Output]:
         """The sample into the history, then to each estimator that accepts its type (a distrusted
         kind: only to those that see distrusted samples, and not into the history)."""
-        withheld = self.distrusted.get(kind_of(sample))
+        withheld = self.distrusted.get(KIND_NAMES[type(sample)])  # kind_of, without the call
+        ctx = self.ctx
         if withheld is None:
-            self.ctx.history.add(sample)
+            ctx.history.add(sample)
         else:
             withheld[2] += 1
         out: list[Output] = []
         for est in self._routes.get(type(sample), ()):
             if withheld is None or getattr(est, "sees_distrusted", False):
-                out += self._take(est.step(sample, self.ctx))
+                said = est.step(sample, ctx)
+                if said or type(said) not in _SILENT:  # most steps say nothing: _take's first test, without the call
+                    out += self._take(said)
         return out
 
     def _take(self, outputs: Iterable[Output]) -> Sequence[Output]:

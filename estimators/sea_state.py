@@ -100,9 +100,8 @@ from __future__ import annotations
 import bisect
 import math
 from collections import deque
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from itertools import islice
 from typing import Any
 
 from estimators.angles import KN_TO_MPS, from_east_north, to_east_north, wrap_180, wrap_360
@@ -232,6 +231,76 @@ def _along(current: tuple[float, float], toward_deg: float) -> float:
     return current[0] * ue + current[1] * un
 
 
+@dataclass(frozen=True, slots=True)
+class Spread:
+    """A window's vectors summed up: how many, their mean, and the sums of the departures' products."""
+
+    n: int
+    mean: tuple[float, float]
+    see: float  # sum of (east - mean east)^2
+    sen: float  # sum of (east - mean east)(north - mean north)
+    snn: float  # sum of (north - mean north)^2
+
+
+class WindowSums:
+    """Running sums of a window's vectors (east, north; their squares and product), so its mean and
+    spread cost the same whatever its length instead of a pass over every vector per publication.
+
+    Taken about a reference vector (the first added to an empty window, or the newest when summed
+    afresh): the departures from it are small beside the wind's speed, so the sums of squares keep
+    their digits when the mean's part is taken away. Summed afresh from the vectors once as many
+    have left as the window holds, so the rounding of adding and taking away never builds up past
+    one window's worth (parts in 1e14 of the figures, published to 0.01 at most).
+    """
+
+    def __init__(self) -> None:
+        self.rebase(())
+
+    def rebase(self, vectors: Iterable[tuple[float, float] | None]) -> None:
+        kept = [v for v in vectors if v is not None]
+        self._n, self._ref, self._se, self._sn, self._see, self._sen, self._snn = 0, (0.0, 0.0), 0.0, 0.0, 0.0, 0.0, 0.0
+        self.left = 0  # vectors taken away since the last rebase
+        for v in kept[-1:] + kept[:-1]:  # the newest first: it is the reference
+            self.add(v)
+
+    def add(self, v: tuple[float, float] | None) -> None:
+        if v is not None:
+            if self._n == 0:  # the first of a window (or of one emptied by a gap): the reference, all else 0
+                self._ref, self._se, self._sn, self._see, self._sen, self._snn = v, 0.0, 0.0, 0.0, 0.0, 0.0
+            de, dn = v[0] - self._ref[0], v[1] - self._ref[1]
+            self._n += 1
+            self._se += de
+            self._sn += dn
+            self._see += de * de
+            self._sen += de * dn
+            self._snn += dn * dn
+
+    def remove(self, v: tuple[float, float] | None) -> None:
+        if v is not None:
+            de, dn = v[0] - self._ref[0], v[1] - self._ref[1]
+            self._n -= 1
+            self._se -= de
+            self._sn -= dn
+            self._see -= de * de
+            self._sen -= de * dn
+            self._snn -= dn * dn
+            self.left += 1
+
+    def spread(self, leaving: Iterable[tuple[float, float] | None] = ()) -> Spread | None:
+        """The window's spread without the ``leaving`` vectors (a few at its old end); None when empty."""
+        n, se, sn, see, sen, snn = self._n, self._se, self._sn, self._see, self._sen, self._snn
+        re, rn = self._ref
+        for v in leaving:
+            if v is not None:
+                de, dn = v[0] - re, v[1] - rn
+                n, se, sn, see, sen, snn = n - 1, se - de, sn - dn, see - de * de, sen - de * dn, snn - dn * dn
+        if n <= 0:
+            return None
+        me, mn = se / n, sn / n  # the mean's departure from the reference
+        return Spread(n, (re + me, rn + mn),
+                      max(0.0, see - n * me * me), sen - n * me * mn, max(0.0, snn - n * mn * mn))
+
+
 class SeaStateEstimator(EstimatorBase):
     """Publishes ``sea_state``; raises ``wind_against_current`` and ``unstable_air``."""
 
@@ -244,10 +313,10 @@ class SeaStateEstimator(EstimatorBase):
         self.hull = hull or CurrentParams()
         self._leeway = 0.0  # the last interval's leeway, deg
         self._epochs: deque[WindEpoch] = deque()
-        # the epochs' water and ground winds beside them, in the same order: the window's vectors are a
-        # slice of these (copied in C) rather than a walk over the epochs for each publication
+        # the epochs' water and ground winds beside them, in the same order, and their running sums
         self._waters: deque[tuple[float, float]] = deque()
         self._grounds: deque[tuple[float, float] | None] = deque()
+        self._water_sums, self._ground_sums = WindowSums(), WindowSums()
         # neighbours in the deque out of time order (a sample stepped late can close an epoch older than
         # the last one): while there are any, the window is found by testing every epoch, as it always was
         self._inversions = 0
@@ -387,12 +456,17 @@ class SeaStateEstimator(EstimatorBase):
         self._epochs.append(epoch)
         self._waters.append(epoch.water)
         self._grounds.append(epoch.ground)
+        self._water_sums.add(epoch.water)
+        self._ground_sums.add(epoch.ground)
         while self._epochs and self._epochs[0].t_s < epoch.t_s - max(p.mean_window_s, GUST_AVERAGE_S):
             gone = self._epochs.popleft()
-            self._waters.popleft()
-            self._grounds.popleft()
+            self._water_sums.remove(self._waters.popleft())
+            self._ground_sums.remove(self._grounds.popleft())
             if self._epochs and self._epochs[0].t_s <= gone.t_s:
                 self._inversions -= 1
+        for sums, vectors in ((self._water_sums, self._waters), (self._ground_sums, self._grounds)):
+            if sums.left >= len(vectors):  # a window's worth has left: sum afresh (see WindowSums)
+                sums.rebase(vectors)
         recent = self._recent_water(epoch.t_s - GUST_AVERAGE_S)
         speed = math.hypot(*_mean(recent))
         q = self._gust_speeds
@@ -415,41 +489,45 @@ class SeaStateEstimator(EstimatorBase):
         recent.reverse()
         return recent
 
-    def _window(self, t: float, vectors: deque) -> list:
-        """The ``vectors`` (waters or grounds) of the epochs inside the mean window ending at ``t``, oldest
-        first: in time order the epochs before it are a few at the deque's head, so the rest is a slice."""
+    def _window(self, t: float, sums: WindowSums, vectors: deque) -> Spread | None:
+        """The spread of the ``vectors`` (waters or grounds) of the epochs inside the mean window ending at
+        ``t``: in time order the epochs before it are a few at the deque's head, taken off the running sums."""
         after_s = t - self.params.mean_window_s
         if self._inversions:
-            return [v for e, v in zip(self._epochs, vectors) if e.t_s > after_s]
-        old = 0
-        for e in self._epochs:
+            fresh = WindowSums()
+            fresh.rebase(v for e, v in zip(self._epochs, vectors) if e.t_s > after_s)
+            return fresh.spread()
+        leaving = []
+        for e, v in zip(self._epochs, vectors):
             if e.t_s > after_s:
                 break
-            old += 1
-        return list(islice(vectors, old, None))
+            leaving.append(v)
+        return sums.spread(leaving)
 
     def _ground_wind(self, t: float) -> tuple[float, float] | None:
         """(from_deg, speed) of the mean wind over ground over the window (its spread is not published)."""
-        vecs = [v for v in self._window(t, self._grounds) if v is not None]
-        return wind_from(_mean(vecs)) if vecs else None
+        spread = self._window(t, self._ground_sums, self._grounds)
+        return wind_from(spread.mean) if spread else None
 
     def _mean_wind(self, t: float) -> MeanWind | None:
         """The mean wind over water over the window, with its sigmas."""
         p = self.params
-        vecs = self._window(t, self._waters)
-        if not vecs:
+        spread = self._window(t, self._water_sums, self._waters)
+        if spread is None:
             return None
-        me, mn = _mean(vecs)
+        me, mn = spread.mean
         from_deg, speed = wind_from((me, mn))
-        # the spread along and across the mean, as the sigma of a mean of n_eff independent samples
+        # the spread along and across the mean, as the sigma of a mean of n_eff independent samples:
+        # sum((d . u)^2) = ue^2 see + 2 ue un sen + un^2 snn, and across with u turned a right angle
         ue, un = (me / speed, mn / speed) if speed > 1e-6 else (0.0, 1.0)
-        along = [(x - me) * ue + (y - mn) * un for x, y in vecs]
-        across = [(x - me) * un - (y - mn) * ue for x, y in vecs]
-        n = len(vecs)
+        cross = 2.0 * ue * un * spread.sen
+        along2 = max(0.0, ue * ue * spread.see + cross + un * un * spread.snn)
+        across2 = max(0.0, un * un * spread.see - cross + ue * ue * spread.snn)
+        n = spread.n
         span = min(p.mean_window_s, t - self._epochs[0].t_s + 1.0)
         n_eff = max(1.0, min(n, span / p.decorrelation_s))
-        s_along = math.sqrt(sum([a * a for a in along]) / max(1, n - 1) / n_eff)
-        s_across = math.sqrt(sum([a * a for a in across]) / max(1, n - 1) / n_eff)
+        s_along = math.sqrt(along2 / max(1, n - 1) / n_eff)
+        s_across = math.sqrt(across2 / max(1, n - 1) / n_eff)
         sigma_deg = 180.0 if speed < 1e-6 else min(180.0, math.degrees(math.atan2(s_across, speed)))
         return MeanWind(from_deg, speed, s_along, sigma_deg, n)
 
@@ -488,7 +566,7 @@ class SeaStateEstimator(EstimatorBase):
         payload.update(waves)
         out: list[Output] = [Publication(t, TOPIC, payload)]
         out.extend(self._against_condition(t, water, waves, current))
-        out.extend(self._unstable_condition(t, ctx))
+        out.extend(self._unstable_condition(t, air, sea))
         return out
 
     def _depth_now(self, t: float) -> tuple[float | None, float | None]:
@@ -595,8 +673,8 @@ class SeaStateEstimator(EstimatorBase):
         age = self.params.temperature_max_age_s
         return _recent_mean(ctx, AirTemperature, t, age), _recent_mean(ctx, SeaTemperature, t, age)
 
-    def _unstable_condition(self, t: float, ctx: Context) -> list[Output]:
-        air, sea = self._temperatures(t, ctx)
+    def _unstable_condition(self, t: float, air: float | None, sea: float | None) -> list[Output]:
+        """The caution from the minute's means the publication carries (taken once, at the same time)."""
         was = self._unstable.active
         self._unstable.update(None if air is None or sea is None else sea - air)
         if not self._unstable.active:

@@ -96,6 +96,8 @@ class StalenessWatch(EstimatorBase):
 
     def __init__(self, params: StalenessParams | None = None) -> None:
         self.params = params or StalenessParams()
+        # every kind's interval, in KIND_NAMES order (the params are frozen): read each tick, looked up once
+        self._intervals = {kind: self.params.interval_s(kind) for kind in KIND_NAMES.values()}
         self._last: dict[str, float] = {}
         self._active = False
         self._longest: dict[str, float] = {}  # this episode's longest silence per kind, s
@@ -137,12 +139,12 @@ class StalenessWatch(EstimatorBase):
         """Kind -> age (s) for every present kind silent beyond its interval, in KIND_NAMES order."""
         forget = self.params.forget_after_s
         out = {}
-        for kind in KIND_NAMES.values():
+        for kind, interval in self._intervals.items():
             last = self._last.get(kind)
             if last is None:
                 continue
             age = t_s - last
-            if age > self.params.interval_s(kind) and not (forget > 0.0 and age > forget):
+            if age > interval and not (forget > 0.0 and age > forget):
                 out[kind] = age
         return out
 

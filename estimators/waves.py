@@ -117,6 +117,40 @@ def bracketed_root(f, lo: float, hi: float, xtol: float = 0.0) -> float:
     return 0.5 * (lo + hi)
 
 
+def rising_root(f_and_slope, lo: float, hi: float, start: float, xtol: float = 0.0) -> float:
+    """The root of a function that rises through zero between ``lo`` and ``hi``, from ``start``.
+
+    ``f_and_slope(x)`` gives the value and its derivative together (they share the costly terms).
+    Newton's steps, each kept inside the bracket that still holds the sign change (a step that
+    would leave it, or that does not at least halve the one before, is a bisection instead: the
+    safeguard of Numerical Recipes' rtsafe, Press et al. 1992, ch. 9.4). The caller knows the
+    signs at the ends (f(lo) <= 0 <= f(hi)), so they are not evaluated again. Done when a step is
+    under 1e-14 of the root (or ``xtol``): the root to rounding, in a handful of steps instead of
+    some fifty bisections; the dispersion roots are asked for with every sea-state publication.
+    """
+    x, step_before = start, hi - lo
+    for _ in range(200):
+        fx, slope = f_and_slope(x)
+        if fx == 0.0:
+            return x
+        if fx > 0.0:
+            hi = x
+        else:
+            lo = x
+        tol = 1e-14 * abs(x)  # relative to the root, whatever the bracket's width
+        if tol < xtol:
+            tol = xtol
+        if hi - lo <= tol:
+            break
+        step = fx / slope if slope > 0.0 else math.inf
+        if not lo < x - step < hi or abs(step) > 0.5 * step_before:
+            step = x - 0.5 * (lo + hi)  # bisect: Newton would leave the bracket or is crawling (a flat slope)
+        if abs(step) <= tol:
+            return x - step
+        step_before, x = abs(step), x - step
+    return 0.5 * (lo + hi)
+
+
 def _tanh_kh(k: float, h: float | None) -> float:
     return 1.0 if h is None or k * h > DEEP_KH else math.tanh(k * h)
 
@@ -145,13 +179,14 @@ def still_water_wavenumber(period_s: float, h: float | None) -> float:
     if h is None or k_deep * h > DEEP_KH:
         return k_deep
     # k tanh(kh) rises with k, so the root lies between k_deep and k_deep / tanh(k_deep h)
-    def f(k: float) -> float:
-        return G * k * math.tanh(k * h) - omega * omega
+    def f_and_slope(k: float) -> tuple[float, float]:  # d/dk (k tanh kh) = tanh kh + kh (1 - tanh^2 kh)
+        tanh_kh = math.tanh(k * h)
+        return G * k * tanh_kh - omega * omega, G * (tanh_kh + k * h * (1.0 - tanh_kh * tanh_kh))
 
-    if f(k_deep) >= 0.0:  # tanh(k_deep h) is 1 to rounding
+    if f_and_slope(k_deep)[0] >= 0.0:  # tanh(k_deep h) is 1 to rounding
         return k_deep
     hi = k_deep / math.tanh(k_deep * h) * 1.001
-    return bracketed_root(f, k_deep, hi, xtol=1e-14 * hi)
+    return rising_root(f_and_slope, k_deep, hi, k_deep, xtol=1e-14 * hi)
 
 
 def wavelength_m(period_s: float, h: float | None = None) -> float:
@@ -196,20 +231,26 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
     u = current_along_mps
     k0 = still_water_wavenumber(period_s, h)
 
-    def f(k: float) -> float:  # sigma(k) - (omega - k U): zero at the wave's wavenumber
-        # intrinsic_frequency(k, h) written out: the root search calls this some fifty times a wave
-        tanh_kh = 1.0 if h is None or k * h > DEEP_KH else math.tanh(k * h)
-        return math.sqrt(G * k * tanh_kh) - omega + k * u
+    def f_and_slope(k: float) -> tuple[float, float]:
+        """sigma(k) - (omega - k U), zero at the wave's wavenumber, and its slope c_g(k) + U (the group
+        speed over the ground, d sigma / dk = g (tanh kh + kh (1 - tanh^2 kh)) / 2 sigma, plus U)."""
+        if h is None or k * h > DEEP_KH:
+            sigma = math.sqrt(G * k)
+            return sigma - omega + k * u, 0.5 * G / sigma + u
+        tanh_kh = math.tanh(k * h)
+        sigma = math.sqrt(G * k * tanh_kh)
+        return sigma - omega + k * u, 0.5 * G * (tanh_kh + k * h * (1.0 - tanh_kh * tanh_kh)) / sigma + u
 
     if u == 0.0:  # still water: the input, exactly
         return WaveOnCurrent(period_s, u, h, False, k0, 1.0, 1.0, 1.0)
     if u > 0.0:  # following: f rises monotonically; f(k0) = k0 U > 0, so the root is below k0
-        k = bracketed_root(f, k0 * 1e-6, k0, xtol=1e-14 * k0)
-    else:
+        lo, hi = k0 * 1e-6, k0
+    else:  # against: f rises up to the blocking wavenumber (c_g + U > 0 below it); f(k0) = k0 U < 0
         kb = _blocking_wavenumber(-u, h)
-        if kb is None or f(kb) < 0.0:  # the wave's period is below the blocking period
+        if kb is None or f_and_slope(kb)[0] < 0.0:  # the wave's period is below the blocking period
             return WaveOnCurrent(period_s, u, h, True, None, None, None, None)
-        k = k0 if f(k0) == 0.0 else bracketed_root(f, k0, kb, xtol=1e-14 * kb)
+        lo, hi = k0, kb
+    k = rising_root(f_and_slope, lo, hi, k0)  # from still water's k0, at one end of the bracket
     sigma = intrinsic_frequency(k, h)
     cg_ground = group_speed(k, h) + u
     if cg_ground <= 0.0:  # at the blocking point itself (within rounding)

@@ -208,3 +208,50 @@ def test_one_bad_course_over_ground_under_a_still_compass_is_not_a_fault():
     samples = passage(lambda t, r: 20.0, lambda t: 80.0 if t == 150.0 else 20.0, 300)
     # THEN one fix cannot convict it (two in a row must)
     assert drive(est, samples) == []
+
+
+class ScanEveryFix(HeadingIntegrity):
+    """The same watch without the straight-leg shortcut: every fix scans the whole window."""
+
+    def _turned_in_window(self) -> bool:
+        return True
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_the_straight_leg_shortcut_never_changes_what_is_found(seed):
+    # GIVEN a compass that freezes and thaws while the track wanders, turns by about the threshold (30 deg)
+    # either way, crosses north and pauses (fixes apart by more than the window); invented, seeded
+    rng = np.random.default_rng(seed)
+    samples, t, cog, heading = [], 0.0, float(rng.uniform(0, 360)), 0.0
+    frozen = False
+    for _ in range(4000):
+        t += float(rng.choice([0.5, 1.0, 1.0, 1.0, 90.0], p=[0.3, 0.3, 0.2, 0.195, 0.005]))
+        if rng.random() < 0.02:
+            cog += float(rng.choice([-1, 1]) * rng.uniform(25.0, 35.0))  # a turn near turn_deg, at once
+        else:
+            cog += float(rng.normal(0.0, 3.0))
+        if rng.random() < 0.01:
+            frozen = not frozen
+        heading = heading if frozen else cog + float(rng.normal(0.0, 2.0))
+        samples.append(Heading(t, heading % 360.0))
+        samples.append(Fix(t + 0.01, 40.0, -30.0, 6.0, cog % 360.0))
+    quick, full = HeadingIntegrity(), ScanEveryFix()
+    # THEN both say the same at every sample (the scan's own tests above say what it finds)
+    said = [(q, f) for s in samples for q, f in [(list(quick.step(s, None)), list(full.step(s, None)))]]
+    assert all(q == f for q, f in said)
+    # and the case is not empty: the compass was convicted, and cleared, at least once
+    assert any(isinstance(o, Distrust) and o.active for q, _ in said for o in q)
+
+
+def test_the_straight_leg_shortcut_sees_every_turn_in_the_window():
+    # GIVEN fixes whose COGs stay within a few degrees, then one turn_deg away across north (350 -> 020)
+    est = HeadingIntegrity()
+    est.step(Heading(0.0, 350.0), None)
+    for i in range(20):
+        est.step(Fix(float(i), 40.0, -30.0, 6.0, (350.0 + (i % 3)) % 360.0), None)
+        assert not est._turned_in_window()  # within 2 deg of every earlier fix: nothing to scan
+    est.step(Fix(20.0, 40.0, -30.0, 6.0, 20.0), None)
+    assert est._turned_in_window()  # 30 deg from the fix at 350: the scan must run
+    # and once that fix has left the window (60 s), the last turn is no longer a turn
+    est.step(Fix(100.0, 40.0, -30.0, 6.0, 21.0), None)
+    assert not est._turned_in_window()

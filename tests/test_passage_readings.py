@@ -8,6 +8,7 @@ NMEA 0183 v4.10.
 
 from __future__ import annotations
 
+import logging
 from pathlib import Path
 
 from daemon.commands.replay import run_replay
@@ -64,3 +65,21 @@ def test_the_other_order_follows_the_chart_table_receiver_throughout(tmp_path):
     by_source = fixes_by_source(tmp_path, '["gps_chart", "gps_mast"]')
     # (the very first second, before the chart-table receiver is heard, the masthead one is all there is)
     assert len(by_source["gps_chart"]) == 300 and len(by_source.get("gps_mast", [])) <= 1
+
+
+def test_reading_back_does_not_log_the_selectors_warnings_again(tmp_path, caplog):
+    # GIVEN the two receivers a mile apart, the preferred one silent for a minute: the replay that
+    # records them logs the fall-back and the disagreement (warnings, as live)
+    caplog.set_level(logging.DEBUG, logger="daemon.intake.priority")
+    by_source = fixes_by_source(tmp_path, '["gps_mast", "gps_chart"]')
+    live = [r.getMessage() for r in caplog.records if r.levelno >= logging.WARNING]
+    assert any("now from gps_chart" in m for m in live) and any("disagree" in m for m in live)
+    # WHEN the recording is read back again, THEN the selector chooses as before but warns of nothing
+    caplog.clear()
+    again: dict[str, int] = {}
+    for r in iter_readings(tmp_path / "two.sqlite", load_config(tmp_path / "offwatch.toml")):
+        if isinstance(r.sample, Fix):
+            again[r.source] = again.get(r.source, 0) + 1
+    assert again == {k: len(v) for k, v in by_source.items()}
+    priority_records = [r for r in caplog.records if r.name == "daemon.intake.priority"]
+    assert priority_records and all(r.levelno == logging.DEBUG for r in priority_records)

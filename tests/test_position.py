@@ -14,6 +14,7 @@ import math
 import random
 from dataclasses import replace
 
+import pytest
 from geographiclib.geodesic import Geodesic
 
 from estimators.angles import KN_TO_MPS, to_east_north
@@ -315,3 +316,24 @@ def test_a_fix_without_hdop_takes_the_receivers_latest():
     # and an HDOP older than a few seconds is not carried forward
     pubs = est.step(Fix(1020.0, 40.0001, -30.0), ctx)
     assert pubs[0].payload["hdop"] is None
+
+
+def test_a_new_current_is_taken_when_it_is_published_and_not_before():
+    # GIVEN a 10-minute outage at 6 kn heading 000: the same current publication (1 kn toward east) seen at
+    # every tick of the first five minutes, then a new one (1 kn toward north) for the last five
+    east_pub, north_pub = current_pub(T0), current_pub(T0 + 300, east=0.0, north=1.0, set_deg=0.0)
+
+    def run(current):
+        est, ctx = PositionEstimator(), RunContext()
+        start(est, ctx, cur=east_pub)
+        p = positions(outage(est, ctx, 600, current=current))[-1].payload
+        # local flat-earth metres (common practice over a mile: well within a metre here)
+        return ((p["lon"] - LON0) * math.radians(1) * 6371000 * math.cos(math.radians(LAT0)),
+                (p["lat"] - LAT0) * math.radians(1) * 6371000)
+
+    east_only = run(lambda t: east_pub)
+    turned = run(lambda t: east_pub if t <= T0 + 300 else north_pub)
+    # THEN the set over the first five minutes only (1 kn x 300 s = 154.3 m east), and 154.3 m more north
+    assert east_only[0] == pytest.approx(2 * 154.3, abs=2.0)
+    assert turned[0] == pytest.approx(154.3, abs=2.0)
+    assert turned[1] - east_only[1] == pytest.approx(154.3, abs=2.0)

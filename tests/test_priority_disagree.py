@@ -9,6 +9,8 @@ practice).
 
 from __future__ import annotations
 
+import logging
+
 from daemon.core.alerts import AlertManager
 from daemon.core.pipeline import Pipeline
 from daemon.core.readings import Reading
@@ -75,3 +77,17 @@ def test_the_warning_reaches_the_alerts_through_the_pipeline():
     assert "following gps_mast" in alerts[0]["text"]
     status = [m.payload for m in sink.messages if m.topic == "boat/status"][-1]
     assert status["priority"]["disagreement"]["following"] == "gps_mast"
+
+
+def test_a_quiet_selector_warns_only_at_debug_level(caplog):
+    # GIVEN the same mile between two receivers, one selector as live and one reading a passage back
+    caplog.set_level(logging.DEBUG, logger="daemon.intake.priority")
+    loud, quiet = PrioritySelector(), PrioritySelector(quiet=True)
+    assert feed_pair(loud, 0, 15, ONE_MINUTE)
+    warned = [r for r in caplog.records if r.levelno == logging.WARNING and "disagree" in r.getMessage()]
+    assert len(warned) == 1
+    caplog.clear()
+    # THEN the quiet one reaches the same condition, and logs it at debug level only
+    assert [c.values for c in feed_pair(quiet, 0, 15, ONE_MINUTE)][-1]["following"] == "gps_mast"
+    said = [r for r in caplog.records if "disagree" in r.getMessage()]
+    assert said and all(r.levelno == logging.DEBUG for r in said)

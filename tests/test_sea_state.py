@@ -358,3 +358,79 @@ def test_near_blocking_the_worst_period_is_bounded_at_breaking():
                             boat_samples(300, 90.0, 6.0, 0.0, 20.0, current=(180.0, 4.5))))[-1].payload
     assert calm["near_blocking"] is False
     assert calm["bounded_steepness_factor"] == calm["steepness_factor"]
+
+
+def test_window_sums_follow_a_sliding_window_as_numpy_sums_it_afresh():
+    # reference library: numpy's mean and the centred sums of products, computed afresh from the window's
+    # vectors each time; the running sums are added to, taken from and rebased as the estimator does
+    import numpy as np
+
+    from estimators.sea_state import WindowSums
+
+    rng = np.random.default_rng(7)
+    window: list = []
+    sums = WindowSums()
+    checked = 0
+    for i in range(3000):
+        speed = 8.0 + 12.0 * (i // 500) / 5.0  # the wind freshens in steps: a stale sum would lag it
+        v = None if rng.random() < 0.1 else (float(speed + rng.normal(0, 2)), float(-3.0 + rng.normal(0, 2)))
+        window.append(v)
+        sums.add(v)
+        while len(window) > 120:
+            sums.remove(window.pop(0))
+        if sums.left >= len(window):
+            sums.rebase(window)
+        leaving = int(rng.integers(0, 4))
+        spread = sums.spread(window[:leaving])
+        rest = np.array([w for w in window[leaving:] if w is not None])
+        if len(rest) == 0:
+            assert spread is None
+            continue
+        d = rest - rest.mean(axis=0)
+        assert spread.n == len(rest)
+        assert spread.mean == pytest.approx(tuple(rest.mean(axis=0)), rel=1e-12, abs=1e-12)
+        assert (spread.see, spread.sen, spread.snn) == pytest.approx(
+            ((d[:, 0] ** 2).sum(), (d[:, 0] * d[:, 1]).sum(), (d[:, 1] ** 2).sum()), rel=1e-10, abs=1e-9)
+        checked += 1
+    assert checked > 2900
+
+
+def test_the_published_mean_wind_is_the_window_summed_afresh():
+    # GIVEN a 60-s mean window and a true wind that veers and freshens every two minutes, under yaw
+    import dataclasses
+
+    class SummedAfresh(SeaStateEstimator):
+        """Beside each mean wind, the same figures from the window's vectors in two passes (the textbook way)."""
+
+        def __init__(self, params):
+            super().__init__(params)
+            self.seen = []
+
+        def _mean_wind(self, t):
+            got = super()._mean_wind(t)
+            vecs = [e.water for e in self._epochs if e.t_s > t - self.params.mean_window_s]
+            if got is not None:
+                me, mn = sum(v[0] for v in vecs) / len(vecs), sum(v[1] for v in vecs) / len(vecs)
+                from_deg, speed = wind_from((me, mn))
+                ue, un = me / speed, mn / speed
+                n_eff = max(1.0, min(len(vecs), min(60.0, t - self._epochs[0].t_s + 1.0) / 10.0))
+                squares = sum(((x - me) * ue + (y - mn) * un) ** 2 for x, y in vecs)
+                along = math.sqrt(squares / max(1, len(vecs) - 1) / n_eff)
+                self.seen.append((got, (from_deg, speed, along, len(vecs))))
+            return got
+
+    samples = []
+    for leg in range(6):
+        part = boat_samples(120, lambda t: 90.0 + 6.0 * math.sin(t / 3.0), 6.0, 200.0 + 15.0 * leg, 10.0 + 3.0 * leg)
+        samples += [dataclasses.replace(s, t_s=s.t_s + 120.0 * leg) for s in part]
+    est = SummedAfresh(SeaStateParams(mean_window_s=60.0))
+    drive([est], samples)
+    # THEN every publication's figures are the window's, to rounding far below the published decimals
+    assert len(est.seen) > 300
+    for got, (from_deg, speed, along, n) in est.seen:
+        assert got.samples == n
+        assert got.from_deg == pytest.approx(from_deg, abs=1e-9)
+        assert got.speed_kn == pytest.approx(speed, rel=1e-12)
+        # a wind without gusts has no spread: the running sums leave the root of their rounding (1e-8 kn)
+        assert got.sigma_kn == pytest.approx(along, rel=1e-9, abs=1e-6)
+    assert max(s for _, (_, s, _, _) in est.seen) > 24.0  # the wind did freshen through the run

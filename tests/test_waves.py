@@ -6,7 +6,7 @@ import math
 
 import pytest
 from scipy.integrate import quad
-from scipy.optimize import minimize_scalar
+from scipy.optimize import brentq, minimize_scalar
 
 from estimators.angles import KN_TO_MPS
 from estimators.waves import (
@@ -164,3 +164,37 @@ def test_wind_height_correction_is_neutral_log_profile():
 def test_michell_limit():
     # Michell (1893): a deep-water wave breaks at H/L = 0.142, about 1/7
     assert BREAKING_STEEPNESS == pytest.approx(0.142, abs=0.001)
+
+
+def _dispersion_root(period_s, u, h):
+    """The wavenumber on a current by scipy.optimize.brentq (reference library), bracketed as the theory says:
+    following, below k0; against, between k0 and the blocking wavenumber where c_g = -U."""
+    omega = 2 * math.pi / period_s
+    sigma = lambda k: math.sqrt(G * k * (1.0 if h is None else math.tanh(min(k * h, 50.0))))  # noqa: E731
+    f = lambda k: sigma(k) - omega + k * u  # noqa: E731
+    k0 = brentq(lambda k: sigma(k) - omega, 1e-9, 100.0, xtol=1e-300, rtol=1e-15)
+    if u > 0:
+        return brentq(f, k0 * 1e-6, k0, xtol=1e-300, rtol=1e-15)
+    kb = brentq(lambda k: group_speed(k, h) + u, k0, 1e12, xtol=1e-300, rtol=1e-15)
+    return brentq(f, k0, kb, xtol=1e-300, rtol=1e-15)
+
+
+@pytest.mark.parametrize("period_s,u,h", [
+    (7.0, 1.5, None), (5.2, 0.26, 80.0), (10.0, -5.0 * KN_TO_MPS, None), (4.1, -0.3, 80.0), (12.0, -1.0, 15.0),
+    # currents of a hundredth of a knot and less against the waves (a current nearly across the wind): the
+    # blocking wavenumber is then a million times the wave's, and a tolerance scaled to it would not do
+    (6.0, -0.005, None), (10.8, -7.9e-6, 200.0), (5.5, -1e-4, 80.0), (9.0, 0.8, 6.0), (14.0, -0.9, 8.0),
+])
+def test_the_wavenumber_on_a_current_is_the_dispersion_root(period_s, u, h):
+    # reference library: scipy.optimize.brentq on (omega - k U)^2 = g k tanh kh (linear theory, as above), to
+    # a few units in the last place; the Newton steps of estimators.waves must land on the same root
+    k = wave_on_current(period_s, u, h).wavenumber_rad_m
+    assert k == pytest.approx(_dispersion_root(period_s, u, h), rel=1e-12)
+
+
+@pytest.mark.parametrize("period_s,h", [(19.7, 2.0), (8.0, 5.0), (6.0, 40.0), (4.0, 80.0), (120.0, 2.0)])
+def test_the_still_water_wavenumber_is_the_dispersion_root(period_s, h):
+    # reference library: scipy.optimize.brentq on omega^2 = g k tanh kh
+    omega = 2 * math.pi / period_s
+    ref = brentq(lambda k: G * k * math.tanh(k * h) - omega**2, 1e-9, 100.0, xtol=1e-300, rtol=1e-15)
+    assert still_water_wavenumber(period_s, h) == pytest.approx(ref, rel=1e-12)

@@ -19,7 +19,7 @@ recording stay byte for byte the same.
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from datetime import datetime, timezone
 from functools import lru_cache
 from typing import Any
@@ -72,6 +72,7 @@ def rule_for(name: str) -> int | None:
     return _BY_SUFFIX[best] if best else None
 
 
+@lru_cache(maxsize=4096)  # asked for every field of every payload: one cached call, not two
 def decimals_for(name: str, inherited: int | None = None) -> int:
     """Decimals for field ``name``: its rule, else the enclosing field's, else the default."""
     rule = rule_for(name)
@@ -96,10 +97,26 @@ def clean(value: Any, decimals: int | None = None, depth: int = 0) -> Any:
     if depth >= MAX_DEPTH:
         return None
     if isinstance(value, Mapping):
-        return {str(k): clean(v, decimals_for(str(k), decimals), depth + 1) for k, v in value.items()}
+        return _clean_fields(value.items(), decimals, depth + 1, {})
     if isinstance(value, (list, tuple)):
         return [clean(v, decimals, depth + 1) for v in value]
     return str(value)
+
+
+def _clean_fields(items: Iterable[tuple[Any, Any]], inherited: int | None, depth: int,
+                  out: dict[str, Any]) -> dict[str, Any]:
+    """``clean`` of each field into ``out``, a float or a plain value without the call (most fields are)."""
+    isfinite = math.isfinite
+    for k, v in items:
+        name = k if type(k) is str else str(k)
+        kind = type(v)
+        if kind is float:
+            out[name] = round(v, decimals_for(name, inherited)) + 0.0 if isfinite(v) else None
+        elif kind is str or kind is int or kind is bool or v is None:
+            out[name] = v
+        else:
+            out[name] = clean(v, decimals_for(name, inherited), depth)
+    return out
 
 
 def iso_utc(t_s: float) -> str:
@@ -117,15 +134,7 @@ def _utc_second(sec: int) -> str:
 def payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
     """A publication's payload: ``time`` first, then the fields, cleaned."""
     out: dict[str, Any] = {"time": iso_utc(t_s)}
-    for k, v in fields.items():
-        if k == "time":
-            continue
-        name = str(k)
-        if type(v) is float:  # clean()'s first case, without the call: most fields are floats
-            out[name] = round(v, decimals_for(name)) + 0.0 if math.isfinite(v) else None
-        else:
-            out[name] = clean(v, decimals_for(name), 1)
-    return out
+    return _clean_fields(((k, v) for k, v in fields.items() if k != "time"), None, 1, out)
 
 
 def with_advisory(text: str) -> str:

@@ -16,6 +16,12 @@ a silent feed is noticed when nothing arrives at all.
 
 Adding a topic is adding an estimator to ``build_estimators``: the pipeline
 publishes whatever it returns.
+
+A high-rate sentence (a 10 Hz compass, a 5 Hz log) walks the whole way as one
+reading each, not as sums kept between fixes: the estimators use each heading
+at its own time (the apparent wind takes the heading nearest before it, the
+frozen-compass check the spread of the headings across a turn), which a mean
+or a circular sum would not keep. The per-item path is kept short instead.
 """
 
 from __future__ import annotations
@@ -31,7 +37,7 @@ from daemon.intake.acks import ack_items
 from daemon.intake.swell import parse_swell, swell_items
 from estimators.base import Condition, Distrust, Publication
 from estimators.runner import Runner
-from estimators.samples import kind_of
+from estimators.samples import KIND_NAMES
 
 log = logging.getLogger(__name__)
 
@@ -58,26 +64,31 @@ class Pipeline:
     # -- the doorway -------------------------------------------------------
 
     def feed(self, item: RawLine | Reading | Acknowledgement) -> None:
-        self._run_commands(item.sample.t_s if isinstance(item, Reading) else item.t_s)
+        if not self._commands.empty():  # checked here too: on every item, the call saved
+            self._run_commands(item.sample.t_s if isinstance(item, Reading) else item.t_s)
         self._take(item)
 
     def _take(self, item: RawLine | Reading | Acknowledgement) -> None:
+        if isinstance(item, RawLine):  # first: every line is one, half the items
+            self._raw(item)
+            return
         if isinstance(item, Acknowledgement):  # a recorded one, replayed: the alert manager's, as live
             self._emit_all(self.alerts.acknowledge(item.alert_id, item.t_s))
-            return
-        if isinstance(item, RawLine):
-            if self.counters is not None:
-                self.counters.take((item,))
-            for sink in self.sinks:
-                sink.raw(item)
-            self._advance(item.t_s)
             return
         if self.selector is not None and not self.selector.accept(item):
             return
         sample = item.sample
-        self._advance(sample.t_s)
-        self._last_seen[kind_of(sample)] = sample.t_s
+        t_s = sample.t_s
+        self._advance(t_s)
+        self._last_seen[KIND_NAMES[type(sample)]] = t_s  # kind_of, without the call
         self._handle(self.runner.step(sample))
+
+    def _raw(self, item: RawLine) -> None:
+        if self.counters is not None:
+            self.counters.take((item,))
+        for sink in self.sinks:
+            sink.raw(item)
+        self._advance(item.t_s)
 
     def feed_all(self, items: Iterable[RawLine | Reading]) -> None:
         for item in items:
@@ -128,7 +139,7 @@ class Pipeline:
     def _run_commands(self, t_next: float | None) -> None:
         """The queued commands, in the loop. ``t_next``: the data time of what comes next, which stamps a
         report that came before any data (a retained one comes at connect); None at close."""
-        if self._commands.empty():  # the common case, on every item: no exception raised and caught
+        if self._commands.empty():  # no exception raised and caught when nothing is queued
             return
         while True:
             try:
@@ -160,8 +171,9 @@ class Pipeline:
     def _advance(self, t_s: float) -> None:
         """Move data time (the runner's clock and its gap rule): each due tick to the estimators
         and then the alert manager, and the status when it is due."""
-        first = self.now_s is None
-        due = self.runner.clock.advance(t_s)
+        clock = self.runner.clock
+        first = clock.now_s is None
+        due = clock.advance(t_s)
         if due is None:
             return
         if first:

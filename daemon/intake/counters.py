@@ -72,15 +72,17 @@ class Counters:
 
     def take(self, items) -> None:
         """Apply what each RawLine among ``items`` counted for (the pipeline does this per line)."""
+        n = self._n
         for item in items:
             counts = getattr(item, "counts", None)
             if counts is None:
                 continue
-            row = self._row(item.source, item.sentence)
-            for what, n in counts:
-                self._n[(item.source, row, what)] += n
+            source, sentence = item.source, item.sentence
+            row = sentence if sentence in _ALWAYS_NAMED else self._row(source, sentence)  # _row's first test
+            for what, k in counts:
+                n[(source, row, what)] += k
             if item.seen:
-                self._last_seen[(item.source, row)] = item.t_s
+                self._last_seen[(source, row)] = item.t_s
 
     def seen(self, source: str, sentence: str, t_s: float) -> None:
         self._last_seen[(source, self._row(source, sentence))] = t_s

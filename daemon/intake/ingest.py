@@ -41,10 +41,8 @@ Public API:
 
 from __future__ import annotations
 
-import dataclasses
 import datetime as dt
 import logging
-from dataclasses import dataclass
 from typing import Protocol
 
 from daemon.intake.counters import Counters
@@ -67,18 +65,26 @@ HEADING_FOR_WIND_MAX_AGE_S = 10.0
 Item = RawLine | Reading
 
 
-@dataclass(frozen=True, slots=True)
 class ParsedLine:
-    """One line parsed, waiting for its data time (the replay clock holds these)."""
+    """One line parsed, waiting for its data time (the replay clock holds these).
 
-    text: str
-    recv_utc: float | None
-    key: str  # sentence type, or the counter key of a line that is none ("-", "TAG")
-    extract: Extract | None  # None: not an understood sentence, or unparseable
-    gnss_utc: float | None  # its own GNSS time (UNIX s), dated
-    undated_tod_s: float | None  # a time of day still waiting for a date
-    tag_time: float | None  # its TAG block's c: time
-    counts: list[tuple[str, int]]  # what it counts for, made when it is emitted
+    A plain class with slots, not a frozen dataclass: one is made for every line, and a frozen
+    dataclass's ``__init__`` costs twice as much (it sets each field through ``object.__setattr__``).
+    """
+
+    __slots__ = ("text", "recv_utc", "key", "extract", "gnss_utc", "undated_tod_s", "tag_time", "counts")
+
+    def __init__(self, text: str, recv_utc: float | None, key: str, extract: Extract | None,
+                 gnss_utc: float | None, undated_tod_s: float | None, tag_time: float | None,
+                 counts: list[tuple[str, int]]) -> None:
+        self.text = text
+        self.recv_utc = recv_utc
+        self.key = key  # sentence type, or the counter key of a line that is none ("-", "TAG")
+        self.extract = extract  # None: not an understood sentence, or unparseable
+        self.gnss_utc = gnss_utc  # its own GNSS time (UNIX s), dated
+        self.undated_tod_s = undated_tod_s  # a time of day still waiting for a date
+        self.tag_time = tag_time  # its TAG block's c: time
+        self.counts = counts  # what it counts for, made when it is emitted
 
 
 class VariationSource(Protocol):
@@ -225,48 +231,54 @@ class Ingest:
         if recv is None:
             recv = t
         source = self.source
+        if ex is None or not ex.values:  # no values: the line alone
+            out.append(RawLine(source, t, recv, item.text, key, tuple(counts), ex is not None))
+            return
         readings: list[Reading] = []
-        if ex is not None:
-            for v in ex.values:
-                try:
-                    sample = self._to_sample[type(v)](v, t, key, counts)
-                except Exception as exc:  # as in _parse: one value is never fatal
-                    self._note_parser_fault(exc)
-                    counts.append(("implausible", 1))
-                    continue
-                if type(sample) is Fix and item.gnss_utc is not None:
-                    sample = dataclasses.replace(sample, gnss_time_s=item.gnss_utc)  # a receiver clock that stops shows
-                if sample is not None:
-                    readings.append(Reading(source, sample, recv, key, item.gnss_utc))
-        out.append(RawLine(source, t, recv, item.text, key, tuple(counts), ex is not None))
+        gnss = item.gnss_utc
+        for v in ex.values:
+            try:
+                sample = self._to_sample[type(v)](v, t, key, counts, gnss)
+            except Exception as exc:  # as in _parse: one value is never fatal
+                self._note_parser_fault(exc)
+                counts.append(("implausible", 1))
+                continue
+            if sample is not None:
+                readings.append(Reading(source, sample, recv, key, gnss))
+        # the line after its values are made: they may add to its counts (no_variation, implausible)
+        out.append(RawLine(source, t, recv, item.text, key, tuple(counts), True))
         out.extend(readings)
 
     # --- each kind of value to a sample at its data time ---------------------------------------
 
-    def _measured(self, v: Measured, t: float, key: str, counts: list) -> Sample:
-        sample = v.kind(t, *v.args)
-        if v.kind is Fix:
-            self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
+    def _measured(self, v: Measured, t: float, key: str, counts: list, gnss: float | None) -> Sample:
+        if v.kind is not Fix:
+            return v.kind(t, *v.args)
+        sample = Fix(t, *v.args, gnss_time_s=gnss)  # its receiver's own time: a receiver clock that stops shows
+        self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
         return sample
 
-    def _labelled_heading(self, v: LabelledHeading, t: float, key: str, counts: list) -> Heading | None:
+    def _labelled_heading(self, v: LabelledHeading, t: float, key: str, counts: list,
+                          gnss: float | None) -> Heading | None:
         return self._heading(v.deg, v.reference == "T" and not self._all_magnetic, t, key, counts)
 
-    def _sensor_heading(self, v: SensorHeading, t: float, key: str, counts: list) -> Heading | None:
+    def _sensor_heading(self, v: SensorHeading, t: float, key: str, counts: list,
+                        gnss: float | None) -> Heading | None:
         deg = v.deg if self._true_sensor or v.deviation_east_deg is None else v.deg + v.deviation_east_deg
         return self._heading(deg, False, t, key, counts)
 
-    def _sentence_variation(self, v: Variation, t: float, key: str, counts: list) -> None:
+    def _sentence_variation(self, v: Variation, t: float, key: str, counts: list, gnss: float | None) -> None:
         if not (self._true_sensor and key == "HDG"):
             self.variation.note_sentence_variation(v.east_deg, t)
 
-    def _wind_off_bow(self, v: WindOffBow, t: float, key: str, counts: list) -> WaterWind:
+    def _wind_off_bow(self, v: WindOffBow, t: float, key: str, counts: list, gnss: float | None) -> WaterWind:
         th = self._true_heading
         if th is not None and 0.0 <= t - th[0] <= HEADING_FOR_WIND_MAX_AGE_S:
             return WaterWind(t, v.speed_kn, wrap_360(th[1] + v.angle_deg), v.angle_deg)
         return WaterWind(t, v.speed_kn, None, v.angle_deg)
 
-    def _wind_from_magnetic(self, v: WindFromMagnetic, t: float, key: str, counts: list) -> WaterWind | None:
+    def _wind_from_magnetic(self, v: WindFromMagnetic, t: float, key: str, counts: list,
+                            gnss: float | None) -> WaterWind | None:
         var = self._variation(t, counts)
         return None if var is None else WaterWind(t, v.speed_kn, wrap_360(v.from_magnetic_deg + var), None)
 

@@ -22,6 +22,10 @@ status carries the same (``snapshot()["disagreement"]``). Two good receivers
 agree to some metres (common practice: a few metres 95 % for a modern GNSS
 in open sky), so the default of 500 m is far beyond their noise and well
 inside the mile that matters near a coast.
+
+``quiet``: reading a passage back (``daemon.outlets.passage``) asks the selector
+again to choose as the service chose; what it logs then was already logged when
+the passage was live, so a quiet selector logs it at debug level only.
 """
 
 from __future__ import annotations
@@ -35,7 +39,7 @@ from daemon.errors import ConfigError
 from daemon.core.readings import Reading
 from estimators.base import WARNING, Condition
 from estimators import wording
-from estimators.samples import KIND_NAMES, Fix, kind_of
+from estimators.samples import KIND_NAMES, Fix
 
 log = logging.getLogger(__name__)
 
@@ -64,7 +68,8 @@ class PrioritySelector:
     """
 
     def __init__(self, order: Mapping[str, Sequence[str]] | None = None,
-                 stale_s: Mapping[str, float] | None = None, disagree_m: float = DISAGREE_M) -> None:
+                 stale_s: Mapping[str, float] | None = None, disagree_m: float = DISAGREE_M,
+                 quiet: bool = False) -> None:
         order = dict(order or {})
         stale_s = dict(stale_s or {})
         _check_kinds(order, "priority")
@@ -85,27 +90,37 @@ class PrioritySelector:
         self._apart_since: float | None = None     # data time the fresh receivers began to disagree
         self._apart: tuple[str, str, float] | None = None  # (followed, other, distance m) while they do
         self._said = False                         # the warning's condition was reported active
+        self.quiet = quiet                         # reading back: said already, live (module docstring)
+
+    def _log(self, level: int, text: str, *args: object) -> None:
+        log.log(logging.DEBUG if self.quiet else level, text, *args)
 
     def stale_after_s(self, kind: str) -> float:
         return self._stale_s.get(kind, OTHER_STALE_S)
 
     def accept(self, reading: Reading) -> bool:
         """True when ``reading`` comes from the source that should feed the estimators now."""
-        kind = kind_of(reading.sample)
-        t_s = reading.sample.t_s
-        self._now = max(self._now, t_s)
-        seen = self._seen.setdefault(kind, {})
-        seen[reading.source] = max(t_s, seen.get(reading.source, t_s))
+        sample, source = reading.sample, reading.source
+        kind = KIND_NAMES[type(sample)]  # kind_of, without the call: asked for every reading
+        t_s = sample.t_s
+        if t_s > self._now:  # max(), written out: NaN never moves it
+            self._now = t_s
+        seen = self._seen.get(kind)
+        if seen is None:
+            seen = self._seen[kind] = {}
+        newest = seen.get(source)
+        seen[source] = newest if newest is not None and newest > t_s else t_s
         # one receiver of this kind so far (the common case): it is the best there is
-        best = next(iter(seen)) if len(seen) == 1 else self._best_fresh(kind, seen)
+        best = source if len(seen) == 1 else self._best_fresh(kind, seen)
         if best != self._active.get(kind):
             self._switch(kind, best, seen)
-        if isinstance(reading.sample, Fix):
-            self._compare_fixes(reading.source, reading.sample, best)
-        ok = reading.source == best
-        tally = self._accepted if ok else self._refused
-        per_source = tally.setdefault(kind, {})
-        per_source[reading.source] = per_source.get(reading.source, 0) + 1
+        if type(sample) is Fix:
+            self._compare_fixes(source, sample, best)
+        ok = source == best
+        per_source = (self._accepted if ok else self._refused).get(kind)
+        if per_source is None:
+            per_source = (self._accepted if ok else self._refused)[kind] = {}
+        per_source[source] = per_source.get(source, 0) + 1
         return ok
 
     def _ranked(self, kind: str, seen: Mapping[str, float]) -> list[str]:
@@ -124,14 +139,14 @@ class PrioritySelector:
         previous = self._active.get(kind)
         self._active[kind] = best
         if previous is None:
-            log.info("priority: %s from %s", kind, best)
+            self._log(logging.INFO, "priority: %s from %s", kind, best)
             return
         self._switches[kind] = self._switches.get(kind, 0) + 1
         silent = self._now - seen.get(previous, self._now)
         if self._ranked(kind, seen).index(best) < self._ranked(kind, seen).index(previous):
-            log.info("priority: %s back to %s (preferred source heard again)", kind, best)
+            self._log(logging.INFO, "priority: %s back to %s (preferred source heard again)", kind, best)
         else:
-            log.warning("priority: %s now from %s (%s silent for %.0f s)", kind, best, previous, silent)
+            self._log(logging.WARNING, "priority: %s now from %s (%s silent for %.0f s)", kind, best, previous, silent)
 
     def _compare_fixes(self, source: str, fix: Fix, followed: str) -> None:
         """Measure the followed receiver against every other fresh one (geodesic distance, WGS84)."""
@@ -168,7 +183,7 @@ class PrioritySelector:
                     f"{other} puts the boat at {wording.position(where.lat_deg, where.lon_deg)}. Check both against "
                     f"another position (radar range, depth contour, a bearing) and the priority order.")
             if not self._said:
-                log.warning("priority: %s", text)
+                self._log(logging.WARNING, "priority: %s", text)
             self._said = True
             return [Condition(t_s, DISAGREE_ALERT, WARNING, True, text,
                               {"following": followed, "other": other, "distance_m": round(d_m)})]

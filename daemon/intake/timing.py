@@ -177,17 +177,17 @@ class ReplayClock:
             return self._tag_candidate(item, t_s)
         return self._tag_in_gate(item, t_s)
 
-    def _tag_gate(self, t_s: float) -> bool:
-        assert self._tagged_t is not None
-        return -self.behind_tolerance_s <= t_s + self._tag_offset - self._tagged_t <= self.max_gap_s
-
     def _tag_in_gate(self, item: Any, t_s: float) -> Released:
-        if not self._tag_gate(t_s):
+        """The usual case, every tagged line: within the gate, released at once at the latest time."""
+        last = self._tagged_t
+        assert last is not None
+        t_out = t_s + self._tag_offset
+        if not -self.behind_tolerance_s <= t_out - last <= self.max_gap_s:
             self._tag_jump = [(item, t_s)]
             return []
-        assert self._tagged_t is not None
-        self._tagged_t = max(t_s + self._tag_offset, self._tagged_t)
-        return [(self._tagged_t, item)]
+        if t_out > last:  # max(), written out: a line a little behind takes the latest time
+            self._tagged_t = last = t_out
+        return [(last, item)]
 
     def _tag_candidate(self, item: Any, t_s: float | None) -> Released:
         """One more item while a jump waits for confirmation (``t_s`` None: untagged)."""

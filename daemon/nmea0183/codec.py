@@ -50,7 +50,7 @@ from typing import Any
 # Plausible ranges: one table for the parser and the estimators.
 from estimators.limits import (
     AIR_TEMP_C, ATTITUDE_MAX_DEG, DATA_TIME_S, DEPTH_MAX_M, HDOP_MAX, LAT_MAX_DEG, LON_MAX_DEG,
-    PRESSURE_HPA, SEA_TEMP_C, SOG_MAX_KN, STW_MAX_KN, VARIATION_MAX_DEG, WIND_MAX_KN, within,
+    PRESSURE_HPA, SEA_TEMP_C, SOG_MAX_KN, STW_MAX_KN, VARIATION_MAX_DEG, WIND_MAX_KN,
 )
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, GroundVelocity, Pressure,
@@ -64,6 +64,7 @@ FT_TO_M = 0.3048  # international foot, exactly
 FATHOM_TO_M = 1.8288  # 6 ft
 INHG_TO_HPA = 33.8639  # 1 inHg = 3386.39 Pa (standard conversion, from memory)
 TAG_MS_THRESHOLD = 1e11  # a TAG c: above this is milliseconds (interface.md)
+_TAG_T_MIN, _TAG_T_MAX = DATA_TIME_S
 _EPOCH_ORDINAL = dt.date(1970, 1, 1).toordinal()
 
 # --- the field layouts ----------------------------------------------------------------
@@ -178,11 +179,10 @@ def _check_star(text: str, start: int, allow_no_checksum: bool) -> tuple[str, in
     star = text.rfind("*", start)
     if star < 0:
         return ("ok" if allow_no_checksum else "no_checksum"), len(text)
-    hh = text[star + 1:]
-    if len(hh) != 2:
+    if len(text) - star != 3:  # two hex digits after the star, nothing more
         return "bad_checksum", star
     try:
-        want = int(hh, 16)
+        want = int(text[star + 1:], 16)
     except ValueError:
         return "bad_checksum", star
     if reduce(xor, text[start:star].encode("ascii", "replace"), 0) != want:  # non-ASCII: never equal
@@ -198,7 +198,7 @@ def parse_tag_block(tag: str) -> tuple[str, float | None, str | None]:
     by commas, then ``*hh``, the XOR of the pairs. ``c:`` is UNIX time, seconds
     (milliseconds above 1e11, as the interface allows); ``s:`` the source.
     """
-    status, end = _check_star(tag, 0, allow_no_checksum=False)
+    status, end = _check_star(tag, 0, False)
     if status != "ok":
         return status, None, None
     t: float | None = None
@@ -212,11 +212,10 @@ def parse_tag_block(tag: str) -> tuple[str, float | None, str | None]:
                 t = float(value)
             except ValueError:
                 return "unparseable", None, None
-            if not math.isfinite(t) or t < 0:
-                return "unparseable", None, None
             if t > TAG_MS_THRESHOLD:
                 t /= 1000.0
-            if not within(t, DATA_TIME_S):  # no logger's clock: 1e19 hung the tick loop, 3e14 crashed dates
+            # no logger's clock (1e19 hung the tick loop, 3e14 crashed dates); False for NaN, inf, < 0
+            if not _TAG_T_MIN <= t <= _TAG_T_MAX:
                 return "unparseable", None, None
         elif code == "s":
             src = value
@@ -249,9 +248,13 @@ def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
     """Check the frame of one line (no line ending) and sort it into one counter."""
     if not text.isascii():  # the framer never lets one through; a recording or a caller might
         return Line("not_sentence", "-")
-    status, tag_time, tag_source, sentence = split_tag(text)
-    if status != "ok":
-        return Line(status, "TAG")
+    if text[:1] == "\\":
+        status, tag_time, tag_source, sentence = split_tag(text)
+        if status != "ok":
+            return Line(status, "TAG")
+    else:  # no TAG block: most live lines
+        tag_time = tag_source = None
+        sentence = text
     if not sentence or sentence[0] not in "$!":
         return Line("not_sentence", "-", tag_time=tag_time)
     status, end = _check_star(sentence, 1, allow_no_checksum)

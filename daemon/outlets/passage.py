@@ -10,6 +10,9 @@ and its messages are handed on as they leave.
 by the ingest, no estimators), one source per kind as the service's priority
 chose them: what the RTS smoother needs to go over the passage again
 afterwards, seeing what the live filters saw (never two receivers at once).
+
+Both ask the priority selector again, quietly: what it says (a receiver fallen
+silent, two that disagree) was logged when the passage was live.
 """
 
 from __future__ import annotations
@@ -68,6 +71,7 @@ def iter_passage(source: str | Path, cfg: Config, *, progress: Progress | None =
     keeper = _Keeper()
     parts = build(cfg, [keeper], live=False)
     pipe = parts.pipeline
+    pipe.selector.quiet = True
     try:
         for item in iter_replay([source], parts.make_ingest, progress=progress):
             pipe.feed(item)
@@ -96,6 +100,7 @@ def iter_readings(source: str | Path, cfg: Config) -> Iterator[Reading]:
     from the source the configured priority follows for each kind (as ``Pipeline.feed`` chooses)."""
     parts = build(cfg, [], live=False)
     selector = parts.pipeline.selector
+    selector.quiet = True
     for item in iter_replay([Path(source)], parts.make_ingest):
         if isinstance(item, Reading) and selector.accept(item):
             yield item
