@@ -54,10 +54,10 @@ import paho.mqtt.client as paho
 from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 
 from daemon.errors import ConfigError
-from daemon.outlets.outbox import Outbox, Outgoing
+from daemon.outlets.outbox import Outbox, Outgoing, is_state
 from daemon.core.config import MqttSettings, mask_url_password, mqtt_problems
-from daemon.core.payloads import clean, iso_utc
-from daemon.core.readings import Message, RawLine
+from daemon.core.payloads import iso_utc
+from daemon.core.readings import Message, RawLine, encode_json
 from daemon.intake.acks import valid_alert_id
 
 log = logging.getLogger(__name__)
@@ -71,6 +71,9 @@ CALLBACK_FAILURE_HOLD_S = 60.0  # healthy() stays False this long after a callba
 DIAGNOSE_EVERY_S = 30.0       # a failing link is probed for its reason at most this often
 DIAGNOSE_TIMEOUT_S = 3.0      # each step of that probe (TCP, TLS, CONNACK)
 WORKER_STALL_S = 15.0         # healthy() is False when the worker has not looped for this long
+# States that come within this of the first one are stored together: one outbox transaction (one fsync,
+# synchronous=FULL) for the second's burst, not one per state; anything else is stored at once
+STATES_GATHER_S = 0.5
 
 
 # -- the broker address -------------------------------------------------------
@@ -125,13 +128,8 @@ def tls_context(s: MqttSettings) -> ssl.SSLContext:
 # -- payloads -----------------------------------------------------------------
 
 def encode_payload(payload: Mapping[str, Any]) -> bytes:
-    """Compact UTF-8 JSON. Payloads come cleaned from the payload layer; one that is not JSON
-    (a non-finite number from elsewhere) is cleaned there, never sent as NaN."""
-    try:
-        text = json.dumps(payload, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
-    except ValueError:
-        text = json.dumps(clean(payload), ensure_ascii=False, separators=(",", ":"), allow_nan=False)
-    return text.encode("utf-8")
+    """Compact UTF-8 JSON, as every message's payload is sent (``Message.payload_json``)."""
+    return encode_json(payload).encode("utf-8")
 
 
 def offline_payload(reason: str, now_s: float | None = None) -> bytes:
@@ -198,6 +196,11 @@ def parse_ack(payload: bytes) -> tuple[str | None, str]:
     if not valid_alert_id(alert_id):
         return None, "'id' is empty, too long or has unprintable or wildcard characters"
     return alert_id, ""
+
+
+def _is_state_item(item: tuple) -> bool:
+    """A work item that is a new state: only the latest of its topic matters, it may wait a little."""
+    return item[0] == "msg" and is_state(item[1].qos, item[1].retain)
 
 
 # -- the sink -----------------------------------------------------------------
@@ -310,7 +313,8 @@ class MqttSink:
         if self._work.qsize() >= MAX_WORK_ITEMS:
             self.counters["dropped_work_queue_full"] += 1
             return
-        item = ("msg", Outgoing(msg.topic, encode_payload(msg.payload), msg.qos, msg.retain))
+        # the text is made once per message and shared with the recording
+        item = ("msg", Outgoing(msg.topic, msg.payload_json().encode("utf-8"), msg.qos, msg.retain))
         self._accepted += 1  # before put: the worker may store it at once
         self._work.put(item)
 
@@ -490,13 +494,22 @@ class MqttSink:
         self._say_offline()
 
     def _take_work(self) -> list[tuple]:
+        """What waits on the work queue; while it is all states, what follows within STATES_GATHER_S too."""
         items: list[tuple] = []
         try:
             items.append(self._work.get(timeout=0.2))
-            while len(items) < 1000:
-                items.append(self._work.get_nowait())
         except queue.Empty:
-            pass
+            return items
+        until = time.monotonic() + STATES_GATHER_S
+        only_states = _is_state_item(items[0])
+        while len(items) < 1000:
+            wait_s = until - time.monotonic() if only_states else 0.0
+            try:
+                item = self._work.get(timeout=wait_s) if wait_s > 0 else self._work.get_nowait()
+            except queue.Empty:
+                break
+            items.append(item)
+            only_states = only_states and _is_state_item(item)
         return items
 
     def _handle(self, items: list[tuple]) -> bool:

@@ -90,7 +90,6 @@ import json
 import logging
 import lzma
 import math
-import queue
 import re
 import shutil
 import sqlite3
@@ -106,7 +105,7 @@ from typing import Any
 from daemon import __version__
 from daemon.errors import InputError, OutputError
 from daemon.nmea0183.codec import has_tag_block, split_tag, tag_block
-from daemon.core.readings import Message, RawLine
+from daemon.core.readings import Message, RawLine, json_default, ascii_json
 from daemon.intake.crew import REPLAYERS as CREW_SOURCES
 from estimators.params import param
 
@@ -250,19 +249,12 @@ def _decode_recv(value: int | float | None, t: float, t_ms: int) -> float:
     return value
 
 
-def _json_default(obj: Any) -> Any:
-    """numpy scalars and other number-likes become plain numbers; mappings become dicts."""
-    if isinstance(obj, Mapping):
-        return dict(obj)
-    if hasattr(obj, "item"):
-        return obj.item()
-    if isinstance(obj, (set, frozenset, tuple)):
-        return list(obj)
-    return str(obj)
+# made once: json.dumps with options builds a new encoder at every call (the same text either way)
+_ASCII_JSON = json.JSONEncoder(ensure_ascii=True, separators=(",", ":"), default=json_default)
 
 
 def _dumps(value: Any) -> str:
-    return json.dumps(value, ensure_ascii=True, separators=(",", ":"), default=_json_default)
+    return _ASCII_JSON.encode(value)
 
 
 _CODECS: dict[str, tuple[Callable[[bytes], bytes], Callable[[bytes], bytes]]] = {
@@ -277,7 +269,7 @@ class _Item:
 
     t: float
     name: str
-    fields: tuple[Any, ...]  # raw: (recv, text); message: (retain, qos, kind, payload)
+    fields: tuple[Any, ...]  # raw: (recv, text); message: (retain, qos, kind, payload as ASCII JSON text)
 
 
 def _pack(items: list[_Item], codec: str) -> tuple[str, bytes, float | None, float | None]:
@@ -291,8 +283,9 @@ def _pack(items: list[_Item], codec: str) -> tuple[str, bytes, float | None, flo
         if len(it.fields) == 2:  # raw line: recv relative to its own time
             recv, text = it.fields
             rows.append(_dumps([t_field, _encode_recv(recv, it.t, prev[0]), index, text]))
-        else:
-            rows.append(_dumps([t_field, index, *it.fields]))
+        else:  # the payload's JSON is the message's own text (made once, shared with MQTT), spliced in
+            retain, qos, kind, payload_text = it.fields
+            rows.append(f"{_dumps([t_field, index, retain, qos, kind])[:-1]},{payload_text}]")
     data = _CODECS[codec][0]("\n".join(rows).encode("ascii"))
     return (_dumps(list(names)), data, min(finite) if finite else None,
             max(finite) if finite else None)
@@ -464,13 +457,16 @@ class RecordingWriter:
         self.raw_stream.pending.append(_Item(line.t_s, line.source, (line.recv_utc, line.text)))
 
     def add_message(self, msg: Message) -> None:
-        payload = dict(msg.payload)
+        if not isinstance(msg.payload, Mapping):  # a payload is a JSON object, or nothing to keep
+            raise TypeError(f"a message payload must be a mapping, found {type(msg.payload).__name__}")
+        text = ascii_json(msg.payload_json())  # the blocks are ASCII (schema above)
         self.message_stream.pending.append(
-            _Item(msg.t_s, msg.topic, (int(bool(msg.retain)), int(msg.qos), msg.kind, payload)))
+            _Item(msg.t_s, msg.topic, (int(bool(msg.retain)), int(msg.qos), msg.kind, text)))
         if msg.kind == "alert":
+            payload = msg.payload
             alert_id = payload.get("id") or msg.topic.rsplit("/", 1)[-1]
             self.pending_alerts.append((msg.t_s, str(alert_id), payload.get("priority"), payload.get("state"),
-                                        payload.get("text"), payload.get("since"), msg.topic, _dumps(payload)))
+                                        payload.get("text"), payload.get("since"), msg.topic, text))
 
     def set_config(self, effective: Mapping[str, Any], now_utc: float | None = None) -> None:
         self.pending_meta["config"] = _dumps(dict(effective))
@@ -715,9 +711,16 @@ class Recorder:
         self._clock = clock
         self._on_commit = on_commit
         self._enforce_every = enforce_every
-        self._queue: queue.Queue = queue.Queue(maxsize=queue_size)
+        self._queue_size = queue_size
         self._stats = RecorderStats()
-        self._lock = threading.Lock()  # guards _stats and _dropped between the writer and callers
+        self._lock = threading.Lock()  # guards _stats, _dropped and the queue between the writer and callers
+        # The queue is a list the writer takes whole (one wake and one lock a batch, not a get per
+        # item): it wakes for the first item after an idle spell, at its commit deadline, for a
+        # flush or close, and when the queue is full.
+        self._ready = threading.Condition(self._lock)
+        self._queued: list[object] = []
+        self._writer_idle = False  # the writer waits for a first item, with no deadline
+        self._urgent = False       # a flush, a close or a full queue: the writer takes the queue now
         self._dropped: dict[str, list] = {"raw": [0, None, None], "message": [0, None, None]}  # n, t_first, t_last
         self._config: dict[str, Any] | None = None
         self._loss_base = (0, 0, 0)  # losses of the files before the current one
@@ -763,15 +766,12 @@ class Recorder:
 
     def record_config(self, effective: Mapping[str, Any]) -> None:
         """Keep the effective configuration/parameters (JSON) in meta; also copied into each new file."""
-        self._queue.put(_Config(effective), timeout=10.0)
+        self._put_marker(_Config(effective), urgent=False)
 
     def flush(self, timeout_s: float = 10.0) -> bool:
         """Commit what is queued now and wait for it (tests, shutdown paths). False on timeout."""
         marker = _Flush()
-        try:
-            self._queue.put(marker, timeout=timeout_s)
-        except queue.Full:
-            return False
+        self._put_marker(marker, urgent=True)
         return marker.done.wait(timeout_s)
 
     def close(self) -> None:
@@ -779,7 +779,7 @@ class Recorder:
         if self._closed:
             return
         self._closed = True
-        self._queue.put(_CLOSE)
+        self._put_marker(_CLOSE, urgent=True)
         self._thread.join()
 
     @property
@@ -795,17 +795,51 @@ class Recorder:
     def _offer(self, item: RawLine | Message) -> None:
         if self._closed:
             return
-        try:
-            self._queue.put(item, block=self._wait_when_full)
-        except queue.Full:
-            with self._lock:
-                self._stats.dropped += 1
-                drop = self._dropped["raw" if isinstance(item, RawLine) else "message"]
-                drop[0] += 1
-                drop[1], drop[2] = _min_known(drop[1], item.t_s), _max_known(drop[2], item.t_s)
-            return
-        with self._lock:
+        with self._ready:
+            if len(self._queued) >= self._queue_size:
+                self._urgent = True
+                self._ready.notify_all()
+                if not self._wait_when_full:
+                    self._count_drop(item)
+                    return
+                while len(self._queued) >= self._queue_size:
+                    self._ready.wait()
+            self._queued.append(item)
             self._stats.enqueued += 1
+            if self._writer_idle:
+                self._writer_idle = False
+                self._ready.notify_all()
+
+    def _count_drop(self, item: RawLine | Message) -> None:
+        """A full queue refused ``item`` (the lock held): counted, and its number skipped later."""
+        self._stats.dropped += 1
+        drop = self._dropped["raw" if isinstance(item, RawLine) else "message"]
+        drop[0] += 1
+        drop[1], drop[2] = _min_known(drop[1], item.t_s), _max_known(drop[2], item.t_s)
+
+    def _put_marker(self, marker: object, urgent: bool) -> None:
+        """A flush, a close or the config: queued whatever the bound, in order with the lines."""
+        with self._ready:
+            self._queued.append(marker)
+            self._urgent = self._urgent or urgent
+            if urgent or self._writer_idle:
+                self._writer_idle = False
+                self._ready.notify_all()
+
+    def _take_queued(self, deadline: float | None) -> list[object]:
+        """Writer thread: everything queued, once the deadline passes (or, without one, once something
+        comes), or at once for a flush, a close or a full queue."""
+        with self._ready:
+            while not self._urgent and not (deadline is None and self._queued):
+                timeout = None if deadline is None else deadline - self._clock()
+                if timeout is not None and timeout <= 0:
+                    break
+                self._writer_idle = deadline is None
+                self._ready.wait(timeout)
+            self._writer_idle = self._urgent = False
+            batch, self._queued = self._queued, []
+            self._ready.notify_all()  # a replay waiting for room (overflow="wait")
+            return batch
 
     def _take_drops(self, writer: RecordingWriter) -> None:
         """Writer thread: give the items a full queue dropped their numbers and a gap."""
@@ -850,27 +884,30 @@ class Recorder:
         self._started.set()
         deadline: float | None = None
         failing = False
-        while True:
-            timeout = None if deadline is None else max(0.0, deadline - self._clock())
-            try:
-                item = self._queue.get(timeout=timeout)
-            except queue.Empty:
-                item = None
-            if item is _CLOSE:
+        closing = False
+        while not closing:
+            for item in self._take_queued(deadline):
+                if item is _CLOSE:
+                    closing = True
+                    break
+                if isinstance(item, _Flush):
+                    writer, failing = self._commit(writer, failing)
+                    deadline = None
+                    item.done.set()
+                    continue
+                try:
+                    self._add(writer, item)
+                except (TypeError, ValueError, AttributeError) as exc:  # a malformed item: count, skip
+                    log.warning("recording skipped an item it cannot keep (%s): %r", exc, item)
+                    with self._lock:
+                        self._stats.write_errors += 1
+            if closing:
                 break
-            try:
-                self._add(writer, item)
-            except (TypeError, ValueError, AttributeError) as exc:  # a malformed item: count, skip
-                log.warning("recording skipped an item it cannot keep (%s): %r", exc, item)
-                with self._lock:
-                    self._stats.write_errors += 1
             if deadline is None and writer.has_pending():
                 deadline = self._clock() + self.commit_interval_s
-            if isinstance(item, _Flush) or (deadline is not None and self._clock() >= deadline):
+            if deadline is not None and self._clock() >= deadline:
                 writer, failing = self._commit(writer, failing)
                 deadline = None
-                if isinstance(item, _Flush):
-                    item.done.set()
         try:
             writer, failing = self._commit(writer, failing)
             writer.close()

@@ -107,12 +107,31 @@ calibration states after one course change, tests/test_current_calibration_nees.
 
 from __future__ import annotations
 
+import importlib
+from typing import Any
+
 from estimators.fusion import FusionReport
 
-from .estimator import CurrentEstimator, FilterRecord
-from .model import FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov, process_noise, unit
-from .params import ID, IE, IK, IN, TOPIC, Calibration, CurrentParams
-from .publication import polar_sigmas
+from .params import ID, IE, IK, IN, TOPIC, Calibration, CurrentParams, leeway_deg
+
+# The filter's modules need numpy; a config check needs only the parameters above, so these
+# names are imported on first use (PEP 562), and reading a config never loads numpy.
+_LAZY = {
+    "CurrentEstimator": ".estimator", "FilterRecord": ".estimator",
+    "FilterState": ".model", "WaterInputs": ".model", "chi2_quantile_2dof": ".model", "d_unit": ".model",
+    "ground_velocity_of": ".model", "jacobian": ".model", "measurement_cov": ".model",
+    "process_noise": ".model", "unit": ".model",
+    "polar_sigmas": ".publication",
+}
+
+
+def __getattr__(name: str) -> Any:
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(importlib.import_module(module, __name__), name)
+    globals()[name] = value  # once found, an ordinary attribute
+    return value
 
 __all__ = [
     "Calibration", "CurrentEstimator", "FilterState", "chi2_quantile_2dof", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",

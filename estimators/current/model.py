@@ -23,7 +23,7 @@ import numpy as np
 from estimators.angles import to_east_north
 from estimators.samples import Sample
 
-from .params import S_PER_H, CurrentParams
+from .params import S_PER_H, CurrentParams, leeway_deg  # leeway_deg: a rule on the parameters alone, no numpy
 
 
 @dataclass
@@ -74,14 +74,6 @@ def unit(angle_rad: float) -> np.ndarray:
 def d_unit(angle_rad: float) -> np.ndarray:
     """d u / d angle: the unit vector 90 deg to starboard."""
     return np.array([[math.cos(angle_rad)], [-math.sin(angle_rad)]])
-
-
-def leeway_deg(params: CurrentParams, heel_deg: float | None, stw_kn: float) -> float:
-    """Leeway angle, deg (positive: water track clockwise of the heading), by the rule of thumb K*heel/STW^2."""
-    if heel_deg is None or params.leeway_coefficient == 0.0 or stw_kn < params.leeway_min_stw_kn:
-        return 0.0
-    lam = params.leeway_coefficient * heel_deg / (stw_kn * stw_kn)  # lambda = K * heel / STW^2
-    return max(-params.leeway_max_deg, min(params.leeway_max_deg, lam))
 
 
 def ground_velocity_of(sample: Sample) -> tuple[float, float] | None:

@@ -117,6 +117,14 @@ class CurrentParams:
     log_recover_s: float = param(120.0, "s", 5.0, 3600.0, "the log must agree this long before it is trusted again")
 
 
+def leeway_deg(params: CurrentParams, heel_deg: float | None, stw_kn: float) -> float:
+    """Leeway angle, deg (positive: water track clockwise of the heading), by the rule of thumb K*heel/STW^2."""
+    if heel_deg is None or params.leeway_coefficient == 0.0 or stw_kn < params.leeway_min_stw_kn:
+        return 0.0
+    lam = params.leeway_coefficient * heel_deg / (stw_kn * stw_kn)  # lambda = K * heel / STW^2
+    return max(-params.leeway_max_deg, min(params.leeway_max_deg, lam))
+
+
 @dataclass(frozen=True)
 class Calibration:
     """The log scale and compass offset, learnt or stated, with their uncertainty.

@@ -15,7 +15,9 @@ socket the bench reads (systemd's sd_notify protocol, sd_notify(3)).
   multiplexer sends them, each line when the wall clock reaches its data time.
 - CPU: utime + stime of the process (``/proc/<pid>/stat`` fields 14 and 15, in
   clock ticks: proc(5)) over the feed after its first 30 s (a warm-up), as a
-  share of one core (target under 2 %).
+  share of one core (target under 2 %); and each thread's share over the same
+  span (``/proc/<pid>/task/<tid>/stat``), named by the order the service
+  starts them (``THREAD_ROLES``).
 - memory: VmRSS (``/proc/<pid>/status``) sampled each second: the largest and
   the last (target under 120 MB).
 - a bad config: from the exec of ``offwatch run --config BAD`` to its non-zero
@@ -147,9 +149,37 @@ class Multiplexer:
 
 def cpu_s(pid: int) -> float:
     """utime + stime of a process in seconds (proc(5): /proc/<pid>/stat fields 14 and 15)."""
-    text = Path(f"/proc/{pid}/stat").read_text()
+    return cpu_s_of(Path(f"/proc/{pid}/stat"))
+
+
+def cpu_s_of(stat: Path) -> float:
+    text = stat.read_text()
     fields = text[text.rindex(")") + 2:].split()  # after the command name, which may hold spaces
     return (int(fields[11]) + int(fields[12])) / CLOCK_TICKS  # fields 14, 15 counted from 1, from field 3 on
+
+
+# The service's threads in the order it starts them (Service.__init__, then run): a thread's id grows
+# with its start on Linux, so the n-th thread after the main one is the n-th started.
+# numpy's BLAS starts a pool thread when the assembly imports it (idle: the filters' matrices are 4 x 4).
+THREAD_ROLES = ("the loop", "the recorder", "the MQTT outbox", "paho's network", "numpy's BLAS pool", "the input")
+
+
+def thread_cpu_s(pid: int) -> dict[int, float]:
+    """utime + stime of each thread of a process, by thread id (/proc/<pid>/task/<tid>/stat)."""
+    out = {}
+    for task in Path(f"/proc/{pid}/task").iterdir():
+        try:
+            out[int(task.name)] = cpu_s_of(task / "stat")
+        except (FileNotFoundError, ProcessLookupError):
+            continue  # the thread ended meanwhile
+    return out
+
+
+def thread_shares(before: dict[int, float], after: dict[int, float], seconds: float) -> dict[str, float]:
+    """Each thread's share of one core between two samples, named by its place in THREAD_ROLES."""
+    tids = sorted(after)
+    names = {tid: THREAD_ROLES[k] if k < len(THREAD_ROLES) else f"thread {k}" for k, tid in enumerate(tids)}
+    return {names[tid]: (after[tid] - before.get(tid, 0.0)) / seconds for tid in tids}
 
 
 def rss_mb(pid: int) -> float:
@@ -166,6 +196,7 @@ class LiveRun:
     cpu_share: float
     rss_max_mb: float
     rss_end_mb: float
+    threads: dict[str, float]  # each thread's share of one core over the same span
     sentences: int  # sent to the service
     rate: float  # the feed's sentences per second of data time
 
@@ -207,12 +238,12 @@ def live_run(work: Path, env: dict[str, str], broker_port: int, seconds: float, 
         ready_cpu_s = cpu_s(proc.pid)
         time.sleep(WARM_UP_S)
         rss = [rss_mb(proc.pid)]
-        c0, w0 = cpu_s(proc.pid), time.perf_counter()
+        c0, w0, t0_threads = cpu_s(proc.pid), time.perf_counter(), thread_cpu_s(proc.pid)
         t_end = w0 + seconds - WARM_UP_S
         while time.perf_counter() < t_end:
             time.sleep(1.0)
             rss.append(rss_mb(proc.pid))
-        c1, w1 = cpu_s(proc.pid), time.perf_counter()
+        c1, w1, t1_threads = cpu_s(proc.pid), time.perf_counter(), thread_cpu_s(proc.pid)
         if proc.poll() is not None:
             raise RuntimeError(f"offwatch run exited with {proc.returncode} during the feed")
     finally:
@@ -225,7 +256,7 @@ def live_run(work: Path, env: dict[str, str], broker_port: int, seconds: float, 
         mux.close()
         notify.close()
     return LiveRun(ready_s=ready_s, ready_cpu_s=ready_cpu_s, cpu_share=(c1 - c0) / (w1 - w0), rss_max_mb=max(rss), rss_end_mb=rss[-1],
-                   sentences=mux.sent, rate=len(mux.feed) / (mux.feed[-1][0] - mux.feed[0][0]))
+                   threads=thread_shares(t0_threads, t1_threads, w1 - w0), sentences=mux.sent, rate=len(mux.feed) / (mux.feed[-1][0] - mux.feed[0][0]))
 
 
 # -- a bad config ----------------------------------------------------------------------------------
@@ -260,7 +291,7 @@ def spread(values: list[float], fmt: str) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--runs", type=int, default=3, help="service runs fed live")
+    ap.add_argument("--runs", type=int, default=3, help="service runs fed live (0: the bad configs only)")
     ap.add_argument("--minutes", type=float, default=3.0, help="length of each run's feed")
     ap.add_argument("--config-runs", type=int, default=5, help="runs of each bad config")
     ap.add_argument("--seed", type=int, default=20261202)
@@ -278,6 +309,8 @@ def main(argv: list[str] | None = None) -> int:
             print(f"bad config, {what}: exec to exit {spread([r[0] for r in runs], '.2f')} s over {len(runs)} runs, "
                   f"CPU {spread([r[1] for r in runs], '.2f')} s; exit status {sorted({r[2] for r in runs})}; "
                   f"the message names {key!r}: {sum(r[3] for r in runs)}/{len(runs)}")
+        if args.runs < 1:  # the bad-config figures alone
+            return 0
         (base / "broker").mkdir()
         broker = Mosquitto(base / "broker", persistence=False)
         broker.start()
@@ -292,6 +325,8 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"run {k + 1}: READY after {r.ready_s:.2f} s ({r.ready_cpu_s:.2f} s CPU); {r.sentences} sentences sent, "
                       f"{r.rate:.1f}/s; CPU {100 * r.cpu_share:.2f} % of a core; resident "
                       f"{r.rss_max_mb:.0f} MB at most, {r.rss_end_mb:.0f} MB at the end", flush=True)
+                print("  by thread: " + ", ".join(f"{name} {100 * share:.2f} %" for name, share in r.threads.items()),
+                      flush=True)
         finally:
             broker.stop()
     print(f"start to READY=1: {spread([r.ready_s for r in runs], '.2f')} s over {len(runs)} runs, "
