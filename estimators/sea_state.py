@@ -399,7 +399,7 @@ class SeaStateEstimator(EstimatorBase):
         k, d = 1.0, 0.0
         if current is not None and current.get("stw_scale") is not None:
             k, d = float(current["stw_scale"]), float(current.get("heading_offset_deg") or 0.0)
-        logs = ctx.history.between(WaterSpeed, t0 - LOG_MAX_AGE_S, t1)
+        logs = ctx.history.since(WaterSpeed, t0, t1, LOG_MAX_AGE_S)  # the interval's, or the last before it
         water = None
         if heads and logs:
             # the heading's circular mean over the interval (as unit vectors: sines and cosines summed in
