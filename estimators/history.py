@@ -24,7 +24,9 @@ class SampleHistory:
         self._by_type: dict[type, deque[Sample]] = {}
 
     def add(self, sample: Sample) -> None:
-        q = self._by_type.setdefault(type(sample), deque())
+        q = self._by_type.get(type(sample))
+        if q is None:  # setdefault would make a deque for every sample
+            q = self._by_type[type(sample)] = deque()
         if q and sample.t_s < q[-1].t_s:
             return  # the pipeline delivers in time order; a stray late sample is not history
         q.append(sample)
