@@ -236,3 +236,36 @@ def test_retired_parameter_names_are_not_reused():
     from estimators.current.params import RETIRED
     # THEN none of them names a parameter again: an old config setting one is refused, not misread
     assert RETIRED and not set(RETIRED) & {f.name for f in fields(CurrentParams)}
+
+
+def held_and_fused(settle_s: float) -> tuple[list[float], list[float]]:
+    """Fix times (s from T0) held through a turn and fused, over one 90-deg course change at 300 s."""
+    syn = synth_passage(7, 600, [(0.0, 40.0), (300.0, 130.0)])
+    est = CurrentEstimator(CurrentParams(turn_settle_s=settle_s))
+    held, fused = [], []
+    for s, _ in run(est, syn.samples, tick=False):
+        if not isinstance(s, Fix):
+            continue
+        if est.health.turning > len(held):
+            held.append(s.t_s - T0)
+        elif est.last_report is not None and est.last_report.t_s == s.t_s:
+            fused.append(s.t_s - T0)
+    return held, fused
+
+
+def test_turn_hold_lasts_turn_settle_s_beyond_the_turn():
+    # GIVEN one course change of 90 deg at 10 deg/s (the synth's turn: 300 s to 309 s), run with no
+    # settling and with 45 s of it
+    held0, fused0 = held_and_fused(0.0)
+    held45, fused45 = held_and_fused(45.0)
+    # THEN without settling the hold covers the turn and ends within seconds of it (the 3-s EMA's rate
+    # falls below turn_rate_hold_deg_s), one unbroken stretch with nothing fused inside it
+    assert held0 and 300.0 <= held0[0] <= 303.0 and 309.0 <= held0[-1] <= 320.0
+    assert held0 == [held0[0] + i for i in range(len(held0))]
+    # ... and with settling the first fix fused after the turn comes turn_settle_s after the turn's last
+    # epoch (the parameter's definition in params.py: the hold lasts this long after a turn ends)
+    first_after = min(t for t in fused45 if t > held45[0])
+    assert first_after == held0[-1] + 45.0
+    assert held45 == [held45[0] + i for i in range(len(held45))] and held45[-1] == held0[-1] + 44.0
+    # ... while the fixes before the turn were fused alike in both runs
+    assert [t for t in fused45 if t < 300.0] == [t for t in fused0 if t < 300.0]

@@ -29,6 +29,11 @@ after ``WARMUP_S``, pooled over the seeds:
   them; a scenario without such a change (one course, small course changes)
   has no figure there. The whole-run figures stay in the table beside them.
 
+``--sigma-parts`` also splits each fix's drift error and published variance (along the drift, u' P u)
+into the part a calibration error explains, P_c,kd P_kd^-1 (x_kd - truth), and the rest: the share
+error variance / covariance of each, pooled (1 for an honest sigma; a random walk the water does not
+make leaves the rest near 1/2 in steady state).
+
 Prints a markdown table. Timing belongs here, never in the tests.
 """
 
@@ -73,6 +78,7 @@ class Pooled:
     cal_ok: int = 0
     cal_lines: list[str] = field(default_factory=list)
     seconds: float = 0.0
+    sigma_parts: list[tuple[float, float, float, float]] = field(default_factory=list)  # see sigma_parts
 
 
 def truth_current(sim, t: float) -> tuple[float, float]:
@@ -105,7 +111,24 @@ def mahalanobis(de: float, dn: float, payload: dict) -> float:
     return math.hypot(along / sd, across / sx)
 
 
-def one_run(sim, params: CurrentParams, pooled: Pooled) -> None:
+def sigma_parts(est: CurrentEstimator, te: float, tn: float, k_true: float, d_true_rad: float
+                ) -> tuple[float, float, float, float]:
+    """Along the drift: (error^2, variance) of the part a calibration error explains, then of the rest.
+
+    The current's error given (k, d) is the conditional mean's: e_c = A e_kd + r with A = P_c,kd P_kd^-1,
+    the explained part's covariance A P_kd,c and the rest's P_cc - A P_kd,c (Schur complement).
+    """
+    x, P = est.ekf.x[:, 0], est.ekf.P
+    e_c = np.array([x[0] - te, x[1] - tn])
+    A = P[:2, 2:] @ np.linalg.inv(P[2:, 2:])
+    e_cal = A @ np.array([x[2] - k_true, x[3] - d_true_rad])
+    P_cal = A @ P[2:, :2]
+    drift = math.hypot(x[0], x[1])
+    u = np.array([x[0], x[1]]) / max(drift, 1e-6)
+    return (float(u @ e_cal) ** 2, float(u @ P_cal @ u), float(u @ (e_c - e_cal)) ** 2, float(u @ (P[:2, :2] - P_cal) @ u))
+
+
+def one_run(sim, params: CurrentParams, pooled: Pooled, parts: bool = False) -> None:
     spec = sim.scenario.sensors
     true_scale, true_offset = 1.0 / spec.stw_scale, -spec.heading_offset_deg  # sim: log = scale x true; compass = true + offset
     est = CurrentEstimator(params)
@@ -140,6 +163,8 @@ def one_run(sim, params: CurrentParams, pooled: Pooled) -> None:
             pooled.err[name].append(e)
             if observable:
                 pooled.err_observable[name].append(e)
+        if parts:
+            pooled.sigma_parts.append(sigma_parts(est, te, tn, true_scale, math.radians(true_offset)))
         drift_true = math.hypot(te, tn)
         covered = abs(p["drift_kn"] - drift_true) <= 2.0 * p["drift_sigma_kn"]
         pooled.covered.append(covered)
@@ -241,6 +266,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--scenario", action="append", choices=sorted(SCENARIOS), help="default: the current benchmark's five")
     ap.add_argument("--calibration", action="store_true", help="print each run's final calibration")
     ap.add_argument("--per-fix", action="store_true", help="only the estimator's CPU time per fix")
+    ap.add_argument("--sigma-parts", action="store_true",
+                    help="also the drift's error variance / covariance, calibration part and the rest")
     args = ap.parse_args(argv)
     if args.per_fix:
         print(per_fix_cost())
@@ -253,7 +280,7 @@ def main(argv: list[str] | None = None) -> int:
         pooled = Pooled()
         t_start = time.perf_counter()
         for seed in seeds:
-            one_run(simulate(SCENARIOS[name](), seed), params, pooled)
+            one_run(simulate(SCENARIOS[name](), seed), params, pooled, args.sigma_parts)
         pooled.seconds = time.perf_counter() - t_start
         results.append((name, pooled))
     print(f"Current estimator vs the plain triangle ({len(seeds)} seeds per scenario, realistic sensor model; "
@@ -269,6 +296,14 @@ def main(argv: list[str] | None = None) -> int:
         print(f"| {name} | {rms(r.err['offwatch']):.3f} / {rms(r.err['plain']):.3f} / {rms(r.err['bound']):.3f} "
               f"| {np.mean(r.covered):.3f} | {r.wrong_valid_s / 60:.1f} ({r.valid_s / 60:.0f}) "
               f"| {r.cal_ok}/{r.cal_runs} | {dr} | {observable_cell(r)} | {r.seconds:.0f} |")
+    if args.sigma_parts:
+        print("\nAlong the drift, error variance / published variance (1: honest), pooled after the warm-up:\n")
+        print("| scenario | calibration part: ratio (its sigma, kn) | the rest: ratio (its sigma, kn) |")
+        print("| --- | --- | --- |")
+        for name, r in results:
+            a = np.array(r.sigma_parts)
+            print(f"| {name} | {a[:, 0].mean() / a[:, 1].mean():.2f} ({math.sqrt(a[:, 1].mean()):.3f}) "
+                  f"| {a[:, 2].mean() / a[:, 3].mean():.2f} ({math.sqrt(a[:, 3].mean()):.3f}) |")
     if args.calibration:
         for name, r in results:
             print(f"\n{name}:")
