@@ -24,7 +24,9 @@ class SampleHistory:
         self._by_type: dict[type, deque[Sample]] = {}
 
     def add(self, sample: Sample) -> None:
-        q = self._by_type.setdefault(type(sample), deque())
+        q = self._by_type.get(type(sample))
+        if q is None:  # setdefault would make a deque for every sample
+            q = self._by_type[type(sample)] = deque()
         if q and sample.t_s < q[-1].t_s:
             return  # the pipeline delivers in time order; a stray late sample is not history
         q.append(sample)
@@ -44,6 +46,20 @@ class SampleHistory:
         # deque indexing is O(n) in the middle, but the asked-for window is at the young end
         lo = bisect.bisect_right(q, t0_s, key=_time)
         hi = bisect.bisect_right(q, t1_s, lo=lo, key=_time)
+        return [q[i] for i in range(lo, hi)]
+
+    def since(self, kind: type, t0_s: float, t1_s: float, max_age_s: float) -> list[Sample]:
+        """Samples of ``kind`` with t0 < t_s <= t1, oldest first, after the last one at or before t0
+        when that one is younger than ``max_age_s`` (t_s > t0 - max_age_s): what is current at each
+        moment of the interval, without the older samples of those seconds that ``between(kind,
+        t0 - max_age_s, t1)`` also lists (a 10-Hz compass: 20 more for a 2-s age)."""
+        q = self._by_type.get(kind)
+        if not q:
+            return []
+        lo = bisect.bisect_right(q, t0_s, key=_time)
+        hi = bisect.bisect_right(q, t1_s, lo=lo, key=_time)
+        if lo and q[lo - 1].t_s > t0_s - max_age_s:
+            lo -= 1
         return [q[i] for i in range(lo, hi)]
 
     def mean_heading_deg(self, t0_s: float, t1_s: float) -> float | None:
