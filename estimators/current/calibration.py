@@ -84,7 +84,7 @@ class FitResult:
     chi2_reduced: float       # of the block residuals
     blocks: int
     heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
-    model_error_kn: float = 0.0  # per axis: the current's wander the quadratic did not follow, from the residuals
+    model_error_kn: float = 0.0  # per axis: the current's wander the quadratic did not follow, as the fit read it
 
 
 def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
@@ -173,8 +173,8 @@ class CalibrationFit:
         k, d, model_var = k_start, d_start, 0.0
         span_h = (blocks[-1].t_s - blocks[0].t_s) / S_PER_H
         for _ in range(MODEL_ERROR_ITERATIONS):
-            v = sensor + model_var                                          # per residual (along, then across)
-            solved = self._gauss_newton(blocks, 1.0 / v, walk_w, k, d)
+            v = np.concatenate([sensor, sensor]) + model_var                # per residual (east, then north)
+            solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], walk_w, k, d)
             if solved is None:
                 return None
             k, d, A, res, c = solved
@@ -184,7 +184,7 @@ class CalibrationFit:
             model_var += step
             if abs(step) <= 1e-3 * model_var + 1e-12:
                 break
-        v = sensor + model_var
+        v = np.concatenate([sensor, sensor]) + model_var
         chi2_red = float(np.sum(res ** 2 / v)) / dof
         cov = np.linalg.inv(A)[n_cur:, n_cur:] * max(1.0, chi2_red)
         self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(model_var))
@@ -192,18 +192,12 @@ class CalibrationFit:
 
     def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float
                       ) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
-        """(k, d, the normal matrix J'WJ, the blocks' residuals along then across, the current's coefficients).
-
-        Each block's rows are turned from east and north into along and across its water track, where
-        its sensors' errors are independent (the log's along, the compass's across): there a diagonal
-        weight is the whole covariance.
-        """
+        """(k, d, the normal matrix J'WJ, the blocks' residuals east then north, the current's coefficients)."""
         n_cur = 2 * CURRENT_TERMS
         t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
         tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
         G = np.array([b.g for b in blocks])
         M = np.array([b.m for b in blocks])
-        ue, un = track_axes(M)
         k0, d0, sk0, sd0 = self.prior
         nb = len(blocks)
         n_walk = len(walk_w)
@@ -218,12 +212,11 @@ class CalibrationFit:
                 J[nb:2 * nb, 2 * j + 1] = tau ** j
             J[:nb, n_cur], J[nb:2 * nb, n_cur] = Re, Rn                     # d g / d k = R(d) m
             J[:nb, n_cur + 1], J[nb:2 * nb, n_cur + 1] = k * Rn, -k * Re    # d g / d d = k R'(d) m
-            W = np.concatenate([w, [1.0 / sk0 ** 2, 1.0 / sd0 ** 2], walk_w])
+            W = np.concatenate([w, w, [1.0 / sk0 ** 2, 1.0 / sd0 ** 2], walk_w])
             # residuals at the current (k, d), with the current's coefficients solved jointly: linear in c
             r[:nb] = G[:, 0] - k * Re
             r[nb:2 * nb] = G[:, 1] - k * Rn
             r[2 * nb], r[2 * nb + 1] = k0 - k, d0 - d
-            J[:2 * nb], r[:2 * nb] = along_across(J[:2 * nb], ue, un), along_across(r[:2 * nb], ue, un)
             J[2 * nb, n_cur], J[2 * nb + 1, n_cur + 1] = 1.0, 1.0
             for i, col in enumerate(range(2, n_cur)):                       # c1, c2 ~ 0: the walk's prior
                 J[2 * nb + 2 + i, col] = 1.0
@@ -243,7 +236,7 @@ class CalibrationFit:
         Re, Rn = M[:, 0] * cd + M[:, 1] * sd, -M[:, 0] * sd + M[:, 1] * cd
         ce = sum(c[2 * j] * tau ** j for j in range(CURRENT_TERMS))
         cn = sum(c[2 * j + 1] * tau ** j for j in range(CURRENT_TERMS))
-        return k, d, A, along_across(np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn]), ue, un), c
+        return k, d, A, np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn]), c
 
     def _walk_weights(self, span_s: float) -> np.ndarray:
         """Weights of the prior c1 = c2 = 0 (per axis), from how far the current may walk over the window.
@@ -259,40 +252,26 @@ class CalibrationFit:
         return np.array([1.0 / s1 ** 2, 1.0 / s1 ** 2, 1.0 / s2 ** 2, 1.0 / s2 ** 2])  # c1e, c1n, c2e, c2n
 
     def _sensor_variances(self, blocks: list[Block], k: float) -> np.ndarray:
-        """The variance of each block's triangle from the sensors alone, along then across its water track.
+        """The nominal variance per axis of each block's triangle from the sensors alone, with the effective sample count.
 
-        The mean of n fixes: the part independent from fix to fix / n, a Gauss-Markov part sigma^2 2 tau / T
-        (N_eff = T / 2 tau). The log's errors lie along the water track, the compass's across it; the
-        GNSS's are the same on every axis.
+        The log's (along the water track) and the compass's (across it) are both counted on each axis:
+        wider than either axis's own share, which keeps a fit from one course change wide enough for what
+        a leg's systematic errors do to it (along and across apart, the beat's first tack left the offset
+        2.2 sigma off).
         """
         p = self.params
-        n = len(blocks)
-        along, across = np.empty(n), np.empty(n)
+        out = np.empty(len(blocks))
         for i, b in enumerate(blocks):
             span = max(p.calibration_block_s, b.fixes * 1e-3)
             ks = k * b.speed_kn
-            gnss = p.gnss_velocity_sigma_kn ** 2 / b.fixes
-            along[i] = gnss + k * k * (p.log_sigma_kn ** 2 / b.fixes + p.log_correlated_sigma_kn ** 2
-                                       * min(1.0, 2.0 * p.noise_correlation_s / span))
-            across[i] = gnss + ks * ks * (math.radians(p.heading_sigma_deg) ** 2 / b.fixes
-                                          + math.radians(p.heading_correlated_sigma_deg) ** 2
-                                          * min(1.0, 2.0 * p.heading_correlation_s / span))
-        return np.concatenate([along, across])
-
-
-def track_axes(M: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Unit vectors (east, north components) along each block's water-velocity reading."""
-    speed = np.maximum(np.hypot(M[:, 0], M[:, 1]), 1e-9)
-    return M[:, 0] / speed, M[:, 1] / speed
-
-
-def along_across(x: np.ndarray, ue: np.ndarray, un: np.ndarray) -> np.ndarray:
-    """Rows stacked east (first half) then north turned into along (u) then across (u turned 90 deg clockwise)."""
-    nb = len(ue)
-    e, nth = x[:nb], x[nb:2 * nb]
-    if x.ndim == 2:
-        ue, un = ue[:, None], un[:, None]
-    return np.concatenate([ue * e + un * nth, un * e - ue * nth])
+            # the mean of n fixes: the independent part / n; a Gauss-Markov part sigma^2 2 tau / T (N_eff = T / 2 tau)
+            white = (p.gnss_velocity_sigma_kn ** 2 + k * k * p.log_sigma_kn ** 2
+                     + (ks * math.radians(p.heading_sigma_deg)) ** 2) / b.fixes
+            corr = (k * k * p.log_correlated_sigma_kn ** 2 * min(1.0, 2.0 * p.noise_correlation_s / span)
+                    + (ks * math.radians(p.heading_correlated_sigma_deg)) ** 2
+                    * min(1.0, 2.0 * p.heading_correlation_s / span))
+            out[i] = white + corr                                           # per axis (about: along and across mixed)
+        return out
 
 
 def walk_model_error(c: np.ndarray, c_var: np.ndarray, span_h: float, walk_max: float) -> float:
