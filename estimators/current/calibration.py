@@ -39,6 +39,14 @@ residuals say the blocks were noisier than assumed). The current's slow
 change is part of the model, so a current that turns with the tide over the
 window is not read as a calibration.
 
+Model error. What the quadratic cannot follow adds one variance sigma_m^2 to
+every block, read from the fit itself: the walk the fitted slope and curvature
+show (capped at ``current_walk_kn_per_sqrt_h``), as a random walk's residual
+after a quadratic (sigma_w^2 W / 23), or the residuals' excess over the
+sensors' (Paule-Mandel), whichever is larger. A turning stream aliases into k
+and d without showing in the residuals, hence the walk's reading; steady water
+earns the sensors' width alone, not the walk the params allow.
+
 Feeding the filter. A fit whose (k, d) covariance Sigma is smaller than the
 filter's own marginal P_kd is fused as a measurement of (k, d) with
 R = (Sigma^-1 - P_kd^-1)^-1: only the information the filter does not hold
