@@ -32,7 +32,8 @@ after ``WARMUP_S``, pooled over the seeds:
 ``--sigma-parts`` also splits each fix's drift error and published variance (along the drift, u' P u)
 into the part a calibration error explains, P_c,kd P_kd^-1 (x_kd - truth), and the rest: the share
 error variance / covariance of each, pooled (1 for an honest sigma; a random walk the water does not
-make leaves the rest near 1/2 in steady state).
+make leaves the rest near 1/2 in steady state), over the whole run and from the first course change
+(before it the calibration's part is its prior's).
 
 Prints a markdown table. Timing belongs here, never in the tests.
 """
