@@ -229,6 +229,13 @@ class Mosquitto:
             self.proc.wait()
         self.proc = None
 
+    def wait_saved(self, timeout_s: float = 10.0) -> bool:
+        """Wait for the broker to write its persistence file after this call (autosave_interval 1):
+        what it knew before, such as a display's session, then survives a SIGKILL."""
+        db = self.workdir / "mosquitto.db"
+        called = time.time()
+        return wait_until(lambda: db.exists() and db.stat().st_mtime > called + 0.01, timeout_s)
+
     def freeze(self) -> None:
         """SIGSTOP: the broker keeps its sockets but answers nothing (packets stay in flight)."""
         assert self.proc is not None

@@ -36,34 +36,36 @@ NUMERIC = ("numpy", "scipy", "filterpy")
 BAD_KEY = "q_curent"  # misspelt q_current: the [current] table is the one whose filter needs numpy
 
 
+def _cli_in_a_fresh_process(args: list[str]) -> tuple[int, str, str, list[str]]:
+    """Run the command line in a new interpreter: its status, output, errors and the modules it loaded."""
+    code = ("import json, sys\n"
+            "from daemon.commands.cli import main\n"
+            f"status = main({args!r})\n"
+            "print(json.dumps([status, sorted(sys.modules)]))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    *out, last = done.stdout.splitlines()
+    status, loaded = json.loads(last)
+    return status, "\n".join(out), done.stderr, sorted(m for m in loaded if m.split(".")[0] in NUMERIC)
+
+
 @pytest.mark.parametrize("command", [["config", "--check"], ["run", "--config"]])
 @pytest.mark.parametrize("section", ["current", "sea_state", "mqtt"])
 def test_a_bad_config_is_refused_before_numpy_is_loaded(tmp_path, command, section):
     cfg = tmp_path / "bad.toml"
     cfg.write_text(f'[inputs.mux]\nkind = "tcp"\nhost = "127.0.0.1"\n\n[{section}]\n{BAD_KEY} = 0.01\n',
                    encoding="utf-8")
-    code = ("import json, sys\n"
-            "from daemon.commands.cli import main\n"
-            f"status = main({[*command, str(cfg)]!r})\n"
-            "print(json.dumps([status, sorted(sys.modules)]))")
-    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    status, loaded = json.loads(done.stdout.splitlines()[-1])
-    assert status == 2 and BAD_KEY in done.stderr  # refused, naming the key
-    assert sorted(m for m in loaded if m.split(".")[0] in NUMERIC) == []
+    status, _, errors, numeric = _cli_in_a_fresh_process([*command, str(cfg)])
+    assert status == 2 and BAD_KEY in errors  # refused, naming the key
+    assert numeric == []
 
 
 def test_a_valid_config_is_checked_without_numpy(tmp_path):
     cfg = tmp_path / "good.toml"
     cfg.write_text('[inputs.mux]\nkind = "tcp"\nhost = "127.0.0.1"\n\n[current]\nlog_sigma_kn = 0.2\n',
                    encoding="utf-8")
-    code = ("import json, sys\n"
-            "from daemon.commands.cli import main\n"
-            f"status = main(['config', '--check', {str(cfg)!r}])\n"
-            "print(json.dumps([status, sorted(sys.modules)]))")
-    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    status, loaded = json.loads(done.stdout.splitlines()[-1])
-    assert status == 0 and "valid" in done.stdout
-    assert sorted(m for m in loaded if m.split(".")[0] in NUMERIC) == []
+    status, out, _, numeric = _cli_in_a_fresh_process(["config", "--check", str(cfg)])
+    assert status == 0 and "valid" in out
+    assert numeric == []
 
 
 @pytest.mark.parametrize("p", [0.5, 0.9, 0.95, 0.99, 0.9973, 0.999, 1e-6])

@@ -297,7 +297,7 @@ def test_alerts_in_flight_when_the_broker_dies_keep_their_order(mosquitto, sinks
     watcher = watchers(host, port, topic=f"{PREFIX}/alerts/#", persistent=True)
     sink = sinks(settings(host, port, window=3))
     assert wait_until(lambda: sink.connected)
-    time.sleep(1.5)  # mosquitto saves the watcher's session every second (autosave_interval 1)
+    assert mosquitto.wait_saved()  # the watcher's session is on disk before the broker dies
     # GIVEN a broker that stops answering while alerts are handed to paho (no PUBACK comes back)
     mosquitto.freeze()
     for n in range(12):
@@ -602,7 +602,7 @@ def test_bad_credentials_are_named_with_the_keys_to_check(tmp_path, sinks, caplo
 def test_close_waits_for_a_broker_that_comes_back_within_the_bound(mosquitto, watchers):
     host, port = mosquitto
     watcher = watchers(host, port, topic=f"{PREFIX}/#", persistent=True)
-    time.sleep(1.5)  # mosquitto saves the watcher's session every second (autosave_interval 1)
+    assert mosquitto.wait_saved()  # the watcher's session is on disk before the broker dies
     mosquitto.stop()
     # GIVEN alert changes queued while the broker is away, and a close that may wait 20 s
     sink = MqttSink(settings(host, port, close_timeout_s=20.0))
