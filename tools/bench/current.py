@@ -1,6 +1,6 @@
 """Benchmark of the current estimator against the plain current triangle, over many seeds.
 
-``python -m tools.bench.current [--seeds N] [--quick] [--scenario NAME ...]``
+``python -m tools.bench.current [--seeds N] [--quick] [--scenario NAME ...] [--set KEY=VALUE ...]``
 
 Each scenario (``tools.simulator.scenarios.CURRENT_BENCH``: an ordinary
 passage of small course changes, a beat, a tidal box, a jet crossing, a
@@ -35,6 +35,10 @@ error variance / covariance of each, pooled (1 for an honest sigma; a random wal
 make leaves the rest near 1/2 in steady state), over the whole run and from the first course change
 (before it the calibration's part is its prior's).
 
+``--set KEY=VALUE`` runs the estimator with a ``[current]`` parameter changed (the value written as in
+the config file, filled and checked by the config's own loader): a trial of another setting against the
+defaults over the same seeds.
+
 Prints a markdown table. Timing belongs here, never in the tests.
 """
 
@@ -44,10 +48,12 @@ import argparse
 import math
 import sys
 import time
+import tomllib
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from daemon.core.config import ConfigError, fill
 from estimators.angles import KN_TO_MPS, to_east_north
 from estimators.current import CurrentEstimator, CurrentParams
 from estimators.runner import RunContext, run
@@ -247,14 +253,14 @@ def rms(values: list[float]) -> float:
     return float(np.sqrt(np.mean(a * a))) if a.size else math.nan
 
 
-def per_fix_cost() -> str:
+def per_fix_cost(params: CurrentParams) -> str:
     """CPU time per fix of the estimator alone (a 2-hour beat, 10-Hz compass, 1-Hz log and fix)."""
     from dataclasses import replace
 
     from tools.simulator.scenarios import H, beat
     sc = beat()
     sim = simulate(replace(sc, duration_s=2 * H, sensors=replace(sc.sensors, heading_hz=10.0)), 1)
-    est = CurrentEstimator(CurrentParams())
+    est = CurrentEstimator(params)
     samples = [s for s in sim.samples if isinstance(s, est.accepts)]
     t = time.process_time()
     for _ in run(est, samples, tick=False):
@@ -272,6 +278,20 @@ def observable_cell(r: Pooled) -> str:
     return f"{ow:.3f} / {pl:.3f} / {bd:.3f} ({ow / bd:.1f} ×), {np.mean(r.covered_observable):.3f}"
 
 
+def trial_params(settings: list[str]) -> CurrentParams:
+    """The [current] parameters with each KEY=VALUE of ``--set`` (TOML values), checked as a config file is."""
+    table: dict = {}
+    for item in settings:
+        key, sep, value = item.partition("=")
+        if not sep:
+            raise ConfigError(f"--set {item!r}: expected KEY=VALUE")
+        try:
+            table.update(tomllib.loads(f"{key.strip()} = {value.strip()}"))
+        except tomllib.TOMLDecodeError as e:
+            raise ConfigError(f"--set {item!r}: {e}") from None
+    return fill(CurrentParams, table, "--set")
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(prog="python -m tools.bench.current", description=__doc__.splitlines()[0])
     ap.add_argument("--seeds", type=int, default=10, help="seeds per scenario (default 10)")
@@ -282,12 +302,17 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--per-fix", action="store_true", help="only the estimator's CPU time per fix")
     ap.add_argument("--sigma-parts", action="store_true",
                     help="also the drift's error variance / covariance, calibration part and the rest")
+    ap.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                    help="a [current] parameter changed for a trial (TOML value), repeatable")
     args = ap.parse_args(argv)
+    try:
+        params = trial_params(args.set)
+    except ConfigError as e:
+        ap.error(str(e))
     if args.per_fix:
-        print(per_fix_cost())
+        print(per_fix_cost(params))
         return 0
     seeds = range(args.first_seed, args.first_seed + (3 if args.quick else args.seeds))
-    params = CurrentParams()
     t_all = time.perf_counter()
     results = []
     for name in args.scenario or CURRENT_BENCH:
@@ -297,8 +322,9 @@ def main(argv: list[str] | None = None) -> int:
             one_run(simulate(SCENARIOS[name](), seed), params, pooled, args.sigma_parts)
         pooled.seconds = time.perf_counter() - t_start
         results.append((name, pooled))
+    changed = f"; changed: {', '.join(args.set)}" if args.set else ""
     print(f"Current estimator vs the plain triangle ({len(seeds)} seeds per scenario, realistic sensor model; "
-          f"after {WARMUP_S / 60:.0f} min; triangles smoothed over {TRIANGLE_SMOOTHING_S:.0f} s)\n")
+          f"after {WARMUP_S / 60:.0f} min; triangles smoothed over {TRIANGLE_SMOOTHING_S:.0f} s{changed})\n")
     print("| scenario | RMS vector error kn: offwatch / plain / true-calibration triangle | 2σ coverage "
           "| min 'valid' while > 3σ and 0.25 kn off (of min valid) | calibration within 2σ at the end "
           "| DR error % of run: offwatch / plain / true cal. "
