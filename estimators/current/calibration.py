@@ -39,14 +39,6 @@ residuals say the blocks were noisier than assumed). The current's slow
 change is part of the model, so a current that turns with the tide over the
 window is not read as a calibration.
 
-Model error. What the quadratic cannot follow adds one variance sigma_m^2 to
-every block, read from the fit itself: the walk the fitted slope and curvature
-show (capped at ``current_walk_kn_per_sqrt_h``), as a random walk's residual
-after a quadratic (sigma_w^2 W / 23), or the residuals' excess over the
-sensors' (Paule-Mandel), whichever is larger. A turning stream aliases into k
-and d without showing in the residuals, hence the walk's reading; steady water
-earns the sensors' width alone, not the walk the params allow.
-
 Feeding the filter. A fit whose (k, d) covariance Sigma is smaller than the
 filter's own marginal P_kd is fused as a measurement of (k, d) with
 R = (Sigma^-1 - P_kd^-1)^-1: only the information the filter does not hold
@@ -68,7 +60,6 @@ from .params import CurrentParams
 
 S_PER_H = 3600.0
 CURRENT_TERMS = 3  # c0, c1 t, c2 t^2 per axis
-MODEL_ERROR_ITERATIONS = 8  # refits while the model error's variance settles (a few)
 
 
 @dataclass(frozen=True, slots=True)
@@ -92,7 +83,6 @@ class FitResult:
     chi2_reduced: float       # of the block residuals
     blocks: int
     heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
-    model_error_kn: float = 0.0  # per axis: the current's wander the quadratic did not follow, as the fit read it
 
 
 def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
@@ -162,52 +152,21 @@ class CalibrationFit:
         return self.last_fit_t is None or t - self.last_fit_t >= self.params.calibration_fit_every_s
 
     def fit(self, t: float, k_start: float, d_start: float) -> FitResult | None:
-        """Gauss-Newton over the window's blocks from (k_start, d_start); None with too few blocks.
-
-        The model error's variance (what the quadratic current cannot follow) is the larger of two
-        estimates from the fit itself: the walk the fitted current shows (``walk_model_error``: a
-        turning stream's residual aliases into k and d without showing in the residuals, so its size is
-        read from the current's change) and the residuals' excess (``model_error_step``). Steady water
-        earns the sensors' own width; a turning stream the width the walk's size implies.
-        """
+        """Gauss-Newton over the window's blocks from (k_start, d_start); None with too few blocks."""
         self.last_fit_t = t
         blocks = list(self.blocks)
         n_cur = 2 * CURRENT_TERMS
         if len(blocks) < n_cur or spread_deg(blocks) < self.params.calibration_min_spread_deg:
             return None  # on one course k and d are not observable: the fit would only trade them for the current
-        sensor = self._sensor_variances(blocks, k_start)
-        walk_w = self._walk_weights(blocks[-1].t_s - blocks[0].t_s)
-        dof = max(1, 2 * len(blocks) - n_cur - 2)
-        k, d, model_var = k_start, d_start, 0.0
-        span_h = (blocks[-1].t_s - blocks[0].t_s) / S_PER_H
-        for _ in range(MODEL_ERROR_ITERATIONS):
-            v = np.concatenate([sensor, sensor]) + model_var                # per residual (east, then north)
-            solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], walk_w, k, d)
-            if solved is None:
-                return None
-            k, d, A, res, c = solved
-            walked = walk_model_error(c, np.diag(np.linalg.inv(A))[:n_cur], span_h,
-                                      self.params.current_walk_kn_per_sqrt_h)
-            step = max(walked - model_var, model_error_step(res, v, dof))
-            model_var += step
-            if abs(step) <= 1e-3 * model_var + 1e-12:
-                break
-        v = np.concatenate([sensor, sensor]) + model_var
-        chi2_red = float(np.sum(res ** 2 / v)) / dof
-        cov = np.linalg.inv(A)[n_cur:, n_cur:] * max(1.0, chi2_red)
-        self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(model_var))
-        return self.last
-
-    def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float
-                      ) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
-        """(k, d, the normal matrix J'WJ, the blocks' residuals east then north, the current's coefficients)."""
-        n_cur = 2 * CURRENT_TERMS
         t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
         tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
         G = np.array([b.g for b in blocks])
         M = np.array([b.m for b in blocks])
         k0, d0, sk0, sd0 = self.prior
+        k, d = k_start, d_start
+        w = self._block_weights(blocks, k, blocks[-1].t_s - blocks[0].t_s)  # 1 / sigma_b^2 per axis
         nb = len(blocks)
+        walk_w = self._walk_weights(blocks[-1].t_s - blocks[0].t_s)
         n_walk = len(walk_w)
         for _ in range(4):
             cd, sd = math.cos(d), math.sin(d)
@@ -244,7 +203,12 @@ class CalibrationFit:
         Re, Rn = M[:, 0] * cd + M[:, 1] * sd, -M[:, 0] * sd + M[:, 1] * cd
         ce = sum(c[2 * j] * tau ** j for j in range(CURRENT_TERMS))
         cn = sum(c[2 * j + 1] * tau ** j for j in range(CURRENT_TERMS))
-        return k, d, A, np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn]), c
+        res = np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn])
+        dof = max(1, 2 * nb - n_cur - 2)
+        chi2_red = float(np.sum(np.concatenate([w, w]) * res ** 2)) / dof
+        cov = np.linalg.inv(A)[n_cur:, n_cur:] * max(1.0, chi2_red)
+        self.last = FitResult(k, d, cov, chi2_red, nb, spread_deg(blocks))
+        return self.last
 
     def _walk_weights(self, span_s: float) -> np.ndarray:
         """Weights of the prior c1 = c2 = 0 (per axis), from how far the current may walk over the window.
@@ -259,15 +223,18 @@ class CalibrationFit:
         s1, s2 = sw / math.sqrt(span_h), 4.0 * sw / span_h ** 1.5
         return np.array([1.0 / s1 ** 2, 1.0 / s1 ** 2, 1.0 / s2 ** 2, 1.0 / s2 ** 2])  # c1e, c1n, c2e, c2n
 
-    def _sensor_variances(self, blocks: list[Block], k: float) -> np.ndarray:
-        """The nominal variance per axis of each block's triangle from the sensors alone, with the effective sample count.
+    def _block_weights(self, blocks: list[Block], k: float, span_s: float) -> np.ndarray:
+        """1 / (nominal variance per axis of each block's triangle), with the effective sample count.
 
-        The log's (along the water track) and the compass's (across it) are both counted on each axis:
-        wider than either axis's own share, which keeps a fit from one course change wide enough for what
-        a leg's systematic errors do to it (along and across apart, the beat's first tack left the offset
-        2.2 sigma off).
+        Each block's variance also carries the model's error: the part of the current's walk that the
+        window's quadratic cannot follow. For a random walk of sigma_w kn/sqrt(h) over W hours the mean
+        square residual after a least-squares quadratic is about sigma_w^2 W / 23 (Monte Carlo over
+        Brownian paths, this project's own computation). Without it a stream turning 90 deg over the
+        window left the compass offset 0.1 deg off with a sigma of 0.05 deg (tidal box, 2 runs in 10
+        beyond 2 sigma).
         """
         p = self.params
+        model = p.current_walk_kn_per_sqrt_h ** 2 * (span_s / S_PER_H) / 23.0   # quadratic's residual, kn^2
         out = np.empty(len(blocks))
         for i, b in enumerate(blocks):
             span = max(p.calibration_block_s, b.fixes * 1e-3)
@@ -278,37 +245,5 @@ class CalibrationFit:
             corr = (k * k * p.log_correlated_sigma_kn ** 2 * min(1.0, 2.0 * p.noise_correlation_s / span)
                     + (ks * math.radians(p.heading_correlated_sigma_deg)) ** 2
                     * min(1.0, 2.0 * p.heading_correlation_s / span))
-            out[i] = white + corr                                           # per axis (about: along and across mixed)
+            out[i] = 1.0 / (white + corr + model)                           # per axis (about: along and across mixed)
         return out
-
-
-def walk_model_error(c: np.ndarray, c_var: np.ndarray, span_h: float, walk_max: float) -> float:
-    """The model error's variance per axis from the walk the fitted current shows, at most the params' walk.
-
-    The scalings of ``_walk_weights`` read backwards: a slope c1 ~ sigma_w / sqrt(W) and a curvature
-    c2 ~ 4 sigma_w / W^1.5, so sigma_w^2 ~ c1^2 W and c2^2 W^3 / 16, less what the coefficients' own
-    noise adds (method of moments), averaged over the two axes and the two terms; then the quadratic's
-    residual sigma_w^2 W / 23 (Monte Carlo over Brownian paths, this project's own computation).
-    """
-    w = max(span_h, 0.1)
-    slope = np.maximum(c[2:4] ** 2 - c_var[2:4], 0.0) * w                 # c1e, c1n
-    curve = np.maximum(c[4:6] ** 2 - c_var[4:6], 0.0) * w ** 3 / 16.0     # c2e, c2n
-    walk_var = min(float(np.mean(np.concatenate([slope, curve]))), walk_max ** 2)
-    return walk_var * w / 23.0
-
-
-def model_error_step(res: np.ndarray, v: np.ndarray, dof: int) -> float:
-    """The next increment of the model error's variance: Paule-Mandel, chi-square = dof, never below 0.
-
-    Each block's residual variance is its sensors' own plus one unknown variance sigma_m^2 shared by
-    all (the current's wander the quadratic cannot follow). Paule and Mandel ("Consensus values and
-    weighting factors", J. Res. Natl. Bur. Stand. 87, 1982) choose sigma_m^2 so that the weighted
-    residual sum of squares equals its degrees of freedom; F(s) = sum r^2 / (v + s) - dof is convex and
-    decreasing, so Newton's step from below (here from 0) never overshoots. On steady water F(0) <= 0:
-    no model error, and the sensors alone set the width.
-    """
-    weighted = res ** 2 / v
-    excess = float(np.sum(weighted)) - dof
-    if excess <= 0.0:
-        return 0.0
-    return excess / float(np.sum(weighted / v))
