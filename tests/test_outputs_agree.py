@@ -29,7 +29,8 @@ from hypothesis import strategies as st
 
 from daemon.commands.replay import run_replay
 from daemon.core.config import MqttSettings, load_config
-from daemon.core.readings import Message, ascii_json, encode_json
+from daemon.core.payloads import ascii_json, encode_json
+from daemon.core.readings import Message
 from daemon.outlets.mqtt import MqttSink
 from daemon.outlets.outbox import Outbox
 from daemon.outlets.recorder import iter_messages

@@ -11,6 +11,8 @@ and only here, they become what leaves the boat (MQTT, JSONL, the recording):
   barometer shows, speeds to 0.01 kn, angles to 0.1°; never "-0.0";
   a non-finite number becomes null, an unknown type its text;
 - alert texts end with the advisory sentence (``with_advisory``).
+- the JSON text of a message, made once (``encode_json``, by ``Message.payload_json``) and
+  shared by MQTT and the recording, which keeps its ASCII form (``ascii_json``).
 
 The rounding is deterministic, so a replay and the replay of its own
 recording stay byte for byte the same.
@@ -18,7 +20,9 @@ recording stay byte for byte the same.
 
 from __future__ import annotations
 
+import json
 import math
+import re
 from collections.abc import Iterable, Mapping
 from datetime import datetime, timezone
 from functools import lru_cache
@@ -140,3 +144,48 @@ def payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
 def with_advisory(text: str) -> str:
     """An alert text with the advisory sentence after it (the sentence alone for no text)."""
     return f"{text} {ADVISORY}" if text else ADVISORY
+
+
+# -- JSON text: made once per message (Message.payload_json) for MQTT and the recording --
+
+def json_default(obj: Any) -> Any:
+    """numpy scalars and other number-likes become plain numbers; mappings become dicts."""
+    if isinstance(obj, Mapping):
+        return dict(obj)
+    if hasattr(obj, "item"):
+        return obj.item()
+    if isinstance(obj, (set, frozenset, tuple)):
+        return list(obj)
+    return str(obj)
+
+
+_COMPACT = json.JSONEncoder(ensure_ascii=False, separators=(",", ":"), allow_nan=False, default=json_default)
+
+
+def encode_json(payload: Mapping[str, Any]) -> str:
+    """Compact JSON, non-ASCII as it is. Payloads come cleaned from the payload layer; one that is
+    not JSON (a non-finite number from elsewhere) is cleaned there, never written as NaN."""
+    try:
+        return _COMPACT.encode(payload)
+    except ValueError:
+        return _COMPACT.encode(clean(payload))
+
+
+_NOT_PRINTABLE_ASCII = re.compile(r"[^ -~]")
+
+
+def _escape(match: re.Match[str]) -> str:
+    n = ord(match.group())
+    if n < 0x10000:
+        return f"\\u{n:04x}"
+    n -= 0x10000  # a UTF-16 surrogate pair, as JSON writes a character beyond the BMP (RFC 8259 s. 7)
+    return f"\\u{0xd800 | (n >> 10):04x}\\u{0xdc00 | (n & 0x3ff):04x}"
+
+
+def ascii_json(text: str) -> str:
+    """``encode_json``'s text as ``json.dumps(..., ensure_ascii=True)`` writes it: every character
+    outside printable ASCII escaped. Outside strings JSON is ASCII, and inside them the compact form
+    has already escaped the quote, the backslash and the control characters, so escaping the rest
+    gives the same text."""
+    return text if _NOT_PRINTABLE_ASCII.search(text) is None else _NOT_PRINTABLE_ASCII.sub(_escape, text)
+

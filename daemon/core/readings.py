@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
-import json
-import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
-from daemon.core.payloads import clean
+from daemon.core.payloads import encode_json
 from estimators.samples import Sample
 
 
@@ -72,48 +70,6 @@ class Message:
             text = encode_json(self.payload)
             object.__setattr__(self, "_json", text)  # a cache, not a value: the message stays as made
         return text
-
-
-def json_default(obj: Any) -> Any:
-    """numpy scalars and other number-likes become plain numbers; mappings become dicts."""
-    if isinstance(obj, Mapping):
-        return dict(obj)
-    if hasattr(obj, "item"):
-        return obj.item()
-    if isinstance(obj, (set, frozenset, tuple)):
-        return list(obj)
-    return str(obj)
-
-
-_COMPACT = json.JSONEncoder(ensure_ascii=False, separators=(",", ":"), allow_nan=False, default=json_default)
-
-
-def encode_json(payload: Mapping[str, Any]) -> str:
-    """Compact JSON, non-ASCII as it is. Payloads come cleaned from the payload layer; one that is
-    not JSON (a non-finite number from elsewhere) is cleaned there, never written as NaN."""
-    try:
-        return _COMPACT.encode(payload)
-    except ValueError:
-        return _COMPACT.encode(clean(payload))
-
-
-_NOT_PRINTABLE_ASCII = re.compile(r"[^ -~]")
-
-
-def _escape(match: re.Match[str]) -> str:
-    n = ord(match.group())
-    if n < 0x10000:
-        return f"\\u{n:04x}"
-    n -= 0x10000  # a UTF-16 surrogate pair, as JSON writes a character beyond the BMP (RFC 8259 s. 7)
-    return f"\\u{0xd800 | (n >> 10):04x}\\u{0xdc00 | (n & 0x3ff):04x}"
-
-
-def ascii_json(text: str) -> str:
-    """``encode_json``'s text as ``json.dumps(..., ensure_ascii=True)`` writes it: every character
-    outside printable ASCII escaped. Outside strings JSON is ASCII, and inside them the compact form
-    has already escaped the quote, the backslash and the control characters, so escaping the rest
-    gives the same text."""
-    return text if _NOT_PRINTABLE_ASCII.search(text) is None else _NOT_PRINTABLE_ASCII.sub(_escape, text)
 
 
 class Sink(Protocol):

@@ -56,8 +56,8 @@ from paho.mqtt.enums import CallbackAPIVersion, MQTTErrorCode
 from daemon.errors import ConfigError
 from daemon.outlets.outbox import Outbox, Outgoing, is_state
 from daemon.core.config import MqttSettings, mask_url_password, mqtt_problems
-from daemon.core.payloads import iso_utc
-from daemon.core.readings import Message, RawLine, encode_json
+from daemon.core.payloads import encode_json, iso_utc
+from daemon.core.readings import Message, RawLine
 from daemon.intake.acks import valid_alert_id
 
 log = logging.getLogger(__name__)

@@ -105,7 +105,8 @@ from typing import Any
 from daemon import __version__
 from daemon.errors import InputError, OutputError
 from daemon.nmea0183.codec import has_tag_block, split_tag, tag_block
-from daemon.core.readings import Message, RawLine, json_default, ascii_json
+from daemon.core.payloads import ascii_json, json_default
+from daemon.core.readings import Message, RawLine
 from daemon.intake.crew import REPLAYERS as CREW_SOURCES
 from estimators.params import param
 
