@@ -48,20 +48,6 @@ class SampleHistory:
         hi = bisect.bisect_right(q, t1_s, lo=lo, key=_time)
         return [q[i] for i in range(lo, hi)]
 
-    def since(self, kind: type, t0_s: float, t1_s: float, max_age_s: float) -> list[Sample]:
-        """Samples of ``kind`` with t0 < t_s <= t1, oldest first, after the last one at or before t0
-        when that one is younger than ``max_age_s`` (t_s > t0 - max_age_s): what is current at each
-        moment of the interval, without the older samples of those seconds that ``between(kind,
-        t0 - max_age_s, t1)`` also lists (a 10-Hz compass: 20 more for a 2-s age)."""
-        q = self._by_type.get(kind)
-        if not q:
-            return []
-        lo = bisect.bisect_right(q, t0_s, key=_time)
-        hi = bisect.bisect_right(q, t1_s, lo=lo, key=_time)
-        if lo and q[lo - 1].t_s > t0_s - max_age_s:
-            lo -= 1
-        return [q[i] for i in range(lo, hi)]
-
     def mean_heading_deg(self, t0_s: float, t1_s: float) -> float | None:
         """Circular mean of true headings over (t0, t1], or None with none there."""
         return circular_mean_deg(h.true_deg for h in self.between(Heading, t0_s, t1_s))

@@ -198,10 +198,6 @@ class MeanWind:
     samples: int
 
 
-def _time(sample: Sample) -> float:
-    return sample.t_s
-
-
 def wind_from(vec: tuple[float, float]) -> tuple[float, float]:
     """(from_deg, speed) of an air velocity (east, north) that blows *toward* the vector."""
     speed, toward = from_east_north(*vec)
@@ -378,9 +374,7 @@ class SeaStateEstimator(EstimatorBase):
             return
         source = self._source(t1)
         current = self._current(ctx)
-        # asked once, used by each step below: the interval's headings and the one before it, the only
-        # one of the older headings any step reads (the last heading at or before a wind sample or t1)
-        heads = ctx.history.since(Heading, t0, t1, HEADING_MAX_AGE_S)
+        heads = ctx.history.between(Heading, t0 - HEADING_MAX_AGE_S, t1)  # asked once, used by each step below
         boat = self._boat(t0, t1, ctx, current, ground_sample, heads)
         epoch = None
         if source == "apparent":
@@ -399,14 +393,12 @@ class SeaStateEstimator(EstimatorBase):
         k, d = 1.0, 0.0
         if current is not None and current.get("stw_scale") is not None:
             k, d = float(current["stw_scale"]), float(current.get("heading_offset_deg") or 0.0)
-        logs = ctx.history.since(WaterSpeed, t0, t1, LOG_MAX_AGE_S)  # the interval's, or the last before it
+        logs = ctx.history.between(WaterSpeed, t0 - LOG_MAX_AGE_S, t1)
         water = None
         if heads and logs:
-            # the heading's circular mean over the interval (as unit vectors: sines and cosines summed in
-            # order, to_east_north(1.0, ...) and _mean written out), the log's mean, calibrated
-            turns = ([math.radians(h.true_deg + d) for h in heads if h.t_s > t0]
-                     or [math.radians(heads[-1].true_deg + d)])
-            ue, un = sum(map(math.sin, turns)) / len(turns), sum(map(math.cos, turns)) / len(turns)
+            # the heading's circular mean over the interval (as unit vectors), the log's mean, calibrated
+            ue, un = _mean([to_east_north(1.0, h.true_deg + d) for h in heads if h.t_s > t0] or
+                           [to_east_north(1.0, heads[-1].true_deg + d)])
             in_interval = [w.speed_kn for w in logs if w.t_s > t0] or [logs[-1].speed_kn]
             stw = k * sum(in_interval) / len(in_interval)  # true STW = stw_scale x log
             heels = [a.heel_deg for a in ctx.history.between(Attitude, t0, t1) if a.heel_deg is not None]
@@ -427,10 +419,11 @@ class SeaStateEstimator(EstimatorBase):
         winds = ctx.history.between(ApparentWind, t0, t1)
         if not winds or not heads:
             return None
+        times = [h.t_s for h in heads]
         air = []
         for w in winds:
-            i = bisect.bisect_right(heads, w.t_s, key=_time) - 1  # the heading of the wind sample's own moment
-            if i < 0 or w.t_s - heads[i].t_s > HEADING_MAX_AGE_S:
+            i = bisect.bisect_right(times, w.t_s) - 1  # the heading of the wind sample's own moment
+            if i < 0 or w.t_s - times[i] > HEADING_MAX_AGE_S:
                 continue
             air.append(apparent_air_velocity(heads[i].true_deg + boat.heading_offset_deg, w.angle_deg, w.speed_kn))
         if not air:

@@ -3,13 +3,11 @@
 from __future__ import annotations
 
 import math
-import random
 
 import pytest
 
 from estimators.angles import from_east_north, to_east_north, wrap_180
 from estimators.base import Condition, Publication
-from estimators.history import SampleHistory
 from estimators.samples import (
     AirTemperature, ApparentWind, Attitude, Depth, Fix, Heading, SeaTemperature, Swell, WaterSpeed, WaterWind,
 )
@@ -436,45 +434,3 @@ def test_the_published_mean_wind_is_the_window_summed_afresh():
         # a wind without gusts has no spread: the running sums leave the root of their rounding (1e-8 kn)
         assert got.sigma_kn == pytest.approx(along, rel=1e-9, abs=1e-6)
     assert max(s for _, (_, s, _, _) in est.seen) > 24.0  # the wind did freshen through the run
-
-
-# -- the interval's headings: the short list gives what the plain one gave ---------------------------------
-
-def compass_passage(seed: int):
-    """Three minutes of invented samples with a 10-Hz compass (jitter and gaps of up to 3 s), yaw, wind
-    samples at irregular moments, fixes that stop for a while (epochs closed by ticks) and a minute of
-    the instrument's angle-only true wind while the apparent wind is silent."""
-    rng = random.Random(seed)
-    samples = []
-    t = T0
-    while t < T0 + 180.0:
-        samples.append(Heading(t, (30.0 + 8.0 * math.sin(t / 3.0) + rng.gauss(0.0, 1.0)) % 360.0))
-        t += rng.choice((0.1, 0.1, 0.1, 0.08, 0.12, 0.6, 1.7, 3.0))
-    for i in range(180):
-        samples.append(WaterSpeed(T0 + i + 0.2, 6.0 + rng.uniform(-0.2, 0.2)))
-        if not 60 <= i < 75:  # the fixes stop for 15 s
-            samples.append(Fix(T0 + i + 0.9, 30.0, -40.0, 6.5, 40.0))
-        for _ in range(rng.choice((1, 2, 3))):
-            w = T0 + i + rng.uniform(0.0, 1.0)
-            if 100 <= i < 160:  # the apparent wind silent: the instrument's angle-only true wind instead
-                samples.append(WaterWind(w, 15.0, None, rng.uniform(20.0, 60.0)))
-            else:
-                samples.append(ApparentWind(w, rng.uniform(25.0, 45.0), rng.uniform(14.0, 20.0)))
-    return sorted(samples, key=lambda s: s.t_s)
-
-
-@pytest.mark.parametrize("seed", range(3))
-def test_interval_headings_same_outputs_as_every_heading_of_the_last_seconds(seed, monkeypatch):
-    # GIVEN the same passage twice, a calibration with a compass offset (so each heading is turned)
-    samples = compass_passage(seed)
-    current = dict(set_deg=120.0, drift_kn=1.0, stw_scale=1.05, heading_offset_deg=-3.0)
-    short = drive([FixedCurrent(**current), SeaStateEstimator()], samples)
-    # WHEN the estimator is given every heading of the HEADING_MAX_AGE_S before each interval as well
-    # (the plain selection it took before the short one)
-    monkeypatch.setattr(SampleHistory, "since",
-                        lambda self, kind, t0, t1, age: self.between(kind, t0 - age, t1))
-    plain = drive([FixedCurrent(**current), SeaStateEstimator()], samples)
-    # THEN every output is the same, figure for figure (the steps read only the interval's headings and the
-    # one current at its start)
-    assert len(sea_states(short)) > 50
-    assert short == plain
