@@ -118,6 +118,11 @@ def _clean_fields(items: Iterable[tuple[Any, Any]], inherited: int | None, depth
             out[name] = round(v, decimals_for(name, inherited)) + 0.0 if isfinite(v) else None
         elif kind is str or kind is int or kind is bool or v is None:
             out[name] = v
+        elif kind is dict and depth < MAX_DEPTH:  # clean's branches for a mapping and a list, without its tests
+            out[name] = _clean_fields(v.items(), decimals_for(name, inherited), depth + 1, {})
+        elif kind is list and depth < MAX_DEPTH:
+            decimals = decimals_for(name, inherited)
+            out[name] = [clean(x, decimals, depth + 1) for x in v]
         else:
             out[name] = clean(v, decimals_for(name, inherited), depth)
     return out
@@ -138,7 +143,8 @@ def _utc_second(sec: int) -> str:
 def payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
     """A publication's payload: ``time`` first, then the fields, cleaned."""
     out: dict[str, Any] = {"time": iso_utc(t_s)}
-    return _clean_fields(((k, v) for k, v in fields.items() if k != "time"), None, 1, out)
+    items = fields.items() if "time" not in fields else ((k, v) for k, v in fields.items() if k != "time")
+    return _clean_fields(items, None, 1, out)
 
 
 def with_advisory(text: str) -> str:

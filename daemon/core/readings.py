@@ -4,19 +4,22 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any, Protocol
+from typing import Any, NamedTuple, Protocol
 
 from daemon.core.payloads import encode_json
 from estimators.samples import Sample
 
 
-@dataclass(frozen=True, slots=True)
-class RawLine:
+class RawLine(NamedTuple):
     """One framed line exactly as received (TAG block included, no line ending).
 
     ``t_s`` is the data time given to it (TAG ``c:``, GNSS time, or the receive
     time when live); ``recv_utc`` is when it arrived (equal to ``t_s`` in replay
     of a file without receive times).
+
+    A named tuple, not a frozen dataclass: one is made for every line, and a frozen dataclass's
+    ``__init__`` sets each field through ``object.__setattr__`` (1.7 us against 0.3 us). Immutable
+    and compared field by field either way.
     """
 
     source: str
@@ -39,9 +42,9 @@ class Acknowledgement:
     alert_id: str
 
 
-@dataclass(frozen=True, slots=True)
-class Reading:
-    """One plausible measurement from one source, stamped with data time in ``sample.t_s``."""
+class Reading(NamedTuple):
+    """One plausible measurement from one source, stamped with data time in ``sample.t_s``
+    (a named tuple, as ``RawLine`` and for the same reason: one or more a line)."""
 
     source: str
     sample: Sample

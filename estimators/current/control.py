@@ -26,7 +26,7 @@ from estimators.base import CAUTION, Condition, Output
 from estimators.fusion import FusionReport
 
 from .fusion import fuse
-from .model import WaterInputs, leeway_deg, unit
+from .model import WaterInputs, leeway_deg
 from .params import ID, IK
 
 
@@ -265,7 +265,8 @@ class Control:
         """Dead log (near zero while SOG is not) or a step of the log while SOG along the heading holds."""
         p = self.params
         sog = math.hypot(*g)
-        along = float(np.dot(np.array(g), unit(math.radians(w.heading_deg))[:, 0]))
+        heading = math.radians(w.heading_deg)
+        along = g[0] * math.sin(heading) + g[1] * math.cos(heading)  # g . u(heading), in floats
         self._log_checks.append((t, w.speed_kn, along, w.heading_deg))
         while self._log_checks and self._log_checks[0][0] < t - 2.0 * p.log_step_window_s:
             self._log_checks.popleft()

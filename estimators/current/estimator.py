@@ -21,7 +21,7 @@ from estimators.thresholds import Hysteresis
 
 from .calibration import CalibrationFit
 from .control import Control
-from .fusion import fuse, nis2
+from .fusion import fuse, innovation_cov, nis2
 from .model import (
     FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov,
     process_noise, unit,
@@ -237,8 +237,9 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         theta = math.radians(w.heading_deg + leeway_deg(p, w.heel_deg, k * s)) + d
         R = measurement_cov(p, g, w, k, theta)
         H = jacobian(p, w, k, d)
-        y = np.array([[g[0] - ce - k * s * math.sin(theta)],                    # y = z - h(x),
-                      [g[1] - cn - k * s * math.cos(theta)]])                   # h(x) = c + k s u(theta)
+        y0 = g[0] - ce - k * s * math.sin(theta)                                # y = z - h(x),
+        y1 = g[1] - cn - k * s * math.cos(theta)                                # h(x) = c + k s u(theta)
+        y = np.array([[y0], [y1]])
         # k and d are Schmidt "consider" states: learnt from the calibration fit only (see calibration)
         consider = IK
         up = fuse(x_prior, P_prior, y, H, R, self._gate, consider)
@@ -246,8 +247,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         if math.isfinite(nis):
             # the change detector reads the innovation against one fix's own noise (no allowance for
             # correlation: that would blunt it), the gate and the model check the covariance the filter uses
-            S_fix = H @ P_prior @ H.T + measurement_cov(p, g, w, k, theta, correlated=False)
-            self._adapt(min(nis2(y, S_fix), self._gate), nis)  # one outlier alone cannot raise the alarm
+            S_fix = innovation_cov(P_prior, H, measurement_cov(p, g, w, k, theta, correlated=False))
+            self._adapt(min(nis2(y0, y1, S_fix), self._gate), nis)  # one outlier alone cannot raise the alarm
         if up.reason == "gate":
             self.consecutive_rejects += 1
             if self.consecutive_rejects >= p.rejections_before_reset:

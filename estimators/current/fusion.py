@@ -2,16 +2,21 @@
 
 Whether to fuse at all (turns, a suspect log, resets, when k and d may learn)
 is the control's business (``control``); the model's matrices come from
-``model``. Written out for the 2 x 4 case with plain floats for the 2 x 2
-parts, where numpy's small-matrix calls cost more than the arithmetic (it runs
-at 1 Hz on a small computer and over whole passages in replay); checked
-against filterpy's generic ``ExtendedKalmanFilter.update`` in the tests.
+``model``. Written out for the 2 x 4 case in plain floats, numpy arrays only at
+the edges (x, P, y, H, R come and go as arrays): numpy's small-matrix calls
+cost about a microsecond each, more than the arithmetic (it runs at 1 Hz on a
+small computer and over whole passages in replay); checked against filterpy's
+generic ``ExtendedKalmanFilter.update`` in the tests.
 
     S = H P H' + R                       innovation covariance
     NIS = y' S^-1 y                      ~ chi2(2) when the model fits
     K = P H' S^-1                        gain; rows of "consider" states zeroed (Schmidt)
     x+ = x + K y
     P+ = (I - K H) P (I - K H)' + K R K' Joseph form: right for any gain, the zeroed rows included
+
+The Joseph form is evaluated row by row as A = (I - K H) P = P - K (P H')' (P is
+symmetric), then A (I - K H)' + K R K' = A - (A H') K' + (K R) K': the same
+product, without the 4 x 4 x 4 multiplications.
 """
 
 from __future__ import annotations
@@ -21,7 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-_I4 = np.eye(4)
+Rows = list[list[float]]
 
 
 @dataclass(frozen=True, slots=True)
@@ -36,21 +41,36 @@ class Update:
     reason: str = ""
 
 
-def inv2(S: np.ndarray) -> np.ndarray:
-    """Inverse of a 2 x 2 matrix (closed form)."""
-    a, b, c, d = S.ravel().tolist()
-    det = a * d - b * c
-    return np.array([[d, -b], [-c, a]]) / det
-
-
-def nis2(y: np.ndarray, S: np.ndarray) -> float:
-    """y' S^-1 y for a 2-vector; NaN when y or S is not finite, or S not positive definite."""
-    a, b, c, d = S.ravel().tolist()
-    y0, y1 = y[0, 0].item(), y[1, 0].item()
+def nis2(y0: float, y1: float, S: tuple[float, float, float, float]) -> float:
+    """y' S^-1 y for y = (y0, y1) and S = (S00, S01, S10, S11); NaN when y or S is not finite, or S not
+    positive definite."""
+    a, b, c, d = S
     det = a * d - b * c
     if not (math.isfinite(a + b + c + d + y0 + y1) and det > 0.0 and a > 0.0):
         return math.nan
     return (y0 * (d * y0 - b * y1) + y1 * (a * y1 - c * y0)) / det
+
+
+def _times_ht(rows: Rows, h0: list[float], h1: list[float]) -> list[tuple[float, float]]:
+    """M H' for a 4 x 4 M (its rows) and H (its rows h0, h1): four rows of two."""
+    return [(m0 * h0[0] + m1 * h0[1] + m2 * h0[2] + m3 * h0[3], m0 * h1[0] + m1 * h1[1] + m2 * h1[2] + m3 * h1[3])
+            for m0, m1, m2, m3 in rows]
+
+
+def _h_times(h0: list[float], h1: list[float], PHt: list[tuple[float, float]],
+             R: Rows) -> tuple[float, float, float, float]:
+    """H (P H') + R as (S00, S01, S10, S11)."""
+    (r00, r01), (r10, r11) = R
+    return (h0[0] * PHt[0][0] + h0[1] * PHt[1][0] + h0[2] * PHt[2][0] + h0[3] * PHt[3][0] + r00,
+            h0[0] * PHt[0][1] + h0[1] * PHt[1][1] + h0[2] * PHt[2][1] + h0[3] * PHt[3][1] + r01,
+            h1[0] * PHt[0][0] + h1[1] * PHt[1][0] + h1[2] * PHt[2][0] + h1[3] * PHt[3][0] + r10,
+            h1[0] * PHt[0][1] + h1[1] * PHt[1][1] + h1[2] * PHt[2][1] + h1[3] * PHt[3][1] + r11)
+
+
+def innovation_cov(P: np.ndarray, H: np.ndarray, R: np.ndarray) -> tuple[float, float, float, float]:
+    """S = H P H' + R as (S00, S01, S10, S11)."""
+    h0, h1 = H.tolist()
+    return _h_times(h0, h1, _times_ht(P.tolist(), h0, h1), R.tolist())
 
 
 def fuse(x: np.ndarray, P: np.ndarray, y: np.ndarray, H: np.ndarray, R: np.ndarray, gate: float,
@@ -61,22 +81,33 @@ def fuse(x: np.ndarray, P: np.ndarray, y: np.ndarray, H: np.ndarray, R: np.ndarr
     their covariance and cross-covariance are carried exactly, their estimates
     not moved. Never changes ``x`` or ``P`` in place (the caller keeps the prior).
     """
-    PHt = P @ H.T
-    S = H @ PHt + R                                                         # S = H P H' + R
-    nis = nis2(y, S)                                                        # y' S^-1 y, NaN if S is not usable
-    svar = (float(S[0, 0]), float(S[1, 1]))
+    Pl = P.tolist()
+    h0, h1 = H.tolist()
+    Rl = R.tolist()
+    y0, y1 = y.ravel().tolist()
+    PHt = _times_ht(Pl, h0, h1)
+    S = _h_times(h0, h1, PHt, Rl)                                           # S = H P H' + R
+    nis = nis2(y0, y1, S)                                                   # y' S^-1 y, NaN if S is not usable
+    a, b, c, d = S
+    svar = (a, d)
     if not math.isfinite(nis):
         return Update(x, P, math.nan, svar, False, "numerical guard")
     if nis > gate:
         return Update(x, P, nis, svar, False, "gate")
-    K = PHt @ inv2(S)                                                       # K = P H' S^-1
+    det = a * d - b * c
+    i00, i01, i10, i11 = d / det, -b / det, -c / det, a / det               # S^-1, closed form
+    K = [(q0 * i00 + q1 * i10, q0 * i01 + q1 * i11) for q0, q1 in PHt]      # K = P H' S^-1
     if consider_from is not None:
-        K[consider_from:, :] = 0.0
-    x_new = x + K @ y                                                       # x+ = x + K y
-    I_KH = _I4 - K @ H
-    P_new = I_KH @ P @ I_KH.T + K @ R @ K.T                                 # Joseph form
-    P_new = 0.5 * (P_new + P_new.T)
-    if not (math.isfinite(float(x_new.sum())) and math.isfinite(float(P_new.sum()))
-            and float(P_new.diagonal().min()) > 0.0):
+        K[consider_from:] = [(0.0, 0.0)] * (4 - consider_from)
+    x_new = [xi + (k0 * y0 + k1 * y1) for xi, (k0, k1) in zip(x.ravel().tolist(), K)]   # x+ = x + K y
+    A = [[pij - (k0 * q0 + k1 * q1) for pij, (q0, q1) in zip(Pi, PHt)]     # A = (I - K H) P
+         for Pi, (k0, k1) in zip(Pl, K)]
+    (r00, r01), (r10, r11) = Rl
+    KR = [(k0 * r00 + k1 * r10, k0 * r01 + k1 * r11) for k0, k1 in K]
+    P_new = [[aij - (m0 * k0 + m1 * k1) + (s0 * k0 + s1 * k1) for aij, (k0, k1) in zip(Ai, K)]   # Joseph form
+             for Ai, (m0, m1), (s0, s1) in zip(A, _times_ht(A, h0, h1), KR)]
+    P_new = [[0.5 * (P_new[i][j] + P_new[j][i]) for j in range(4)] for i in range(4)]
+    if not (math.isfinite(sum(x_new)) and math.isfinite(sum(map(sum, P_new)))
+            and min(P_new[0][0], P_new[1][1], P_new[2][2], P_new[3][3]) > 0.0):
         return Update(x, P, nis, svar, False, "numerical guard after update")
-    return Update(x_new, P_new, nis, svar, True)
+    return Update(np.array(x_new).reshape(4, 1), np.array(P_new), nis, svar, True)

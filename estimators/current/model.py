@@ -89,10 +89,15 @@ def ground_velocity_of(sample: Sample) -> tuple[float, float] | None:
 
 def process_noise(p: CurrentParams, dt: float, q_inflation: float = 1.0) -> np.ndarray:
     """Q for a step of ``dt`` s: every state a random walk; the current's rate times ``q_inflation``."""
+    return np.diag(walk_variances(p, dt, q_inflation))
+
+
+def walk_variances(p: CurrentParams, dt: float, q_inflation: float = 1.0) -> tuple[float, float, float, float]:
+    """Q's diagonal (c_e, c_n, k, d) as floats, for a publication that needs only the current's part."""
     qc = (p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H) * q_inflation        # kn^2/s per axis
     qk = p.stw_scale_walk_per_sqrt_h ** 2 / S_PER_H
     qd = math.radians(p.heading_offset_walk_deg_per_sqrt_h) ** 2 / S_PER_H
-    return np.diag([qc * dt, qc * dt, qk * dt, qd * dt])                            # random walk: Q = q dt
+    return (qc * dt, qc * dt, qk * dt, qd * dt)                                     # random walk: Q = q dt
 
 
 def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k: float, theta: float,

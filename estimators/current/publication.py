@@ -8,22 +8,22 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 from estimators.angles import from_east_north, wrap_180
 from estimators.base import CAUTION, Condition, Output, Publication
 
-from .model import process_noise
+from .model import walk_variances
 from .params import IK, ID, IE, IN, TOPIC, Calibration
 
 
 class Publisher:
     """The current topic's payload and the current_strong caution (see the module doc)."""
 
-    def _covariance_at(self, t: float) -> np.ndarray:
-        """P predicted to ``t`` without changing the filter (for publishing between fixes and in outages)."""
-        dt = max(0.0, t - self.t_filter)
-        return self.ekf.P + process_noise(self.params, dt, self.q_inflation)
+    def _current_covariance_at(self, t: float) -> tuple[tuple[float, float], tuple[float, float]]:
+        """The current's 2 x 2 block of P predicted to ``t``, as floats, without changing the filter (for
+        publishing between fixes and in outages): F = I, so only Q's diagonal is added."""
+        (pee, pen, _, _), (pne, pnn, _, _) = self.ekf.P[:2].tolist()
+        qe, qn, _, _ = walk_variances(self.params, max(0.0, t - self.t_filter), self.q_inflation)
+        return (pee + qe, pen), (pne, pnn + qn)
 
     def _stale_inputs(self, t: float) -> list[str]:
         return [k for k in ("fix", "heading", "water_speed") if t - self._seen.get(k, -math.inf) > self.params.stale_s]
@@ -58,13 +58,13 @@ class Publisher:
         if self.ekf is None:
             payload = {"set_deg": None, "drift_kn": None, "east_kn": None, "north_kn": None, "set_sigma_deg": None,
                        "drift_sigma_kn": None, "quality": "unavailable", "stw_scale": None, "heading_offset_deg": None,
-                       "calibration": self._calibration_words(None), "health": self.health.as_dict()}
+                       "calibration": self._calibration_words(), "health": self.health.as_dict()}
             return [Publication(t, TOPIC, payload)]
-        P = self._covariance_at(t)
-        e, n = float(self.ekf.x[IE, 0]), float(self.ekf.x[IN, 0])
+        Pc = self._current_covariance_at(t)
+        e, n = self.ekf.x[IE:IN + 1, 0].tolist()
         drift, set_deg = from_east_north(e, n)
-        sig_drift, sig_set = polar_sigmas(e, n, P[:2, :2])
-        sigma_vec = math.sqrt(P[0, 0] + P[1, 1])
+        sig_drift, sig_set = polar_sigmas(e, n, Pc)
+        sigma_vec = math.sqrt(Pc[0][0] + Pc[1][1])
         quality, why = self._quality(t, sigma_vec)
         cal = self.calibration()
         payload = {
@@ -75,7 +75,7 @@ class Publisher:
             "stw_scale": round(cal.stw_scale, 4), "heading_offset_deg": round(cal.heading_offset_deg, 2),
             "stw_scale_sigma": round(cal.stw_scale_sigma, 4),
             "heading_offset_sigma_deg": round(cal.heading_offset_sigma_deg, 2),
-            "calibration": self._calibration_words(P),
+            "calibration": self._calibration_words(),
             "stale_inputs": self._stale_inputs(t),
             "log": self._log_state,
             "q_inflation": round(self.q_inflation, 2),
@@ -118,7 +118,7 @@ class Publisher:
         _, _, sk0, sd0 = self._prior
         return self.ekf.P[IK, IK] < sk0 ** 2, self.ekf.P[ID, ID] < sd0 ** 2
 
-    def _calibration_words(self, P: np.ndarray | None) -> dict[str, str]:
+    def _calibration_words(self) -> dict[str, str]:
         p = self.params
         if self._log_state == "suspect":
             return {"status": "suspended",
@@ -159,18 +159,23 @@ class Publisher:
 
 
 
-def polar_sigmas(e: float, n: float, Pc: np.ndarray) -> tuple[float, float]:
-    """(drift sigma kn, set sigma deg) from the current's east/north covariance, linearised.
+def polar_sigmas(e: float, n: float, Pc) -> tuple[float, float]:
+    """(drift sigma kn, set sigma deg) from the current's east/north covariance ``Pc`` (2 x 2: rows of floats
+    or an array), linearised.
 
     drift = |c|: J = [e, n] / |c|; set = atan2(e, n): J = [n, -e] / |c|^2 (rad).
     The set sigma is capped at 180 deg where the drift is too small to have a direction.
+    In floats: two numpy products of a 2-vector cost more than their arithmetic.
     """
+    (p00, p01), (p10, p11) = Pc
     d = math.hypot(e, n)
     if d < 1e-6:
-        return math.sqrt(max(Pc[0, 0], Pc[1, 1])), 180.0
-    jd = np.array([e / d, n / d])
-    js = np.array([n / d ** 2, -e / d ** 2])
-    sig_d = math.sqrt(max(0.0, float(jd @ Pc @ jd)))
-    sig_s = math.degrees(math.sqrt(max(0.0, float(js @ Pc @ js))))
+        return math.sqrt(max(p00, p11)), 180.0
+    sig_d = math.sqrt(max(0.0, _quadratic(e / d, n / d, p00, p01, p10, p11)))
+    sig_s = math.degrees(math.sqrt(max(0.0, _quadratic(n / d ** 2, -e / d ** 2, p00, p01, p10, p11))))
     return sig_d, min(180.0, sig_s)
 
+
+def _quadratic(j0: float, j1: float, p00: float, p01: float, p10: float, p11: float) -> float:
+    """j' P j for a 2-vector j, as (j' P) j."""
+    return (j0 * p00 + j1 * p10) * j0 + (j0 * p01 + j1 * p11) * j1

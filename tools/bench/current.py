@@ -246,7 +246,7 @@ def one_run(sim, params: CurrentParams, pooled: Pooled, parts: bool = False) -> 
 def calibration_check(est: CurrentEstimator, k_true: float, d_true: float, pooled: Pooled, seed: int) -> None:
     """At the end: whether the reported calibration (where it says 'calibrated') is within 2 sigma of the truth."""
     c = est.calibration()
-    status = est._calibration_words(None)["status"]
+    status = est._calibration_words()["status"]
     zk = (c.stw_scale - k_true) / c.stw_scale_sigma
     zd = (c.heading_offset_deg - d_true) / c.heading_offset_sigma_deg
     pooled.cal_runs += 1
