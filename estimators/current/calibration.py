@@ -288,9 +288,10 @@ def quadratic_residual_var(walk: float, span_s: float) -> float:
     """The mean square (kn^2, per axis) a random walk of ``walk`` kn^2/h leaves after a least-squares quadratic over the window.
 
     For a random walk of sigma_w kn/sqrt(h) over W hours it is about sigma_w^2 W / 23 (Monte Carlo over
-    Brownian paths, this project's own computation). Each block's variance carries it: without it a
-    stream turning 90 deg over the window left the compass offset 0.1 deg off with a sigma of 0.05 deg
-    (tidal box, 2 runs in 10 beyond 2 sigma).
+    Brownian paths, this project's own computation). Each block's variance carries it, with the walk
+    read from the window (``fit``). It treats the wander as independent from block to block, which it
+    is not: a stream turning 90 deg over the window leaves the compass offset about 0.09 deg off
+    (tidal box), within 2 sigma in 10 runs of 10 but at 1.6-1.9 sigma in every one.
     """
     return walk * (span_s / S_PER_H) / 23.0
 
