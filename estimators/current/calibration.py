@@ -39,6 +39,23 @@ residuals say the blocks were noisier than assumed). The current's slow
 change is part of the model, so a current that turns with the tide over the
 window is not read as a calibration.
 
+Model error, read from the window. What the quadratic cannot follow of the
+current's walk adds one variance to every block: a random walk of q kn^2/h
+leaves about q W / 23 after a quadratic over W hours. q is read from the fit
+itself, in both directions: the residuals' excess over the sensors' variance
+(Paule & Mandel 1982: the shared variance that brings the weighted sum of
+squares to its degrees of freedom), turned into a walk, and weighed against
+the params' walk ``current_walk_kn_per_sqrt_h`` as a prior worth
+``calibration_walk_prior_dof`` residuals (the conjugate update of a normal
+variance). A variance read from few residuals is itself uncertain (relative
+sd sqrt(2 / nu)), so a fit of a few blocks stays near the params' walk, one
+over hours of steady water earns a small model error and a narrower sigma,
+and water walking faster than the params say earns a larger one, with no cap.
+The prior on the current's slope and curvature follows the larger of the two
+walks: never tighter than the params allow (a tidal stream's smooth turn shows
+as curvature, not in the residuals, and a tighter trend would alias it into
+k and d), looser when the window walks faster.
+
 Feeding the filter. A fit whose (k, d) covariance Sigma is smaller than the
 filter's own marginal P_kd is fused as a measurement of (k, d) with
 R = (Sigma^-1 - P_kd^-1)^-1: only the information the filter does not hold
@@ -60,6 +77,7 @@ from .params import CurrentParams
 
 S_PER_H = 3600.0
 CURRENT_TERMS = 3  # c0, c1 t, c2 t^2 per axis
+MODEL_ERROR_ITERATIONS = 8  # refits while the model error read from the residuals settles (a few)
 
 
 @dataclass(frozen=True, slots=True)
@@ -83,6 +101,7 @@ class FitResult:
     chi2_reduced: float       # of the block residuals
     blocks: int
     heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
+    water_walk_kn_per_sqrt_h: float  # per axis: the current's walk over the window as the fit read it (with the params' as prior)
 
 
 def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
@@ -152,21 +171,50 @@ class CalibrationFit:
         return self.last_fit_t is None or t - self.last_fit_t >= self.params.calibration_fit_every_s
 
     def fit(self, t: float, k_start: float, d_start: float) -> FitResult | None:
-        """Gauss-Newton over the window's blocks from (k_start, d_start); None with too few blocks."""
+        """Gauss-Newton over the window's blocks from (k_start, d_start); None with too few blocks.
+
+        The model error (what the window's quadratic cannot follow of the current's walk) is read from
+        the fit's residuals and the params' walk together (``shrunk_walk``); the blocks' weights follow
+        it, the prior on the current's slope and curvature the larger of it and the params' walk (see
+        the module doc), and the fit is repeated until the walk settles (a few times).
+        """
         self.last_fit_t = t
         blocks = list(self.blocks)
         n_cur = 2 * CURRENT_TERMS
         if len(blocks) < n_cur or spread_deg(blocks) < self.params.calibration_min_spread_deg:
             return None  # on one course k and d are not observable: the fit would only trade them for the current
+        span_s = blocks[-1].t_s - blocks[0].t_s
+        sensor = np.tile(self._sensor_variances(blocks, k_start), 2)        # per residual: east, then north
+        dof = max(1, len(sensor) - n_cur - 2)
+        walk0 = self.params.current_walk_kn_per_sqrt_h ** 2                 # the params' walk, kn^2/h
+        settled, k, d = walk0, k_start, d_start
+        for _ in range(MODEL_ERROR_ITERATIONS):
+            walk = settled
+            v = sensor + quadratic_residual_var(walk, span_s)
+            trend_w = self._walk_weights(max(walk, walk0), span_s)            # never tighter than the params'
+            solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], trend_w, k, d)
+            if solved is None:
+                return None
+            k, d, A, res = solved
+            read = excess_variance(res, sensor, dof) / quadratic_residual_var(1.0, span_s)
+            settled = shrunk_walk(walk0, self.params.calibration_walk_prior_dof, read, dof)
+            if abs(settled - walk) <= 0.01 * walk + 1e-9:
+                break
+        chi2_red = float(np.sum(res ** 2 / v)) / dof
+        cov = np.linalg.inv(A)[n_cur:, n_cur:] * max(1.0, chi2_red)
+        self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(walk))
+        return self.last
+
+    def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float
+                      ) -> tuple[float, float, np.ndarray, np.ndarray] | None:
+        """(k, d, the normal matrix J'WJ, the blocks' residuals east then north) at the solution; None if singular."""
+        n_cur = 2 * CURRENT_TERMS
         t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
         tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
         G = np.array([b.g for b in blocks])
         M = np.array([b.m for b in blocks])
         k0, d0, sk0, sd0 = self.prior
-        k, d = k_start, d_start
-        w = self._block_weights(blocks, k, blocks[-1].t_s - blocks[0].t_s)  # 1 / sigma_b^2 per axis
         nb = len(blocks)
-        walk_w = self._walk_weights(blocks[-1].t_s - blocks[0].t_s)
         n_walk = len(walk_w)
         for _ in range(4):
             cd, sd = math.cos(d), math.sin(d)
@@ -203,38 +251,25 @@ class CalibrationFit:
         Re, Rn = M[:, 0] * cd + M[:, 1] * sd, -M[:, 0] * sd + M[:, 1] * cd
         ce = sum(c[2 * j] * tau ** j for j in range(CURRENT_TERMS))
         cn = sum(c[2 * j + 1] * tau ** j for j in range(CURRENT_TERMS))
-        res = np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn])
-        dof = max(1, 2 * nb - n_cur - 2)
-        chi2_red = float(np.sum(np.concatenate([w, w]) * res ** 2)) / dof
-        cov = np.linalg.inv(A)[n_cur:, n_cur:] * max(1.0, chi2_red)
-        self.last = FitResult(k, d, cov, chi2_red, nb, spread_deg(blocks))
-        return self.last
+        return k, d, A, np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn])
 
-    def _walk_weights(self, span_s: float) -> np.ndarray:
+    def _walk_weights(self, walk: float, span_s: float) -> np.ndarray:
         """Weights of the prior c1 = c2 = 0 (per axis), from how far the current may walk over the window.
 
-        A random walk of sigma_w kn/sqrt(h) moves about sigma_w sqrt(W) over a window of W h: a
-        slope c1 ~ sigma_w / sqrt(W) and a curvature c2 (W/2)^2 ~ sigma_w sqrt(W), c2 ~ 4 sigma_w / W^1.5.
-        A short window (right after the first tack) then holds the current nearly constant instead
-        of letting the polynomial mimic any calibration; over hours the terms are free.
+        A random walk of sigma_w kn/sqrt(h) (``walk`` = sigma_w^2) moves about sigma_w sqrt(W) over a
+        window of W h: a slope c1 ~ sigma_w / sqrt(W) and a curvature c2 (W/2)^2 ~ sigma_w sqrt(W),
+        c2 ~ 4 sigma_w / W^1.5. A short window (right after the first tack) then holds the current
+        nearly constant instead of letting the polynomial mimic any calibration; over hours the terms
+        are free.
         """
-        sw = max(self.params.current_walk_kn_per_sqrt_h, 1e-3)
+        sw = max(math.sqrt(walk), 1e-3)
         span_h = max(span_s / S_PER_H, 0.1)
         s1, s2 = sw / math.sqrt(span_h), 4.0 * sw / span_h ** 1.5
         return np.array([1.0 / s1 ** 2, 1.0 / s1 ** 2, 1.0 / s2 ** 2, 1.0 / s2 ** 2])  # c1e, c1n, c2e, c2n
 
-    def _block_weights(self, blocks: list[Block], k: float, span_s: float) -> np.ndarray:
-        """1 / (nominal variance per axis of each block's triangle), with the effective sample count.
-
-        Each block's variance also carries the model's error: the part of the current's walk that the
-        window's quadratic cannot follow. For a random walk of sigma_w kn/sqrt(h) over W hours the mean
-        square residual after a least-squares quadratic is about sigma_w^2 W / 23 (Monte Carlo over
-        Brownian paths, this project's own computation). Without it a stream turning 90 deg over the
-        window left the compass offset 0.1 deg off with a sigma of 0.05 deg (tidal box, 2 runs in 10
-        beyond 2 sigma).
-        """
+    def _sensor_variances(self, blocks: list[Block], k: float) -> np.ndarray:
+        """The nominal variance per axis of each block's triangle from the sensors alone, with the effective sample count."""
         p = self.params
-        model = p.current_walk_kn_per_sqrt_h ** 2 * (span_s / S_PER_H) / 23.0   # quadratic's residual, kn^2
         out = np.empty(len(blocks))
         for i, b in enumerate(blocks):
             span = max(p.calibration_block_s, b.fixes * 1e-3)
@@ -245,5 +280,47 @@ class CalibrationFit:
             corr = (k * k * p.log_correlated_sigma_kn ** 2 * min(1.0, 2.0 * p.noise_correlation_s / span)
                     + (ks * math.radians(p.heading_correlated_sigma_deg)) ** 2
                     * min(1.0, 2.0 * p.heading_correlation_s / span))
-            out[i] = 1.0 / (white + corr + model)                           # per axis (about: along and across mixed)
+            out[i] = white + corr                                           # per axis (about: along and across mixed)
         return out
+
+
+def quadratic_residual_var(walk: float, span_s: float) -> float:
+    """The mean square (kn^2, per axis) a random walk of ``walk`` kn^2/h leaves after a least-squares quadratic over the window.
+
+    For a random walk of sigma_w kn/sqrt(h) over W hours it is about sigma_w^2 W / 23 (Monte Carlo over
+    Brownian paths, this project's own computation). Each block's variance carries it, with the walk
+    read from the window (``fit``). It treats the wander as independent from block to block, which it
+    is not: a stream turning 90 deg over the window leaves the compass offset about 0.09 deg off
+    (tidal box), within 2 sigma in 10 runs of 10 but at 1.6-1.9 sigma in every one.
+    """
+    return walk * (span_s / S_PER_H) / 23.0
+
+
+def excess_variance(res: np.ndarray, v: np.ndarray, dof: int) -> float:
+    """The variance shared by all residuals beyond their own ``v``: Paule-Mandel, chi-square = dof, never below 0.
+
+    Paule and Mandel ("Consensus values and weighting factors", J. Res. Natl. Bur. Stand. 87, 1982)
+    choose s so that sum r^2 / (v + s) equals the degrees of freedom. F(s) = sum r^2 / (v + s) - dof is
+    convex and decreasing, so Newton's steps from 0 climb to the root without overshooting; where F(0)
+    <= 0 the sensors explain the residuals and the excess is 0.
+    """
+    s = 0.0
+    for _ in range(50):
+        weighted = res ** 2 / (v + s)
+        excess = float(np.sum(weighted)) - dof
+        if excess <= 1e-9 * dof:
+            break
+        s += excess / float(np.sum(weighted / (v + s)))
+    return s
+
+
+def shrunk_walk(walk0: float, prior_dof: float, read: float, dof: int) -> float:
+    """The walk (kn^2/h) from the params' value and the one the residuals read, weighted by their degrees of freedom.
+
+    A variance estimated from nu degrees of freedom is itself uncertain (relative sd sqrt(2 / nu)): the
+    conjugate update of a normal variance with a scaled inverse chi-square prior (nu0, s0^2) gives
+    (nu0 s0^2 + nu s^2) / (nu0 + nu) (Gelman et al., "Bayesian Data Analysis", 3rd ed., sect. 3.3;
+    from memory). The params' walk counts as ``calibration_walk_prior_dof`` residuals: a fit of a few
+    blocks stays near it, one over hours of steady water or of a fast-walking stream reads its own.
+    """
+    return (prior_dof * walk0 + dof * read) / (prior_dof + dof)

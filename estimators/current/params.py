@@ -70,6 +70,8 @@ class CurrentParams:
     calibration_min_spread_deg: float = param(
         10.0, "deg", 0.0, 180.0, "the fit runs only once the window's steady water tracks differ by this much")
     calibration_fit_every_s: float = param(300.0, "s", 10.0, 7200.0, "how often the calibration is refitted")
+    calibration_walk_prior_dof: float = param(
+        8.0, "", 0.0, 1000.0, "the calibration fit's model error: current_walk_kn_per_sqrt_h counts as this many residuals against the walk the window's residuals show")
     calibration_fit_probability: float = param(
         0.9995, "", 0.9, 0.999999, "chi-square gate between a calibration fit and the filter's calibration")
     noise_correlation_s: float = param(

@@ -32,7 +32,8 @@ after ``WARMUP_S``, pooled over the seeds:
 ``--sigma-parts`` also splits each fix's drift error and published variance (along the drift, u' P u)
 into the part a calibration error explains, P_c,kd P_kd^-1 (x_kd - truth), and the rest: the share
 error variance / covariance of each, pooled (1 for an honest sigma; a random walk the water does not
-make leaves the rest near 1/2 in steady state).
+make leaves the rest near 1/2 in steady state), over the whole run and from the first course change
+(before it the calibration's part is its prior's).
 
 ``--calibration-from-prior`` draws, per seed, the boat's true log scale and compass offset from the
 estimator's own prior (normal about its prior calibration, the params' initial sigmas) in place of the
@@ -94,6 +95,7 @@ class Pooled:
     cal_lines: list[str] = field(default_factory=list)
     seconds: float = 0.0
     sigma_parts: list[tuple[float, float, float, float]] = field(default_factory=list)  # see sigma_parts
+    sigma_parts_observable: list[tuple[float, float, float, float]] = field(default_factory=list)
 
 
 def truth_current(sim, t: float) -> tuple[float, float]:
@@ -224,7 +226,10 @@ def one_run(sim, params: CurrentParams, pooled: Pooled, parts: bool = False) -> 
             if observable:
                 pooled.err_observable[name].append(e)
         if parts:
-            pooled.sigma_parts.append(sigma_parts(est, te, tn, true_scale, math.radians(true_offset)))
+            split = sigma_parts(est, te, tn, true_scale, math.radians(true_offset))
+            pooled.sigma_parts.append(split)
+            if observable:
+                pooled.sigma_parts_observable.append(split)
         drift_true = math.hypot(te, tn)
         covered = abs(p["drift_kn"] - drift_true) <= 2.0 * p["drift_sigma_kn"]
         pooled.covered.append(covered)
@@ -285,6 +290,15 @@ def dead_reckoning_pct(sim, outage: tuple[float, float], state: tuple[float, flo
     mask = (sim.truth["t_s"] >= last.t_s) & (sim.truth["t_s"] <= t_end)
     run_m = float(np.sum(sim.truth["sog_kn"][mask]) * KN_TO_MPS * sim.scenario.truth_dt_s)
     return 100.0 * math.hypot(e - te, n - tn) / run_m
+
+
+def parts_cells(parts: list[tuple[float, float, float, float]]) -> str:
+    """The two ratios error variance / published variance (with the published sigma) of sigma_parts, pooled."""
+    if not parts:
+        return "– | –"
+    a = np.array(parts)
+    return (f"{a[:, 0].mean() / a[:, 1].mean():.2f} ({math.sqrt(a[:, 1].mean()):.3f}) "
+            f"| {a[:, 2].mean() / a[:, 3].mean():.2f} ({math.sqrt(a[:, 3].mean()):.3f})")
 
 
 def rms(values: list[float]) -> float:
@@ -385,12 +399,11 @@ def main(argv: list[str] | None = None) -> int:
               f"| {r.cal_ok}/{r.cal_runs} | {dr} | {observable_cell(r)} | {r.seconds:.0f} |")
     if args.sigma_parts:
         print("\nAlong the drift, error variance / published variance (1: honest), pooled after the warm-up:\n")
-        print("| scenario | calibration part: ratio (its sigma, kn) | the rest: ratio (its sigma, kn) |")
-        print("| --- | --- | --- |")
+        print("| scenario | calibration part: ratio (its sigma, kn) | the rest: ratio (its sigma, kn) "
+              f"| after the first course change ≥ {OBSERVABLE_TURN_DEG:.0f}°: calibration part | the rest |")
+        print("| --- | --- | --- | --- | --- |")
         for name, r in results:
-            a = np.array(r.sigma_parts)
-            print(f"| {name} | {a[:, 0].mean() / a[:, 1].mean():.2f} ({math.sqrt(a[:, 1].mean()):.3f}) "
-                  f"| {a[:, 2].mean() / a[:, 3].mean():.2f} ({math.sqrt(a[:, 3].mean()):.3f}) |")
+            print(f"| {name} | {parts_cells(r.sigma_parts)} | {parts_cells(r.sigma_parts_observable)} |")
     if args.calibration_from_prior:
         print("\n" + draws_summary(params, seeds))
     if args.calibration:

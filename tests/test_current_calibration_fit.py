@@ -1,0 +1,89 @@
+"""The calibration's batch fit on its own: the model error it reads from the window, not only from the params.
+
+Blocks are built directly (the mean ground velocity and water-velocity reading of a minute's steady
+sailing), with the sensors' noise of the params' own block model, so the truth of the current, the log
+scale and the compass offset is known exactly.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from estimators.current import CurrentParams
+from estimators.current.calibration import Block, CalibrationFit, excess_variance, turned
+
+K_TRUE, D_TRUE_DEG, STW_KN = 1.05, 2.0, 6.0
+BLOCK_S = 60.0
+PARAMS = CurrentParams()
+PARAMS_WALK = PARAMS.current_walk_kn_per_sqrt_h
+
+
+def blocks(seed: int, hours: float, walk_kn_per_sqrt_h: float, leg_s: float) -> list[Block]:
+    """One-minute blocks on legs of 0 and 90 deg alternating every ``leg_s``, over a current that walks."""
+    rng = np.random.default_rng(seed)
+    sensor_sd = None
+    ce, cn = 0.6, -0.8
+    out = []
+    for i in range(int(hours * 3600 / BLOCK_S)):
+        t = (i + 0.5) * BLOCK_S
+        course = 0.0 if int(t // leg_s) % 2 == 0 else 90.0
+        water = (STW_KN * math.sin(math.radians(course)), STW_KN * math.cos(math.radians(course)))
+        m = turned(water, -math.radians(D_TRUE_DEG))                       # the compass reads d low
+        m = (m[0] / K_TRUE, m[1] / K_TRUE)                                  # the log reads 1/k of the truth
+        if sensor_sd is None:                                               # the block's noise as the fit models it
+            probe = Block(t, (0.0, 0.0), m, STW_KN / K_TRUE, 60)
+            sensor_sd = math.sqrt(CalibrationFit(PARAMS, (1.0, 0.0, 0.05, 0.05))._sensor_variances([probe], K_TRUE)[0])
+        step = walk_kn_per_sqrt_h * math.sqrt(BLOCK_S / 3600.0)
+        ce, cn = ce + rng.normal(0.0, step), cn + rng.normal(0.0, step)
+        g = (ce + water[0] + rng.normal(0.0, sensor_sd), cn + water[1] + rng.normal(0.0, sensor_sd))
+        out.append(Block(t, g, m, STW_KN / K_TRUE, 60))
+    return out
+
+
+def fitted(bl: list[Block]):
+    fit = CalibrationFit(PARAMS, (1.0, 0.0, 0.05, math.radians(3.0)))
+    fit.blocks.extend(bl)
+    return fit.fit(bl[-1].t_s, 1.0, 0.0)
+
+
+def test_paule_mandel_recovers_a_known_excess_variance():
+    # GIVEN residuals whose variance is each one's own v_i plus 0.04 shared by all (seeded, 20000 of them)
+    rng = np.random.default_rng(5)
+    v = rng.uniform(0.005, 0.05, 20000)
+    res = rng.normal(0.0, np.sqrt(v + 0.04))
+    # WHEN the shared variance is solved for
+    s = excess_variance(res, v, len(res))
+    # THEN it is found (Paule & Mandel 1982: weighted sum of squares = degrees of freedom, a moment estimator)
+    assert abs(s - 0.04) < 0.004, s
+    # ... and residuals with no excess earn none
+    assert excess_variance(rng.normal(0.0, np.sqrt(v)) * 0.9, v, len(v)) == 0.0
+
+
+def test_the_walk_read_follows_the_water_in_both_directions():
+    for seed in range(3):
+        # GIVEN three hours of half-hour legs over steady water, and over water walking 4 x the params' walk
+        # WHEN the fit runs over each
+        steady = fitted(blocks(seed, 3.0, 0.0, 1800.0))
+        walking = fitted(blocks(seed, 3.0, 4.0 * PARAMS_WALK, 1800.0))
+        # THEN steady water reads a walk well below the params' (its model error no longer the params')
+        assert steady.water_walk_kn_per_sqrt_h < 0.4 * PARAMS_WALK, steady.water_walk_kn_per_sqrt_h
+        # ... and the fast-walking water one above it, uncapped (a random walk's residual after a quadratic)
+        assert walking.water_walk_kn_per_sqrt_h > 2.0 * PARAMS_WALK, walking.water_walk_kn_per_sqrt_h
+        # ... and over steady water the calibration lies within 2 of its sigmas of the truth
+        assert abs(steady.k - K_TRUE) <= 2.0 * math.sqrt(steady.cov[0, 0]), (steady.k, steady.cov[0, 0])
+        assert abs(math.degrees(steady.d_rad) - D_TRUE_DEG) <= 2.0 * math.degrees(math.sqrt(steady.cov[1, 1]))
+
+
+def test_a_few_blocks_stay_near_the_params_walk():
+    # GIVEN steady water seen for only eight minutes (two legs of four): few residuals to read a variance from
+    # WHEN the fit runs, and over three hours of the same water
+    for seed in range(3):
+        few = fitted(blocks(seed, 8.0 / 60.0, 0.0, 240.0))
+        many = fitted(blocks(seed, 3.0, 0.0, 1800.0))
+        # THEN the short window's walk stays within a factor of two of the params' (the params' walk counts
+        # as calibration_walk_prior_dof residuals: the conjugate update of a normal variance, Gelman et al.,
+        # "Bayesian Data Analysis", sect. 3.3, from memory); the long one reads the steady water's
+        assert 0.5 * PARAMS_WALK < few.water_walk_kn_per_sqrt_h <= 1.5 * PARAMS_WALK, few.water_walk_kn_per_sqrt_h
+        assert many.water_walk_kn_per_sqrt_h < 0.5 * few.water_walk_kn_per_sqrt_h
