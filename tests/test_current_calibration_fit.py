@@ -23,7 +23,9 @@ PARAMS_WALK = PARAMS.current_walk_kn_per_sqrt_h
 def blocks(seed: int, hours: float, walk_kn_per_sqrt_h: float, leg_s: float) -> list[Block]:
     """One-minute blocks on legs of 0 and 90 deg alternating every ``leg_s``, over a current that walks."""
     rng = np.random.default_rng(seed)
-    sensor_sd = None
+    # the block's noise as the fit models it (it depends on the speed and the log scale, not the course)
+    probe = Block(0.0, (0.0, 0.0), (0.0, STW_KN / K_TRUE), STW_KN / K_TRUE, 60)
+    sensor_sd = math.sqrt(CalibrationFit(PARAMS, (1.0, 0.0, 0.05, 0.05)).sensor_variances([probe], K_TRUE)[0])
     ce, cn = 0.6, -0.8
     out = []
     for i in range(int(hours * 3600 / BLOCK_S)):
@@ -32,9 +34,6 @@ def blocks(seed: int, hours: float, walk_kn_per_sqrt_h: float, leg_s: float) -> 
         water = (STW_KN * math.sin(math.radians(course)), STW_KN * math.cos(math.radians(course)))
         m = turned(water, -math.radians(D_TRUE_DEG))                       # the compass reads d low
         m = (m[0] / K_TRUE, m[1] / K_TRUE)                                  # the log reads 1/k of the truth
-        if sensor_sd is None:                                               # the block's noise as the fit models it
-            probe = Block(t, (0.0, 0.0), m, STW_KN / K_TRUE, 60)
-            sensor_sd = math.sqrt(CalibrationFit(PARAMS, (1.0, 0.0, 0.05, 0.05))._sensor_variances([probe], K_TRUE)[0])
         step = walk_kn_per_sqrt_h * math.sqrt(BLOCK_S / 3600.0)
         ce, cn = ce + rng.normal(0.0, step), cn + rng.normal(0.0, step)
         g = (ce + water[0] + rng.normal(0.0, sensor_sd), cn + water[1] + rng.normal(0.0, sensor_sd))

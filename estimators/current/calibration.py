@@ -184,7 +184,7 @@ class CalibrationFit:
         if len(blocks) < n_cur or spread_deg(blocks) < self.params.calibration_min_spread_deg:
             return None  # on one course k and d are not observable: the fit would only trade them for the current
         span_s = blocks[-1].t_s - blocks[0].t_s
-        sensor = np.tile(self._sensor_variances(blocks, k_start), 2)        # per residual: east, then north
+        sensor = np.tile(self.sensor_variances(blocks, k_start), 2)        # per residual: east, then north
         dof = max(1, len(sensor) - n_cur - 2)
         walk0 = self.params.current_walk_kn_per_sqrt_h ** 2                 # the params' walk, kn^2/h
         settled, k, d = walk0, k_start, d_start
@@ -267,8 +267,14 @@ class CalibrationFit:
         s1, s2 = sw / math.sqrt(span_h), 4.0 * sw / span_h ** 1.5
         return np.array([1.0 / s1 ** 2, 1.0 / s1 ** 2, 1.0 / s2 ** 2, 1.0 / s2 ** 2])  # c1e, c1n, c2e, c2n
 
-    def _sensor_variances(self, blocks: list[Block], k: float) -> np.ndarray:
-        """The nominal variance per axis of each block's triangle from the sensors alone, with the effective sample count."""
+    def sensor_variances(self, blocks: list[Block], k: float) -> np.ndarray:
+        """The nominal variance per axis of each block's triangle from the sensors alone, with the effective sample count.
+
+        The log's (along the water track) and the compass's (across it) are both counted on each axis:
+        wider than either axis's own share, which keeps a fit from one course change wide enough for what
+        a leg's systematic errors do to it (along and across apart, the beat's first tack left the offset
+        2.2 sigma off).
+        """
         p = self.params
         out = np.empty(len(blocks))
         for i, b in enumerate(blocks):
