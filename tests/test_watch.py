@@ -92,7 +92,8 @@ def test_four_alerts_and_every_line_fit_80_by_24_with_details_open():
     # the figures as a sailor reads them (hand-worked: 0.9366° = 56.196′, 0.3466° = 20.796′)
     assert "40°56.2′N 032°20.8′W" in text  # estimators.wording.position, the one format of texts
     assert "↘ 2.1 kn toward 135°" in text and "±0.3 kn ±8°" in text
-    assert "1008.2 hPa" in text and "−4.1 hPa in 3 h" in text and "falling" in text  # a true minus sign
+    assert "1008.2 hPa" in text and "−4.1 hPa in 3 h" in text and "falling" in text
+    assert "now −1.2 hPa/h" in text  # the present rate, told apart from the 3-hour change  # a true minus sign
     assert "HDG 118°T" in text and "STW 5.4 kn" in text and "Depth 43.2 m" in text
     # true STW = log x 1.0526: the log reads 1 - 1/1.0526 = 5.0 % low; true = compass - 2.5: it reads 2.5° high
     assert "log 5.0 % low ±1.0, compass 2.5° high ±0.8  calibrated" in text

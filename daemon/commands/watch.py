@@ -437,6 +437,7 @@ class Screen:
             return None
         tendency = num(pr.get("tendency_3h_hpa"), "+.1f", " hPa in 3 h")
         rate = num(pr.get("rate_hpa_per_h"), "+.1f", " hPa/h")
+        rate = rate and f"now {rate}"  # the filter's present rate, beside the 3-hour change: which is which
         descriptor = clean_text(pr.get("descriptor"), 24)
         return "  ".join(w for w in (msl, tendency or "3 h tendency not yet", descriptor, rate) if w)
 
