@@ -21,6 +21,7 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python -m tools.bench.current
+	$(BIN)/python -m tools.bench.demo_edge
 	$(BIN)/python -m tools.bench.fronts_pressure
 	$(BIN)/python -m tools.bench.recording
 	$(BIN)/python -m tools.bench.replay
