@@ -143,10 +143,13 @@ def rising_root(f_and_slope, lo: float, hi: float, start: float, xtol: float = 0
         if hi - lo <= tol:
             break
         step = fx / slope if slope > 0.0 else math.inf
-        if not lo < x - step < hi or abs(step) > 0.5 * step_before:
-            step = x - 0.5 * (lo + hi)  # bisect: Newton would leave the bracket or is crawling (a flat slope)
+        # Converged is asked before the bracket: x is now one end of the bracket, and a last step
+        # below half an ulp leaves x where it is, on that end, which the bracket test would take
+        # for leaving it and answer with bisections crawling to the root.
         if abs(step) <= tol:
             return x - step
+        if not lo < x - step < hi or abs(step) > 0.5 * step_before:
+            step = x - 0.5 * (lo + hi)  # bisect: Newton would leave the bracket or is crawling (a flat slope)
         step_before, x = abs(step), x - step
     return 0.5 * (lo + hi)
 
@@ -224,6 +227,23 @@ def blocking_period_s(opposing_mps: float, h: float | None = None) -> float:
     return 2.0 * math.pi / omega_b
 
 
+def _deep_water_start(omega: float, u: float, lo: float, hi: float, k0: float) -> float:
+    """Where the search for the wavenumber on a current starts: deep water's root where it lies inside
+    the bracket, else still water's k0 (at one end of the bracket).
+
+    In deep water sqrt(g k) = omega - k U is a quadratic in sqrt(k), whose root joined to still water is
+    sqrt(k) = 2 omega / (sqrt(g) + sqrt(g + 4 U omega)) (written so, it does not cancel for a small U).
+    That is the root itself in deep water and close to it wherever kh is large: a step or two of Newton's
+    from there instead of some five from k0.
+    """
+    disc = G + 4.0 * u * omega
+    if disc <= 0.0:  # against a current that blocks this period in deep water: no deep-water root
+        return k0
+    s = 2.0 * omega / (math.sqrt(G) + math.sqrt(disc))
+    k = s * s
+    return k if lo < k < hi else k0
+
+
 def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | None = None) -> WaveOnCurrent:
     """Solve (omega - k U)^2 = g k tanh(kh) on the branch joined to still water, and the factors."""
     h = depth_m
@@ -250,7 +270,7 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
         if kb is None or f_and_slope(kb)[0] < 0.0:  # the wave's period is below the blocking period
             return WaveOnCurrent(period_s, u, h, True, None, None, None, None)
         lo, hi = k0, kb
-    k = rising_root(f_and_slope, lo, hi, k0)  # from still water's k0, at one end of the bracket
+    k = rising_root(f_and_slope, lo, hi, _deep_water_start(omega, u, lo, hi, k0))
     sigma = intrinsic_frequency(k, h)
     cg_ground = group_speed(k, h) + u
     if cg_ground <= 0.0:  # at the blocking point itself (within rounding)

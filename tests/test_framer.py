@@ -133,3 +133,13 @@ def test_a_line_ending_ends_a_dropped_line():
     f = LineFramer()
     assert f.feed(b"\xff\xfe junk\n# comment\n") == [b"# comment"]
     assert f.bad_bytes == 1
+
+
+def test_only_cr_and_lf_end_a_line_other_breaks_are_bad_bytes():
+    # NMEA 0183 v4.10 §5.3: only CR and LF end a sentence. The bytes Python's str.splitlines also takes
+    # for line breaks (VT, FF, FS, GS, RS, NEL; the Python documentation of str.splitlines) are control
+    # or non-ASCII bytes here: each drops the line it is in, and none of them ends one.
+    for brk in (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e", b"\x85"):
+        f = LineFramer()
+        assert f.feed(HDT + brk + RMC + b"\r\n" + HDT + b"\r\n") == [RMC, HDT], brk
+        assert f.bad_bytes == 1

@@ -3,15 +3,17 @@
 from __future__ import annotations
 
 import math
+import random
 
 import pytest
 from scipy.integrate import quad
 from scipy.optimize import brentq, minimize_scalar
 
+from estimators import waves
 from estimators.angles import KN_TO_MPS
 from estimators.waves import (
     BREAKING_STEEPNESS, G, HALF_POWER_HI, HALF_POWER_LO, blocking_period_s, group_speed, intrinsic_frequency,
-    pm_peak_period_s, pm_significant_height_m, pm_spectrum, still_water_wavenumber, wave_on_current,
+    pm_peak_period_s, pm_significant_height_m, pm_spectrum, rising_root, still_water_wavenumber, wave_on_current,
     wavelength_m, wind_at_10m, wind_sea,
 )
 
@@ -198,3 +200,54 @@ def test_the_still_water_wavenumber_is_the_dispersion_root(period_s, h):
     omega = 2 * math.pi / period_s
     ref = brentq(lambda k: G * k * math.tanh(k * h) - omega**2, 1e-9, 100.0, xtol=1e-300, rtol=1e-15)
     assert still_water_wavenumber(period_s, h) == pytest.approx(ref, rel=1e-12)
+
+
+def _random_waves(n: int, seed: int):
+    """Seeded periods (2-20 s), depths (deep, or 1-300 m evenly in log) and currents (3 m/s either way)."""
+    rng = random.Random(seed)
+    for _ in range(n):
+        depth = None if rng.random() < 0.3 else math.exp(rng.uniform(0.0, math.log(300.0)))
+        yield rng.uniform(2.0, 20.0), rng.uniform(-3.0, 3.0), depth
+
+
+def test_random_wavenumbers_on_a_current_are_the_dispersion_roots():
+    # reference library: scipy.optimize.brentq (as above) on random periods, depths and currents, so every
+    # start of the search is met (deep water's root inside the bracket, or still water's k0) and every way
+    # a Newton step ends; a period the current blocks has no root between k0 and the blocking wavenumber
+    blocked = solved = 0
+    for period_s, u, h in _random_waves(400, seed=9):
+        wave = wave_on_current(period_s, u, h)
+        try:
+            ref = _dispersion_root(period_s, u, h)
+        except ValueError:  # brentq: no sign change, the wave is blocked
+            assert wave.blocked, (period_s, u, h)
+            blocked += 1
+            continue
+        assert not wave.blocked, (period_s, u, h)
+        assert wave.wavenumber_rad_m == pytest.approx(ref, rel=1e-12), (period_s, u, h)
+        solved += 1
+    assert blocked > 20 and solved > 300  # both kinds were met
+
+
+def test_the_wavenumber_search_takes_newton_steps_not_bisections(monkeypatch):
+    # Newton's steps converge quadratically (Press et al. 1992, ch. 9.4): a handful of evaluations to
+    # rounding where halving the bracket to 1e-14 would take some fifty. A final step under half an ulp
+    # leaves x on the bracket's end, which must end the search, not start bisections.
+    evaluations = []
+
+    def counted(f_and_slope, lo, hi, start, xtol=0.0):
+        n = [0]
+
+        def f(x):
+            n[0] += 1
+            return f_and_slope(x)
+        root = rising_root(f, lo, hi, start, xtol)
+        evaluations.append(n[0])
+        return root
+
+    monkeypatch.setattr(waves, "rising_root", counted)
+    for period_s, u, h in _random_waves(400, seed=10):
+        waves.wave_on_current(period_s, u, h)
+    assert len(evaluations) > 400  # the wave's own search and, in shallow water, still water's k0
+    assert max(evaluations) <= 12
+    assert sum(evaluations) / len(evaluations) < 5.0

@@ -19,6 +19,10 @@ passage ``--split`` looks at): the simulator's ``tacking_leg``, seed 3, two hour
 beating with tacks, made afresh in a temporary folder each run (131 640 lines, 55 %
 of them headings; the simulator is seeded, so it is the same passage every time).
 
+``--write FILE``: only write the first passage to FILE (the first hour with ``--hours 1``): the fixed
+input whose replay's instructions ``valgrind --tool=callgrind`` counts (the README's row; instructions
+repeat to a few in ten thousand on a loaded machine, where CPU seconds vary by a third).
+
 ``--split``: where the replay's CPU goes (the first passage only), without
 cProfile's cost per call: each estimator's step and tick timed with
 ``time.process_time``, and the way in (framing, parsing, timing) run alone.
@@ -210,7 +214,14 @@ def main(argv: list[str]) -> int:
     ap.add_argument("--split", action="store_true", help="where the CPU goes, for the first passage only")
     ap.add_argument("--compass", action="store_true",
                     help=f"also the simulator's {COMPASS_NAME} (with --split: that passage only)")
+    ap.add_argument("--write", type=Path, metavar="FILE",
+                    help="only write the first passage (the first of --hours, or --compass) to FILE: a fixed "
+                         "input to count a replay's instructions with valgrind --tool=callgrind")
     args = ap.parse_args(argv)
+    if args.write:
+        lines = compass_passage() if args.compass else passage(args.hours[0])
+        args.write.write_text("".join(x + "\r\n" for x in lines), encoding="ascii")
+        return 0
     if args.split:
         with tempfile.TemporaryDirectory() as tmp:
             path = args.files[0] if args.files else Path(tmp) / ("compass.nmea" if args.compass else "demo.nmea")
