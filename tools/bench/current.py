@@ -29,8 +29,9 @@ after ``WARMUP_S``, pooled over the seeds:
   them; a scenario without such a change (one course, small course changes)
   has no figure there. The whole-run figures stay in the table beside them.
 
-``--sigma-parts`` also splits each fix's drift error and published variance (along the drift, u' P u)
-into the part a calibration error explains, P_c,kd P_kd^-1 (x_kd - truth), and the rest: the share
+``--sigma-parts`` also splits each fix's drift error and published variance (along the drift, u' P_pub u:
+the published covariance, ``estimators.current.walk``) into the part a calibration error explains,
+P_c,kd P_kd^-1 (x_kd - truth), and the rest: the share
 error variance / covariance of each, pooled (1 for an honest sigma; a random walk the water does not
 make leaves the rest near 1/2 in steady state), over the whole run and from the first course change
 (before it the calibration's part is its prior's).
