@@ -52,7 +52,8 @@ distribution of the likelihood ratio for testing composite hypotheses", Ann.
 Math. Stat. 9, 1938), never more than the configured walk (the filter's own
 model), and the configured walk itself while the window holds fewer than
 ``water_walk_min_blocks`` blocks. Read again as each block closes (once a
-minute), not at every fix: a few thousand scalar steps a minute.
+minute), not at every fix: one pass over the window's blocks for every rate of
+the grid at once, a few milliseconds a minute (the bench's ``--per-fix``).
 """
 
 from __future__ import annotations
