@@ -46,14 +46,15 @@ def signed(x: float, decimals: int = 1) -> str:
 
 
 def plus_minus(sigma: float, decimals: int = 1, unit: str = "") -> str:
-    """``±0.3 kn``; a sigma that rounds to zero reads ``±<0.1 kn``, never ``±0.0``."""
+    """``±0.3 kn``; a sigma that rounds to zero reads ``±<0.1 kn``, never ``±0.0``. Halves round up (a
+    payload's 0.5° reads ``±1°``: Python's format rounds an exact half to even, which made it ``±0``)."""
     suffix = f" {unit}" if unit else ""
     step = 10.0 ** -decimals
     if not math.isfinite(sigma):
         return f"±?{suffix}"
     if abs(sigma) < step / 2.0:
         return f"±<{step:.{decimals}f}{suffix}"
-    return f"±{abs(sigma):.{decimals}f}{suffix}"
+    return f"±{math.floor(abs(sigma) / step + 0.5) * step:.{decimals}f}{suffix}"
 
 
 def _dm(value: float, width: int, pos: str, neg: str) -> str:

@@ -48,6 +48,8 @@ def test_a_sigma_below_the_shown_decimals_is_not_plus_minus_zero():
     assert wording.plus_minus(0.05, 1, "kn") == "±0.1 kn"  # 0.05 rounds half-up in words: shown
     assert wording.plus_minus(0.04, 1, "kn") == "±<0.1 kn"
     assert wording.plus_minus(0.34, 1, "kn") == "±0.3 kn"
+    assert wording.plus_minus(0.5, 0) == "±1"    # an exact half (a payload's 0.5°) is shown, not "±0"
+    assert wording.plus_minus(0.25, 1, "kn") == "±0.3 kn"
 
 
 def test_times_spans_and_durations():

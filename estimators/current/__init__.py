@@ -67,6 +67,20 @@ by 2 tau / dt (the effective sample count): R carries each noise's long-run
 variance, and the current's sigma holds under that noise without counting the
 white part as correlated.
 
+Published sigma: the filter's Q lets the current walk as a strong tidal stream
+turns; where the water walks slower, P (rightly the filter's own, for its gain)
+is about twice the error variance the filter makes. So beside P the estimator
+carries P_pub, the error covariance of this same filter (its gain, its consider
+structure, Joseph form for any gain: ``fusion.joseph_with_gain``) if the water
+walks at the rate the last ``water_walk_window_h`` of measured current shows
+(``walk``: a local level model's likelihood, the upper end of its interval, never
+above the configured walk), plus the change detector's inflation. Every reset,
+inflation and restart of P is done to P_pub as well; P - P_pub stays positive
+semidefinite. ``set_sigma_deg``, ``drift_sigma_kn`` and the vector sigma that
+``quality`` holds against its thresholds come from P_pub; the gate, the NIS test,
+the change detector, the calibration and the smoother keep P, so every estimate
+is the same as without it.
+
 Honest quality: the NIS of the last ``nis_check_fixes`` fixes against the
 covariance the filter uses is tested against its two-sided chi-square bounds
 (``estimators.fusion.WindowedNis``, Bar-Shalom et al. 2001, sect. 5.4.2); above

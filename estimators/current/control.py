@@ -25,7 +25,7 @@ from estimators.base import CAUTION, Condition, Output
 
 from estimators.fusion import FusionReport
 
-from .fusion import fuse
+from .fusion import fuse, joseph_with_gain
 from .model import WaterInputs, leeway_deg
 from .params import ID, IK
 
@@ -224,6 +224,7 @@ class Control:
         self.cal_health.count(report)
         if up.fused:
             self.ekf.x, self.ekf.P = adopt_fit(x, P, y, V[:, lam > 0.0]), up.P
+            self.ekf.P_pub = joseph_with_gain(self.ekf.P_pub, up.gain, H, R)     # the same step, the filter's gain
             self._record_update(t, x, P)
 
     def _adapt(self, nis_fix: float, nis: float) -> None:

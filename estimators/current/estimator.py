@@ -21,13 +21,14 @@ from estimators.thresholds import Hysteresis
 
 from .calibration import CalibrationFit
 from .control import Control
-from .fusion import fuse, innovation_cov, nis2
+from .fusion import fuse, innovation_cov, joseph_with_gain, nis2
 from .model import (
     FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov,
-    process_noise, unit,
+    process_noise, published_rate, unit,
 )
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
 from .publication import Publisher
+from .walk import WaterWalk
 
 
 @dataclass(frozen=True, slots=True)
@@ -101,6 +102,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._turn_ended = -math.inf    # the last epoch of a turn (the hold's settling, _turn_hold)
         self._settled_from = -math.inf  # the Jacobian's low-pass resumes here after a manoeuvre (_slow_inputs)
         self._calfit: CalibrationFit | None = None
+        self.water_walk: WaterWalk | None = None  # the walk the published covariance P_pub assumes (see walk)
         self._cal_gate = chi2_quantile_2dof(self.params.calibration_fit_probability)
         self.cal_health = FusionHealth()  # the calibration fit's fusion step
         self.nis_check = WindowedNis(self.params.nis_check_fixes, 2, self.params.nis_check_probability)
@@ -142,6 +144,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             self._withheld.add(kind)
             if self.ekf is not None:
                 self.ekf.P[:2, :2] += self.params.reset_current_sigma_kn ** 2 * np.eye(2)
+                self.ekf.P_pub[:2, :2] += self.params.reset_current_sigma_kn ** 2 * np.eye(2)
         else:
             self._withheld.discard(kind)
             self._restart_next = self.ekf is not None
@@ -210,6 +213,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         P[ID:ID + 1, :2] = P[:2, ID:ID + 1].T
         P[IK, IK], P[ID, ID] = sk ** 2, sd ** 2
         ekf.P = P
+        ekf.P_pub = P.copy()
         self.ekf = ekf
         self.t_filter = t
         self._restart_next = False
@@ -217,12 +221,19 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.q_inflation, self.cusum = 1.0, 0.0
         self.nis_check.reset()
         self._calfit = CalibrationFit(self.params, (k, d, sk, sd))  # blocks of a log trusted again start afresh
+        self.water_walk = WaterWalk(self.params)                     # and so does the water's walk
         self._record(t, restart=True)
 
     def _predict(self, t: float) -> None:
         dt = max(0.0, t - self.t_filter)
         self.ekf.P = self.ekf.P + process_noise(self.params, dt, self.q_inflation)                            # F = I: x = x, P = P + Q
+        self.ekf.P_pub = self.ekf.P_pub + process_noise(self.params, dt, current_rate=self.published_rate())
         self.t_filter = t
+
+    def published_rate(self) -> float:
+        """The current's walk (kn^2/s per axis) the published covariance P_pub assumes: the water's, read from
+        the data (``walk``), with the change detector's inflation of the configured walk on top."""
+        return published_rate(self.params, self.water_walk.rate, self.q_inflation)
 
     def _fuse_ground_velocity(self, t: float, g: tuple[float, float], w: WaterInputs) -> FusionReport:
         """Observation, its covariance and the innovation; the fusion step (``fusion.fuse``); a run of rejections.
@@ -255,12 +266,19 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
                 self.health.rejected += 1
                 self.health.resets += 1
                 P = P_prior.copy()                                              # inflate, then accept
-                P[:2, :2] += (p.reset_current_sigma_kn ** 2 + float(y[0, 0] ** 2 + y[1, 0] ** 2) / 2.0) * np.eye(2)
+                inflation = (p.reset_current_sigma_kn ** 2 + float(y[0, 0] ** 2 + y[1, 0] ** 2) / 2.0) * np.eye(2)
+                P[:2, :2] += inflation
                 ekf.P = P_prior = P
+                ekf.P_pub = ekf.P_pub.copy()
+                ekf.P_pub[:2, :2] += inflation
                 up = fuse(x_prior, P, y, H, R, math.inf, consider)
         if up.fused:
             self.consecutive_rejects = 0
             ekf.x, ekf.P = up.x, up.P
+            ekf.P_pub = joseph_with_gain(ekf.P_pub, up.gain, H, R)           # the same step, the filter's gain
+            if not w.turning:
+                self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0, 0], R[1, 1],
+                                    float(up.x[IK, 0]), float(up.x[ID, 0]))
         return self._report(t, y, nis, up, x_prior, P_prior)
 
     def _report(self, t: float, y: np.ndarray, nis: float, up, x_prior: np.ndarray, P_prior: np.ndarray) -> FusionReport:

@@ -16,7 +16,12 @@ generic ``ExtendedKalmanFilter.update`` in the tests.
 
 The Joseph form is evaluated row by row as A = (I - K H) P = P - K (P H')' (P is
 symmetric), then A (I - K H)' + K R K' = A - (A H') K' + (K R) K': the same
-product, without the 4 x 4 x 4 multiplications.
+product, without the 4 x 4 x 4 multiplications (``joseph_with_gain``).
+
+The gain comes back with the update (``Update.gain``): the published covariance
+(``estimator``: the error covariance of this filter if the water walks slower
+than its Q says) is carried through the same step with the same gain, the
+consider rows' zeros included, by ``joseph_with_gain``.
 """
 
 from __future__ import annotations
@@ -27,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 Rows = list[list[float]]
+Gain = list[tuple[float, float]]
 
 
 @dataclass(frozen=True, slots=True)
@@ -39,6 +45,7 @@ class Update:
     innovation_var: tuple[float, float]
     fused: bool
     reason: str = ""
+    gain: Gain | None = None   # K (four rows of two) of a fused step; None when not fused
 
 
 def nis2(y0: float, y1: float, S: tuple[float, float, float, float]) -> float:
@@ -100,14 +107,32 @@ def fuse(x: np.ndarray, P: np.ndarray, y: np.ndarray, H: np.ndarray, R: np.ndarr
     if consider_from is not None:
         K[consider_from:] = [(0.0, 0.0)] * (4 - consider_from)
     x_new = [xi + (k0 * y0 + k1 * y1) for xi, (k0, k1) in zip(x.ravel().tolist(), K)]   # x+ = x + K y
+    P_new = _joseph(Pl, PHt, K, h0, h1, Rl)
+    if not (math.isfinite(sum(x_new)) and math.isfinite(sum(map(sum, P_new)))
+            and min(P_new[0][0], P_new[1][1], P_new[2][2], P_new[3][3]) > 0.0):
+        return Update(x, P, nis, svar, False, "numerical guard after update")
+    return Update(np.array(x_new).reshape(4, 1), np.array(P_new), nis, svar, True, gain=K)
+
+
+def joseph_with_gain(P: np.ndarray, K: Gain, H: np.ndarray, R: np.ndarray) -> np.ndarray:
+    """(I - K H) P (I - K H)' + K R K' for a gain chosen elsewhere (``Update.gain``), symmetric.
+
+    The error covariance of a filter that applies the gain K when its error before the step has
+    covariance P: right for any K (Joseph form), so a covariance other than the one K was made from
+    (the published one, ``estimator``) goes through the filter's own step with it.
+    """
+    Pl = P.tolist()
+    h0, h1 = H.tolist()
+    return np.array(_joseph(Pl, _times_ht(Pl, h0, h1), K, h0, h1, R.tolist()))
+
+
+def _joseph(Pl: Rows, PHt: list[tuple[float, float]], K: Gain, h0: list[float], h1: list[float],
+            Rl: Rows) -> Rows:
+    """The Joseph form in rows (see the module doc), P H' given, symmetrised."""
     A = [[pij - (k0 * q0 + k1 * q1) for pij, (q0, q1) in zip(Pi, PHt)]     # A = (I - K H) P
          for Pi, (k0, k1) in zip(Pl, K)]
     (r00, r01), (r10, r11) = Rl
     KR = [(k0 * r00 + k1 * r10, k0 * r01 + k1 * r11) for k0, k1 in K]
     P_new = [[aij - (m0 * k0 + m1 * k1) + (s0 * k0 + s1 * k1) for aij, (k0, k1) in zip(Ai, K)]   # Joseph form
              for Ai, (m0, m1), (s0, s1) in zip(A, _times_ht(A, h0, h1), KR)]
-    P_new = [[0.5 * (P_new[i][j] + P_new[j][i]) for j in range(4)] for i in range(4)]
-    if not (math.isfinite(sum(x_new)) and math.isfinite(sum(map(sum, P_new)))
-            and min(P_new[0][0], P_new[1][1], P_new[2][2], P_new[3][3]) > 0.0):
-        return Update(x, P, nis, svar, False, "numerical guard after update")
-    return Update(np.array(x_new).reshape(4, 1), np.array(P_new), nis, svar, True)
+    return [[0.5 * (P_new[i][j] + P_new[j][i]) for j in range(4)] for i in range(4)]

@@ -53,17 +53,20 @@ def chi2_quantile_2dof(p: float) -> float:
 
 
 class FilterState:
-    """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays.
+    """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays, and beside them
+    the covariance it publishes, ``P_pub``: the error covariance of this filter (its gain) if the water walks
+    at the rate read from the data (``walk``), which nothing in the filter reads.
 
     filterpy's ``ExtendedKalmanFilter`` held them once, but importing it loads scipy.stats, about
     45 MB and a second at start, for nothing (the predict and the update are written out here).
     """
 
-    __slots__ = ("x", "P")
+    __slots__ = ("x", "P", "P_pub")
 
     def __init__(self) -> None:
         self.x = np.zeros((4, 1))
         self.P = np.eye(4)
+        self.P_pub = np.eye(4)
 
 
 def unit(angle_rad: float) -> np.ndarray:
@@ -87,14 +90,23 @@ def ground_velocity_of(sample: Sample) -> tuple[float, float] | None:
     return to_east_north(sog, cog)
 
 
-def process_noise(p: CurrentParams, dt: float, q_inflation: float = 1.0) -> np.ndarray:
-    """Q for a step of ``dt`` s: every state a random walk; the current's rate times ``q_inflation``."""
-    return np.diag(walk_variances(p, dt, q_inflation))
+def process_noise(p: CurrentParams, dt: float, q_inflation: float = 1.0, current_rate: float | None = None) -> np.ndarray:
+    """Q for a step of ``dt`` s: every state a random walk; the current's rate times ``q_inflation``, or
+    ``current_rate`` (kn^2/s per axis) where given (the published covariance's, ``published_rate``)."""
+    return np.diag(walk_variances(p, dt, q_inflation, current_rate))
 
 
-def walk_variances(p: CurrentParams, dt: float, q_inflation: float = 1.0) -> tuple[float, float, float, float]:
-    """Q's diagonal (c_e, c_n, k, d) as floats, for a publication that needs only the current's part."""
-    qc = (p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H) * q_inflation        # kn^2/s per axis
+def published_rate(p: CurrentParams, water_rate: float, q_inflation: float) -> float:
+    """The current's walk (kn^2/s per axis) of the published covariance: the water's (``walk``) and what the
+    change detector adds to the configured walk on top of it (a change beyond the model is news to both)."""
+    return water_rate + (q_inflation - 1.0) * p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H
+
+
+def walk_variances(p: CurrentParams, dt: float, q_inflation: float = 1.0,
+                   current_rate: float | None = None) -> tuple[float, float, float, float]:
+    """Q's diagonal (c_e, c_n, k, d) as floats, for a publication that needs only the current's part;
+    ``current_rate`` (kn^2/s) in place of the configured walk times ``q_inflation`` where given."""
+    qc = (p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H) * q_inflation if current_rate is None else current_rate
     qk = p.stw_scale_walk_per_sqrt_h ** 2 / S_PER_H
     qd = math.radians(p.heading_offset_walk_deg_per_sqrt_h) ** 2 / S_PER_H
     return (qc * dt, qc * dt, qk * dt, qd * dt)                                     # random walk: Q = q dt

@@ -74,6 +74,14 @@ class CurrentParams:
         8.0, "", 0.0, 1000.0, "the calibration fit's model error: current_walk_kn_per_sqrt_h counts as this many residuals against the walk the window's residuals show")
     calibration_fit_probability: float = param(
         0.9995, "", 0.9, 0.999999, "chi-square gate between a calibration fit and the filter's calibration")
+    water_walk_window_h: float = param(
+        1.0, "h", 0.1, 24.0, "the published sigma's walk of the water is read from the measured current of this many hours")
+    water_walk_block_s: float = param(
+        60.0, "s", 10.0, 900.0, "the measured current is averaged over blocks this long for that reading (read again as each closes)")
+    water_walk_min_blocks: int = param(
+        20, "blocks", 3, 10000, "with fewer blocks in the window the published sigma uses current_walk_kn_per_sqrt_h")
+    water_walk_confidence: float = param(
+        0.95, "", 0.5, 0.9999, "the walk published is the upper end of its likelihood-ratio interval at this confidence, at most current_walk_kn_per_sqrt_h")
     noise_correlation_s: float = param(
         3.0, "s", 0.0, 120.0, "correlation time of the log's correlated noise (effective sample count)")
     heading_correlation_s: float = param(

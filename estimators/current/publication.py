@@ -1,5 +1,10 @@
 """What the current estimator publishes: the payload, its quality, the calibration's words, current_strong.
 
+The sigmas (set, drift, and the vector sigma ``quality`` holds against its
+thresholds) come from the published covariance P_pub, not from the filter's P:
+the error covariance of this filter if the water walks as fast as the data
+says (``walk``), at most as fast as the filter's Q lets it. The filter itself
+(its gain, gate, NIS test, change detector) and the smoother keep P.
 ``quality`` (interface: converging, valid, degraded, unavailable) is what the
 filter can vouch for; see ``_quality``. A mixin of ``CurrentEstimator``.
 """
@@ -18,11 +23,11 @@ from .params import IK, ID, IE, IN, TOPIC, Calibration
 class Publisher:
     """The current topic's payload and the current_strong caution (see the module doc)."""
 
-    def _current_covariance_at(self, t: float) -> tuple[tuple[float, float], tuple[float, float]]:
-        """The current's 2 x 2 block of P predicted to ``t``, as floats, without changing the filter (for
-        publishing between fixes and in outages): F = I, so only Q's diagonal is added."""
-        (pee, pen, _, _), (pne, pnn, _, _) = self.ekf.P[:2].tolist()
-        qe, qn, _, _ = walk_variances(self.params, max(0.0, t - self.t_filter), self.q_inflation)
+    def _published_covariance_at(self, t: float) -> tuple[tuple[float, float], tuple[float, float]]:
+        """The current's 2 x 2 block of the published covariance P_pub predicted to ``t``, as floats, without
+        changing the filter (for publishing between fixes and in outages): F = I, so only Q's diagonal is added."""
+        (pee, pen, _, _), (pne, pnn, _, _) = self.ekf.P_pub[:2].tolist()
+        qe, qn, _, _ = walk_variances(self.params, max(0.0, t - self.t_filter), current_rate=self.published_rate())
         return (pee + qe, pen), (pne, pnn + qn)
 
     def _stale_inputs(self, t: float) -> list[str]:
@@ -60,7 +65,7 @@ class Publisher:
                        "drift_sigma_kn": None, "quality": "unavailable", "stw_scale": None, "heading_offset_deg": None,
                        "calibration": self._calibration_words(), "health": self.health.as_dict()}
             return [Publication(t, TOPIC, payload)]
-        Pc = self._current_covariance_at(t)
+        Pc = self._published_covariance_at(t)
         e, n = self.ekf.x[IE:IN + 1, 0].tolist()
         drift, set_deg = from_east_north(e, n)
         sig_drift, sig_set = polar_sigmas(e, n, Pc)

@@ -29,8 +29,9 @@ after ``WARMUP_S``, pooled over the seeds:
   them; a scenario without such a change (one course, small course changes)
   has no figure there. The whole-run figures stay in the table beside them.
 
-``--sigma-parts`` also splits each fix's drift error and published variance (along the drift, u' P u)
-into the part a calibration error explains, P_c,kd P_kd^-1 (x_kd - truth), and the rest: the share
+``--sigma-parts`` also splits each fix's drift error and published variance (along the drift, u' P_pub u:
+the published covariance, ``estimators.current.walk``) into the part a calibration error explains,
+P_c,kd P_kd^-1 (x_kd - truth), and the rest: the share
 error variance / covariance of each, pooled (1 for an honest sigma; a random walk the water does not
 make leaves the rest near 1/2 in steady state), over the whole run and from the first course change
 (before it the calibration's part is its prior's).
@@ -133,9 +134,10 @@ def sigma_parts(est: CurrentEstimator, te: float, tn: float, k_true: float, d_tr
     """Along the drift: (error^2, variance) of the part a calibration error explains, then of the rest.
 
     The current's error given (k, d) is the conditional mean's: e_c = A e_kd + r with A = P_c,kd P_kd^-1,
-    the explained part's covariance A P_kd,c and the rest's P_cc - A P_kd,c (Schur complement).
+    the explained part's covariance A P_kd,c and the rest's P_cc - A P_kd,c (Schur complement), all of
+    the published covariance P_pub (the filter's own P where the estimator has none).
     """
-    x, P = est.ekf.x[:, 0], est.ekf.P
+    x, P = est.ekf.x[:, 0], getattr(est.ekf, "P_pub", est.ekf.P)
     e_c = np.array([x[0] - te, x[1] - tn])
     A = P[:2, 2:] @ np.linalg.inv(P[2:, 2:])
     e_cal = A @ np.array([x[2] - k_true, x[3] - d_true_rad])

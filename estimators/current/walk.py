@@ -1,0 +1,244 @@
+"""How fast the water really walks: the walk behind the published sigma, read from the measured current.
+
+Theory of operation
+-------------------
+The filter lets the current walk at ``current_walk_kn_per_sqrt_h`` per axis (its
+Q): a strong tidal stream turning. Where the water walks slower, a filter that
+allows a change that does not happen carries about twice the error variance it
+makes (steady-state random walk: error variance sqrt(qR)/2 against a covariance
+sqrt(qR)), so two published sigmas covered the truth at 0.99-1.00 of fixes where
+0.95 is meant. A smaller Q changes the estimate, and did harm (the README's
+trials), so the filter keeps its Q, its P and its gain; beside P the estimator
+carries the covariance it publishes, P_pub: the error covariance of the same
+filter, with the same gain, if the water walks at the rate q_pub read here
+(``estimator``). This module reads q_pub, kn^2/s per axis.
+
+Data. Each fused fix of steady sailing (no turn) measures the current,
+c = g - k R(d) m: the ground velocity g less the calibrated water velocity (m = s
+u(psi + lambda), the log reading along the compass's water track; R(d) m turned
+by the offset). Per block of ``water_walk_block_s`` the fixes' g and m are
+averaged, and each block's noise variance per axis is the mean of its fixes' R
+over their number: R carries each noise's long-run variance (its correlated part
+counted by the effective sample count, ``model.measurement_cov``), so R / n is
+the variance of the block's mean. A gap (a turn, a held or rejected fix, an
+outage) closes the block under way. The current is made from the raw means with
+the filter's latest k and d whenever the walk is read, so a calibration fit moves
+the whole window together and puts no step into it.
+
+Model. Per axis a local level model (Harvey, "Forecasting, structural time
+series models and the Kalman filter", 1989, ch. 3 and 4, from memory): the
+current a random walk of q kn^2/s, each block's mean its time average plus noise
+of known variance h_b. A mean over a block of T s is a "flow" (temporal
+aggregation, Harvey 1989 ch. 6, from memory), carried exactly: with the level m
+at the block's start (mean mu, variance P), the block's mean y = m + a + e and the
+level at its end m + b, where over the block a (the walk's mean) and b (its
+increment) have var a = q T / 3, var b = q T, cov(a, b) = q T / 2::
+
+    F = P + q T / 3 + h              innovation variance, v = y - mu
+    mu <- mu + (P + q T / 2) / F v   the level at the block's end
+    P  <- P + q T - (P + q T / 2)^2 / F
+    P  <- P + q gap                  to the next block's start
+
+The first block starts the level (diffuse: mu = y, P = q T / 3 + h at its end)
+and adds nothing to the likelihood. The log-likelihood is the prediction error
+decomposition, -1/2 sum(ln 2 pi F + v^2 / F) (Harvey 1989 ch. 3, from memory);
+both axes share q (the filter's Q is the same on both), so their
+log-likelihoods add. It is maximised over q in [0, the configured walk] (every rate of a
+grid in ln q at once; numpy's cost is per step, hardly per rate).
+
+Published: the upper end of the likelihood-ratio interval {q : 2 (l(q_hat) -
+l(q)) <= chi2_1(c)} at c = ``water_walk_confidence`` (Wilks, "The large-sample
+distribution of the likelihood ratio for testing composite hypotheses", Ann.
+Math. Stat. 9, 1938), never more than the configured walk (the filter's own
+model), and the configured walk itself while the window holds fewer than
+``water_walk_min_blocks`` blocks. Read again as each block closes (once a
+minute), not at every fix: one pass over the window's blocks for every rate of
+the grid at once, a few milliseconds a minute (the bench's ``--per-fix``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass
+from statistics import NormalDist
+
+import numpy as np
+
+from .calibration import turned
+from .params import S_PER_H, CurrentParams
+
+MIN_BLOCK_FIXES = 5        # a block with fewer fixes (a short stretch between turns) is dropped
+GRID_DECADES = 6.0         # the grid in ln q spans the configured walk's rate down to 1e-6 of it (and 0)
+GRID_POINTS = 97           # 1/16 decade (15 %) apart: the interval's ends interpolated to about 1 %
+GAP_TOLERANCE_S = 1e-3     # a fix whose interval starts later than the last one added follows a gap
+
+
+@dataclass(frozen=True, slots=True)
+class WalkBlock:
+    """One block of steady, fused fixes: its span (s), mean ground velocity and mean water reading m (kn,
+    east and north), and the variance of those means per axis (kn^2) from the fixes' R."""
+
+    t0_s: float
+    t1_s: float
+    g: tuple[float, float]
+    m: tuple[float, float]
+    h: tuple[float, float]
+
+
+@dataclass(frozen=True, slots=True)
+class WalkFit:
+    """The walk's maximum-likelihood rate and its likelihood-ratio interval, kn^2/s per axis, within [0, ceiling]."""
+
+    q_hat: float
+    lower: float
+    upper: float
+    blocks: int
+
+
+@dataclass(frozen=True, slots=True)
+class Series:
+    """Block means of the current on one or more axes: spans ``t0``, ``t1`` (s, per block), means ``y`` and
+    their noise variances ``h`` (kn, kn^2; axes x blocks)."""
+
+    t0: np.ndarray
+    t1: np.ndarray
+    y: np.ndarray
+    h: np.ndarray
+
+
+def chi2_1_quantile(p: float) -> float:
+    """Chi-square quantile with 1 degree of freedom, exact: the square of the normal's (1 + p) / 2 quantile."""
+    return NormalDist().inv_cdf(0.5 * (1.0 + p)) ** 2
+
+
+def level_loglik(q: np.ndarray, s: Series) -> np.ndarray:
+    """Log-likelihood of walks of rates ``q`` (kn^2/s, any number at once) given the block means ``s``, its axes'
+    summed (see the module doc: each block a flow, the first diffuse)."""
+    q = np.asarray(q, dtype=float)[None, :]
+    span = s.t1 - s.t0
+    walk_gap = np.maximum(0.0, s.t0[1:] - s.t1[:-1])[:, None] * q   # per block: q gap, q T, q T / 3 + h
+    walk_span = span[1:, None] * q
+    walk_mean = [walk_span[b] / 3.0 + s.h[:, b + 1:b + 2] for b in range(len(span) - 1)]
+    mu = s.y[:, :1] + 0.0 * q                                       # the level at the first block's end
+    P = q * (span[0] / 3.0) + s.h[:, :1]
+    F_all, z_all = [], []
+    for b in range(len(span) - 1):
+        P = P + walk_gap[b]                                         # the gap to this block's start
+        F = P + walk_mean[b]                                        # var(y): level + the walk's mean + noise
+        v = s.y[:, b + 1:b + 2] - mu
+        gain = (P + 0.5 * walk_span[b]) / F                         # cov(level at the end, y) / F
+        F_all.append(F)
+        z_all.append(v * v / F)
+        mu = mu + gain * v
+        P = P + walk_span[b] - gain * gain * F
+    if not F_all:
+        return np.zeros(q.shape[1])
+    return -0.5 * (np.sum(np.log(2.0 * math.pi * np.array(F_all)), axis=(0, 1)) + np.sum(z_all, axis=(0, 1)))
+
+
+def fit_walk(s: Series, ceiling: float, confidence: float) -> WalkFit:
+    """The walk's rate (kn^2/s) shared by the axes of ``s``: maximum likelihood within [0, ``ceiling``] and the
+    likelihood-ratio interval at ``confidence``, its ends clipped to that range.
+
+    Every rate of a grid in ln q (and 0) at once; the maximum is the parabola's through the best point and its
+    neighbours (in ln q), an end of the interval the crossing interpolated in ln q between the points either side.
+    """
+    q = np.concatenate([[0.0], ceiling * np.logspace(-GRID_DECADES, 0.0, GRID_POINTS)])
+    ll = level_loglik(q, s)
+    best = int(np.argmax(ll))
+    q_hat, l_hat = _vertex(q, ll, best)
+    threshold = l_hat - 0.5 * chi2_1_quantile(confidence)
+    out = np.flatnonzero(ll < threshold)
+    up, low = out[out > best], out[out < best]
+    upper = _crossing(q, ll, threshold, up[0] - 1, up[0]) if up.size else ceiling
+    lower = _crossing(q, ll, threshold, low[-1] + 1, low[-1]) if low.size else 0.0
+    return WalkFit(q_hat, lower, max(upper, q_hat), s.y.shape[1])
+
+
+def _vertex(q: np.ndarray, ll: np.ndarray, i: int) -> tuple[float, float]:
+    """The maximum of the parabola in ln q through points i - 1, i, i + 1 (the point itself at an end or at 0)."""
+    if i < 2 or i + 1 >= len(q):
+        return float(q[i]), float(ll[i])
+    x = np.log(q[i - 1:i + 2])
+    a, b, c = np.polyfit(x, ll[i - 1:i + 2], 2)
+    if a >= 0.0:
+        return float(q[i]), float(ll[i])
+    x_top = min(max(-b / (2.0 * a), x[0]), x[2])
+    return float(math.exp(x_top)), float(max(ll[i], c - b * b / (4.0 * a)))
+
+
+def _crossing(q: np.ndarray, ll: np.ndarray, level: float, i_in: int, i_out: int) -> float:
+    """Where the log-likelihood crosses ``level`` between points i_in (at or above it) and i_out (below),
+    linearly in ln q (0 counts as the grid's smallest rate over ten)."""
+    qa, qb = (max(q[i], q[1] * 0.1) for i in (i_in, i_out))
+    f = (ll[i_in] - level) / (ll[i_in] - ll[i_out])
+    return float(math.exp(math.log(qa) + f * (math.log(qb) - math.log(qa))))
+
+
+class WaterWalk:
+    """Blocks of the measured current over a sliding window, and the walk they show (see the module doc).
+
+    ``rate`` (kn^2/s per axis) is what the published covariance walks at: the configured walk until the
+    window holds ``water_walk_min_blocks`` blocks, then the interval's upper end, never above it.
+    """
+
+    def __init__(self, params: CurrentParams) -> None:
+        self.params = params
+        self.ceiling = params.current_walk_kn_per_sqrt_h ** 2 / S_PER_H
+        self.rate = self.ceiling
+        self.blocks: deque[WalkBlock] = deque()
+        self.last: WalkFit | None = None
+        self._t_last = -math.inf
+        self._open()
+
+    def _open(self, t0: float | None = None) -> None:
+        self._t0 = t0
+        self._n = 0
+        self._sums = [0.0] * 6                                      # g_e, g_n, m_e, m_n, R_ee, R_nn
+
+    def add(self, t: float, interval_s: float, g: tuple[float, float], speed_kn: float, water_dir_deg: float,
+            r_ee: float, r_nn: float, k: float, d_rad: float) -> None:
+        """One fused fix of steady sailing: its ground velocity, log reading, water-track direction reading (compass
+        and leeway), R's diagonal; the filter's k and d read the walk when a block closes."""
+        start = t - interval_s
+        if self._n and start > self._t_last + GAP_TOLERANCE_S:
+            self._close(k, d_rad)                                   # a fix in between was not steady: a gap
+        if self._t0 is None:
+            self._open(start)
+        self._t_last = t
+        a = math.radians(water_dir_deg)
+        for i, v in enumerate((g[0], g[1], speed_kn * math.sin(a), speed_kn * math.cos(a), r_ee, r_nn)):
+            self._sums[i] += v
+        self._n += 1
+        if t - self._t0 >= self.params.water_walk_block_s:
+            self._close(k, d_rad)
+
+    def _close(self, k: float, d_rad: float) -> None:
+        n = self._n
+        if n >= MIN_BLOCK_FIXES:
+            ge, gn, me, mn, re, rn = (v / n for v in self._sums)
+            self.blocks.append(WalkBlock(self._t0, self._t_last, (ge, gn), (me, mn), (re / n, rn / n)))
+            keep_from = self._t_last - self.params.water_walk_window_h * S_PER_H
+            while self.blocks and self.blocks[0].t0_s < keep_from:
+                self.blocks.popleft()
+            self._read(k, d_rad)
+        self._open()
+
+    def _read(self, k: float, d_rad: float) -> None:
+        """The walk over the window's blocks, the current measured with the filter's k and d now."""
+        if len(self.blocks) < self.params.water_walk_min_blocks:
+            self.rate, self.last = self.ceiling, None
+            return
+        blocks = self.blocks
+        m = np.array([turned(b.m, d_rad) for b in blocks]).T                  # R(d) m, (east, north) x blocks
+        series = Series(np.array([b.t0_s for b in blocks]), np.array([b.t1_s for b in blocks]),
+                        np.array([b.g for b in blocks]).T - k * m,            # c = g - k R(d) m
+                        np.array([b.h for b in blocks]).T)
+        self.last = fit_walk(series, self.ceiling, self.params.water_walk_confidence)
+        self.rate = min(self.ceiling, self.last.upper)
+
+    @property
+    def walk_kn_per_sqrt_h(self) -> float:
+        """The published walk per axis, kn/sqrt(h)."""
+        return math.sqrt(self.rate * S_PER_H)
