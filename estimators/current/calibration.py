@@ -33,11 +33,15 @@ the last ``calibration_fit_window_h``::
 
 with the prior (saved calibration, or the stated one) on k and d as two more
 observations, so a window with no course change returns the prior and its
-sigma. The covariance of (k, d) is the (k, d) block of (J' W J)^-1, multiplied
-by the reduced chi-square of the block residuals where that is above 1 (the
-residuals say the blocks were noisier than assumed). The current's slow
-change is part of the model, so a current that turns with the tide over the
-window is not read as a calibration.
+sigma. The current's slow change is part of the model, so a current that
+turns with the tide over the window is not read as a calibration; what the
+quadratic cannot follow still leaks into k and d, the same way in every
+window of the same stream. So the covariance of (k, d) is not (J' W J)^-1,
+which takes each block's share of that error as independent, but the sandwich
+of the estimate's sensitivity to the blocks over their covariance with the
+walk as one path shared by all of them (``walk_consider_cov``), multiplied by
+the reduced chi-square of the block residuals where that is above 1 (the
+residuals say the blocks were noisier than assumed).
 
 Model error, read from the window. What the quadratic cannot follow of the
 current's walk adds one variance to every block: a random walk of q kn^2/h
@@ -296,9 +300,8 @@ def quadratic_residual_var(walk: float, span_s: float) -> float:
 
     For a random walk of sigma_w kn/sqrt(h) over W hours it is about sigma_w^2 W / 23 (Monte Carlo over
     Brownian paths, this project's own computation). Each block's variance carries it, with the walk
-    read from the window (``fit``). It treats the wander as independent from block to block, which it
-    is not: a stream turning 90 deg over the window leaves the compass offset about 0.09 deg off
-    (tidal box), within 2 sigma in 10 runs of 10 but at 1.6-1.9 sigma in every one.
+    read from the window (``fit``). The weights treat the wander as independent from block to block,
+    which it is not; the covariance counts it as one path (``walk_consider_cov``).
     """
     return walk * (span_s / S_PER_H) / 23.0
 
