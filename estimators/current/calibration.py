@@ -106,6 +106,7 @@ class FitResult:
     blocks: int
     heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
     water_walk_kn_per_sqrt_h: float  # per axis: the current's walk over the window as the fit read it (with the params' as prior)
+    whole: bool = False       # the window still holds every block since the fit began (none dropped off its start)
 
 
 def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
@@ -132,6 +133,7 @@ class CalibrationFit:
         self._last_t: float | None = None
         self.last_fit_t: float | None = None
         self.last: FitResult | None = None
+        self.dropped = False  # a block has left the window: the filter has learnt from more than the window holds
 
     def _reset_block(self, t: float | None = None) -> None:
         self._t0 = t
@@ -170,6 +172,7 @@ class CalibrationFit:
         keep_s = p.calibration_fit_window_h * S_PER_H
         while self.blocks and self.blocks[0].t_s < t - keep_s:
             self.blocks.popleft()
+            self.dropped = True
 
     def due(self, t: float) -> bool:
         return self.last_fit_t is None or t - self.last_fit_t >= self.params.calibration_fit_every_s
@@ -206,7 +209,7 @@ class CalibrationFit:
                 break
         chi2_red = float(np.sum(res ** 2 / v)) / dof
         cov = walk_consider_cov(A, J, v, sensor, walk, blocks)[n_cur:, n_cur:] * max(1.0, chi2_red)
-        self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(walk))
+        self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(walk), not self.dropped)
         return self.last
 
     def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float
@@ -326,8 +329,9 @@ def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray, sensor: np.nd
     Ai = np.linalg.inv(A)
     WJ = J / v[:, None]
     H = Ai @ WJ.T                                                           # p x 2nb: d estimate / d residual
-    data_info = J.T @ WJ
-    cov = Ai @ (A - data_info) @ Ai + (H * sensor) @ H.T                     # the priors' part, the sensors'
+    prior_info = np.zeros_like(A)                                           # the prior on k and d: its own error;
+    prior_info[-2:, -2:] = (A - J.T @ WJ)[-2:, -2:]                         # the slope's and curvature's is the walk's
+    cov = Ai @ prior_info @ Ai + (H * sensor) @ H.T                         # the prior's part, the sensors'
     t_h = np.array([b.t_s for b in blocks]) / S_PER_H
     steps = np.diff(t_h, prepend=t_h[0])                                    # the walk's step before each block
     for axis in (slice(0, nb), slice(nb, 2 * nb)):
