@@ -66,7 +66,12 @@ R = (Sigma^-1 - P_kd^-1)^-1: only the information the filter does not hold
 yet, so the filter's (k, d) covariance becomes Sigma (no data counted twice
 across overlapping windows), and the current moves with it through the
 filter's cross-covariance. The fusion step is the same gated Joseph update
-(``fusion.fuse``).
+(``fusion.fuse``). Until a block leaves the window (``FitResult.whole``) the fit
+holds everything the filter learnt its calibration from, so it replaces the
+filter's (k, d) and their covariance instead, wider or narrower
+(``Control._take_whole_fit``): a longer window in water walking faster than the
+first blocks showed is honestly wider, and taking only narrower fits would
+keep the first, overconfident one.
 """
 
 from __future__ import annotations
@@ -321,9 +326,10 @@ def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray, sensor: np.nd
     sensitivity to the blocks, H = A^-1 J' W, over the blocks' true covariance Omega: the sensors'
     (independent) plus a random walk of ``walk`` kn^2/h per axis, q min(s, t) (consider covariance:
     the error an unestimated, modelled term leaves in a weighted fit, Bierman, "Factorization Methods
-    for Discrete Sequential Estimation", 1977, ch. VI; from memory), and the priors' part A^-1 A_prior
-    A^-1. The walk's part is summed over its steps, each moving every later block: q sum_j dt_j
-    (sum_{i >= j} h_i)(...)'.
+    for Discrete Sequential Estimation", 1977, ch. VI; from memory), and the prior on k and d's part
+    A^-1 A_prior A^-1 (the prior on the current's slope and curvature only regularises: their spread is
+    the walk's, already counted). The walk's part is summed over its steps, each moving every later
+    block: q sum_j dt_j (sum_{i >= j} h_i)(...)'.
     """
     nb = len(blocks)
     Ai = np.linalg.inv(A)

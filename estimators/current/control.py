@@ -25,6 +25,7 @@ from estimators.base import CAUTION, Condition, Output
 
 from estimators.fusion import FusionReport
 
+from .calibration import FitResult
 from .fusion import fuse, joseph_with_gain
 from .model import WaterInputs, leeway_deg
 from .params import ID, IK
@@ -230,7 +231,7 @@ class Control:
             self.ekf.P_pub = joseph_with_gain(self.ekf.P_pub, up.gain, H, R)     # the same step, the filter's gain
             self._record_update(t, x, P)
 
-    def _take_whole_fit(self, t: float, result) -> None:
+    def _take_whole_fit(self, t: float, result: FitResult) -> None:
         """A fit whose window holds every block since the filter started: it replaces the filter's (k, d).
 
         The fit saw all the filter's calibration was learnt from, and the same prior, so its (k, d) and
