@@ -33,11 +33,15 @@ the last ``calibration_fit_window_h``::
 
 with the prior (saved calibration, or the stated one) on k and d as two more
 observations, so a window with no course change returns the prior and its
-sigma. The covariance of (k, d) is the (k, d) block of (J' W J)^-1, multiplied
-by the reduced chi-square of the block residuals where that is above 1 (the
-residuals say the blocks were noisier than assumed). The current's slow
-change is part of the model, so a current that turns with the tide over the
-window is not read as a calibration.
+sigma. The current's slow change is part of the model, so a current that
+turns with the tide over the window is not read as a calibration; what the
+quadratic cannot follow still leaks into k and d, the same way in every
+window of the same stream. So the covariance of (k, d) is not (J' W J)^-1,
+which takes each block's share of that error as independent, but the sandwich
+of the estimate's sensitivity to the blocks over their covariance with the
+walk as one path shared by all of them (``walk_consider_cov``), multiplied by
+the reduced chi-square of the block residuals where that is above 1 (the
+residuals say the blocks were noisier than assumed).
 
 Model error, read from the window. What the quadratic cannot follow of the
 current's walk adds one variance to every block: a random walk of q kn^2/h
@@ -62,7 +66,12 @@ R = (Sigma^-1 - P_kd^-1)^-1: only the information the filter does not hold
 yet, so the filter's (k, d) covariance becomes Sigma (no data counted twice
 across overlapping windows), and the current moves with it through the
 filter's cross-covariance. The fusion step is the same gated Joseph update
-(``fusion.fuse``).
+(``fusion.fuse``). Until a block leaves the window (``FitResult.whole``) the fit
+holds everything the filter learnt its calibration from, so it replaces the
+filter's (k, d) and their covariance instead, wider or narrower
+(``Control._take_whole_fit``): a longer window in water walking faster than the
+first blocks showed is honestly wider, and taking only narrower fits would
+keep the first, overconfident one.
 """
 
 from __future__ import annotations
@@ -102,6 +111,7 @@ class FitResult:
     blocks: int
     heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
     water_walk_kn_per_sqrt_h: float  # per axis: the current's walk over the window as the fit read it (with the params' as prior)
+    whole: bool = False       # the window still holds every block since the fit began (none dropped off its start)
 
 
 def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
@@ -128,6 +138,7 @@ class CalibrationFit:
         self._last_t: float | None = None
         self.last_fit_t: float | None = None
         self.last: FitResult | None = None
+        self.dropped = False  # a block has left the window: the filter has learnt from more than the window holds
 
     def _reset_block(self, t: float | None = None) -> None:
         self._t0 = t
@@ -166,6 +177,7 @@ class CalibrationFit:
         keep_s = p.calibration_fit_window_h * S_PER_H
         while self.blocks and self.blocks[0].t_s < t - keep_s:
             self.blocks.popleft()
+            self.dropped = True
 
     def due(self, t: float) -> bool:
         return self.last_fit_t is None or t - self.last_fit_t >= self.params.calibration_fit_every_s
@@ -195,19 +207,20 @@ class CalibrationFit:
             solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], trend_w, k, d)
             if solved is None:
                 return None
-            k, d, A, res = solved
+            k, d, A, res, J = solved
             read = excess_variance(res, sensor, dof) / quadratic_residual_var(1.0, span_s)
             settled = shrunk_walk(walk0, self.params.calibration_walk_prior_dof, read, dof)
             if abs(settled - walk) <= 0.01 * walk + 1e-9:
                 break
         chi2_red = float(np.sum(res ** 2 / v)) / dof
-        cov = np.linalg.inv(A)[n_cur:, n_cur:] * max(1.0, chi2_red)
-        self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(walk))
+        cov = walk_consider_cov(A, J, v, sensor, walk, blocks)[n_cur:, n_cur:] * max(1.0, chi2_red)
+        self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(walk), not self.dropped)
         return self.last
 
     def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float
-                      ) -> tuple[float, float, np.ndarray, np.ndarray] | None:
-        """(k, d, the normal matrix J'WJ, the blocks' residuals east then north) at the solution; None if singular."""
+                      ) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
+        """(k, d, the normal matrix J'WJ, the blocks' residuals east then north, the blocks' rows of J) at the
+        solution; None if singular."""
         n_cur = 2 * CURRENT_TERMS
         t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
         tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
@@ -251,7 +264,7 @@ class CalibrationFit:
         Re, Rn = M[:, 0] * cd + M[:, 1] * sd, -M[:, 0] * sd + M[:, 1] * cd
         ce = sum(c[2 * j] * tau ** j for j in range(CURRENT_TERMS))
         cn = sum(c[2 * j + 1] * tau ** j for j in range(CURRENT_TERMS))
-        return k, d, A, np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn])
+        return k, d, A, np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn]), J[:2 * nb]
 
     def _walk_weights(self, walk: float, span_s: float) -> np.ndarray:
         """Weights of the prior c1 = c2 = 0 (per axis), from how far the current may walk over the window.
@@ -295,11 +308,42 @@ def quadratic_residual_var(walk: float, span_s: float) -> float:
 
     For a random walk of sigma_w kn/sqrt(h) over W hours it is about sigma_w^2 W / 23 (Monte Carlo over
     Brownian paths, this project's own computation). Each block's variance carries it, with the walk
-    read from the window (``fit``). It treats the wander as independent from block to block, which it
-    is not: a stream turning 90 deg over the window leaves the compass offset about 0.09 deg off
-    (tidal box), within 2 sigma in 10 runs of 10 but at 1.6-1.9 sigma in every one.
+    read from the window (``fit``). The weights treat the wander as independent from block to block,
+    which it is not; the covariance counts it as one path (``walk_consider_cov``).
     """
     return walk * (span_s / S_PER_H) / 23.0
+
+
+def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray, sensor: np.ndarray, walk: float,
+                      blocks: list[Block]) -> np.ndarray:
+    """The fit's covariance with the current's walk counted as what it is: one path shared by all blocks.
+
+    The weights (``v``) count the walk the quadratic cannot follow as a variance of its own in each block,
+    independent from block to block. It is not: a walk's later blocks share every earlier step, and a
+    stream turning over the window leaves a smooth error that the offset's column, alternating leg by leg,
+    picks up (the tidal box: the offset 0.1-0.16 deg off at 0.05 deg, the same sign in every seed). The
+    estimate stays the weighted one; its covariance is the sandwich H Omega H' of the estimate's
+    sensitivity to the blocks, H = A^-1 J' W, over the blocks' true covariance Omega: the sensors'
+    (independent) plus a random walk of ``walk`` kn^2/h per axis, q min(s, t) (consider covariance:
+    the error an unestimated, modelled term leaves in a weighted fit, Bierman, "Factorization Methods
+    for Discrete Sequential Estimation", 1977, ch. VI; from memory), and the prior on k and d's part
+    A^-1 A_prior A^-1 (the prior on the current's slope and curvature only regularises: their spread is
+    the walk's, already counted). The walk's part is summed over its steps, each moving every later
+    block: q sum_j dt_j (sum_{i >= j} h_i)(...)'.
+    """
+    nb = len(blocks)
+    Ai = np.linalg.inv(A)
+    WJ = J / v[:, None]
+    H = Ai @ WJ.T                                                           # p x 2nb: d estimate / d residual
+    prior_info = np.zeros_like(A)                                           # the prior on k and d: its own error;
+    prior_info[-2:, -2:] = (A - J.T @ WJ)[-2:, -2:]                         # the slope's and curvature's is the walk's
+    cov = Ai @ prior_info @ Ai + (H * sensor) @ H.T                         # the prior's part, the sensors'
+    t_h = np.array([b.t_s for b in blocks]) / S_PER_H
+    steps = np.diff(t_h, prepend=t_h[0])                                    # the walk's step before each block
+    for axis in (slice(0, nb), slice(nb, 2 * nb)):
+        later = np.cumsum(H[:, axis][:, ::-1], axis=1)[:, ::-1]             # sum_{i >= j} h_i
+        cov += walk * (later * steps) @ later.T
+    return cov
 
 
 def excess_variance(res: np.ndarray, v: np.ndarray, dof: int) -> float:

@@ -25,6 +25,7 @@ from estimators.base import CAUTION, Condition, Output
 
 from estimators.fusion import FusionReport
 
+from .calibration import FitResult
 from .fusion import fuse, joseph_with_gain
 from .model import WaterInputs, leeway_deg
 from .params import ID, IK
@@ -210,6 +211,9 @@ class Control:
         if result is None:
             return
         P_kd = P[IK:, IK:]
+        if result.whole:
+            self._take_whole_fit(t, result)
+            return
         excess = np.linalg.inv(result.cov) - np.linalg.inv(P_kd)            # information the filter lacks
         lam, V = np.linalg.eigh(0.5 * (excess + excess.T))
         if lam.max() <= 0.0:
@@ -226,6 +230,34 @@ class Control:
             self.ekf.x, self.ekf.P = adopt_fit(x, P, y, V[:, lam > 0.0]), up.P
             self.ekf.P_pub = joseph_with_gain(self.ekf.P_pub, up.gain, H, R)     # the same step, the filter's gain
             self._record_update(t, x, P)
+
+    def _take_whole_fit(self, t: float, result: FitResult) -> None:
+        """A fit whose window holds every block since the filter started: it replaces the filter's (k, d).
+
+        The fit saw all the filter's calibration was learnt from, and the same prior, so its (k, d) and
+        covariance are the whole story, narrower or wider than the filter's (a window that shows the water
+        walking faster than the first blocks did widens it: fusing only narrower fits would keep the
+        first, overconfident one). The current keeps its regression on (k, d), G = P_c,kd P_kd^-1 (the
+        conditional distribution of the current given the calibration is unchanged):
+            x_kd = z, x_c += G (z - x_kd);  P_kd = Sigma, P_c,kd = G Sigma, P_c = P_c - G P_kd,c + G Sigma G'
+        in P and in the published P_pub alike. Gated as a fusion, the fit against the filter's own (k, d) with
+        S = P_kd + Sigma: loose, as the two share their data (their difference varies less than that).
+        """
+        x, P = self.ekf.x, self.ekf.P
+        z = np.array([[result.k], [result.d_rad]])
+        y = z - x[IK:, :]
+        S = P[IK:, IK:] + result.cov
+        nis = float((y.T @ np.linalg.solve(S, y))[0, 0])
+        fused = nis <= self._cal_gate
+        self.cal_health.count(FusionReport(t, (float(y[0, 0]), float(y[1, 0])), (float(S[0, 0]), float(S[1, 1])),
+                                           nis, self._cal_gate, fused,
+                                           "" if fused else "gate"))
+        if not fused:
+            return
+        self.ekf.x = adopt_fit(x, P, y, np.eye(2))
+        self.ekf.P = replaced_calibration(P, result.cov)
+        self.ekf.P_pub = replaced_calibration(self.ekf.P_pub, result.cov)
+        self._record_update(t, x, P)
 
     def _adapt(self, nis_fix: float, nis: float) -> None:
         """A change of the current that Q does not describe: a CUSUM on the innovations inflates Q.
@@ -340,3 +372,14 @@ def adopt_fit(x: np.ndarray, P: np.ndarray, y: np.ndarray, informed: np.ndarray)
     out[IK:, :] += delta
     out[:IK, :] += P[:IK, IK:] @ np.linalg.solve(P[IK:, IK:], delta)
     return out
+
+
+def replaced_calibration(P: np.ndarray, sigma: np.ndarray) -> np.ndarray:
+    """P with the calibration's block replaced by ``sigma``, the current's regression on it kept (see ``_take_whole_fit``)."""
+    G = P[:IK, IK:] @ np.linalg.inv(P[IK:, IK:])
+    out = P.copy()
+    out[:IK, :IK] = P[:IK, :IK] - G @ P[IK:, :IK] + G @ sigma @ G.T
+    out[:IK, IK:] = G @ sigma
+    out[IK:, :IK] = (G @ sigma).T
+    out[IK:, IK:] = sigma
+    return 0.5 * (out + out.T)
