@@ -16,8 +16,6 @@ front crossings are checked in tests/test_fronts_demo.py.
 
 from __future__ import annotations
 
-import csv
-import gzip
 import json
 import math
 import re
@@ -28,7 +26,7 @@ import numpy as np
 import pytest
 from geographiclib.geodesic import Geodesic
 
-from tools.simulator import scenarios
+from tools.simulator import read_truth_csv, scenarios
 from tools.simulator.__main__ import DEMO_MALFORMED
 from tests.shared import REPO
 from tests.helpers import interface_problems
@@ -50,9 +48,7 @@ class Truth:
     """The truth CSV as columns, linearly interpolated in time (fields of tools.simulator.TRUTH_FIELDS)."""
 
     def __init__(self, path) -> None:
-        with gzip.open(path, "rt", encoding="utf-8", newline="") as f:
-            rows = list(csv.DictReader(f))
-        self.cols = {k: np.array([float(r[k]) for r in rows]) for k in rows[0] if k != "time_utc"}
+        self.cols = read_truth_csv(path)
         self.t = self.cols["t_s"]
 
     def at(self, field: str, t_s) -> np.ndarray | float:

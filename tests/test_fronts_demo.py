@@ -12,8 +12,6 @@ The rest of the demo passage is checked in tests/test_end_to_end_demo.py.
 
 from __future__ import annotations
 
-import csv
-import gzip
 from datetime import datetime, timezone
 
 import numpy as np
@@ -21,6 +19,7 @@ import pytest
 from geographiclib.geodesic import Geodesic
 
 from tests.shared import REPO
+from tools.simulator import read_truth_csv
 
 DEMO = REPO / "recorded_runs" / "tern-of-haldane.nmea.gz"
 TRUTH = REPO / "recorded_runs" / "tern-of-haldane.truth.csv.gz"
@@ -50,9 +49,7 @@ def replayed(demo_replay):
 @pytest.fixture(scope="module")
 def truth():
     """The truth track: columns t_s, lat, lon, sea_temp_c and the distance run d_nm (geodesic sums)."""
-    with gzip.open(TRUTH, "rt", encoding="utf-8", newline="") as f:
-        rows = list(csv.DictReader(f))
-    cols = {k: np.array([float(r[k]) for r in rows]) for k in ("t_s", "lat", "lon", "sea_temp_c")}
+    cols = {k: v for k, v in read_truth_csv(TRUTH).items() if k in ("t_s", "lat", "lon", "sea_temp_c")}
     steps = [WGS84.Inverse(a, b, c, d)["s12"] for a, b, c, d in
              zip(cols["lat"][:-1], cols["lon"][:-1], cols["lat"][1:], cols["lon"][1:])]
     cols["d_nm"] = np.concatenate(([0.0], np.cumsum(steps) / NM_M))

@@ -18,8 +18,6 @@ Run: ``python -m tools.bench.demo_edge`` (about a minute and a half). The figure
 from __future__ import annotations
 
 import argparse
-import csv
-import gzip
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -27,6 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from tools.bench.current import mahalanobis
+from tools.simulator import read_truth_csv
 
 REPO = Path(__file__).resolve().parents[2]
 TRUTH = REPO / "recorded_runs" / "tern-of-haldane.truth.csv.gz"
@@ -58,10 +57,8 @@ class EdgeFigures:
 
 
 def read_truth(path: Path = TRUTH) -> Truth:
-    with gzip.open(path, "rt", encoding="ascii", newline="") as f:
-        rows = list(csv.DictReader(f))
-    col = lambda name: np.array([float(r[name]) for r in rows])  # noqa: E731 - a column, once each
-    return Truth(col("t_s"), col("current_east_kn"), col("current_north_kn"))
+    cols = read_truth_csv(path)
+    return Truth(cols["t_s"], cols["current_east_kn"], cols["current_north_kn"])
 
 
 def edge_times(truth: Truth) -> tuple[float, float]:

@@ -7,9 +7,9 @@
     run.truth_at(t_s)  # TruthRow interpolated at any time
     run.events         # fronts crossed, band edges, GNSS outages, leg changes
 
-``nmea_writer`` turns a run into NMEA 0183 lines; ``python -m tools.simulator``
-writes the demo passage. The simulator lives in ``daemon`` because it writes
-files; estimators never import it.
+``nmea_writer`` turns a run into NMEA 0183 lines and its truth into CSV (``read_truth_csv``
+reads one back); ``python -m tools.simulator`` writes the demo passage. Neither ``daemon`` nor
+``estimators`` imports it.
 """
 
 from . import scenarios
@@ -18,10 +18,11 @@ from .ocean import (
     CurrentBand, Front, Ocean, Patch, PressureField, SeaTemperatureField, SteadyCurrent, TidalStream, WindField,
 )
 from .run import Scenario, SimEvent, SimRun, TruthRow, simulate
+from .nmea_writer import read_truth_csv
 from .sensors import SensorSpec
 
 __all__ = [
     "scenarios", "simulate", "Scenario", "SimRun", "SimEvent", "TruthRow", "TRUTH_FIELDS", "SensorSpec",
     "HelmModel", "Steer", "Waypoint", "Beat", "box", "tacks", "Ocean", "SteadyCurrent", "TidalStream",
-    "CurrentBand", "Front", "Patch", "SeaTemperatureField", "PressureField", "WindField",
+    "CurrentBand", "Front", "Patch", "SeaTemperatureField", "PressureField", "WindField", "read_truth_csv",
 ]

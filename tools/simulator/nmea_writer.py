@@ -26,6 +26,7 @@ Each instrument has its own talker, TAG source name and habits:
 
 from __future__ import annotations
 
+import csv
 import gzip
 import io
 import math
@@ -33,6 +34,8 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
+
+import numpy as np
 
 from daemon.nmea0183.codec import format_sentence, place, tag_block
 from estimators.angles import wrap_360
@@ -316,6 +319,15 @@ def write_truth_csv(run: SimRun, path: str | Path, every_s: float = 1.0) -> int:
             f.write(",".join(vals) + "\n")
             n += 1
     return n
+
+
+def read_truth_csv(path: str | Path) -> dict[str, np.ndarray]:
+    """A truth CSV as ``write_truth_csv`` writes it, gzipped or not: every column but ``time_utc``, as floats."""
+    path = Path(path)
+    opener = gzip.open if path.suffix == ".gz" else open
+    with opener(path, "rt", encoding="ascii", newline="") as f:
+        rows = list(csv.DictReader(f))
+    return {name: np.array([float(r[name]) for r in rows]) for name in rows[0] if name != "time_utc"}
 
 
 def _csv(field: str, v) -> str:
