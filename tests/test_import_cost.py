@@ -17,7 +17,7 @@ import sys
 import pytest
 from scipy.stats import chi2
 
-from estimators.current import chi2_quantile_2dof
+from estimators.fusion import chi2_quantile
 
 SERVICE_MODULES = ["daemon.commands.service", "daemon.commands.replay", "daemon.commands.cli"]
 
@@ -69,6 +69,7 @@ def test_a_valid_config_is_checked_without_numpy(tmp_path):
 
 
 @pytest.mark.parametrize("p", [0.5, 0.9, 0.95, 0.99, 0.9973, 0.999, 1e-6])
-def test_the_2_dof_chi_square_quantile_matches_scipy(p):
-    # reference library: scipy.stats.chi2.ppf
-    assert chi2_quantile_2dof(p) == pytest.approx(float(chi2.ppf(p, 2)), rel=1e-12)
+@pytest.mark.parametrize("dof", [1, 2])
+def test_the_1_and_2_dof_chi_square_quantiles_are_exact(p, dof):
+    # reference library: scipy.stats.chi2.ppf (the gates use 2 dof, the water's walk interval 1)
+    assert chi2_quantile(p, dof) == pytest.approx(float(chi2.ppf(p, dof)), rel=1e-12)

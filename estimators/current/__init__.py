@@ -132,7 +132,7 @@ from .params import ID, IE, IK, IN, TOPIC, Calibration, CurrentParams, leeway_de
 # names are imported on first use (PEP 562), and reading a config never loads numpy.
 _LAZY = {
     "CurrentEstimator": ".estimator", "FilterRecord": ".estimator",
-    "FilterState": ".model", "WaterInputs": ".model", "chi2_quantile_2dof": ".model", "d_unit": ".model",
+    "FilterState": ".model", "WaterInputs": ".model", "d_unit": ".model",
     "ground_velocity_of": ".model", "jacobian": ".model", "measurement_cov": ".model",
     "process_noise": ".model", "unit": ".model",
     "polar_sigmas": ".publication",
@@ -148,7 +148,7 @@ def __getattr__(name: str) -> Any:
     return value
 
 __all__ = [
-    "Calibration", "CurrentEstimator", "FilterState", "chi2_quantile_2dof", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",
+    "Calibration", "CurrentEstimator", "FilterState", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",
     "TOPIC", "WaterInputs", "d_unit", "ground_velocity_of", "jacobian", "leeway_deg",
     "measurement_cov", "polar_sigmas", "process_noise", "unit",
 ]

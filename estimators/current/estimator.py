@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from estimators.base import EstimatorBase, Output
-from estimators.fusion import FusionHealth, FusionReport, WindowedNis
+from estimators.fusion import FusionHealth, FusionReport, WindowedNis, chi2_quantile
 from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
 from estimators.thresholds import Hysteresis
@@ -23,7 +23,7 @@ from .calibration import CalibrationFit
 from .control import Control
 from .fusion import fuse, innovation_cov, joseph_with_gain, nis2
 from .model import (
-    FilterState, WaterInputs, chi2_quantile_2dof, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov,
+    FilterState, WaterInputs, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov,
     process_noise, published_rate, unit,
 )
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
@@ -80,7 +80,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
         self._seen: dict[str, float] = {}
         self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
-        self._gate = chi2_quantile_2dof(self.params.gate_probability)  # chi-square, 2 dof
+        self._gate = chi2_quantile(self.params.gate_probability, 2)  # chi-square, 2 dof
         self._t_last_pub: float | None = None
         self._prior: tuple[float, float, float, float] | None = None  # k, d_rad, sigma_k, sigma_d_rad
         self._strong = Hysteresis(self.params.current_strong_kn,
@@ -103,7 +103,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._settled_from = -math.inf  # the Jacobian's low-pass resumes here after a manoeuvre (_slow_inputs)
         self._calfit: CalibrationFit | None = None
         self.water_walk: WaterWalk | None = None  # the walk the published covariance P_pub assumes (see walk)
-        self._cal_gate = chi2_quantile_2dof(self.params.calibration_fit_probability)
+        self._cal_gate = chi2_quantile(self.params.calibration_fit_probability, 2)
         self.cal_health = FusionHealth()  # the calibration fit's fusion step
         self.nis_check = WindowedNis(self.params.nis_check_fixes, 2, self.params.nis_check_probability)
 
@@ -143,8 +143,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         if active:
             self._withheld.add(kind)
             if self.ekf is not None:
-                self.ekf.P[:2, :2] += self.params.reset_current_sigma_kn ** 2 * np.eye(2)
-                self.ekf.P_pub[:2, :2] += self.params.reset_current_sigma_kn ** 2 * np.eye(2)
+                self.ekf.inflate_current(self.params.reset_current_sigma_kn ** 2)
         else:
             self._withheld.discard(kind)
             self._restart_next = self.ekf is not None
@@ -265,13 +264,9 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             if self.consecutive_rejects >= p.rejections_before_reset:
                 self.health.rejected += 1
                 self.health.resets += 1
-                P = P_prior.copy()                                              # inflate, then accept
-                inflation = (p.reset_current_sigma_kn ** 2 + float(y[0, 0] ** 2 + y[1, 0] ** 2) / 2.0) * np.eye(2)
-                P[:2, :2] += inflation
-                ekf.P = P_prior = P
-                ekf.P_pub = ekf.P_pub.copy()
-                ekf.P_pub[:2, :2] += inflation
-                up = fuse(x_prior, P, y, H, R, math.inf, consider)
+                ekf.inflate_current(p.reset_current_sigma_kn ** 2 + float(y[0, 0] ** 2 + y[1, 0] ** 2) / 2.0)
+                P_prior = ekf.P                                                 # inflated, then accepted
+                up = fuse(x_prior, P_prior, y, H, R, math.inf, consider)
         if up.fused:
             self.consecutive_rejects = 0
             ekf.x, ekf.P = up.x, up.P

@@ -43,15 +43,6 @@ class WaterInputs:
     interval_s: float = 1.0        # since the previous fix: the span of these means
 
 
-def chi2_quantile_2dof(p: float) -> float:
-    """Chi-square quantile with 2 degrees of freedom: -2 ln(1 - p), exact.
-
-    With 2 degrees of freedom the chi-square distribution is exponential with mean 2
-    (Abramowitz & Stegun 26.4.20; from memory): CDF 1 - exp(-x/2). p = 0.9973 gives 11.83.
-    """
-    return -2.0 * math.log1p(-p)
-
-
 class FilterState:
     """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays, and beside them
     the covariance it publishes, ``P_pub``: the error covariance of this filter (its gain) if the water walks
@@ -67,6 +58,13 @@ class FilterState:
         self.x = np.zeros((4, 1))
         self.P = np.eye(4)
         self.P_pub = np.eye(4)
+
+    def inflate_current(self, variance_kn2: float) -> None:
+        """Add ``variance_kn2`` to each axis of the current in P and P_pub alike (a reset, a sensor found
+        lying: news to both covariances). New arrays: a caller holding the old P keeps it as it was."""
+        added = np.diag((variance_kn2, variance_kn2, 0.0, 0.0))
+        self.P = self.P + added
+        self.P_pub = self.P_pub + added
 
 
 def unit(angle_rad: float) -> np.ndarray:

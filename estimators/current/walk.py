@@ -61,9 +61,10 @@ from __future__ import annotations
 import math
 from collections import deque
 from dataclasses import dataclass
-from statistics import NormalDist
 
 import numpy as np
+
+from estimators.fusion import chi2_quantile
 
 from .calibration import turned
 from .params import S_PER_H, CurrentParams
@@ -107,11 +108,6 @@ class Series:
     h: np.ndarray
 
 
-def chi2_1_quantile(p: float) -> float:
-    """Chi-square quantile with 1 degree of freedom, exact: the square of the normal's (1 + p) / 2 quantile."""
-    return NormalDist().inv_cdf(0.5 * (1.0 + p)) ** 2
-
-
 def level_loglik(q: np.ndarray, s: Series) -> np.ndarray:
     """Log-likelihood of walks of rates ``q`` (kn^2/s, any number at once) given the block means ``s``, its axes'
     summed (see the module doc: each block a flow, the first diffuse)."""
@@ -148,7 +144,7 @@ def fit_walk(s: Series, ceiling: float, confidence: float) -> WalkFit:
     ll = level_loglik(q, s)
     best = int(np.argmax(ll))
     q_hat, l_hat = _vertex(q, ll, best)
-    threshold = l_hat - 0.5 * chi2_1_quantile(confidence)
+    threshold = l_hat - 0.5 * chi2_quantile(confidence, 1)
     out = np.flatnonzero(ll < threshold)
     up, low = out[out > best], out[out < best]
     upper = _crossing(q, ll, threshold, up[0] - 1, up[0]) if up.size else ceiling

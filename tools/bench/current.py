@@ -135,9 +135,9 @@ def sigma_parts(est: CurrentEstimator, te: float, tn: float, k_true: float, d_tr
 
     The current's error given (k, d) is the conditional mean's: e_c = A e_kd + r with A = P_c,kd P_kd^-1,
     the explained part's covariance A P_kd,c and the rest's P_cc - A P_kd,c (Schur complement), all of
-    the published covariance P_pub (the filter's own P where the estimator has none).
+    the published covariance P_pub.
     """
-    x, P = est.ekf.x[:, 0], getattr(est.ekf, "P_pub", est.ekf.P)
+    x, P = est.ekf.x[:, 0], est.ekf.P_pub
     e_c = np.array([x[0] - te, x[1] - tn])
     A = P[:2, 2:] @ np.linalg.inv(P[2:, 2:])
     e_cal = A @ np.array([x[2] - k_true, x[3] - d_true_rad])
