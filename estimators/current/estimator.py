@@ -270,7 +270,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         if up.fused:
             self.consecutive_rejects = 0
             ekf.x, ekf.P = up.x, up.P
-            ekf.P_pub = joseph_with_gain(ekf.P_pub, up.gain, H, R)           # the same step, the filter's gain
+            # the same step, the filter's gain, with the noise the water's blocks show (``walk``)
+            ekf.P_pub = joseph_with_gain(ekf.P_pub, up.gain, H, R * self.water_walk.noise_scale)
             if not w.turning:
                 self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0, 0], R[1, 1],
                                     float(up.x[IK, 0]), float(up.x[ID, 0]))

@@ -72,7 +72,8 @@ from .params import S_PER_H, CurrentParams
 MIN_BLOCK_FIXES = 5        # a block with fewer fixes (a short stretch between turns) is dropped
 GRID_DECADES = 6.0         # the grid in ln q spans the configured walk's rate down to 1e-6 of it (and 0)
 GRID_POINTS = 97           # 1/16 decade (15 %) apart: the interval's ends interpolated to about 1 %
-GAP_TOLERANCE_S = 1e-3     # a fix whose interval starts later than the last one added follows a gap
+GAP_TOLERANCE_S = 1e-3
+NOISE_SCALES = np.logspace(math.log10(0.25), 0.0, 13)  # the means' noise over R's: 1/4 to 1, 12 % apart     # a fix whose interval starts later than the last one added follows a gap
 
 
 @dataclass(frozen=True, slots=True)
@@ -95,6 +96,7 @@ class WalkFit:
     lower: float
     upper: float
     blocks: int
+    noise_scale: float = 1.0  # the means' noise over what R says, maximum likelihood (1 where not read)
 
 
 @dataclass(frozen=True, slots=True)
@@ -108,16 +110,18 @@ class Series:
     h: np.ndarray
 
 
-def level_loglik(q: np.ndarray, s: Series) -> np.ndarray:
+def level_loglik(q: np.ndarray, s: Series, noise_scale: np.ndarray | None = None) -> np.ndarray:
     """Log-likelihood of walks of rates ``q`` (kn^2/s, any number at once) given the block means ``s``, its axes'
-    summed (see the module doc: each block a flow, the first diffuse)."""
+    summed (see the module doc: each block a flow, the first diffuse); with ``noise_scale`` (as many as ``q``,
+    pairwise) the means' noise variances are ``h`` times it."""
     q = np.asarray(q, dtype=float)[None, :]
+    scale = np.ones_like(q) if noise_scale is None else np.asarray(noise_scale, dtype=float)[None, :]
     span = s.t1 - s.t0
     walk_gap = np.maximum(0.0, s.t0[1:] - s.t1[:-1])[:, None] * q   # per block: q gap, q T, q T / 3 + h
     walk_span = span[1:, None] * q
-    walk_mean = [walk_span[b] / 3.0 + s.h[:, b + 1:b + 2] for b in range(len(span) - 1)]
+    walk_mean = [walk_span[b] / 3.0 + s.h[:, b + 1:b + 2] * scale for b in range(len(span) - 1)]
     mu = s.y[:, :1] + 0.0 * q                                       # the level at the first block's end
-    P = q * (span[0] / 3.0) + s.h[:, :1]
+    P = q * (span[0] / 3.0) + s.h[:, :1] * scale
     F_all, z_all = [], []
     for b in range(len(span) - 1):
         P = P + walk_gap[b]                                         # the gap to this block's start
@@ -133,15 +137,19 @@ def level_loglik(q: np.ndarray, s: Series) -> np.ndarray:
     return -0.5 * (np.sum(np.log(2.0 * math.pi * np.array(F_all)), axis=(0, 1)) + np.sum(z_all, axis=(0, 1)))
 
 
-def fit_walk(s: Series, ceiling: float, confidence: float) -> WalkFit:
+def fit_walk(s: Series, ceiling: float, confidence: float, noise_scales: np.ndarray = np.ones(1)) -> WalkFit:
     """The walk's rate (kn^2/s) shared by the axes of ``s``: maximum likelihood within [0, ``ceiling``] and the
-    likelihood-ratio interval at ``confidence``, its ends clipped to that range.
+    likelihood-ratio interval at ``confidence``, its ends clipped to that range; with the means' noise
+    scaled by the best of ``noise_scales`` (the interval then from the profile likelihood over the scale).
 
-    Every rate of a grid in ln q (and 0) at once; the maximum is the parabola's through the best point and its
-    neighbours (in ln q), an end of the interval the crossing interpolated in ln q between the points either side.
+    Every rate of a grid in ln q (and 0) and every scale at once; the maximum is the parabola's through the best
+    point and its neighbours (in ln q, and in ln scale for the scale), an end of the interval the crossing
+    interpolated in ln q between the points either side.
     """
     q = np.concatenate([[0.0], ceiling * np.logspace(-GRID_DECADES, 0.0, GRID_POINTS)])
-    ll = level_loglik(q, s)
+    scales = np.asarray(noise_scales, dtype=float)
+    grid = level_loglik(np.tile(q, len(scales)), s, np.repeat(scales, len(q))).reshape(len(scales), len(q))
+    ll = grid.max(axis=0)                                           # the profile over the noise's scale
     best = int(np.argmax(ll))
     q_hat, l_hat = _vertex(q, ll, best)
     threshold = l_hat - 0.5 * chi2_quantile(confidence, 1)
@@ -149,12 +157,13 @@ def fit_walk(s: Series, ceiling: float, confidence: float) -> WalkFit:
     up, low = out[out > best], out[out < best]
     upper = _crossing(q, ll, threshold, up[0] - 1, up[0]) if up.size else ceiling
     lower = _crossing(q, ll, threshold, low[-1] + 1, low[-1]) if low.size else 0.0
-    return WalkFit(q_hat, lower, max(upper, q_hat), s.y.shape[1])
+    scale_hat, _ = _vertex(scales, grid[:, best], int(np.argmax(grid[:, best])))
+    return WalkFit(q_hat, lower, max(upper, q_hat), s.y.shape[1], scale_hat)
 
 
 def _vertex(q: np.ndarray, ll: np.ndarray, i: int) -> tuple[float, float]:
     """The maximum of the parabola in ln q through points i - 1, i, i + 1 (the point itself at an end or at 0)."""
-    if i < 2 or i + 1 >= len(q):
+    if i < 1 or i + 1 >= len(q) or q[i - 1] <= 0.0:
         return float(q[i]), float(ll[i])
     x = np.log(q[i - 1:i + 2])
     a, b, c = np.polyfit(x, ll[i - 1:i + 2], 2)
@@ -176,13 +185,15 @@ class WaterWalk:
     """Blocks of the measured current over a sliding window, and the walk they show (see the module doc).
 
     ``rate`` (kn^2/s per axis) is what the published covariance walks at: the configured walk until the
-    window holds ``water_walk_min_blocks`` blocks, then the interval's upper end, never above it.
+    window holds ``water_walk_min_blocks`` blocks, then the interval's upper end, never above it;
+    ``noise_scale`` what its measurement noise is, over the filter's R: 1, then the one read with the walk.
     """
 
     def __init__(self, params: CurrentParams) -> None:
         self.params = params
         self.ceiling = params.current_walk_kn_per_sqrt_h ** 2 / S_PER_H
         self.rate = self.ceiling
+        self.noise_scale = 1.0
         self.blocks: deque[WalkBlock] = deque()
         self.last: WalkFit | None = None
         self._t_last = -math.inf
@@ -224,15 +235,16 @@ class WaterWalk:
     def _read(self, k: float, d_rad: float) -> None:
         """The walk over the window's blocks, the current measured with the filter's k and d now."""
         if len(self.blocks) < self.params.water_walk_min_blocks:
-            self.rate, self.last = self.ceiling, None
+            self.rate, self.noise_scale, self.last = self.ceiling, 1.0, None
             return
         blocks = self.blocks
         m = np.array([turned(b.m, d_rad) for b in blocks]).T                  # R(d) m, (east, north) x blocks
         series = Series(np.array([b.t0_s for b in blocks]), np.array([b.t1_s for b in blocks]),
                         np.array([b.g for b in blocks]).T - k * m,            # c = g - k R(d) m
                         np.array([b.h for b in blocks]).T)
-        self.last = fit_walk(series, self.ceiling, self.params.water_walk_confidence)
+        self.last = fit_walk(series, self.ceiling, self.params.water_walk_confidence, NOISE_SCALES)
         self.rate = min(self.ceiling, self.last.upper)
+        self.noise_scale = self.last.noise_scale
 
     @property
     def walk_kn_per_sqrt_h(self) -> float:
