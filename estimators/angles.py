@@ -49,3 +49,10 @@ def to_east_north(speed: float, toward_deg: float) -> tuple[float, float]:
 def from_east_north(east: float, north: float) -> tuple[float, float]:
     """(speed, toward_deg) of an (east, north) vector."""
     return math.hypot(east, north), wrap_360(math.degrees(math.atan2(east, north)))
+
+
+def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
+    """The vector m (east, north) turned clockwise by d: u(psi + d) = R(d) u(psi)."""
+    e, n = m
+    cd, sd = math.cos(d_rad), math.sin(d_rad)
+    return e * cd + n * sd, -e * sd + n * cd

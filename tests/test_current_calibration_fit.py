@@ -12,7 +12,8 @@ import math
 import numpy as np
 
 from estimators.current import CurrentParams
-from estimators.current.calibration import Block, CalibrationFit, excess_variance, turned
+from estimators.angles import turned
+from estimators.current.calibration import Block, CalibrationFit, excess_variance
 
 K_TRUE, D_TRUE_DEG, STW_KN = 1.05, 2.0, 6.0
 BLOCK_S = 60.0
@@ -20,12 +21,15 @@ PARAMS = CurrentParams()
 PARAMS_WALK = PARAMS.current_walk_kn_per_sqrt_h
 
 
-def blocks(seed: int, hours: float, walk_kn_per_sqrt_h: float, leg_s: float) -> list[Block]:
-    """One-minute blocks on legs of 0 and 90 deg alternating every ``leg_s``, over a current that walks."""
+def blocks(seed: int, hours: float, walk_kn_per_sqrt_h: float, leg_s: float, noise_over_model: float = 1.0
+           ) -> list[Block]:
+    """One-minute blocks on legs of 0 and 90 deg alternating every ``leg_s``, over a current that walks, with
+    the sensors' noise variance ``noise_over_model`` times the fit's model of it."""
     rng = np.random.default_rng(seed)
     # the block's noise as the fit models it (it depends on the speed and the log scale, not the course)
     probe = Block(0.0, (0.0, 0.0), (0.0, STW_KN / K_TRUE), STW_KN / K_TRUE, 60)
-    sensor_sd = math.sqrt(CalibrationFit(PARAMS, (1.0, 0.0, 0.05, 0.05)).sensor_variances([probe], K_TRUE)[0])
+    sensor_sd = math.sqrt(noise_over_model * CalibrationFit(PARAMS, (1.0, 0.0, 0.05, 0.05)).sensor_variances(
+        [probe], K_TRUE)[0])
     ce, cn = 0.6, -0.8
     out = []
     for i in range(int(hours * 3600 / BLOCK_S)):
@@ -86,6 +90,21 @@ def test_a_few_blocks_stay_near_the_params_walk():
         # "Bayesian Data Analysis", sect. 3.3, from memory); the long one reads the steady water's
         assert 0.5 * PARAMS_WALK < few.water_walk_kn_per_sqrt_h <= 1.5 * PARAMS_WALK, few.water_walk_kn_per_sqrt_h
         assert many.water_walk_kn_per_sqrt_h < 0.5 * few.water_walk_kn_per_sqrt_h
+
+
+def test_sensors_quieter_than_modelled_narrow_the_sigma_as_the_residuals_show():
+    # GIVEN three hours of half-hour legs over steady water, the sensors' noise variance half of the fit's model
+    # (a seaway calmer than the params assume), 40 seeds
+    zk, zd = [], []
+    for seed in range(40):
+        r = fitted(blocks(100 + seed, 3.0, 0.0, 1800.0, noise_over_model=0.5))
+        zk.append((r.k - K_TRUE) / math.sqrt(r.cov[0, 0]))
+        zd.append((math.degrees(r.d_rad) - D_TRUE_DEG) / math.degrees(math.sqrt(r.cov[1, 1])))
+    # THEN the fit's sigma follows the noise the residuals show, not the model's: the mean z^2 of the log scale
+    # and the offset near 1 (40 draws: a chi-square of 40 dof over 40 lies in 0.6-1.5 at 99 %), where sigmas
+    # from the model's noise give about half
+    assert 0.6 < np.mean(np.square(zk)) < 1.5, np.mean(np.square(zk))
+    assert 0.6 < np.mean(np.square(zd)) < 1.5, np.mean(np.square(zd))
 
 
 M2_PERIOD_H = 12.4206  # the principal lunar semidiurnal constituent's period (NOAA's tidal constituent tables; from memory)

@@ -82,11 +82,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from estimators.angles import turned
+
 from .params import CurrentParams
+from .walk import NOISE_SCALES, Series, fit_walk
 
 S_PER_H = 3600.0
 CURRENT_TERMS = 3  # c0, c1 t, c2 t^2 per axis
 MODEL_ERROR_ITERATIONS = 8  # refits while the model error read from the residuals settles (a few)
+TIDAL_RAD_PER_H = 2.0 * math.pi / 12.4206  # M2, the principal lunar semidiurnal constituent (see tidal_remainder)
+RESIDUAL_WALK_MIN_BLOCKS = 20  # fewer: the walk as the sum of squares reads it (a window of 13 blocks read 0.08-0.37
+                               # kn/sqrt(h) of a 0.25 walk from its residuals' order, the noise traded against it)
+RESIDUAL_WALK_CEILING = 25.0  # the covariance's walk is read up to 5 x the params' (in kn/sqrt(h)): never capped in use
 
 
 @dataclass(frozen=True, slots=True)
@@ -112,13 +119,8 @@ class FitResult:
     heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
     water_walk_kn_per_sqrt_h: float  # per axis: the current's walk over the window as the fit read it (with the params' as prior)
     whole: bool = False       # the window still holds every block since the fit began (none dropped off its start)
-
-
-def turned(m: tuple[float, float], d_rad: float) -> tuple[float, float]:
-    """The vector m (east, north) turned clockwise by d: u(psi + d) = R(d) u(psi)."""
-    e, n = m
-    cd, sd = math.cos(d_rad), math.sin(d_rad)
-    return e * cd + n * sd, -e * sd + n * cd
+    noise_shown: float = 1.0  # the blocks' noise as the residuals show it, over the sensors' model (not applied, see fit)
+    covariance_walk_kn_per_sqrt_h: float = 0.0  # per axis: the walk the covariance counts, as the residuals show it
 
 
 def spread_deg(blocks: list[Block]) -> float:
@@ -207,15 +209,38 @@ class CalibrationFit:
             solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], trend_w, k, d)
             if solved is None:
                 return None
-            k, d, A, res, J = solved
+            k, d, A, res, J, c = solved
             read = excess_variance(res, sensor, dof) / quadratic_residual_var(1.0, span_s)
             settled = shrunk_walk(walk0, self.params.calibration_walk_prior_dof, read, dof)
             if abs(settled - walk) <= 0.01 * walk + 1e-9:
                 break
         chi2_red = float(np.sum(res ** 2 / v)) / dof
-        cov = walk_consider_cov(A, J, v, sensor, walk, blocks)[n_cur:, n_cur:] * max(1.0, chi2_red)
-        self.last = FitResult(k, d, cov, chi2_red, len(blocks), spread_deg(blocks), math.sqrt(walk), not self.dropped)
+        noise_shown, walk_shown = 1.0, walk                                 # too few blocks to read two things
+        if len(blocks) >= RESIDUAL_WALK_MIN_BLOCKS:
+            shown = self._residual_walk(blocks, res, sensor)
+            noise_shown, walk_shown = shown.noise_scale, shown.upper * S_PER_H  # kn^2/h
+        # the sensors' part keeps their model's width, quieter as the residuals may show them: what a leg's
+        # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either
+        cov = walk_consider_cov(A, J, v, sensor, walk_shown, blocks, tidal_remainder(blocks, c))
+        self.last = FitResult(k, d, cov[n_cur:, n_cur:] * max(1.0, chi2_red), chi2_red, len(blocks),
+                              spread_deg(blocks), math.sqrt(walk), not self.dropped, noise_shown, math.sqrt(walk_shown))
         return self.last
+
+    def _residual_walk(self, blocks: list[Block], res: np.ndarray, sensor: np.ndarray):
+        """The walk and the sensors' scale the blocks' residuals show in time (``walk.fit_walk``: a local level
+        model, each block a flow), the walk the upper end of its interval at ``water_walk_confidence``.
+
+        What the fit's current cannot follow of the water's walk makes neighbouring residuals alike and far ones
+        apart; the sensors' noise is independent from block to block. The residuals' sum of squares alone cannot
+        tell the two apart (``excess_variance`` reads the walk only beside noise as modelled), their order in time
+        can: over three hours of steady water the interval's upper end lies near 0.01 kn/sqrt(h) where the excess
+        reads about 0.06 (tests/test_current_calibration_fit.py).
+        """
+        nb, half = len(blocks), 0.5 * self.params.calibration_block_s
+        t = np.array([b.t_s for b in blocks])
+        series = Series(t - half, t + half, res.reshape(2, nb), sensor.reshape(2, nb))
+        ceiling = RESIDUAL_WALK_CEILING * self.params.current_walk_kn_per_sqrt_h ** 2 / S_PER_H
+        return fit_walk(series, ceiling, self.params.water_walk_confidence, NOISE_SCALES)
 
     def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float
                       ) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
@@ -264,7 +289,7 @@ class CalibrationFit:
         Re, Rn = M[:, 0] * cd + M[:, 1] * sd, -M[:, 0] * sd + M[:, 1] * cd
         ce = sum(c[2 * j] * tau ** j for j in range(CURRENT_TERMS))
         cn = sum(c[2 * j + 1] * tau ** j for j in range(CURRENT_TERMS))
-        return k, d, A, np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn]), J[:2 * nb]
+        return k, d, A, np.concatenate([G[:, 0] - ce - k * Re, G[:, 1] - cn - k * Rn]), J[:2 * nb], c
 
     def _walk_weights(self, walk: float, span_s: float) -> np.ndarray:
         """Weights of the prior c1 = c2 = 0 (per axis), from how far the current may walk over the window.
@@ -315,7 +340,7 @@ def quadratic_residual_var(walk: float, span_s: float) -> float:
 
 
 def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray, sensor: np.ndarray, walk: float,
-                      blocks: list[Block]) -> np.ndarray:
+                      blocks: list[Block], unmodelled: np.ndarray | None = None) -> np.ndarray:
     """The fit's covariance with the current's walk counted as what it is: one path shared by all blocks.
 
     The weights (``v``) count the walk the quadratic cannot follow as a variance of its own in each block,
@@ -343,7 +368,33 @@ def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray, sensor: np.nd
     for axis in (slice(0, nb), slice(nb, 2 * nb)):
         later = np.cumsum(H[:, axis][:, ::-1], axis=1)[:, ::-1]             # sum_{i >= j} h_i
         cov += walk * (later * steps) @ later.T
+    if unmodelled is not None:                                              # terms the model leaves out, at 1 sigma
+        moved = H @ unmodelled
+        cov += moved @ moved.T
     return cov
+
+
+def tidal_remainder(blocks: list[Block], c: np.ndarray) -> np.ndarray:
+    """The fitted current's cubic and quartic terms had it been a semidiurnal tidal stream: columns (2 nb x 4) of
+    the data those terms would add, each at one sigma (east cubic, north cubic, east quartic, north quartic).
+
+    A stream c(t) = A cos(omega t + phi) about the window's middle has slope c1 = -A omega sin(phi) and
+    curvature c2 = -A omega^2 cos(phi) / 2, and so a cubic term c3 = -omega^2 c1 / 6 and a quartic
+    c4 = -omega^2 c2 / 12 (its Taylor series). The quadratic cannot follow them, the residuals hardly show
+    them (they alias into k and d, which alternate leg by leg), so the covariance counts them as unmodelled
+    terms of that size, at the principal lunar semidiurnal period (M2, 12.42 h, NOAA's tidal constituent
+    tables; from memory), the fastest common one. A steady current's fitted slope and curvature are noise,
+    and so are these.
+    """
+    t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
+    tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
+    nb, w2 = len(blocks), TIDAL_RAD_PER_H ** 2
+    out = np.zeros((2 * nb, 4))
+    for axis in (0, 1):
+        rows = slice(axis * nb, (axis + 1) * nb)
+        out[rows, axis] = w2 * abs(c[2 + axis]) / 6.0 * tau ** 3
+        out[rows, 2 + axis] = w2 * abs(c[4 + axis]) / 12.0 * tau ** 4
+    return out
 
 
 def excess_variance(res: np.ndarray, v: np.ndarray, dof: int) -> float:

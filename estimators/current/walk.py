@@ -64,9 +64,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from estimators.angles import turned
 from estimators.fusion import chi2_quantile
 
-from .calibration import turned
 from .params import S_PER_H, CurrentParams
 
 MIN_BLOCK_FIXES = 5        # a block with fewer fixes (a short stretch between turns) is dropped
