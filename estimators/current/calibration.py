@@ -58,7 +58,26 @@ and water walking faster than the params say earns a larger one, with no cap.
 The prior on the current's slope and curvature follows the larger of the two
 walks: never tighter than the params allow (a tidal stream's smooth turn shows
 as curvature, not in the residuals, and a tighter trend would alias it into
-k and d), looser when the window walks faster.
+k and d), looser when the window walks faster. That walk sets the weights.
+
+The covariance's model error, read from the residuals' order in time. The sum
+of squares cannot tell a small walk from none (over three hours of steady water
+the shrunk read above stays near 0.04-0.06 kn/sqrt(h), the prior's weight, and
+made the sigma about 1.4 times the errors), the residuals' order can: a walk
+makes neighbouring blocks alike, the sensors' noise does not. So once the
+window holds ``RESIDUAL_WALK_MIN_BLOCKS`` blocks the walk the covariance
+counts is the upper end of the likelihood-ratio interval of a local level
+model over the residuals (``walk.fit_walk``, the same model and confidence as
+the published sigma's, the noise's scale read with it), about 0.01 kn/sqrt(h)
+over three hours of steady water. A smooth tidal stream hardly shows in the
+residuals (it aliases into k and d, which alternate leg by leg), so the
+covariance also counts the cubic and quartic terms a semidiurnal stream with
+the fitted slope and curvature would have (``tidal_remainder``). The sensors'
+part keeps their modelled width even where the residuals show them quieter
+(their reduced chi-square is about 0.4 on the simulator's realistic seaway): a
+leg's systematic errors, leeway and a yawing compass's bias, move k and d
+without showing in the residuals either (a beat's first tacks put the offset
+2.5-2.9 sigma off with the sensors' part scaled to the residuals).
 
 Feeding the filter. A fit whose (k, d) covariance Sigma is smaller than the
 filter's own marginal P_kd is fused as a measurement of (k, d) with
