@@ -74,7 +74,10 @@ carries P_pub, the error covariance of this same filter (its gain, its consider
 structure, Joseph form for any gain: ``fusion.joseph_with_gain``) if the water
 walks at the rate the last ``water_walk_window_h`` of measured current shows
 (``walk``: a local level model's likelihood, the upper end of its interval, never
-above the configured walk), plus the change detector's inflation. Every reset,
+above the configured walk), plus the change detector's inflation, and if the
+measurement noise is what the same blocks show of it (R times the scale read
+with the walk, between 1/4 and 1: a realistic seaway's minute means sit at about
+0.75 of R's). Every reset,
 inflation and restart of P is done to P_pub as well; P - P_pub stays positive
 semidefinite. ``set_sigma_deg``, ``drift_sigma_kn`` and the vector sigma that
 ``quality`` holds against its thresholds come from P_pub; the gate, the NIS test,

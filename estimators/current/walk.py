@@ -46,6 +46,17 @@ both axes share q (the filter's Q is the same on both), so their
 log-likelihoods add. It is maximised over q in [0, the configured walk] (every rate of a
 grid in ln q at once; numpy's cost is per step, hardly per rate).
 
+The noise. R is a model of the instruments' noise, set for a seaway; in
+calmer water (or with better instruments) the means scatter less than R says,
+and a covariance built on R stays wider than the errors (the simulator's
+realistic beat: 0.75 of R's). So the means' variance is read as well, as h_b
+times a scale s in [1/4, 1] (``NOISE_SCALES``), by maximum likelihood jointly
+with q: a walk makes neighbouring means alike and far ones apart, noise does
+not, so the two are told apart by the means' order. q's interval is then the
+profile likelihood's (maximised over s at each q; Wilks's theorem holds for it
+too), and P_pub's update takes R s. Never above 1: in a rougher sea than R
+says the windowed NIS test says so (``degraded``), and P_pub stays within P.
+
 Published: the upper end of the likelihood-ratio interval {q : 2 (l(q_hat) -
 l(q)) <= chi2_1(c)} at c = ``water_walk_confidence`` (Wilks, "The large-sample
 distribution of the likelihood ratio for testing composite hypotheses", Ann.
