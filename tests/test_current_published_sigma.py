@@ -19,7 +19,7 @@ from scipy.stats import multivariate_normal
 from estimators.current import IE, IN, CurrentEstimator, CurrentParams
 from estimators.current import control, estimator
 from estimators.current.walk import NOISE_SCALES, Series, fit_walk, level_loglik
-from estimators.runner import run
+from estimators.runner import RunContext, run
 from estimators.samples import Fix
 from tests.synth import synth_passage, tacking_legs
 
@@ -217,6 +217,22 @@ def test_fast_water_publishes_the_configured_walk():
     # ... and the published covariance is the filter's own, to rounding
     P, P_pub = rows[-1][2], rows[-1][3]
     np.testing.assert_allclose(P_pub, P, rtol=1e-6, atol=1e-12)
+
+
+def test_the_current_payload_carries_the_walk_and_the_noise_behind_its_sigmas():
+    # GIVEN 40 minutes of a tacking passage over water walking 0.05 kn/sqrt(h), run with its publications
+    syn = synth_passage(31, 2400, tacking_legs(2400, 900), walk_kn_per_sqrt_h=0.05)
+    est = CurrentEstimator(CurrentParams(**WHITE))
+    ctx = RunContext()
+    for _ in run(est, syn.samples, ctx):
+        pass
+    payload = ctx.latest("current").payload
+    # THEN the payload says the walk and the noise scale the published covariance assumed at the end
+    assert est.water_walk.last is not None
+    assert payload["water_walk_kn_per_sqrt_h"] == round(est.water_walk.walk_kn_per_sqrt_h, 3)
+    assert payload["water_walk_kn_per_sqrt_h"] < CONFIGURED
+    assert payload["noise_scale"] == round(est.water_walk.noise_scale, 2)
+    assert 0.25 <= payload["noise_scale"] <= 1.0
 
 
 def test_the_walk_is_the_configured_one_until_the_window_holds_enough_blocks():

@@ -84,6 +84,8 @@ class Publisher:
             "stale_inputs": self._stale_inputs(t),
             "log": self._log_state,
             "q_inflation": round(self.q_inflation, 2),
+            "water_walk_kn_per_sqrt_h": round(self.water_walk.walk_kn_per_sqrt_h, 3),
+            "noise_scale": round(self.water_walk.noise_scale, 2),
             "health": self.health.as_dict(),
         }
         out: list[Output] = [Publication(t, TOPIC, payload)]
