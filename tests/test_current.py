@@ -269,3 +269,24 @@ def test_turn_hold_lasts_turn_settle_s_beyond_the_turn():
     assert held45 == [held45[0] + i for i in range(len(held45))] and held45[-1] == held0[-1] + 44.0
     # ... while the fixes before the turn were fused alike in both runs
     assert [t for t in fused45 if t < 300.0] == [t for t in fused0 if t < 300.0]
+
+
+def test_a_calibration_step_holds_valid_back_while_the_current_settles():
+    # GIVEN an hour of 20-minute tacks with the log 6 % slow and the compass 3 deg low (the synthetic passage)
+    p = CurrentParams()
+    syn = synth_passage(17, 3600, tacking_legs(3600, 1200))
+    est = CurrentEstimator(p)
+    pubs = [o for o in drive(est, syn.samples)[0] if o.topic == "current" and o.payload["stw_scale"] is not None]
+    # WHEN the calibration fits move the log scale or the compass offset by more than their new sigma
+    steps = [b.t_s for a, b in zip(pubs, pubs[1:])
+             if abs(b.payload["stw_scale"] - a.payload["stw_scale"]) > b.payload["stw_scale_sigma"]
+             or abs(b.payload["heading_offset_deg"] - a.payload["heading_offset_deg"])
+             > b.payload["heading_offset_sigma_deg"]]
+    assert steps, "no calibration step on a tacking passage"
+    # THEN for calibration_settle_s after each the current is never 'valid', and says why (the first publication
+    # to show a step comes up to a second after the fix that made it: the publications are each second)
+    settling = [q for q in pubs if any(0.0 <= q.t_s - t < p.calibration_settle_s - 1.0 for t in steps)]
+    assert settling and all(q.payload["quality"] != "valid" for q in settling)
+    assert any("relearnt" in q.payload["quality_reason"] for q in settling)
+    # ... and 'valid' is said again once it has passed (the step does not hold the quality back for good)
+    assert pubs[-1].payload["quality"] == "valid"

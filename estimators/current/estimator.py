@@ -100,6 +100,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._fast: tuple[float, float, float, float] | None = None
         self._turn_since: float | None = None
         self._turn_ended = -math.inf    # the last epoch of a turn (the hold's settling, _turn_hold)
+        self._calibration_stepped = -math.inf  # the last fit that moved k or d beyond its new sigma (publication)
         self._settled_from = -math.inf  # the Jacobian's low-pass resumes here after a manoeuvre (_slow_inputs)
         self._calfit: CalibrationFit | None = None
         self.water_walk: WaterWalk | None = None  # the walk the published covariance P_pub assumes (see walk)

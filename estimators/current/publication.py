@@ -56,6 +56,8 @@ class Publisher:
                                 f"is raised {self.q_inflation:.0f} x until the innovations settle")
         if sigma_vec > p.valid_sigma_kn:
             return "converging", "uncertainty above the valid threshold"
+        if t < self._calibration_stepped + p.calibration_settle_s:
+            return "converging", "the log scale or the compass offset has just been relearnt: the current is settling"
         return "valid", ""
 
     def _publish(self, t: float) -> list[Output]:
