@@ -38,6 +38,8 @@ _BY_NAME: dict[str, int] = {
     "stw_scale": 4,           # 0.01 % of the log's reading
     "stw_scale_sigma": 4,
     "q_inflation": 2,
+    "water_walk_kn_per_sqrt_h": 3,  # the water's walk behind the published sigma: 0.001 kn/sqrt(h) tells steady water
+    "noise_scale": 2,         # the instruments' noise over the filter's model of it, 1/4 to 1
     "hdop": 1,                # GGA sends HDOP to 0.1
     "last_seen": 3,           # UNIX seconds to the millisecond, as the payload's time
     "sensors": 1,             # status: each feed's age, s
