@@ -72,7 +72,10 @@ the published sigma's, the noise's scale read with it), about 0.01 kn/sqrt(h)
 over three hours of steady water. A smooth tidal stream hardly shows in the
 residuals (it aliases into k and d, which alternate leg by leg), so the
 covariance also counts the cubic and quartic terms a semidiurnal stream with
-the fitted slope and curvature would have (``tidal_remainder``). The sensors'
+the fitted slope and curvature would have (``tidal_remainder``). A step (a
+current band's edge) reads small in time order and large in the sum of squares:
+where the residuals' excess over the sensors is significant (``EXCESS_SIGMAS``)
+the larger of the two walks is counted. The sensors'
 part keeps their modelled width even where the residuals show them quieter
 (their reduced chi-square is about 0.4 on the simulator's realistic seaway): a
 leg's systematic errors, leeway and a yawing compass's bias, move k and d
@@ -112,7 +115,8 @@ MODEL_ERROR_ITERATIONS = 8  # refits while the model error read from the residua
 TIDAL_RAD_PER_H = 2.0 * math.pi / 12.4206  # M2, the principal lunar semidiurnal constituent (see tidal_remainder)
 RESIDUAL_WALK_MIN_BLOCKS = 20  # fewer: the walk as the sum of squares reads it (a window of 13 blocks read 0.08-0.37
                                # kn/sqrt(h) of a 0.25 walk from its residuals' order, the noise traded against it)
-RESIDUAL_WALK_CEILING = 25.0  # the covariance's walk is read up to 5 x the params' (in kn/sqrt(h)): never capped in use
+RESIDUAL_WALK_CEILING = 400.0  # the covariance's walk is read up to 20 x the params' (in kn/sqrt(h), 5 kn/sqrt(h))
+EXCESS_SIGMAS = 3.0  # the residuals' chi-square against the sensors alone this many of its sds above its dof: an excess
 
 
 @dataclass(frozen=True, slots=True)
@@ -237,7 +241,12 @@ class CalibrationFit:
         noise_shown, walk_shown = 1.0, walk                                 # too few blocks to read two things
         if len(blocks) >= RESIDUAL_WALK_MIN_BLOCKS:
             shown = self._residual_walk(blocks, res, sensor)
-            noise_shown, walk_shown = shown.noise_scale, shown.upper * S_PER_H  # kn^2/h
+            noise_shown = shown.noise_scale
+            # a step (a current band's edge) is no random walk: its order in time reads it small, its sum of
+            # squares does not miss it; where the residuals' excess over the sensors is significant, the larger
+            walk_shown = shown.upper * S_PER_H                              # kn^2/h
+            if float(np.sum(res ** 2 / sensor)) > dof + EXCESS_SIGMAS * math.sqrt(2.0 * dof):
+                walk_shown = max(walk_shown, walk)
         # the sensors' part keeps their model's width, quieter as the residuals may show them: what a leg's
         # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either
         cov = walk_consider_cov(A, J, v, sensor, walk_shown, blocks, tidal_remainder(blocks, c))
