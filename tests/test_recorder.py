@@ -152,6 +152,20 @@ def test_a_lazy_and_thinned_read_gives_what_the_full_read_gives(tmp_path_factory
     assert thin == [m for m in full if not_status(m.topic, m.t_s)]
 
 
+def test_an_alert_payload_with_odd_types_is_recorded_whole(tmp_path):
+    # GIVEN an alert whose payload holds a list and a number where the alert table keeps text (the property
+    # test above found {'since': []}: bound to the table it failed the commit of the whole batch)
+    path = tmp_path / "m.sqlite"
+    writer = RecordingWriter(path, now_utc=T0)
+    writer.add_message(Message(T0, "offwatch/position", {"lat": 41.2}, False, 0, "state"))
+    writer.add_message(Message(T0 + 1, "offwatch/alerts/x", {"since": [], "priority": 3, "text": "t"}, False, 0, "alert"))
+    writer.close()
+    # THEN both messages are kept, the alert's payload whole in its JSON
+    kept = list(iter_messages(path))
+    assert [m.topic for m in kept] == ["offwatch/position", "offwatch/alerts/x"]
+    assert dict(kept[1].payload) == {"since": [], "priority": 3, "text": "t"}
+
+
 def test_a_lazy_payload_that_cannot_be_decoded_is_an_input_error_when_read():
     payload = recorder.LazyPayload('{"lat": 41.2, "lon": ')  # cut off
     with pytest.raises(InputError, match="cannot be decoded"):

@@ -404,6 +404,11 @@ class RecorderStats:
     pragmas: dict[str, Any] = field(default_factory=dict)
 
 
+def _text_or_none(value: Any) -> str | None:
+    """A payload's value for a text column: a string as it is, anything else nothing (it stays in the JSON)."""
+    return value if isinstance(value, str) else None
+
+
 class RecordingWriter:
     """One recording file and its one connection, driven by one thread (no locking here).
 
@@ -466,8 +471,10 @@ class RecordingWriter:
         if msg.kind == "alert":
             payload = msg.payload
             alert_id = payload.get("id") or msg.topic.rsplit("/", 1)[-1]
-            self.pending_alerts.append((msg.t_s, str(alert_id), payload.get("priority"), payload.get("state"),
-                                        payload.get("text"), payload.get("since"), msg.topic, text))
+            # the alert table's columns are text: anything else in a payload stays in its JSON only (a list
+            # bound there failed the whole batch's commit)
+            self.pending_alerts.append((msg.t_s, str(alert_id), *(_text_or_none(payload.get(key)) for key in
+                                        ("priority", "state", "text", "since")), msg.topic, text))
 
     def set_config(self, effective: Mapping[str, Any], now_utc: float | None = None) -> None:
         self.pending_meta["config"] = _dumps(dict(effective))
