@@ -52,6 +52,25 @@ def test_never_a_negative_zero():
     assert "-0" not in text and json.loads(text) == {"east_kn": 0.0, "north_kn": 0.0, "set_deg": 0.0}
 
 
+def test_a_value_seen_before_is_published_as_it_was_rounded_for_its_own_field():
+    # the payload layer keeps what it rounded by value and field: the same value under another
+    # field gets that field's decimals, a -0.0 after a 0.0 is still 0.0 (a NaN is still null)
+    first = payload(1.0, {"drift_kn": 1.23456, "set_deg": 1.23456, "north_kn": 0.0, "x": float("nan")})
+    again = payload(2.0, {"set_deg": 1.23456, "drift_kn": 1.23456, "north_kn": -0.0, "x": float("nan"),
+                          "age_s": {"fix": 1.23456}})
+    assert first == {"time": "1970-01-01T00:00:01.000Z", "drift_kn": 1.23, "set_deg": 1.2, "north_kn": 0.0, "x": None}
+    assert again == {"time": "1970-01-01T00:00:02.000Z", "set_deg": 1.2, "drift_kn": 1.23, "north_kn": 0.0, "x": None,
+                     "age_s": {"fix": 1.2}}
+    assert repr(again["north_kn"]) == "0.0"  # not "-0.0"
+    # and every field as round() gives it (Python's correctly rounded round, the reference), on random values
+    rng = random.Random(5)
+    values = [rng.uniform(-1e4, 1e4) for _ in range(300)] + [rng.randrange(-999, 999) / 8 for _ in range(300)]
+    for name, decimals in (("msl_hpa", 1), ("drift_kn", 2), ("quality", DEFAULT_DECIMALS), ("lat", 5)):
+        for _ in range(2):  # the second time from what was kept
+            assert [repr(payload(0.0, {name: v})[name]) for v in values] == [repr(round(v, decimals) + 0.0)
+                                                                             for v in values]
+
+
 def test_nested_fields_without_a_rule_take_their_parents_and_own_rules_win():
     p = clean({"age_s": {"fix": 6.04321, "depth": 76.86}, "values": {"fall_3h_hpa": 1.3336825, "x": 0.123456}})
     assert p == {"age_s": {"fix": 6.0, "depth": 76.9}, "values": {"fall_3h_hpa": 1.3, "x": 0.123}}
