@@ -11,10 +11,12 @@ from __future__ import annotations
 import json
 import random
 
+import pytest
+
 from geographiclib.geodesic import Geodesic
 
-from daemon.core.payloads import (ADVISORY, DEFAULT_DECIMALS, MAX_DEPTH, clean, decimals_for, iso_utc, payload,
-                                  rule_for, with_advisory)
+from daemon.core.payloads import (ADVISORY, DEFAULT_DECIMALS, MAX_DEPTH, clean, decimals_for, encode_json, iso_utc,
+                                  json_default, json_encoder, payload, rule_for, with_advisory)
 
 
 def test_iso_utc_is_iso_8601_with_milliseconds_and_z():
@@ -125,3 +127,30 @@ def test_every_float_the_service_publishes_has_a_rule_in_the_table(short_passage
                  for m in sink.messages for name, covered in _float_fields(dict(m.payload)) if not covered}
     assert uncovered == set()
     assert {m.topic.split("/", 1)[1] for m in sink.messages} >= {"position", "current", "pressure", "status"}
+
+
+def test_the_encoder_made_once_writes_the_standard_librarys_text():
+    # the reference: json.JSONEncoder(...).encode (Python's standard library), with each set of options
+    # the service writes with (JSONL, the MQTT payload, the recording's rows)
+    rng = random.Random(11)
+    values = [payload(rng.uniform(0, 2e9), {"set_deg": rng.uniform(-1e3, 1e3), "quality": "valid ±é\u2028",
+                                            "health": {"fused": rng.randrange(99), "last_nis": None, "ok": True},
+                                            "periods_s": [rng.uniform(0, 20) for _ in range(rng.randrange(4))]})
+              for _ in range(200)] + [[1.5, "x", None], "a\"quote", 7, {}]
+    for options in ({"ensure_ascii": False, "allow_nan": False},
+                    {"ensure_ascii": False, "separators": (",", ":"), "allow_nan": False, "default": json_default},
+                    {"ensure_ascii": True, "separators": (",", ":"), "default": json_default}):
+        made_once, reference = json_encoder(**options), json.JSONEncoder(**options).encode
+        assert [made_once(v) for v in values] == [reference(v) for v in values]
+    assert json_encoder(allow_nan=True)([float("nan")]) == "[NaN]"
+    with pytest.raises(ValueError):  # RFC 8259: no NaN
+        json_encoder(allow_nan=False)({"a": float("inf")})
+
+
+def test_a_payload_json_cannot_hold_is_cleaned_not_fatal():
+    # a non-finite number or a cycle (the encoder made once looks for none): cleaned, the cycle cut at MAX_DEPTH
+    assert encode_json({"drift_kn": float("nan")}) == '{"drift_kn":null}'
+    loop: dict = {"a": 1}
+    loop["self"] = loop
+    text = encode_json(loop)
+    assert text.startswith('{"a":1,"self":{"a":1,') and text.count("{") == MAX_DEPTH

@@ -21,9 +21,10 @@ recording stay byte for byte the same.
 from __future__ import annotations
 
 import json
+import json.encoder
 import math
 import re
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from datetime import datetime, timezone
 from functools import lru_cache
 from typing import Any
@@ -176,16 +177,34 @@ def json_default(obj: Any) -> Any:
     return str(obj)
 
 
-_COMPACT = json.JSONEncoder(ensure_ascii=False, separators=(",", ":"), allow_nan=False, default=json_default)
+def json_encoder(**options: Any) -> Callable[[Any], str]:
+    """``json.JSONEncoder(check_circular=False, **options).encode``, built once: the same text.
+
+    ``JSONEncoder.encode`` makes a new C encoder at every call (and a table of the containers
+    it is inside, to find a cycle); this one is made here, once, and looks for no cycle: what
+    is encoded is a tree, made afresh (the payload layer, a recording's row) or decoded from
+    JSON. A cycle would raise RecursionError instead of ValueError. Without the C encoder
+    (another Python), the library's own path."""
+    encoder = json.JSONEncoder(check_circular=False, **options)
+    make = json.encoder.c_make_encoder
+    if make is None or encoder.indent is not None:
+        return encoder.encode
+    strings = json.encoder.encode_basestring_ascii if encoder.ensure_ascii else json.encoder.encode_basestring
+    c_encode = make(None, encoder.default, strings, None, encoder.key_separator, encoder.item_separator,
+                    encoder.sort_keys, encoder.skipkeys, encoder.allow_nan)
+    return lambda value: "".join(c_encode(value, 0))
+
+
+_compact = json_encoder(ensure_ascii=False, separators=(",", ":"), allow_nan=False, default=json_default)
 
 
 def encode_json(payload: Mapping[str, Any]) -> str:
     """Compact JSON, non-ASCII as it is. Payloads come cleaned from the payload layer; one that is
-    not JSON (a non-finite number from elsewhere) is cleaned there, never written as NaN."""
+    not JSON (a non-finite number from elsewhere, a cycle) is cleaned there, never written as NaN."""
     try:
-        return _COMPACT.encode(payload)
-    except ValueError:
-        return _COMPACT.encode(clean(payload))
+        return _compact(payload)
+    except (ValueError, RecursionError):
+        return _compact(clean(payload))
 
 
 _NOT_PRINTABLE_ASCII = re.compile(r"[^ -~]")
