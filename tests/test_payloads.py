@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import random
+from datetime import datetime, timezone
 
 import pytest
 
@@ -23,6 +24,16 @@ def test_iso_utc_is_iso_8601_with_milliseconds_and_z():
     assert iso_utc(1_000_000_000.0) == "2001-09-09T01:46:40.000Z"  # the UNIX billennium
     assert iso_utc(1_000_000_000.0006) == "2001-09-09T01:46:40.001Z"  # rounded to the millisecond, not cut
     assert iso_utc(1_000_000_059.9996) == "2001-09-09T01:47:40.000Z"  # rounding carries into the seconds
+
+
+def test_iso_utc_is_the_standard_librarys_utc_time_on_any_second():
+    # the reference: datetime.fromtimestamp(..., timezone.utc) (Python's standard library), on random
+    # seconds from 1938 to 2286 and on either side of midnights (the date is made once a day)
+    rng = random.Random(7)
+    seconds = rng.sample(range(-10**9, 10**10), 2000) + [d * 86400 + k for d in (-1, 0, 20577) for k in (-1, 0, 1)]
+    for sec in seconds:
+        want = datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S") + ".250Z"
+        assert iso_utc(sec + 0.25) == want, sec
 
 
 def test_a_rounded_position_is_within_a_metre_of_the_true_one():

@@ -149,7 +149,14 @@ def iso_utc(t_s: float) -> str:
 
 @lru_cache(maxsize=16)  # the messages of one data second share it
 def _utc_second(sec: int) -> str:
-    return datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S")
+    day, sec_of_day = divmod(sec, 86400)  # UNIX time has no leap seconds: every day is 86 400 s
+    hours, sec_of_hour = divmod(sec_of_day, 3600)
+    return f"{_utc_day(day)}T{hours:02d}:{sec_of_hour // 60:02d}:{sec_of_hour % 60:02d}"
+
+
+@lru_cache(maxsize=4)  # a passage's days: the date made once a day, not once a second (strftime is dear)
+def _utc_day(day: int) -> str:
+    return datetime.fromtimestamp(day * 86400, tz=timezone.utc).strftime("%Y-%m-%d")
 
 
 def payload(t_s: float, fields: Mapping[str, Any]) -> dict[str, Any]:
