@@ -179,7 +179,9 @@ class WindEpoch:
     source: str  # "apparent" or "instrument"
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
+# object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class Boat:
     """The boat's motion over one interval (kn, east/north) and the calibration used."""
 
@@ -231,7 +233,9 @@ def _along(current: tuple[float, float], toward_deg: float) -> float:
     return current[0] * ue + current[1] * un
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
+# object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class Spread:
     """A window's vectors summed up: how many, their mean, and the sums of the departures' products."""
 
