@@ -317,7 +317,9 @@ def _half_power_band() -> tuple[float, float]:
 HALF_POWER_LO, HALF_POWER_HI = _half_power_band()
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made for each sea-state publication, and a frozen dataclass's __init__ sets each field
+# through object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class WindSea:
     """The wind sea a wind raises: significant height, peak period and the band of periods used."""
 
