@@ -23,7 +23,10 @@ ALARM, WARNING, CAUTION = "alarm", "warning", "caution"
 PRIORITIES = (ALARM, WARNING, CAUTION)
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made for every state an estimator publishes (several a second), and a frozen
+# dataclass's __init__ sets each field through object.__setattr__. It was never hashable (its payload
+# is a dict) and nothing changes one once made.
+@dataclass(slots=True)
 class Publication:
     """A new state for ``topic`` (relative to the prefix: ``current``, ``events``...)."""
 

@@ -189,7 +189,9 @@ class _Velocity:
     basis: str  # "water_and_current", "water_no_current", "last_water_and_current" or "last_ground_velocity"
 
 
-@dataclass(frozen=True)
+# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
+# object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class _Water:
     """The last water velocity k s u(psi + d) seen with a live heading and log, and its calibration variance."""
 

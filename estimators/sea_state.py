@@ -169,7 +169,9 @@ class SeaStateParams:
                              f"({self.unstable_raise_c!r}), or the caution would chatter")
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
+# object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class WindEpoch:
     """One averaging interval's wind vectors (east, north; air velocity *toward*, kn)."""
 
@@ -179,7 +181,9 @@ class WindEpoch:
     source: str  # "apparent" or "instrument"
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
+# object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class Boat:
     """The boat's motion over one interval (kn, east/north) and the calibration used."""
 
@@ -189,7 +193,9 @@ class Boat:
     heading_offset_deg: float
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made for each sea-state publication, and a frozen dataclass's __init__ sets each field
+# through object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class MeanWind:
     from_deg: float
     speed_kn: float
@@ -231,7 +237,9 @@ def _along(current: tuple[float, float], toward_deg: float) -> float:
     return current[0] * ue + current[1] * un
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
+# object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class Spread:
     """A window's vectors summed up: how many, their mean, and the sums of the departures' products."""
 

@@ -10,17 +10,30 @@ from __future__ import annotations
 
 import json
 import random
+from datetime import datetime, timezone
+
+import pytest
 
 from geographiclib.geodesic import Geodesic
 
-from daemon.core.payloads import (ADVISORY, DEFAULT_DECIMALS, MAX_DEPTH, clean, decimals_for, iso_utc, payload,
-                                  rule_for, with_advisory)
+from daemon.core.payloads import (ADVISORY, DEFAULT_DECIMALS, MAX_DEPTH, clean, decimals_for, encode_json, iso_utc,
+                                  json_default, json_encoder, payload, rule_for, with_advisory)
 
 
 def test_iso_utc_is_iso_8601_with_milliseconds_and_z():
     assert iso_utc(1_000_000_000.0) == "2001-09-09T01:46:40.000Z"  # the UNIX billennium
     assert iso_utc(1_000_000_000.0006) == "2001-09-09T01:46:40.001Z"  # rounded to the millisecond, not cut
     assert iso_utc(1_000_000_059.9996) == "2001-09-09T01:47:40.000Z"  # rounding carries into the seconds
+
+
+def test_iso_utc_is_the_standard_librarys_utc_time_on_any_second():
+    # the reference: datetime.fromtimestamp(..., timezone.utc) (Python's standard library), on random
+    # seconds from 1938 to 2286 and on either side of midnights (the date is made once a day)
+    rng = random.Random(7)
+    seconds = rng.sample(range(-10**9, 10**10), 2000) + [d * 86400 + k for d in (-1, 0, 20577) for k in (-1, 0, 1)]
+    for sec in seconds:
+        want = datetime.fromtimestamp(sec, tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%S") + ".250Z"
+        assert iso_utc(sec + 0.25) == want, sec
 
 
 def test_a_rounded_position_is_within_a_metre_of_the_true_one():
@@ -50,6 +63,25 @@ def test_each_field_gets_the_decimals_a_person_reads():
 def test_never_a_negative_zero():
     text = json.dumps(clean({"east_kn": -0.001, "north_kn": -0.0, "set_deg": -0.04}))
     assert "-0" not in text and json.loads(text) == {"east_kn": 0.0, "north_kn": 0.0, "set_deg": 0.0}
+
+
+def test_a_value_seen_before_is_published_as_it_was_rounded_for_its_own_field():
+    # the payload layer keeps what it rounded by value and field: the same value under another
+    # field gets that field's decimals, a -0.0 after a 0.0 is still 0.0 (a NaN is still null)
+    first = payload(1.0, {"drift_kn": 1.23456, "set_deg": 1.23456, "north_kn": 0.0, "x": float("nan")})
+    again = payload(2.0, {"set_deg": 1.23456, "drift_kn": 1.23456, "north_kn": -0.0, "x": float("nan"),
+                          "age_s": {"fix": 1.23456}})
+    assert first == {"time": "1970-01-01T00:00:01.000Z", "drift_kn": 1.23, "set_deg": 1.2, "north_kn": 0.0, "x": None}
+    assert again == {"time": "1970-01-01T00:00:02.000Z", "set_deg": 1.2, "drift_kn": 1.23, "north_kn": 0.0, "x": None,
+                     "age_s": {"fix": 1.2}}
+    assert repr(again["north_kn"]) == "0.0"  # not "-0.0"
+    # and every field as round() gives it (Python's correctly rounded round, the reference), on random values
+    rng = random.Random(5)
+    values = [rng.uniform(-1e4, 1e4) for _ in range(300)] + [rng.randrange(-999, 999) / 8 for _ in range(300)]
+    for name, decimals in (("msl_hpa", 1), ("drift_kn", 2), ("quality", DEFAULT_DECIMALS), ("lat", 5)):
+        for _ in range(2):  # the second time from what was kept
+            assert [repr(payload(0.0, {name: v})[name]) for v in values] == [repr(round(v, decimals) + 0.0)
+                                                                             for v in values]
 
 
 def test_nested_fields_without_a_rule_take_their_parents_and_own_rules_win():
@@ -106,3 +138,30 @@ def test_every_float_the_service_publishes_has_a_rule_in_the_table(short_passage
                  for m in sink.messages for name, covered in _float_fields(dict(m.payload)) if not covered}
     assert uncovered == set()
     assert {m.topic.split("/", 1)[1] for m in sink.messages} >= {"position", "current", "pressure", "status"}
+
+
+def test_the_encoder_made_once_writes_the_standard_librarys_text():
+    # the reference: json.JSONEncoder(...).encode (Python's standard library), with each set of options
+    # the service writes with (JSONL, the MQTT payload, the recording's rows)
+    rng = random.Random(11)
+    values = [payload(rng.uniform(0, 2e9), {"set_deg": rng.uniform(-1e3, 1e3), "quality": "valid ±é\u2028",
+                                            "health": {"fused": rng.randrange(99), "last_nis": None, "ok": True},
+                                            "periods_s": [rng.uniform(0, 20) for _ in range(rng.randrange(4))]})
+              for _ in range(200)] + [[1.5, "x", None], "a\"quote", 7, {}]
+    for options in ({"ensure_ascii": False, "allow_nan": False},
+                    {"ensure_ascii": False, "separators": (",", ":"), "allow_nan": False, "default": json_default},
+                    {"ensure_ascii": True, "separators": (",", ":"), "default": json_default}):
+        made_once, reference = json_encoder(**options), json.JSONEncoder(**options).encode
+        assert [made_once(v) for v in values] == [reference(v) for v in values]
+    assert json_encoder(allow_nan=True)([float("nan")]) == "[NaN]"
+    with pytest.raises(ValueError):  # RFC 8259: no NaN
+        json_encoder(allow_nan=False)({"a": float("inf")})
+
+
+def test_a_payload_json_cannot_hold_is_cleaned_not_fatal():
+    # a non-finite number or a cycle (the encoder made once looks for none): cleaned, the cycle cut at MAX_DEPTH
+    assert encode_json({"drift_kn": float("nan")}) == '{"drift_kn":null}'
+    loop: dict = {"a": 1}
+    loop["self"] = loop
+    text = encode_json(loop)
+    assert text.startswith('{"a":1,"self":{"a":1,') and text.count("{") == MAX_DEPTH

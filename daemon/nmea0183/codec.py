@@ -281,8 +281,10 @@ def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
 
 # What an understood sentence gives: typed values (the ingest turns them into samples
 # once the line has its data time, applying variation and the installation's settings).
+# Dataclasses with slots, not frozen: one or more is made for every line, and a frozen
+# dataclass's __init__ sets each field through object.__setattr__. Nothing changes them.
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class Measured:
     """A sample the estimators take as it is: ``kind(t_s, *args)`` at the line's data time."""
 
@@ -290,7 +292,7 @@ class Measured:
     args: tuple
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class LabelledHeading:
     """HDT, HDM, THS: a heading, degrees, as the sentence labels it (``"T"`` true, ``"M"`` magnetic)."""
 
@@ -298,7 +300,7 @@ class LabelledHeading:
     reference: str
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class SensorHeading:
     """HDG: the magnetic sensor's heading, degrees, and its own deviation (east positive) if sent."""
 
@@ -306,14 +308,14 @@ class SensorHeading:
     deviation_east_deg: float | None
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class Variation:
     """Magnetic variation a sentence states (RMC, HDG), degrees east positive."""
 
     east_deg: float
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class WindOffBow:
     """MWV theoretical (reference T): wind over the water, angle off the bow (degrees) and knots."""
 
@@ -321,7 +323,7 @@ class WindOffBow:
     speed_kn: float
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class WindFromMagnetic:
     """MWD with only a magnetic direction: the wind comes from (degrees magnetic), knots."""
 

@@ -2,19 +2,16 @@
 
 from __future__ import annotations
 
-import json
-
 from daemon.errors import OutputError
+from daemon.core.payloads import json_encoder
 from daemon.core.readings import Message, RawLine
 
-
-# made once: json.dumps with options builds a new encoder for every message (the same text either way)
-_ENCODER = json.JSONEncoder(ensure_ascii=False, allow_nan=False)
+_encode = json_encoder(ensure_ascii=False, allow_nan=False)
 
 
 def encode_line(msg: Message) -> str:
     """The interface's line: ``{"t": <data time, UNIX s>, "topic": ..., "payload": {...}}``."""
-    return _ENCODER.encode({"t": round(msg.t_s, 3), "topic": msg.topic, "payload": msg.payload})
+    return _encode({"t": round(msg.t_s, 3), "topic": msg.topic, "payload": msg.payload})
 
 
 class JsonlSink:

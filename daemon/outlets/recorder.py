@@ -105,7 +105,7 @@ from typing import Any
 from daemon import __version__
 from daemon.errors import InputError, OutputError
 from daemon.nmea0183.codec import has_tag_block, split_tag, tag_block
-from daemon.core.payloads import ascii_json, json_default
+from daemon.core.payloads import ascii_json, json_default, json_encoder
 from daemon.core.readings import Message, RawLine
 from daemon.intake.crew import REPLAYERS as CREW_SOURCES
 from estimators.params import param
@@ -250,12 +250,7 @@ def _decode_recv(value: int | float | None, t: float, t_ms: int) -> float:
     return value
 
 
-# made once: json.dumps with options builds a new encoder at every call (the same text either way)
-_ASCII_JSON = json.JSONEncoder(ensure_ascii=True, separators=(",", ":"), default=json_default)
-
-
-def _dumps(value: Any) -> str:
-    return _ASCII_JSON.encode(value)
+_dumps = json_encoder(ensure_ascii=True, separators=(",", ":"), default=json_default)
 
 
 _CODECS: dict[str, tuple[Callable[[bytes], bytes], Callable[[bytes], bytes]]] = {

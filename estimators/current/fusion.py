@@ -35,7 +35,9 @@ Rows = list[list[float]]
 Gain = list[tuple[float, float]]
 
 
-@dataclass(frozen=True, slots=True)
+# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
+# object.__setattr__. Nothing changes one once made.
+@dataclass(slots=True)
 class Update:
     """The outcome of one fusion step: the new (or unchanged) x and P, and what happened."""
 
