@@ -213,7 +213,8 @@ class CalibrationFit:
         The model error (what the window's quadratic cannot follow of the current's walk) is read from
         the fit's residuals and the params' walk together (``shrunk_walk``); the blocks' weights follow
         it, the prior on the current's slope and curvature the larger of it and the params' walk (see
-        the module doc), and the fit is repeated until the walk settles (a few times).
+        the module doc), and the fit is repeated until the walk settles (a few times). The covariance
+        counts the walk the residuals show in time (``_covariance_walk``) and a tidal stream's remainder.
         """
         self.last_fit_t = t
         blocks = list(self.blocks)
@@ -238,21 +239,30 @@ class CalibrationFit:
             if abs(settled - walk) <= 0.01 * walk + 1e-9:
                 break
         chi2_red = float(np.sum(res ** 2 / v)) / dof
-        noise_shown, walk_shown = 1.0, walk                                 # too few blocks to read two things
-        if len(blocks) >= RESIDUAL_WALK_MIN_BLOCKS:
-            shown = self._residual_walk(blocks, res, sensor)
-            noise_shown = shown.noise_scale
-            # a step (a current band's edge) is no random walk: its order in time reads it small, its sum of
-            # squares does not miss it; where the residuals' excess over the sensors is significant, the larger
-            walk_shown = shown.upper * S_PER_H                              # kn^2/h
-            if float(np.sum(res ** 2 / sensor)) > dof + EXCESS_SIGMAS * math.sqrt(2.0 * dof):
-                walk_shown = max(walk_shown, walk)
+        noise_shown, walk_shown = self._covariance_walk(blocks, res, sensor, walk, dof)
         # the sensors' part keeps their model's width, quieter as the residuals may show them: what a leg's
         # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either
         cov = walk_consider_cov(A, J, v, sensor, walk_shown, blocks, tidal_remainder(blocks, c))
         self.last = FitResult(k, d, cov[n_cur:, n_cur:] * max(1.0, chi2_red), chi2_red, len(blocks),
                               spread_deg(blocks), math.sqrt(walk), not self.dropped, noise_shown, math.sqrt(walk_shown))
         return self.last
+
+    def _covariance_walk(self, blocks: list[Block], res: np.ndarray, sensor: np.ndarray, walk: float, dof: int
+                         ) -> tuple[float, float]:
+        """(the noise over the sensors' model, the walk in kn^2/h) the covariance counts (see the module doc).
+
+        With fewer than ``RESIDUAL_WALK_MIN_BLOCKS`` blocks: ``walk``, the sum of squares' read, and 1 (too few
+        residuals to read two things). Else the residuals' order in time, and where their excess over the
+        sensors is significant the larger of that and ``walk``: a step (a current band's edge) is no random
+        walk, reads small in time order and large in the sum of squares.
+        """
+        if len(blocks) < RESIDUAL_WALK_MIN_BLOCKS:
+            return 1.0, walk
+        shown = self._residual_walk(blocks, res, sensor)
+        walk_shown = shown.upper * S_PER_H
+        if float(np.sum(res ** 2 / sensor)) > dof + EXCESS_SIGMAS * math.sqrt(2.0 * dof):
+            walk_shown = max(walk_shown, walk)
+        return shown.noise_scale, walk_shown
 
     def _residual_walk(self, blocks: list[Block], res: np.ndarray, sensor: np.ndarray):
         """The walk and the sensors' scale the blocks' residuals show in time (``walk.fit_walk``: a local level
