@@ -107,7 +107,7 @@ import numpy as np
 from estimators.angles import turned
 
 from .params import CurrentParams
-from .walk import NOISE_SCALES, Series, fit_walk
+from .walk import NOISE_SCALES, Series, WalkFit, fit_walk
 
 S_PER_H = 3600.0
 CURRENT_TERMS = 3  # c0, c1 t, c2 t^2 per axis
@@ -142,7 +142,6 @@ class FitResult:
     heading_spread_deg: float  # largest direction difference between the window's water-velocity readings
     water_walk_kn_per_sqrt_h: float  # per axis: the current's walk over the window as the fit read it (with the params' as prior)
     whole: bool = False       # the window still holds every block since the fit began (none dropped off its start)
-    noise_shown: float = 1.0  # the blocks' noise as the residuals show it, over the sensors' model (not applied, see fit)
     covariance_walk_kn_per_sqrt_h: float = 0.0  # per axis: the walk the covariance counts, as the residuals show it
 
 
@@ -239,32 +238,32 @@ class CalibrationFit:
             if abs(settled - walk) <= 0.01 * walk + 1e-9:
                 break
         chi2_red = float(np.sum(res ** 2 / v)) / dof
-        noise_shown, walk_shown = self._covariance_walk(blocks, res, sensor, walk, dof)
+        walk_shown = self._covariance_walk(blocks, res, sensor, walk, dof)
         # the sensors' part keeps their model's width, quieter as the residuals may show them: what a leg's
         # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either
         cov = walk_consider_cov(A, J, v, sensor, walk_shown, blocks, tidal_remainder(blocks, c))
         self.last = FitResult(k, d, cov[n_cur:, n_cur:] * max(1.0, chi2_red), chi2_red, len(blocks),
-                              spread_deg(blocks), math.sqrt(walk), not self.dropped, noise_shown, math.sqrt(walk_shown))
+                              spread_deg(blocks), math.sqrt(walk), not self.dropped, math.sqrt(walk_shown))
         return self.last
 
     def _covariance_walk(self, blocks: list[Block], res: np.ndarray, sensor: np.ndarray, walk: float, dof: int
-                         ) -> tuple[float, float]:
-        """(the noise over the sensors' model, the walk in kn^2/h) the covariance counts (see the module doc).
+                         ) -> float:
+        """The walk (kn^2/h) the covariance counts (see the module doc).
 
-        With fewer than ``RESIDUAL_WALK_MIN_BLOCKS`` blocks: ``walk``, the sum of squares' read, and 1 (too few
-        residuals to read two things). Else the residuals' order in time, and where their excess over the
-        sensors is significant the larger of that and ``walk``: a step (a current band's edge) is no random
-        walk, reads small in time order and large in the sum of squares.
+        With fewer than ``RESIDUAL_WALK_MIN_BLOCKS`` blocks: ``walk``, the sum of squares' read (too few
+        residuals to read the walk and the noise apart). Else the residuals' order in time, and where their
+        excess over the sensors is significant the larger of that and ``walk``: a step (a current band's
+        edge) is no random walk, reads small in time order and large in the sum of squares.
         """
         if len(blocks) < RESIDUAL_WALK_MIN_BLOCKS:
-            return 1.0, walk
+            return walk
         shown = self._residual_walk(blocks, res, sensor)
         walk_shown = shown.upper * S_PER_H
         if float(np.sum(res ** 2 / sensor)) > dof + EXCESS_SIGMAS * math.sqrt(2.0 * dof):
             walk_shown = max(walk_shown, walk)
-        return shown.noise_scale, walk_shown
+        return walk_shown
 
-    def _residual_walk(self, blocks: list[Block], res: np.ndarray, sensor: np.ndarray):
+    def _residual_walk(self, blocks: list[Block], res: np.ndarray, sensor: np.ndarray) -> WalkFit:
         """The walk and the sensors' scale the blocks' residuals show in time (``walk.fit_walk``: a local level
         model, each block a flow), the walk the upper end of its interval at ``water_walk_confidence``.
 

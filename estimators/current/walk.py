@@ -83,8 +83,8 @@ from .params import S_PER_H, CurrentParams
 MIN_BLOCK_FIXES = 5        # a block with fewer fixes (a short stretch between turns) is dropped
 GRID_DECADES = 6.0         # the grid in ln q spans the configured walk's rate down to 1e-6 of it (and 0)
 GRID_POINTS = 97           # 1/16 decade (15 %) apart: the interval's ends interpolated to about 1 %
-GAP_TOLERANCE_S = 1e-3
-NOISE_SCALES = np.logspace(math.log10(0.25), 0.0, 13)  # the means' noise over R's: 1/4 to 1, 12 % apart     # a fix whose interval starts later than the last one added follows a gap
+GAP_TOLERANCE_S = 1e-3     # a fix whose interval starts later than the last one added follows a gap
+NOISE_SCALES = np.logspace(math.log10(0.25), 0.0, 13)  # the means' noise over R's: 1/4 to 1, 12 % apart
 
 
 @dataclass(frozen=True, slots=True)
