@@ -23,9 +23,7 @@ ALARM, WARNING, CAUTION = "alarm", "warning", "caution"
 PRIORITIES = (ALARM, WARNING, CAUTION)
 
 
-# Not frozen: one is made for every state an estimator publishes (several a second), and a frozen
-# dataclass's __init__ sets each field through object.__setattr__. It was never hashable (its payload
-# is a dict) and nothing changes one once made.
+# not frozen: made for every state an estimator publishes (several a second) (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class Publication:
     """A new state for ``topic`` (relative to the prefix: ``current``, ``events``...)."""

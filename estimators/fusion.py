@@ -28,8 +28,7 @@ from typing import Any
 from statistics import NormalDist
 
 
-# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
-# object.__setattr__. Nothing changes one once made.
+# not frozen: made about every second of data (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class FusionReport:
     """What one fusion step did. Units are the measurement's (kn, hPa, m)."""

@@ -189,8 +189,7 @@ class _Velocity:
     basis: str  # "water_and_current", "water_no_current", "last_water_and_current" or "last_ground_velocity"
 
 
-# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
-# object.__setattr__. Nothing changes one once made.
+# not frozen: made about every second of data (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class _Water:
     """The last water velocity k s u(psi + d) seen with a live heading and log, and its calibration variance."""

@@ -169,8 +169,7 @@ class SeaStateParams:
                              f"({self.unstable_raise_c!r}), or the caution would chatter")
 
 
-# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
-# object.__setattr__. Nothing changes one once made.
+# not frozen: made about every second of data (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class WindEpoch:
     """One averaging interval's wind vectors (east, north; air velocity *toward*, kn)."""
@@ -181,8 +180,7 @@ class WindEpoch:
     source: str  # "apparent" or "instrument"
 
 
-# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
-# object.__setattr__. Nothing changes one once made.
+# not frozen: made about every second of data (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class Boat:
     """The boat's motion over one interval (kn, east/north) and the calibration used."""
@@ -193,8 +191,7 @@ class Boat:
     heading_offset_deg: float
 
 
-# Not frozen: one is made for each sea-state publication, and a frozen dataclass's __init__ sets each field
-# through object.__setattr__. Nothing changes one once made.
+# not frozen: made for each sea-state publication (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class MeanWind:
     from_deg: float
@@ -237,8 +234,7 @@ def _along(current: tuple[float, float], toward_deg: float) -> float:
     return current[0] * ue + current[1] * un
 
 
-# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
-# object.__setattr__. Nothing changes one once made.
+# not frozen: made about every second of data (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class Spread:
     """A window's vectors summed up: how many, their mean, and the sums of the departures' products."""

@@ -73,8 +73,7 @@ SEA_Z0_M = 0.0002  # roughness length of open water, neutral air (common practic
 BREAKING_STEEPNESS = 1.0 / 7.0  # H/L at which a wave breaks (Michell 1893: 0.142)
 
 
-# Not frozen: about 8 are made for each sea-state publication, and a frozen dataclass's __init__ sets
-# each field through object.__setattr__. Nothing changes one once made.
+# not frozen: about 8 made for each sea-state publication (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class WaveOnCurrent:
     """One period on one current. Factors are relative to still water of the same depth."""
@@ -317,8 +316,7 @@ def _half_power_band() -> tuple[float, float]:
 HALF_POWER_LO, HALF_POWER_HI = _half_power_band()
 
 
-# Not frozen: one is made for each sea-state publication, and a frozen dataclass's __init__ sets each field
-# through object.__setattr__. Nothing changes one once made.
+# not frozen: made for each sea-state publication (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class WindSea:
     """The wind sea a wind raises: significant height, peak period and the band of periods used."""

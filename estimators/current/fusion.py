@@ -35,8 +35,7 @@ Rows = list[list[float]]
 Gain = list[tuple[float, float]]
 
 
-# Not frozen: one is made about every second of data, and a frozen dataclass's __init__ sets each field through
-# object.__setattr__. Nothing changes one once made.
+# not frozen: made about every second of data (DEVELOPERS.md, estimators/)
 @dataclass(slots=True)
 class Update:
     """The outcome of one fusion step: the new (or unchanged) x and P, and what happened."""
