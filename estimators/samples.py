@@ -1,4 +1,4 @@
-"""One small frozen dataclass per measurement kind: time first, units in the names.
+"""One small frozen dataclass per measurement kind (``sample_type``): time first, units in the names.
 
 ``t_s`` is data time in UNIX seconds (UTC). Directions are degrees true unless
 the name says otherwise; the daemon applies magnetic variation before a
@@ -7,10 +7,38 @@ heading reaches an estimator. NMEA never gets this far.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import MISSING, dataclass, fields
 
 
-@dataclass(frozen=True, slots=True)
+def sample_type(cls: type) -> type:
+    """``cls`` as a frozen dataclass with slots, its ``__init__`` setting each field through the
+    field's slot descriptor instead of ``object.__setattr__``.
+
+    Why: about 36 000 samples are made an hour of data, and a frozen dataclass's own ``__init__``
+    looks ``object.__setattr__`` up and calls it for every field: a ``Fix`` (seven fields) took about
+    12 300 machine instructions to make that way, 7 500 through the slots (callgrind, a loop of
+    100 000). Everything else is the dataclass's:
+    still frozen (setting a field raises ``FrozenInstanceError``), the same signature, defaults,
+    equality, hash and repr. The source is written out and compiled once per class, as
+    ``dataclasses`` itself makes ``__init__``.
+    """
+    cls = dataclass(frozen=True, slots=True)(cls)
+    names = [f.name for f in fields(cls)]
+    if any(f.default_factory is not MISSING or not f.init for f in fields(cls)) or hasattr(cls, "__post_init__"):
+        raise TypeError(f"{cls.__name__}: sample_type takes plain fields only")
+    scope = {f"_set_{n}": cls.__dict__[n].__set__ for n in names}
+    scope.update({f"_default_{f.name}": f.default for f in fields(cls) if f.default is not MISSING})
+    params = ", ".join(n if f"_default_{n}" not in scope else f"{n}=_default_{n}" for n in names)
+    body = "".join(f"    _set_{n}(self, {n})\n" for n in names)
+    exec(f"def __init__(self, {params}):\n{body}", scope)  # noqa: S102 -- our own text, from field names
+    init = scope["__init__"]
+    init.__qualname__ = f"{cls.__qualname__}.__init__"
+    init.__annotations__ = {**{f.name: f.type for f in fields(cls)}, "return": None}  # as the dataclass's
+    cls.__init__ = init
+    return cls
+
+
+@sample_type
 class Fix:
     """A valid GNSS fix. ``sog_kn``/``cog_deg`` are None where the sentence had none.
 
@@ -28,7 +56,7 @@ class Fix:
     gnss_time_s: float | None = None
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class GroundVelocity:
     """Speed and course over ground without a position (VTG)."""
 
@@ -37,7 +65,7 @@ class GroundVelocity:
     cog_deg: float | None
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class Heading:
     """Where the bow points, degrees true (variation already applied)."""
 
@@ -45,7 +73,7 @@ class Heading:
     true_deg: float
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class WaterSpeed:
     """Speed through water from the log, as the log reads it (uncalibrated)."""
 
@@ -53,19 +81,19 @@ class WaterSpeed:
     speed_kn: float
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class SeaTemperature:
     t_s: float
     temp_c: float
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class AirTemperature:
     t_s: float
     temp_c: float
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class Pressure:
     """Barometer reading at the sensor's height (not reduced to sea level)."""
 
@@ -73,7 +101,7 @@ class Pressure:
     station_hpa: float
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class ApparentWind:
     """MWV relative: angle off the bow, 0..360 clockwise, as felt aboard."""
 
@@ -82,7 +110,7 @@ class ApparentWind:
     speed_kn: float
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class WaterWind:
     """Wind over water ("true wind" to a sailor), from MWV theoretical or MWD.
 
@@ -97,7 +125,7 @@ class WaterWind:
     angle_deg: float | None = None
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class Depth:
     """Depth below the transducer plus the offset when the sentence gave one."""
 
@@ -105,7 +133,7 @@ class Depth:
     depth_m: float
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class Attitude:
     """Heel (roll, positive to starboard) and pitch (positive bow up), degrees."""
 
@@ -114,7 +142,7 @@ class Attitude:
     pitch_deg: float | None = None
 
 
-@dataclass(frozen=True, slots=True)
+@sample_type
 class Swell:
     """A swell the crew reports (not an instrument): period s, where it comes from, degrees true.
 
