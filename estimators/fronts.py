@@ -219,8 +219,10 @@ class _Odometer:
     def _mean_position(self) -> tuple[float, float]:
         ref = self._recent[-1].lon_deg
         n = len(self._recent)
-        lat = sum(f.lat_deg for f in self._recent) / n
-        dlon = sum((f.lon_deg - ref + 180.0) % 360.0 - 180.0 for f in self._recent) / n  # across ±180 too
+        # lists summed, not generators: a generator resumed for each of the window's fixes, twice at every
+        # fix, was most of the cost (the same sums in the same order)
+        lat = sum([f.lat_deg for f in self._recent]) / n
+        dlon = sum([(f.lon_deg - ref + 180.0) % 360.0 - 180.0 for f in self._recent]) / n  # across ±180 too
         return lat, (ref + dlon + 180.0) % 360.0 - 180.0
 
     def reset_average(self) -> None:

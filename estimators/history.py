@@ -7,7 +7,6 @@ from __future__ import annotations
 import bisect
 import operator
 from collections import deque
-from collections.abc import Callable, Iterator
 
 from estimators.angles import circular_mean_deg
 from estimators.samples import Heading, Sample
@@ -50,7 +49,4 @@ class SampleHistory:
 
     def mean_heading_deg(self, t0_s: float, t1_s: float) -> float | None:
         """Circular mean of true headings over (t0, t1], or None with none there."""
-        return circular_mean_deg(h.true_deg for h in self.between(Heading, t0_s, t1_s))
-
-    def values(self, kind: type, t0_s: float, t1_s: float, get: Callable[[Sample], float]) -> Iterator[float]:
-        return (get(s) for s in self.between(kind, t0_s, t1_s))
+        return circular_mean_deg([h.true_deg for h in self.between(Heading, t0_s, t1_s)])

@@ -510,7 +510,7 @@ class PositionEstimator(EstimatorBase):
 
     def _recent_log(self, t_s: float, ctx: Context) -> float | None:
         p = self.params
-        speeds = list(ctx.history.values(WaterSpeed, t_s - p.heading_window_s, t_s, lambda s: s.speed_kn))
+        speeds = [s.speed_kn for s in ctx.history.between(WaterSpeed, t_s - p.heading_window_s, t_s)]
         if speeds:
             return sum(speeds) / len(speeds)
         last = ctx.history.latest(WaterSpeed)

@@ -748,7 +748,7 @@ def _recent_mean(ctx: Context, kind: type, t: float, max_age_s: float) -> float 
     latest = ctx.history.latest(kind)
     if latest is None or t - latest.t_s > max_age_s:
         return None
-    vals = list(ctx.history.values(kind, latest.t_s - TEMPERATURE_MEAN_S, latest.t_s, lambda s: s.temp_c))
+    vals = [s.temp_c for s in ctx.history.between(kind, latest.t_s - TEMPERATURE_MEAN_S, latest.t_s)]
     return sum(vals) / len(vals) if vals else None
 
 
