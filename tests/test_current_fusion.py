@@ -11,7 +11,7 @@ from filterpy.kalman import ExtendedKalmanFilter
 from scipy.stats import chi2
 
 from estimators.current import IK, CurrentEstimator, CurrentParams
-from estimators.current.fusion import fuse
+from estimators.current.fusion import fuse, fuse_rows, joseph_with_gain_rows
 from estimators.fusion import FusionHealth, FusionReport, WindowedNis
 from estimators.samples import Fix, Heading, Pressure, WaterSpeed
 from estimators.pressure import PressureTendency
@@ -55,6 +55,26 @@ def test_the_2x4_update_matches_filterpys_generic_ekf_update(seed):
     assert ours.nis == pytest.approx(nis_ref, rel=1e-9)
     # and the prior is not changed in place
     assert ours.x is not x and ours.P is not P
+
+
+@pytest.mark.parametrize("seed", range(50))
+def test_the_step_in_plain_floats_matches_filterpys_update_and_carries_a_covariance_by_its_gain(seed):
+    # GIVEN a random case as the filter's own step hands it over: x, P, H and R as plain rows
+    x, P, H, R, y = random_case(np.random.default_rng(1000 + seed))
+    h0, h1 = H.tolist()
+    up = fuse_rows(x, P, x[:, 0].tolist(), P.tolist(), float(y[0, 0]), float(y[1, 0]), h0, h1, R.tolist(), math.inf)
+    # THEN as filterpy's generic update (outside reference: filterpy 1.4)
+    x_ref, P_ref, nis_ref = filterpy_update(x, P, H, R, y)
+    assert up.fused and up.nis == pytest.approx(nis_ref, rel=1e-9)
+    np.testing.assert_allclose(up.x, x_ref, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(up.P, P_ref, rtol=1e-8, atol=1e-12)
+    # AND another covariance carried with that gain is (I - K H) Q (I - K H)' + K R K', in numpy's matrices
+    B = np.random.default_rng(seed).normal(0, 0.3, (4, 4))
+    Q = B @ B.T + 1e-3 * np.eye(4)
+    K = np.array(up.gain)
+    A = np.eye(4) - K @ H
+    carried = joseph_with_gain_rows(Q.tolist(), up.gain, h0, h1, R.tolist())
+    np.testing.assert_allclose(carried, A @ Q @ A.T + K @ R @ K.T, rtol=1e-9, atol=1e-12)
 
 
 def test_consider_states_keep_their_estimate_and_a_covariance_that_is_still_the_joseph_form():

@@ -252,7 +252,7 @@ def test_the_estimates_are_the_same_with_and_without_the_published_covariance(mo
     base, rows = records_of(CurrentParams(**WHITE))
     other, rows_other = records_of(CurrentParams(**WHITE, water_walk_min_blocks=3, water_walk_confidence=0.5))
     # ... and with P_pub never updated at all (the Joseph step with the filter's gain a no-op)
-    monkeypatch.setattr(estimator, "joseph_with_gain", lambda P, K, H, R: P)
+    monkeypatch.setattr(estimator, "joseph_with_gain_rows", lambda Pl, K, h0, h1, Rl: np.array(Pl))
     monkeypatch.setattr(control, "joseph_with_gain", lambda P, K, H, R: P)
     without, _ = records_of(CurrentParams(**WHITE))
     # THEN every state and the filter's own covariance are identical to the bit

@@ -21,9 +21,10 @@ from estimators.thresholds import Hysteresis
 
 from .calibration import CalibrationFit
 from .control import Control
-from .fusion import fuse, innovation_cov, joseph_with_gain, nis2
+from .fusion import fuse_rows, innovation_cov_rows, joseph_with_gain_rows, nis2
 from .model import (
-    FilterState, WaterInputs, d_unit, ground_velocity_of, jacobian, leeway_deg, measurement_cov,
+    FilterState, WaterInputs, d_unit, ground_velocity_of, jacobian_rows, leeway_deg, measurement_cov,
+    measurement_rows,
     process_noise, published_rate, unit,
 )
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
@@ -243,43 +244,47 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         """
         p, ekf = self.params, self.ekf
         x_prior, P_prior = ekf.x, ekf.P
+        # x, P, R and H in plain floats for the step (``fusion.fuse_rows``); x and P stay arrays in the filter
+        xl, Pl = x_prior[:, 0].tolist(), P_prior.tolist()
         s = w.speed_kn
-        ce, cn, k, d = x_prior[:, 0].tolist()
+        ce, cn, k, d = xl
         theta = math.radians(w.heading_deg + leeway_deg(p, w.heel_deg, k * s)) + d
-        R = measurement_cov(p, g, w, k, theta)
-        H = jacobian(p, w, k, d)
+        R = measurement_rows(p, g, w, k, theta)
+        h0, h1 = jacobian_rows(p, w, k, d)
         y0 = g[0] - ce - k * s * math.sin(theta)                                # y = z - h(x),
         y1 = g[1] - cn - k * s * math.cos(theta)                                # h(x) = c + k s u(theta)
-        y = np.array([[y0], [y1]])
         # k and d are Schmidt "consider" states: learnt from the calibration fit only (see calibration)
         consider = IK
-        up = fuse(x_prior, P_prior, y, H, R, self._gate, consider)
+        up = fuse_rows(x_prior, P_prior, xl, Pl, y0, y1, h0, h1, R, self._gate, consider)
         nis = up.nis
         if math.isfinite(nis):
             # the change detector reads the innovation against one fix's own noise (no allowance for
             # correlation: that would blunt it), the gate and the model check the covariance the filter uses
-            S_fix = innovation_cov(P_prior, H, measurement_cov(p, g, w, k, theta, correlated=False))
+            S_fix = innovation_cov_rows(Pl, h0, h1, measurement_rows(p, g, w, k, theta, correlated=False))
             self._adapt(min(nis2(y0, y1, S_fix), self._gate), nis)  # one outlier alone cannot raise the alarm
         if up.reason == "gate":
             self.consecutive_rejects += 1
             if self.consecutive_rejects >= p.rejections_before_reset:
                 self.health.rejected += 1
                 self.health.resets += 1
-                ekf.inflate_current(p.reset_current_sigma_kn ** 2 + float(y[0, 0] ** 2 + y[1, 0] ** 2) / 2.0)
+                ekf.inflate_current(p.reset_current_sigma_kn ** 2 + (y0 ** 2 + y1 ** 2) / 2.0)
                 P_prior = ekf.P                                                 # inflated, then accepted
-                up = fuse(x_prior, P_prior, y, H, R, math.inf, consider)
+                up = fuse_rows(x_prior, P_prior, xl, P_prior.tolist(), y0, y1, h0, h1, R, math.inf, consider)
         if up.fused:
             self.consecutive_rejects = 0
             ekf.x, ekf.P = up.x, up.P
             # the same step, the filter's gain, with the noise the water's blocks show (``walk``)
-            ekf.P_pub = joseph_with_gain(ekf.P_pub, up.gain, H, R * self.water_walk.noise_scale)
+            scale = self.water_walk.noise_scale
+            ekf.P_pub = joseph_with_gain_rows(ekf.P_pub.tolist(), up.gain, h0, h1,
+                                              [[r * scale for r in row] for row in R])
             if not w.turning:
-                self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0, 0], R[1, 1],
+                self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0][0], R[1][1],
                                     float(up.x[IK, 0]), float(up.x[ID, 0]))
-        return self._report(t, y, nis, up, x_prior, P_prior)
+        return self._report(t, (y0, y1), nis, up, x_prior, P_prior)
 
-    def _report(self, t: float, y: np.ndarray, nis: float, up, x_prior: np.ndarray, P_prior: np.ndarray) -> FusionReport:
-        report = FusionReport(t, (float(y[0, 0]), float(y[1, 0])), up.innovation_var, nis, self._gate, up.fused, up.reason)
+    def _report(self, t: float, y: tuple[float, float], nis: float, up, x_prior: np.ndarray,
+                P_prior: np.ndarray) -> FusionReport:
+        report = FusionReport(t, y, up.innovation_var, nis, self._gate, up.fused, up.reason)
         self.health.count(report)
         self.last_report = report
         if self.records is not None:

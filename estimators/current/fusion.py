@@ -3,9 +3,12 @@
 Whether to fuse at all (turns, a suspect log, resets, when k and d may learn)
 is the control's business (``control``); the model's matrices come from
 ``model``. Written out for the 2 x 4 case in plain floats, numpy arrays only at
-the edges (x, P, y, H, R come and go as arrays): numpy's small-matrix calls
-cost about a microsecond each, more than the arithmetic (it runs at 1 Hz on a
-small computer and over whole passages in replay); checked against filterpy's
+the edges: numpy's small-matrix calls cost about a microsecond each, more than
+the arithmetic (it runs at 1 Hz on a small computer and over whole passages in
+replay). ``fuse`` and ``joseph_with_gain`` take arrays; the filter's own step
+(``estimator``) hands its y, H and R over as plain floats (``fuse_rows``,
+``joseph_with_gain_rows``, with ``model.measurement_rows`` and ``jacobian_rows``),
+so that only the new x, P and P_pub become arrays. Checked against filterpy's
 generic ``ExtendedKalmanFilter.update`` in the tests.
 
     S = H P H' + R                       innovation covariance
@@ -78,7 +81,12 @@ def _h_times(h0: list[float], h1: list[float], PHt: list[tuple[float, float]],
 def innovation_cov(P: np.ndarray, H: np.ndarray, R: np.ndarray) -> tuple[float, float, float, float]:
     """S = H P H' + R as (S00, S01, S10, S11)."""
     h0, h1 = H.tolist()
-    return _h_times(h0, h1, _times_ht(P.tolist(), h0, h1), R.tolist())
+    return innovation_cov_rows(P.tolist(), h0, h1, R.tolist())
+
+
+def innovation_cov_rows(Pl: Rows, h0: list[float], h1: list[float], Rl: Rows) -> tuple[float, float, float, float]:
+    """``innovation_cov`` of P's rows, H's rows h0 and h1 and R's rows."""
+    return _h_times(h0, h1, _times_ht(Pl, h0, h1), Rl)
 
 
 def fuse(x: np.ndarray, P: np.ndarray, y: np.ndarray, H: np.ndarray, R: np.ndarray, gate: float,
@@ -89,10 +97,17 @@ def fuse(x: np.ndarray, P: np.ndarray, y: np.ndarray, H: np.ndarray, R: np.ndarr
     their covariance and cross-covariance are carried exactly, their estimates
     not moved. Never changes ``x`` or ``P`` in place (the caller keeps the prior).
     """
-    Pl = P.tolist()
     h0, h1 = H.tolist()
-    Rl = R.tolist()
     y0, y1 = y.ravel().tolist()
+    return fuse_rows(x, P, x.ravel().tolist(), P.tolist(), y0, y1, h0, h1, R.tolist(), gate, consider_from)
+
+
+def fuse_rows(x: np.ndarray, P: np.ndarray, xl: list[float], Pl: Rows, y0: float, y1: float,
+              h0: list[float], h1: list[float], Rl: Rows, gate: float, consider_from: int | None = None) -> Update:
+    """``fuse`` given x and P both as arrays (handed back when nothing is fused) and as plain floats (``xl``,
+    ``Pl``: the same numbers), y as y0, y1, H as its rows h0, h1 and R as its rows: the filter's own step
+    (``estimator``) has them so, and making arrays only to take them apart again cost more than the
+    arithmetic."""
     PHt = _times_ht(Pl, h0, h1)
     S = _h_times(h0, h1, PHt, Rl)                                           # S = H P H' + R
     nis = nis2(y0, y1, S)                                                   # y' S^-1 y, NaN if S is not usable
@@ -107,7 +122,7 @@ def fuse(x: np.ndarray, P: np.ndarray, y: np.ndarray, H: np.ndarray, R: np.ndarr
     K = [(q0 * i00 + q1 * i10, q0 * i01 + q1 * i11) for q0, q1 in PHt]      # K = P H' S^-1
     if consider_from is not None:
         K[consider_from:] = [(0.0, 0.0)] * (4 - consider_from)
-    x_new = [xi + (k0 * y0 + k1 * y1) for xi, (k0, k1) in zip(x.ravel().tolist(), K)]   # x+ = x + K y
+    x_new = [xi + (k0 * y0 + k1 * y1) for xi, (k0, k1) in zip(xl, K)]                  # x+ = x + K y
     P_new = _joseph(Pl, PHt, K, h0, h1, Rl)
     if not (math.isfinite(sum(x_new)) and math.isfinite(sum(map(sum, P_new)))
             and min(P_new[0][0], P_new[1][1], P_new[2][2], P_new[3][3]) > 0.0):
@@ -122,9 +137,13 @@ def joseph_with_gain(P: np.ndarray, K: Gain, H: np.ndarray, R: np.ndarray) -> np
     covariance P: right for any K (Joseph form), so a covariance other than the one K was made from
     (the published one, ``estimator``) goes through the filter's own step with it.
     """
-    Pl = P.tolist()
     h0, h1 = H.tolist()
-    return np.array(_joseph(Pl, _times_ht(Pl, h0, h1), K, h0, h1, R.tolist()))
+    return joseph_with_gain_rows(P.tolist(), K, h0, h1, R.tolist())
+
+
+def joseph_with_gain_rows(Pl: Rows, K: Gain, h0: list[float], h1: list[float], Rl: Rows) -> np.ndarray:
+    """``joseph_with_gain`` of P's rows, H's rows h0 and h1 and R's rows; the new covariance as an array."""
+    return np.array(_joseph(Pl, _times_ht(Pl, h0, h1), K, h0, h1, Rl))
 
 
 def _joseph(Pl: Rows, PHt: list[tuple[float, float]], K: Gain, h0: list[float], h1: list[float],

@@ -113,6 +113,12 @@ def walk_variances(p: CurrentParams, dt: float, q_inflation: float = 1.0,
 def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k: float, theta: float,
                     correlated: bool = True) -> np.ndarray:
     """R: GNSS velocity noise plus the log's and the compass's noise through the Jacobian."""
+    return np.array(measurement_rows(p, g, w, k, theta, correlated))
+
+
+def measurement_rows(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k: float, theta: float,
+                     correlated: bool = True) -> list[list[float]]:
+    """``measurement_cov`` as two rows of plain floats, for the fusion step that takes them so (``fusion``)."""
     sg = p.gnss_velocity_sigma_kn * (p.low_sog_inflation if math.hypot(*g) < p.low_sog_kn else 1.0)
     s = w.speed_kn
     lam = math.radians(leeway_deg(p, w.heel_deg, k * s))
@@ -136,8 +142,8 @@ def measurement_cov(p: CurrentParams, g: tuple[float, float], w: WaterInputs, k:
     along = k ** 2 * (p.log_sigma_kn ** 2 + c_log * p.log_correlated_sigma_kn ** 2 + (w.speed_rate_kn_s * lag) ** 2)
     ue, un = math.sin(theta), math.cos(theta)                               # u = u(theta), n = (un, -ue)
     r2 = sg ** 2
-    return np.array([[r2 + along * ue * ue + cross * un * un, (along - cross) * ue * un],   # sg^2 I + along u u'
-                     [(along - cross) * ue * un, r2 + along * un * un + cross * ue * ue]])  #   + cross n n'
+    return [[r2 + along * ue * ue + cross * un * un, (along - cross) * ue * un],   # sg^2 I + along u u'
+            [(along - cross) * ue * un, r2 + along * un * un + cross * ue * ue]]  #   + cross n n'
 
 
 def effective_factor(tau_s: float, dt_s: float) -> float:
@@ -151,8 +157,13 @@ def effective_factor(tau_s: float, dt_s: float) -> float:
 
 def jacobian(p: CurrentParams, w: WaterInputs, k: float, d: float) -> np.ndarray:
     """H = [I, s u(theta), k s du/dtheta] from the low-passed inputs (_slow_inputs)."""
+    return np.array(jacobian_rows(p, w, k, d))
+
+
+def jacobian_rows(p: CurrentParams, w: WaterInputs, k: float, d: float) -> list[list[float]]:
+    """``jacobian`` as two rows of plain floats, for the fusion step that takes them so (``fusion``)."""
     ss = w.slow_speed_kn
     th = math.radians(w.slow_heading_deg + leeway_deg(p, w.heel_deg, k * ss)) + d
     sn, cs = math.sin(th), math.cos(th)
-    return np.array([[1.0, 0.0, ss * sn, k * ss * cs],
-                     [0.0, 1.0, ss * cs, -k * ss * sn]])
+    return [[1.0, 0.0, ss * sn, k * ss * cs],
+            [0.0, 1.0, ss * cs, -k * ss * sn]]
