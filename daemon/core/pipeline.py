@@ -85,7 +85,7 @@ class Pipeline:
 
     def _raw(self, item: RawLine) -> None:
         if self.counters is not None:
-            self.counters.take((item,))
+            self.counters.take_line(item)
         for sink in self.sinks:
             sink.raw(item)
         self._advance(item.t_s)

@@ -71,18 +71,20 @@ class Counters:
         self._n[(source, self._row(source, sentence), what)] += n
 
     def take(self, items) -> None:
-        """Apply what each RawLine among ``items`` counted for (the pipeline does this per line)."""
-        n = self._n
+        """Apply what each RawLine among ``items`` counted for (readings and other items pass)."""
         for item in items:
-            counts = getattr(item, "counts", None)
-            if counts is None:
-                continue
-            source, sentence = item.source, item.sentence
-            row = sentence if sentence in _ALWAYS_NAMED else self._row(source, sentence)  # _row's first test
-            for what, k in counts:
-                n[(source, row, what)] += k
-            if item.seen:
-                self._last_seen[(source, row)] = item.t_s
+            if getattr(item, "counts", None) is not None:
+                self.take_line(item)
+
+    def take_line(self, line) -> None:
+        """Apply what one RawLine counted for: the pipeline's call, once a line (no tuple made for it)."""
+        n = self._n
+        source, sentence = line.source, line.sentence
+        row = sentence if sentence in _ALWAYS_NAMED else self._row(source, sentence)  # _row's first test
+        for what, k in line.counts:
+            n[(source, row, what)] += k
+        if line.seen:
+            self._last_seen[(source, row)] = line.t_s
 
     def seen(self, source: str, sentence: str, t_s: float) -> None:
         self._last_seen[(source, self._row(source, sentence))] = t_s
