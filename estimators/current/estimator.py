@@ -28,7 +28,7 @@ from .model import (
 )
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
 from .publication import Publisher
-from .walk import WaterWalk
+from .walk import WaterWalk, lag_predicted, lag_updated
 
 
 @dataclass(frozen=True, slots=True)
@@ -228,6 +228,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         dt = max(0.0, t - self.t_filter)
         self.ekf.P = self.ekf.P + process_noise(self.params, dt, self.q_inflation)                            # F = I: x = x, P = P + Q
         self.ekf.P_pub = self.ekf.P_pub + process_noise(self.params, dt, current_rate=self.published_rate())
+        self.ekf.lag = lag_predicted(self.ekf.lag, dt)
         self.t_filter = t
 
     def published_rate(self) -> float:
@@ -273,6 +274,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             ekf.x, ekf.P = up.x, up.P
             # the same step, the filter's gain, with the noise the water's blocks show (``walk``)
             ekf.P_pub = joseph_with_gain(ekf.P_pub, up.gain, H, R * self.water_walk.noise_scale)
+            ekf.lag = lag_updated(ekf.lag, up.gain)                          # H's current columns are I
             if not w.turning:
                 self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0, 0], R[1, 1],
                                     float(up.x[IK, 0]), float(up.x[ID, 0]))
