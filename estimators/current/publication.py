@@ -3,7 +3,9 @@
 The sigmas (set, drift, and the vector sigma ``quality`` holds against its
 thresholds) come from the published covariance P_pub, not from the filter's P:
 the error covariance of this filter if the water walks as fast as the data
-says (``walk``), at most as fast as the filter's Q lets it. The filter itself
+says (``walk``), at most as fast as the filter's Q lets it, with the filter's
+lag behind the slope the data show added to the current's block (``walk``:
+L E[b b'] L'). The filter itself
 (its gain, gate, NIS test, change detector) and the smoother keep P.
 ``quality`` (interface: converging, valid, degraded, unavailable) is what the
 filter can vouch for; see ``_quality``. A mixin of ``CurrentEstimator``.
@@ -28,7 +30,8 @@ class Publisher:
 
     def _published_covariance_at(self, t: float) -> tuple[tuple[float, float], tuple[float, float]]:
         """The current's 2 x 2 block of the published covariance P_pub predicted to ``t``, as floats, without
-        changing the filter (for publishing between fixes and in outages): F = I, so only Q's diagonal is added."""
+        changing the filter (for publishing between fixes and in outages): F = I, so only Q's diagonal is added, and the
+        lag's part (``walk``) with the lag grown by the time since the fix."""
         (pee, pen, _, _), (pne, pnn, _, _) = self.ekf.P_pub[:2].tolist()
         dt = max(0.0, t - self.t_filter)
         qe, qn, _, _ = walk_variances(self.params, dt, current_rate=self.published_rate())
