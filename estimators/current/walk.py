@@ -383,7 +383,9 @@ class WaterWalk:
 
     ``rate`` (kn^2/s per axis) is what the published covariance walks at: the configured walk until the
     window holds ``water_walk_min_blocks`` blocks, then the interval's upper end, never above it;
-    ``noise_scale`` what its measurement noise is, over the filter's R: 1, then the one read with the walk.
+    ``noise_scale`` what its measurement noise is, over the filter's R: 1, then the one read with the walk;
+    ``slope_moment`` the water's slope's second moment E[b b'] ((kn/s)^2, east and north) that the filter's lag
+    is counted with: 0, then the trend's; ``trending`` whether the walk is the trend's (its slope evident).
     """
 
     def __init__(self, params: CurrentParams) -> None:
@@ -448,7 +450,7 @@ class WaterWalk:
         (be, bn), (ve, vn) = trend.slope, trend.slope_var
         self.slope_moment = ((be * be + ve, be * bn), (be * bn, bn * bn + vn))   # E[b b'] = b_hat b_hat' + V
         # the walk from the trend where its slope is evident (Wald's test, both axes), else from the local level
-        self.trending = be * be / ve + bn * bn / vn > chi2_quantile(confidence, 2)
+        self.trending = ve > 0.0 and vn > 0.0 and be * be / ve + bn * bn / vn > chi2_quantile(confidence, 2)
         fit = self.last = trend if self.trending else fit_walk(series, self.ceiling, confidence, NOISE_SCALES)
         self.rate = min(self.ceiling, fit.upper)
         self.noise_scale = fit.noise_scale
