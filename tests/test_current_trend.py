@@ -49,7 +49,7 @@ def means_covariance(q_level: float, q_slope: float, prior_cov: np.ndarray, nois
     C = np.empty((n, n))
     for i in range(n):
         for j in range(i, n):
-            integral = dblquad(lambda u, t: k(t, u), T0[i], T1[i], T0[j], T1[j], epsabs=1e-12, epsrel=1e-10)[0]
+            integral = dblquad(lambda u, t: k(t, u), T0[i], T1[i], T0[j], T1[j], epsabs=1e-11, epsrel=1e-9)[0]
             C[i, j] = C[j, i] = integral / ((T1[i] - T0[i]) * (T1[j] - T0[j]))
     return C + np.diag(noise)
 
