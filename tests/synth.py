@@ -38,9 +38,11 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
                   heading_sigma_deg: float = 1.5, turn_rate_deg_s: float = 10.0,
                   fix_gap: tuple[float, float] | None = None, log_override=None,
                   current_steps: tuple[tuple[float, tuple[float, float]], ...] = (),
-                  heading_hz: int = 1, turn_speed_loss: float = 0.0) -> Synth:
+                  heading_hz: int = 1, turn_speed_loss: float = 0.0,
+                  current_slope_kn_per_h: tuple[float, float] = (0.0, 0.0)) -> Synth:
     """``legs``: (start time s from T0, true heading deg), sorted. ``log_override(t_rel, reading) -> reading``;
-    ``current_steps``: (time s from T0, new (east, north)) where the current jumps."""
+    ``current_steps``: (time s from T0, new (east, north)) where the current jumps; ``current_slope_kn_per_h``:
+    a steady change of the current (east, north), on top of its walk."""
     rng = np.random.default_rng(seed)
     out = Synth(k=k, offset_deg=offset_deg)
     ce, cn = current_en
@@ -57,8 +59,8 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
         for ts, new in current_steps:
             if i == ts:
                 ce, cn = new
-        ce += q * rng.standard_normal()
-        cn += q * rng.standard_normal()
+        ce += q * rng.standard_normal() + current_slope_kn_per_h[0] / 3600.0
+        cn += q * rng.standard_normal() + current_slope_kn_per_h[1] / 3600.0
         t = T0 + i
         reading = stw / k + log_sigma * rng.standard_normal()
         if log_override is not None:

@@ -254,6 +254,9 @@ def test_the_estimates_are_the_same_with_and_without_the_published_covariance(mo
     # ... and with P_pub never updated at all (the Joseph step with the filter's gain a no-op)
     monkeypatch.setattr(estimator, "joseph_with_gain_rows", lambda Pl, K, h0, h1, Rl: np.array(Pl))
     monkeypatch.setattr(control, "joseph_with_gain", lambda P, K, H, R: P)
+    # ... and with the lag behind the water's slope never moved (walk: the lag's part of what is published)
+    monkeypatch.setattr(estimator, "lag_updated", lambda lag, K: lag)
+    monkeypatch.setattr(estimator, "lag_predicted", lambda lag, dt: lag)
     without, _ = records_of(CurrentParams(**WHITE))
     # THEN every state and the filter's own covariance are identical to the bit
     assert base == other == without

@@ -73,16 +73,20 @@ is about twice the error variance the filter makes. So beside P the estimator
 carries P_pub, the error covariance of this same filter (its gain, its consider
 structure, Joseph form for any gain: ``fusion.joseph_with_gain``) if the water
 walks at the rate the last ``water_walk_window_h`` of measured current shows
-(``walk``: a local level model's likelihood, the upper end of its interval, never
-above the configured walk), plus the change detector's inflation, and if the
-measurement noise is what the same blocks show of it (R times the scale read
-with the walk, between 1/4 and 1: a realistic seaway's minute means sit at about
-0.75 of R's). Every reset,
-inflation and restart of P is done to P_pub as well; P - P_pub stays positive
-semidefinite. ``set_sigma_deg``, ``drift_sigma_kn`` and the vector sigma that
-``quality`` holds against its thresholds come from P_pub; the gate, the NIS test,
-the change detector, the calibration and the smoother keep P, so every estimate
-is the same as without it.
+(``walk``: a local level model's likelihood, or a local linear trend's where the
+current changes steadily, the upper end of its interval, never above the
+configured walk), plus the change detector's inflation, and if the measurement
+noise is what the same blocks show of it (R times the scale read with the walk,
+between 1/4 and 1: a realistic seaway's minute means sit at about 0.75 of R's).
+Every reset, inflation and restart of P is done to P_pub as well; P - P_pub
+stays positive semidefinite. Beside it the filter's lag per unit slope (``walk``):
+a filter whose model has no slope lags a steadily changing current by about its
+time constant times the slope, so the published covariance of the current is
+P_pub's plus that lag's mean square for the slope the trend reads.
+``set_sigma_deg``, ``drift_sigma_kn`` and the vector sigma that ``quality`` holds
+against its thresholds come from it; the gate, the NIS test, the change
+detector, the calibration and the smoother keep P, so every estimate is the same
+as without it.
 
 Honest quality: the NIS of the last ``nis_check_fixes`` fixes against the
 covariance the filter uses is tested against its two-sided chi-square bounds

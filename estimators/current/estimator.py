@@ -29,7 +29,7 @@ from .model import (
 )
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
 from .publication import Publisher
-from .walk import WaterWalk
+from .walk import WaterWalk, lag_predicted, lag_updated
 
 
 @dataclass(frozen=True, slots=True)
@@ -229,6 +229,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         dt = max(0.0, t - self.t_filter)
         self.ekf.P = self.ekf.P + process_noise(self.params, dt, self.q_inflation)                            # F = I: x = x, P = P + Q
         self.ekf.P_pub = self.ekf.P_pub + process_noise(self.params, dt, current_rate=self.published_rate())
+        self.ekf.lag = lag_predicted(self.ekf.lag, dt)
         self.t_filter = t
 
     def published_rate(self) -> float:
@@ -277,6 +278,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             scale = self.water_walk.noise_scale
             ekf.P_pub = joseph_with_gain_rows(ekf.P_pub.tolist(), up.gain, h0, h1,
                                               [[r * scale for r in row] for row in R])
+            ekf.lag = lag_updated(ekf.lag, up.gain)                          # H's current columns are I
             if not w.turning:
                 self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0][0], R[1][1],
                                     float(up.x[IK, 0]), float(up.x[ID, 0]))

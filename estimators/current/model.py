@@ -46,18 +46,21 @@ class WaterInputs:
 class FilterState:
     """The filter's state vector ``x`` (4 x 1) and covariance ``P`` (4 x 4), as numpy arrays, and beside them
     the covariance it publishes, ``P_pub``: the error covariance of this filter (its gain) if the water walks
-    at the rate read from the data (``walk``), which nothing in the filter reads.
+    at the rate read from the data (``walk``), and ``lag``: the filter's mean error behind water whose current
+    changes steadily, per unit of that slope (2 x 2, rows the error's axes, columns the slope's; ``walk``),
+    which nothing in the filter reads.
 
     filterpy's ``ExtendedKalmanFilter`` held them once, but importing it loads scipy.stats, about
     45 MB and a second at start, for nothing (the predict and the update are written out here).
     """
 
-    __slots__ = ("x", "P", "P_pub")
+    __slots__ = ("x", "P", "P_pub", "lag")
 
     def __init__(self) -> None:
         self.x = np.zeros((4, 1))
         self.P = np.eye(4)
         self.P_pub = np.eye(4)
+        self.lag = ((0.0, 0.0), (0.0, 0.0))  # the current's error per unit of the water's slope, s (``walk``)
 
     def inflate_current(self, variance_kn2: float) -> None:
         """Add ``variance_kn2`` to each axis of the current in P and P_pub alike (a reset, a sensor found

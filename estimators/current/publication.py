@@ -3,7 +3,9 @@
 The sigmas (set, drift, and the vector sigma ``quality`` holds against its
 thresholds) come from the published covariance P_pub, not from the filter's P:
 the error covariance of this filter if the water walks as fast as the data
-says (``walk``), at most as fast as the filter's Q lets it. The filter itself
+says (``walk``), at most as fast as the filter's Q lets it, with the filter's
+lag behind the slope the data show added to the current's block (``walk``:
+L E[b b'] L'). The filter itself
 (its gain, gate, NIS test, change detector) and the smoother keep P.
 ``quality`` (interface: converging, valid, degraded, unavailable) is what the
 filter can vouch for; see ``_quality``. A mixin of ``CurrentEstimator``.
@@ -13,11 +15,14 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 from estimators.angles import from_east_north, wrap_180
 from estimators.base import CAUTION, Condition, Output, Publication
 
 from .model import walk_variances
 from .params import IK, ID, IE, IN, TOPIC, Calibration
+from .walk import lag_covariance, lag_predicted
 
 
 class Publisher:
@@ -25,10 +30,19 @@ class Publisher:
 
     def _published_covariance_at(self, t: float) -> tuple[tuple[float, float], tuple[float, float]]:
         """The current's 2 x 2 block of the published covariance P_pub predicted to ``t``, as floats, without
-        changing the filter (for publishing between fixes and in outages): F = I, so only Q's diagonal is added."""
+        changing the filter (for publishing between fixes and in outages): F = I, so only Q's diagonal is added, and the
+        lag's part (``walk``) with the lag grown by the time since the fix."""
         (pee, pen, _, _), (pne, pnn, _, _) = self.ekf.P_pub[:2].tolist()
-        qe, qn, _, _ = walk_variances(self.params, max(0.0, t - self.t_filter), current_rate=self.published_rate())
-        return (pee + qe, pen), (pne, pnn + qn)
+        dt = max(0.0, t - self.t_filter)
+        qe, qn, _, _ = walk_variances(self.params, dt, current_rate=self.published_rate())
+        (le, len_), (_, ln) = lag_covariance(lag_predicted(self.ekf.lag, dt), self.water_walk.slope_moment)
+        return (pee + qe + le, pen + len_), (pne + len_, pnn + qn + ln)
+
+    def published_covariance(self) -> np.ndarray:
+        """The whole published covariance at the last fix (4 x 4): P_pub with the lag behind the water's slope in
+        the current's block (``walk``)."""
+        (le, len_), (_, ln) = lag_covariance(self.ekf.lag, self.water_walk.slope_moment)
+        return self.ekf.P_pub + np.array([[le, len_, 0.0, 0.0], [len_, ln, 0.0, 0.0], [0.0] * 4, [0.0] * 4])
 
     def _stale_inputs(self, t: float) -> list[str]:
         return [k for k in ("fix", "heading", "water_speed") if t - self._seen.get(k, -math.inf) > self.params.stale_s]

@@ -1,4 +1,5 @@
-"""How fast the water really walks: the walk behind the published sigma, read from the measured current.
+"""How fast the water really walks, and how steadily it changes: the walk and the lag behind the published sigma,
+read from the measured current.
 
 Theory of operation
 -------------------
@@ -57,6 +58,52 @@ profile likelihood's (maximised over s at each q; Wilks's theorem holds for it
 too), and P_pub's update takes R s. Never above 1: in a rougher sea than R
 says the windowed NIS test says so (``degraded``), and P_pub stays within P.
 
+Trend. A tidal stream that turns smoothly, or a current rising steadily into a
+jet, is no random walk: read by the local level its hour of means shows a large
+walk (the published sigma too wide), while the filter, whose walk model has no
+slope, lags a steady change by about its time constant times the slope (an error
+no walk describes: too narrow). So the same means are also read as a local linear
+trend (Harvey 1989 ch. 2 and 4, from memory): per axis a level that walks at q
+and moves with a slope b, the slope itself walking at q_b (kn^2/s^3). Over a
+block of T s from the state (m, b), with W and V the level's and the slope's
+Brownian motions, the mean is y = m + b T / 2 + (the average of W and of the
+integral of V) + e, the end (m + b T + W(T) + int V, b + V(T)), and the noise
+moments, integrated from their covariance functions (min(s, t) for W, and for
+the integral of V s^2 t / 2 - s^3 / 6 at s <= t), are::
+
+    var(mean) = q T / 3 + q_b T^3 / 20
+    cov(level_T, mean) = q T / 2 + q_b T^3 / 8      cov(slope_T, mean) = q_b T^2 / 6
+    var(level_T) = q T + q_b T^3 / 3   cov(level_T, slope_T) = q_b T^2 / 2   var(slope_T) = q_b T
+
+(a gap is the ordinary trend step). Both states start diffuse (variances
+``DIFFUSE_VAR``, far beyond any water) and the first two blocks' terms, which only
+place them, are left out (de Jong, "The diffuse Kalman filter", Ann. Stat. 19,
+1991, from memory; the tests hold the differences against the
+restricted likelihood of the stacked means). q by maximum likelihood over a
+grid in ln q (1/8 decade), profiled over q_b (``SLOPE_WALKS``: 0, or a slope that
+changes over a quarter of an hour to nine hours) and the noise's scale, its
+interval as below. Its slope at the window's end is the maximum's.
+
+The trend has two more states to place, so over steady water its walk's
+interval is wider than the level's (the beat's blocks, seed 1: an upper end of
+0.045-0.095 kn/sqrt(h) where the local level reads 0.024-0.074). So the walk
+published is the trend's only where its slope is evident (Wald's test,
+b' V^-1 b over both axes above chi2_2 at ``water_walk_confidence``), else the
+local level's as before.
+
+Lag. The filter's mean error behind a current that changes at b is L b, L the
+"lag per unit slope" (2 x 2, seconds), carried beside P_pub from zero at each
+start: a prediction over dt moves the water on, L <- L - dt I; a fused fix moves
+the estimate by its gain, L <- (I - K_c) L (K_c the gain's current rows; H's
+current columns are I, and the calibration rows of L stay 0, the consider
+states' gain being 0). About minus the filter's time constant in steady
+sailing (75 s with the realistic sensor model's R), more while fixes are held
+(a turn, an outage). The slope is read with an error, so the published
+covariance of the current is P_pub's plus L E[b b'] L', E[b b'] = b_hat b_hat'
++ V (the slope's second moment at the window's end): the lag as a mean error
+counted in the mean square (Bar-Shalom et al. 2001 sect. 5.4 measure
+consistency by that mean square, from memory). It is 0 until the walk is read.
+
 Published: the upper end of the likelihood-ratio interval {q : 2 (l(q_hat) -
 l(q)) <= chi2_1(c)} at c = ``water_walk_confidence`` (Wilks, "The large-sample
 distribution of the likelihood ratio for testing composite hypotheses", Ann.
@@ -64,7 +111,9 @@ Math. Stat. 9, 1938), never more than the configured walk (the filter's own
 model), and the configured walk itself while the window holds fewer than
 ``water_walk_min_blocks`` blocks. Read again as each block closes (once a
 minute), not at every fix: one pass over the window's blocks for every rate of
-the grid at once, a few milliseconds a minute (the bench's ``--per-fix``).
+the grid at once, the trend's (50 level walks x 5 slope walks x 7 scales) and,
+where its slope is not evident, the local level's: about 7 and 4 ms a minute
+over an hour's blocks (CPU, the build machine at a load of 2).
 """
 
 from __future__ import annotations
@@ -80,11 +129,18 @@ from estimators.fusion import chi2_quantile
 
 from .params import S_PER_H, CurrentParams
 
+Lag = tuple[tuple[float, float], tuple[float, float]]
+
 MIN_BLOCK_FIXES = 5        # a block with fewer fixes (a short stretch between turns) is dropped
 GRID_DECADES = 6.0         # the grid in ln q spans the configured walk's rate down to 1e-6 of it (and 0)
 GRID_POINTS = 97           # 1/16 decade (15 %) apart: the interval's ends interpolated to about 1 %
 GAP_TOLERANCE_S = 1e-3     # a fix whose interval starts later than the last one added follows a gap
 NOISE_SCALES = np.logspace(math.log10(0.25), 0.0, 13)  # the means' noise over R's: 1/4 to 1, 12 % apart
+TREND_LEVEL_POINTS = 49    # the trend's level walks: 1/8 decade apart (the interval's end interpolated, as above)
+SLOPE_WALKS = np.concatenate([[0.0], np.logspace(-9.0, -6.0, 4)])  # the slope's walk over the level's ceiling, s^-2
+TREND_NOISE_SCALES = np.logspace(math.log10(0.25), 0.0, 7)          # 1/4 to 1, 26 % apart
+NO_SLOPE = ((0.0, 0.0), (0.0, 0.0))
+DIFFUSE_VAR = (1e2, 1.0)   # a diffuse start: level kn^2, slope (kn/s)^2 (far beyond any water; see trend_pass)
 
 
 @dataclass(frozen=True, slots=True)
@@ -192,12 +248,144 @@ def _crossing(q: np.ndarray, ll: np.ndarray, level: float, i_in: int, i_out: int
     return float(math.exp(math.log(qa) + f * (math.log(qb) - math.log(qa))))
 
 
+@dataclass(frozen=True, slots=True)
+class TrendFit:
+    """The local linear trend's reading (``fit_trend``): the level's walk (kn^2/s per axis) by maximum likelihood
+    and its likelihood-ratio interval within [0, ceiling], the slope's walk (kn^2/s^3) and the noise's scale at the
+    maximum, and the slope at the last block's end there (kn/s per axis, east and north) with its variance."""
+
+    q_hat: float
+    lower: float
+    upper: float
+    blocks: int
+    noise_scale: float
+    q_slope: float
+    slope: tuple[float, float]
+    slope_var: tuple[float, float]
+
+
+@dataclass(frozen=True, slots=True)
+class TrendPass:
+    """One pass of the local linear trend's filter over a series for many parameter sets at once: the
+    log-likelihood per set, and per axis and set the slope's mean (kn/s) and variance at the last block's end."""
+
+    ll: np.ndarray
+    slope: np.ndarray
+    slope_var: np.ndarray
+
+
+def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale: np.ndarray | None = None,
+               prior: tuple[np.ndarray, np.ndarray] | None = None) -> TrendPass:
+    """The local linear trend's filter over the block means ``s`` for the level walks ``q_level`` (kn^2/s), slope
+    walks ``q_slope`` (kn^2/s^3) and noise scales (as many of each, pairwise), the axes' log-likelihoods summed.
+
+    Each block a flow (the module doc's aggregation moments). ``prior``: the state (level kn, slope kn/s) at the
+    first block's start, its mean (axes x 2) and covariance (2 x 2), exact; without it the state is diffuse (the
+    level at the first mean, both with ``DIFFUSE_VAR``'s variances) and the first two blocks' terms, which only
+    place it, are left out of the likelihood (de Jong 1991, from memory).
+    """
+    ql = np.asarray(q_level, dtype=float)[None, :]
+    qs = np.asarray(q_slope, dtype=float)[None, :]
+    scale = np.ones_like(ql) if noise_scale is None else np.asarray(noise_scale, dtype=float)[None, :]
+    shape = (s.y.shape[0], ql.shape[1])
+    if prior is None:
+        m, b = s.y[:, :1] + np.zeros(shape), np.zeros(shape)
+        p00, p01, p11 = np.full(shape, DIFFUSE_VAR[0]), np.zeros(shape), np.full(shape, DIFFUSE_VAR[1])
+        skip = 2
+    else:
+        mean, cov = prior
+        m, b = mean[:, :1] + np.zeros(shape), mean[:, 1:2] + np.zeros(shape)
+        p00, p01, p11 = (np.full(shape, float(v)) for v in (cov[0, 0], cov[0, 1], cov[1, 1]))
+        skip = 0
+    ll = np.zeros(shape[1])
+    flows: dict[float, tuple[np.ndarray, ...]] = {}                 # a block's walk moments by its span
+    for i in range(len(s.t0)):
+        g = max(0.0, float(s.t0[i] - s.t1[i - 1])) if i else 0.0
+        if g > 0.0:                                                 # the gap: an ordinary trend step
+            m = m + g * b
+            p00 = p00 + g * (2.0 * p01 + g * p11) + (ql * g + qs * (g ** 3 / 3.0))
+            p01 = p01 + g * p11 + qs * (g * g / 2.0)
+            p11 = p11 + qs * g
+        T = float(s.t1[i] - s.t0[i])
+        if T not in flows:   # var(mean), cov(level_T, mean), cov(slope_T, mean), var(level_T), cov(level_T, slope_T)
+            flows[T] = (ql * (T / 3.0) + qs * (T ** 3 / 20.0), ql * (T / 2.0) + qs * (T ** 3 / 8.0),
+                        qs * (T * T / 6.0), ql * T + qs * (T ** 3 / 3.0), qs * (T * T / 2.0), qs * T)
+        w_mean, w_cross0, w_cross1, w00, w01, w11 = flows[T]
+        F = p00 + T * p01 + (T * T / 4.0) * p11 + w_mean + s.h[:, i:i + 1] * scale
+        c0 = p00 + 1.5 * T * p01 + (T * T / 2.0) * p11 + w_cross0                 # cov(level_T, y)
+        c1 = p01 + 0.5 * T * p11 + w_cross1                                        # cov(slope_T, y)
+        v = s.y[:, i:i + 1] - (m + 0.5 * T * b)
+        if i >= skip:
+            ll = ll - 0.5 * np.sum(np.log(2.0 * math.pi * F) + v * v / F, axis=0)
+        k0, k1 = c0 / F, c1 / F
+        m = m + T * b + k0 * v
+        b = b + k1 * v
+        v00 = p00 + T * (2.0 * p01 + T * p11) + w00                                # the end's, before the mean
+        v01 = p01 + T * p11 + w01
+        p00, p01, p11 = v00 - k0 * c0, v01 - k0 * c1, p11 + w11 - k1 * c1
+    return TrendPass(ll, b, p11)
+
+
+def fit_trend(s: Series, ceiling: float, confidence: float) -> TrendFit:
+    """The local linear trend over ``s``: the level's walk by maximum likelihood within [0, ``ceiling``] and the
+    upper end of its likelihood-ratio interval at ``confidence`` (the profile likelihood over the slope's walk
+    and the noise's scale), and the slope at the end at the maximum.
+
+    Every level walk of a grid in ln q (and 0), every slope walk of ``SLOPE_WALKS`` and every scale of
+    ``TREND_NOISE_SCALES`` at once; the maximum and the interval's ends as ``fit_walk``'s.
+    """
+    ql = np.concatenate([[0.0], ceiling * np.logspace(-GRID_DECADES, 0.0, TREND_LEVEL_POINTS)])
+    qs = ceiling * SLOPE_WALKS
+    sc = TREND_NOISE_SCALES
+    n_l, n_s, n_c = len(ql), len(qs), len(sc)
+    # the grid's axes: scale, slope walk, level walk (level fastest)
+    res = trend_pass(np.tile(ql, n_s * n_c), np.tile(np.repeat(qs, n_l), n_c), s, np.repeat(sc, n_s * n_l))
+    grid = res.ll.reshape(n_c * n_s, n_l)
+    ll = grid.max(axis=0)                                           # the profile over the slope's walk and the scale
+    best = int(np.argmax(ll))
+    q_hat, l_hat = _vertex(ql, ll, best)
+    threshold = l_hat - 0.5 * chi2_quantile(confidence, 1)
+    out = np.flatnonzero(ll < threshold)
+    up, low = out[out > best], out[out < best]
+    upper = _crossing(ql, ll, threshold, up[0] - 1, up[0]) if up.size else ceiling
+    lower = _crossing(ql, ll, threshold, low[-1] + 1, low[-1]) if low.size else 0.0
+    j = int(np.argmax(grid[:, best])) * n_l + best                  # the maximum's parameter set
+    slope, var = res.slope[:, j], res.slope_var[:, j]
+    return TrendFit(q_hat, lower, max(upper, q_hat), s.y.shape[1], float(sc[j // (n_s * n_l)]),
+                    float(qs[(j // n_l) % n_s]), (float(slope[0]), float(slope[1])), (float(var[0]), float(var[1])))
+
+
+def lag_predicted(lag: Lag, dt: float) -> Lag:
+    """The filter's lag per unit slope after a prediction of ``dt`` s: the water moves on, the estimate stays."""
+    (a, b), (c, d) = lag
+    return (a - dt, b), (c, d - dt)
+
+
+def lag_updated(lag: Lag, gain: list[tuple[float, float]]) -> Lag:
+    """The lag per unit slope after a fusion with the filter's gain (its current rows): (I - K_c) lag."""
+    (a, b), (c, d) = lag
+    (k00, k01), (k10, k11) = gain[0], gain[1]
+    return ((a - (k00 * a + k01 * c), b - (k00 * b + k01 * d)),
+            (c - (k10 * a + k11 * c), d - (k10 * b + k11 * d)))
+
+
+def lag_covariance(lag: Lag, moment: Lag) -> Lag:
+    """The lag's part of the current's published covariance, L E[b b'] L' (kn^2)."""
+    (a, b), (c, d) = lag
+    (s00, s01), (s10, s11) = moment
+    r00, r01, r10, r11 = a * s00 + b * s10, a * s01 + b * s11, c * s00 + d * s10, c * s01 + d * s11   # L S
+    off = r00 * c + r01 * d
+    return (r00 * a + r01 * b, off), (off, r10 * c + r11 * d)
+
+
 class WaterWalk:
     """Blocks of the measured current over a sliding window, and the walk they show (see the module doc).
 
     ``rate`` (kn^2/s per axis) is what the published covariance walks at: the configured walk until the
     window holds ``water_walk_min_blocks`` blocks, then the interval's upper end, never above it;
-    ``noise_scale`` what its measurement noise is, over the filter's R: 1, then the one read with the walk.
+    ``noise_scale`` what its measurement noise is, over the filter's R: 1, then the one read with the walk;
+    ``slope_moment`` the water's slope's second moment E[b b'] ((kn/s)^2, east and north) that the filter's lag
+    is counted with: 0, then the trend's; ``trending`` whether the walk is the trend's (its slope evident).
     """
 
     def __init__(self, params: CurrentParams) -> None:
@@ -205,8 +393,11 @@ class WaterWalk:
         self.ceiling = params.current_walk_kn_per_sqrt_h ** 2 / S_PER_H
         self.rate = self.ceiling
         self.noise_scale = 1.0
+        self.slope_moment: Lag = NO_SLOPE
+        self.trending = False
         self.blocks: deque[WalkBlock] = deque()
-        self.last: WalkFit | None = None
+        self.last: WalkFit | TrendFit | None = None
+        self.trend: TrendFit | None = None
         self._t_last = -math.inf
         self._open()
 
@@ -246,16 +437,23 @@ class WaterWalk:
     def _read(self, k: float, d_rad: float) -> None:
         """The walk over the window's blocks, the current measured with the filter's k and d now."""
         if len(self.blocks) < self.params.water_walk_min_blocks:
-            self.rate, self.noise_scale, self.last = self.ceiling, 1.0, None
+            self.rate, self.noise_scale, self.slope_moment, self.last = self.ceiling, 1.0, NO_SLOPE, None
+            self.trend, self.trending = None, False
             return
         blocks = self.blocks
         m = np.array([turned(b.m, d_rad) for b in blocks]).T                  # R(d) m, (east, north) x blocks
         series = Series(np.array([b.t0_s for b in blocks]), np.array([b.t1_s for b in blocks]),
                         np.array([b.g for b in blocks]).T - k * m,            # c = g - k R(d) m
                         np.array([b.h for b in blocks]).T)
-        self.last = fit_walk(series, self.ceiling, self.params.water_walk_confidence, NOISE_SCALES)
-        self.rate = min(self.ceiling, self.last.upper)
-        self.noise_scale = self.last.noise_scale
+        confidence = self.params.water_walk_confidence
+        trend = self.trend = fit_trend(series, self.ceiling, confidence)
+        (be, bn), (ve, vn) = trend.slope, trend.slope_var
+        self.slope_moment = ((be * be + ve, be * bn), (be * bn, bn * bn + vn))   # E[b b'] = b_hat b_hat' + V
+        # the walk from the trend where its slope is evident (Wald's test, both axes), else from the local level
+        self.trending = ve > 0.0 and vn > 0.0 and be * be / ve + bn * bn / vn > chi2_quantile(confidence, 2)
+        fit = self.last = trend if self.trending else fit_walk(series, self.ceiling, confidence, NOISE_SCALES)
+        self.rate = min(self.ceiling, fit.upper)
+        self.noise_scale = fit.noise_scale
 
     @property
     def walk_kn_per_sqrt_h(self) -> float:

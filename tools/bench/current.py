@@ -137,7 +137,7 @@ def sigma_parts(est: CurrentEstimator, te: float, tn: float, k_true: float, d_tr
     the explained part's covariance A P_kd,c and the rest's P_cc - A P_kd,c (Schur complement), all of
     the published covariance P_pub.
     """
-    x, P = est.ekf.x[:, 0], est.ekf.P_pub
+    x, P = est.ekf.x[:, 0], est.published_covariance()
     e_c = np.array([x[0] - te, x[1] - tn])
     A = P[:2, 2:] @ np.linalg.inv(P[2:, 2:])
     e_cal = A @ np.array([x[2] - k_true, x[3] - d_true_rad])
