@@ -216,7 +216,14 @@ def fit_walk(s: Series, ceiling: float, confidence: float, noise_scales: np.ndar
     q = np.concatenate([[0.0], ceiling * np.logspace(-GRID_DECADES, 0.0, GRID_POINTS)])
     scales = np.asarray(noise_scales, dtype=float)
     grid = level_loglik(np.tile(q, len(scales)), s, np.repeat(scales, len(q))).reshape(len(scales), len(q))
-    ll = grid.max(axis=0)                                           # the profile over the noise's scale
+    best, q_hat, lower, upper = _interval(q, grid.max(axis=0), ceiling, confidence)   # profiled over the scale
+    scale_hat, _ = _vertex(scales, grid[:, best], int(np.argmax(grid[:, best])))
+    return WalkFit(q_hat, lower, upper, s.y.shape[1], scale_hat)
+
+
+def _interval(q: np.ndarray, ll: np.ndarray, ceiling: float, confidence: float) -> tuple[int, float, float, float]:
+    """The grid's best point, the maximum (``_vertex``) and the likelihood-ratio interval's ends at ``confidence``
+    within [0, ``ceiling``] (``_crossing``) of the (profile) log-likelihood ``ll`` over the rates ``q``."""
     best = int(np.argmax(ll))
     q_hat, l_hat = _vertex(q, ll, best)
     threshold = l_hat - 0.5 * chi2_quantile(confidence, 1)
@@ -224,8 +231,7 @@ def fit_walk(s: Series, ceiling: float, confidence: float, noise_scales: np.ndar
     up, low = out[out > best], out[out < best]
     upper = _crossing(q, ll, threshold, up[0] - 1, up[0]) if up.size else ceiling
     lower = _crossing(q, ll, threshold, low[-1] + 1, low[-1]) if low.size else 0.0
-    scale_hat, _ = _vertex(scales, grid[:, best], int(np.argmax(grid[:, best])))
-    return WalkFit(q_hat, lower, max(upper, q_hat), s.y.shape[1], scale_hat)
+    return best, q_hat, lower, max(upper, q_hat)
 
 
 def _vertex(q: np.ndarray, ll: np.ndarray, i: int) -> tuple[float, float]:
@@ -341,17 +347,10 @@ def fit_trend(s: Series, ceiling: float, confidence: float) -> TrendFit:
     # the grid's axes: scale, slope walk, level walk (level fastest)
     res = trend_pass(np.tile(ql, n_s * n_c), np.tile(np.repeat(qs, n_l), n_c), s, np.repeat(sc, n_s * n_l))
     grid = res.ll.reshape(n_c * n_s, n_l)
-    ll = grid.max(axis=0)                                           # the profile over the slope's walk and the scale
-    best = int(np.argmax(ll))
-    q_hat, l_hat = _vertex(ql, ll, best)
-    threshold = l_hat - 0.5 * chi2_quantile(confidence, 1)
-    out = np.flatnonzero(ll < threshold)
-    up, low = out[out > best], out[out < best]
-    upper = _crossing(ql, ll, threshold, up[0] - 1, up[0]) if up.size else ceiling
-    lower = _crossing(ql, ll, threshold, low[-1] + 1, low[-1]) if low.size else 0.0
+    best, q_hat, lower, upper = _interval(ql, grid.max(axis=0), ceiling, confidence)  # profiled over q_b, scale
     j = int(np.argmax(grid[:, best])) * n_l + best                  # the maximum's parameter set
     slope, var = res.slope[:, j], res.slope_var[:, j]
-    return TrendFit(q_hat, lower, max(upper, q_hat), s.y.shape[1], float(sc[j // (n_s * n_l)]),
+    return TrendFit(q_hat, lower, upper, s.y.shape[1], float(sc[j // (n_s * n_l)]),
                     float(qs[(j // n_l) % n_s]), (float(slope[0]), float(slope[1])), (float(var[0]), float(var[1])))
 
 
