@@ -19,7 +19,7 @@ from scipy.stats import multivariate_normal
 
 from estimators.current import IE, IN, CurrentEstimator, CurrentParams
 from estimators.current.walk import Series, fit_trend, fit_walk, lag_covariance, trend_pass
-from estimators.runner import run
+from estimators.runner import RunContext, run
 from estimators.samples import Fix
 from tests.synth import synth_passage, tacking_legs
 
@@ -198,3 +198,31 @@ def test_the_published_covariance_covers_a_steadily_changing_current(ramp_runs):
         fit = est.water_walk.trend
         assert fit is not None and est.water_walk.trending
         assert np.array(fit.slope) * S_PER_H == pytest.approx([1.5, -0.5], abs=0.3)
+
+
+def published_current(seed: int, slope_kn_per_h: tuple[float, float], duration_s: int) -> tuple[CurrentEstimator, dict]:
+    """The current payload at the end of a tacking passage over water changing at ``slope_kn_per_h``."""
+    syn = synth_passage(seed, duration_s, tacking_legs(duration_s, 900), current_slope_kn_per_h=slope_kn_per_h)
+    est, ctx = CurrentEstimator(CurrentParams(**WHITE)), RunContext()
+    for _ in run(est, syn.samples, ctx):
+        pass
+    return est, ctx.latest("current").payload
+
+
+def test_the_payload_carries_the_waters_steady_change_where_the_hour_shows_one():
+    est, payload = published_current(410, (1.5, -0.5), 5400)
+    # THEN the payload says the slope the published sigma counted the lag for, in kn/h (0.01 kn/h: payloads' table)
+    slope = np.array(est.water_walk.trend.slope) * S_PER_H
+    assert (payload["water_trend_east_kn_per_h"], payload["water_trend_north_kn_per_h"]) == \
+        (round(float(slope[0]), 2), round(float(slope[1]), 2))
+    # ... and that is the water's own change: the synthetic stream's 1.5 kn/h east and 0.5 kn/h south, within
+    # the slope's scatter over an hour of minute means (the ramp test's tolerance above)
+    assert payload["water_trend_east_kn_per_h"] == pytest.approx(1.5, abs=0.3)
+    assert payload["water_trend_north_kn_per_h"] == pytest.approx(-0.5, abs=0.3)
+
+
+def test_the_payload_says_no_trend_before_the_hour_has_enough_minutes():
+    est, payload = published_current(411, (1.5, -0.5), 900)
+    # 15 minutes: fewer blocks than water_walk_min_blocks (20), so no walk or trend read yet
+    assert est.water_walk.trend is None
+    assert payload["water_trend_east_kn_per_h"] is None and payload["water_trend_north_kn_per_h"] is None

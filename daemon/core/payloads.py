@@ -55,6 +55,7 @@ _BY_SUFFIX: dict[str, int] = {
     "_deg": 1,                # 0.1 deg: a compass card's finest reading
     "_hpa": 1,                # 0.1 hPa: what a marine barometer and MDA/XDR report
     "_hpa_per_h": 2,          # rates are small numbers: 0.01 hPa/h
+    "_kn_per_h": 2,           # the current's steady change: 0.01 kn/h is 0.1 kn in ten hours
     "_c": 2,                  # sea and air temperature; fronts are judged on tenths
     "_c_per_nm": 3,
     "_nm": 3,                 # 0.001 nm is 1.85 m

@@ -102,11 +102,20 @@ class Publisher:
             "q_inflation": round(self.q_inflation, 2),
             "water_walk_kn_per_sqrt_h": round(self.water_walk.walk_kn_per_sqrt_h, 3),
             "noise_scale": round(self.water_walk.noise_scale, 2),
+            **self._trend_fields(),
             "health": self.health.as_dict(),
         }
         out: list[Output] = [Publication(t, TOPIC, payload)]
         out.extend(self._strong_condition(t, drift, set_deg, quality))
         return out
+
+    def _trend_fields(self) -> dict[str, float | None]:
+        """The water's steady change (``walk``: the slope of the last hour's minute means, where evident), kn/h
+        east and north: a stream strengthening, easing or turning; null where the hour shows no clear trend."""
+        trend = self.water_walk.trend_kn_per_h
+        if trend is None:
+            return {"water_trend_east_kn_per_h": None, "water_trend_north_kn_per_h": None}
+        return {"water_trend_east_kn_per_h": round(trend[0], 2), "water_trend_north_kn_per_h": round(trend[1], 2)}
 
     def _strong_condition(self, t: float, drift: float, set_deg: float, quality: str) -> list[Output]:
         was = self._strong.active

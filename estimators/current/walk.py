@@ -458,3 +458,12 @@ class WaterWalk:
     def walk_kn_per_sqrt_h(self) -> float:
         """The published walk per axis, kn/sqrt(h)."""
         return math.sqrt(self.rate * S_PER_H)
+
+    @property
+    def trend_kn_per_h(self) -> tuple[float, float] | None:
+        """The water's slope read at the window's end, kn/h east and north, where it is evident (``trending``):
+        the steady change the published sigma counts the filter's lag behind; None where it is not."""
+        if not self.trending or self.trend is None:
+            return None
+        be, bn = self.trend.slope
+        return be * S_PER_H, bn * S_PER_H
