@@ -10,7 +10,7 @@ import pytest
 from filterpy.kalman import ExtendedKalmanFilter
 from scipy.stats import chi2
 
-from estimators.current import IK, CurrentEstimator, CurrentParams
+from estimators.current import IK, CurrentEstimator, CurrentParams, WaterInputs, jacobian
 from estimators.current.fusion import fuse, fuse_rows, joseph_with_gain_rows
 from estimators.fusion import FusionHealth, FusionReport, WindowedNis
 from estimators.samples import Fix, Heading, Pressure, WaterSpeed
@@ -213,3 +213,23 @@ def test_quality_is_degraded_while_the_change_detector_has_raised_the_process_no
     # ... until the inflation has decayed back to 1 (minutes later), when it no longer says so
     last = pubs[-1][1]
     assert last["q_inflation"] == 1.0 and "changing faster" not in last["quality_reason"]
+
+
+def test_the_jacobian_is_the_measurement_functions_derivative():
+    """H against central differences of the measurement function written out here from its definition,
+    h(x) = c + k s u(psi + d), u(a) = (sin a, cos a) east and north (the current triangle; no heel, so no
+    leeway), at the low-passed inputs the Jacobian is taken at."""
+    rng = np.random.default_rng(7)
+    p = CurrentParams()
+    for _ in range(50):
+        s, psi = float(rng.uniform(1.0, 9.0)), float(rng.uniform(0.0, 360.0))
+        x = np.array([rng.normal(0, 1), rng.normal(0, 1), rng.uniform(0.9, 1.1), math.radians(rng.normal(0, 3))])
+        w = WaterInputs(speed_kn=s, heading_deg=psi, heel_deg=None, slow_speed_kn=s, slow_heading_deg=psi)
+
+        def h(v: np.ndarray) -> np.ndarray:
+            a = math.radians(psi) + v[3]
+            return np.array([v[0] + v[2] * s * math.sin(a), v[1] + v[2] * s * math.cos(a)])
+
+        step = 1e-6
+        numeric = np.column_stack([(h(x + step * e) - h(x - step * e)) / (2 * step) for e in np.eye(4)])
+        np.testing.assert_allclose(jacobian(p, w, float(x[2]), float(x[3])), numeric, atol=1e-6)

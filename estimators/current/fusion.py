@@ -78,14 +78,8 @@ def _h_times(h0: list[float], h1: list[float], PHt: list[tuple[float, float]],
             h1[0] * PHt[0][1] + h1[1] * PHt[1][1] + h1[2] * PHt[2][1] + h1[3] * PHt[3][1] + r11)
 
 
-def innovation_cov(P: np.ndarray, H: np.ndarray, R: np.ndarray) -> tuple[float, float, float, float]:
-    """S = H P H' + R as (S00, S01, S10, S11)."""
-    h0, h1 = H.tolist()
-    return innovation_cov_rows(P.tolist(), h0, h1, R.tolist())
-
-
 def innovation_cov_rows(Pl: Rows, h0: list[float], h1: list[float], Rl: Rows) -> tuple[float, float, float, float]:
-    """``innovation_cov`` of P's rows, H's rows h0 and h1 and R's rows."""
+    """S = H P H' + R as (S00, S01, S10, S11), of P's rows, H's rows h0 and h1 and R's rows."""
     return _h_times(h0, h1, _times_ht(Pl, h0, h1), Rl)
 
 
