@@ -44,7 +44,6 @@ class FilterRecord:
     restart: bool
 
 
-
 @dataclass
 class _Health(FusionHealth):
     """The ground-velocity step's counters (``FusionHealth``) and the estimator's own."""
@@ -58,7 +57,6 @@ class _Health(FusionHealth):
     def as_dict(self) -> dict[str, int | float | None]:
         return {**super().as_dict(), "duplicates": self.duplicates, "held": self.held, "turning": self.turning,
                 "no_inputs": self.no_inputs, "bad_inputs": self.bad_inputs}
-
 
 
 class CurrentEstimator(Control, Publisher, EstimatorBase):

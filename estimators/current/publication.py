@@ -190,7 +190,6 @@ class Publisher:
         return Calibration(k, wrap_180(math.degrees(d)), sk, math.degrees(sd), self.t_filter, used)
 
 
-
 def polar_sigmas(e: float, n: float, Pc) -> tuple[float, float]:
     """(drift sigma kn, set sigma deg) from the current's east/north covariance ``Pc`` (2 x 2: rows of floats
     or an array), linearised.
