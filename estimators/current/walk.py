@@ -181,27 +181,28 @@ def level_loglik(q: np.ndarray, s: Series, noise_scale: np.ndarray | None = None
     """Log-likelihood of walks of rates ``q`` (kn^2/s, any number at once) given the block means ``s``, its axes'
     summed (see the module doc: each block a flow, the first diffuse); with ``noise_scale`` (as many as ``q``,
     pairwise) the means' noise variances are ``h`` times it."""
-    q = np.asarray(q, dtype=float)[None, :]
-    scale = np.ones_like(q) if noise_scale is None else np.asarray(noise_scale, dtype=float)[None, :]
+    shape = (s.y.shape[0], np.shape(q)[0])
+    q = _per_axis(q, shape)                 # every operand (axes x rates) and contiguous: see trend_pass
+    scale = np.ones(shape) if noise_scale is None else _per_axis(noise_scale, shape)
     span = s.t1 - s.t0
-    walk_gap = np.maximum(0.0, s.t0[1:] - s.t1[:-1])[:, None] * q   # per block: q gap, q T, q T / 3 + h
-    walk_span = span[1:, None] * q
-    walk_mean = [walk_span[b] / 3.0 + s.h[:, b + 1:b + 2] * scale for b in range(len(span) - 1)]
-    mu = s.y[:, :1] + 0.0 * q                                       # the level at the first block's end
-    P = q * (span[0] / 3.0) + s.h[:, :1] * scale
-    F_all, z_all = [], []
+    gaps = np.maximum(0.0, s.t0[1:] - s.t1[:-1])
+    h, y = _on_every_set(s.h, shape[1]), _on_every_set(s.y, shape[1])
+    mu = y[0] + 0.0 * q                                             # the level at the first block's end
+    P = q * (span[0] / 3.0) + h[0] * scale
+    log_sum = z_sum = None              # summed block after block, axis after axis: np.sum's order over them
     for b in range(len(span) - 1):
-        P = P + walk_gap[b]                                         # the gap to this block's start
-        F = P + walk_mean[b]                                        # var(y): level + the walk's mean + noise
-        v = s.y[:, b + 1:b + 2] - mu
-        gain = (P + 0.5 * walk_span[b]) / F                         # cov(level at the end, y) / F
-        F_all.append(F)
-        z_all.append(v * v / F)
+        walk_span = span[b + 1] * q                                 # q T
+        P = P + gaps[b] * q                                         # the gap to this block's start
+        F = P + (walk_span / 3.0 + h[b + 1] * scale)                # var(y): level + the walk's mean + noise
+        v = y[b + 1] - mu
+        gain = (P + 0.5 * walk_span) / F                            # cov(level at the end, y) / F
+        log_sum = _rows_added(log_sum, np.log(2.0 * math.pi * F))
+        z_sum = _rows_added(z_sum, v * v / F)
         mu = mu + gain * v
-        P = P + walk_span[b] - gain * gain * F
-    if not F_all:
-        return np.zeros(q.shape[1])
-    return -0.5 * (np.sum(np.log(2.0 * math.pi * np.array(F_all)), axis=(0, 1)) + np.sum(z_all, axis=(0, 1)))
+        P = P + walk_span - gain * gain * F
+    if log_sum is None:
+        return np.zeros(shape[1])
+    return -0.5 * (log_sum + z_sum)
 
 
 def fit_walk(s: Series, ceiling: float, confidence: float, noise_scales: np.ndarray = np.ones(1)) -> WalkFit:
@@ -290,12 +291,16 @@ def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale:
     level at the first mean, both with ``DIFFUSE_VAR``'s variances) and the first two blocks' terms, which only
     place it, are left out of the likelihood (de Jong 1991, from memory).
     """
-    ql = np.asarray(q_level, dtype=float)[None, :]
-    qs = np.asarray(q_slope, dtype=float)[None, :]
-    scale = np.ones_like(ql) if noise_scale is None else np.asarray(noise_scale, dtype=float)[None, :]
-    shape = (s.y.shape[0], ql.shape[1])
+    shape = (s.y.shape[0], np.shape(q_level)[0])
+    # Every array an operation meets is (axes x sets) and contiguous, a parameter's row repeated on each axis:
+    # numpy takes a row broadcast against the state (or a column, or a block's strided row) through its
+    # buffered iterator, four or five times the instructions of the same operation on contiguous arrays of
+    # that shape. The numbers are the same (each element is the same product or sum of the same two floats).
+    ql, qs = _per_axis(q_level, shape), _per_axis(q_slope, shape)
+    scale = np.ones(shape) if noise_scale is None else _per_axis(noise_scale, shape)
+    h, y = _on_every_set(s.h, shape[1]), _on_every_set(s.y, shape[1])
     if prior is None:
-        m, b = s.y[:, :1] + np.zeros(shape), np.zeros(shape)
+        m, b = y[0] + np.zeros(shape), np.zeros(shape)
         p00, p01, p11 = np.full(shape, DIFFUSE_VAR[0]), np.zeros(shape), np.full(shape, DIFFUSE_VAR[1])
         skip = 2
     else:
@@ -317,19 +322,40 @@ def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale:
             flows[T] = (ql * (T / 3.0) + qs * (T ** 3 / 20.0), ql * (T / 2.0) + qs * (T ** 3 / 8.0),
                         qs * (T * T / 6.0), ql * T + qs * (T ** 3 / 3.0), qs * (T * T / 2.0), qs * T)
         w_mean, w_cross0, w_cross1, w00, w01, w11 = flows[T]
-        F = p00 + T * p01 + (T * T / 4.0) * p11 + w_mean + s.h[:, i:i + 1] * scale
+        F = p00 + T * p01 + (T * T / 4.0) * p11 + w_mean + h[i] * scale
         c0 = p00 + 1.5 * T * p01 + (T * T / 2.0) * p11 + w_cross0                 # cov(level_T, y)
         c1 = p01 + 0.5 * T * p11 + w_cross1                                        # cov(slope_T, y)
-        v = s.y[:, i:i + 1] - (m + 0.5 * T * b)
+        v = y[i] - (m + 0.5 * T * b)
         if i >= skip:
-            ll = ll - 0.5 * np.sum(np.log(2.0 * math.pi * F) + v * v / F, axis=0)
+            ll = ll - 0.5 * _rows_added(None, np.log(2.0 * math.pi * F) + v * v / F)
         k0, k1 = c0 / F, c1 / F
         m = m + T * b + k0 * v
         b = b + k1 * v
-        v00 = p00 + T * (2.0 * p01 + T * p11) + w00                                # the end's, before the mean
-        v01 = p01 + T * p11 + w01
+        tp11 = T * p11
+        v00 = p00 + T * (2.0 * p01 + tp11) + w00                                  # the end's, before the mean
+        v01 = p01 + tp11 + w01
         p00, p01, p11 = v00 - k0 * c0, v01 - k0 * c1, p11 + w11 - k1 * c1
     return TrendPass(ll, b, p11)
+
+
+def _per_axis(row: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """A parameter per set (``row``) repeated on each axis: a contiguous array of ``shape`` (axes x sets)."""
+    return np.repeat(np.asarray(row, dtype=float)[None, :], shape[0], axis=0)
+
+
+def _on_every_set(x: np.ndarray, sets: int) -> np.ndarray:
+    """A series' values (axes x blocks) as blocks x axes x ``sets``, each value repeated on every set: a block's
+    values as one contiguous (axes x sets) array (a copy, where numpy's arithmetic on a column would buffer)."""
+    return np.repeat(x.T[:, :, None], sets, axis=2)
+
+
+def _rows_added(total: np.ndarray | None, x: np.ndarray) -> np.ndarray:
+    """``total`` plus each row of ``x`` in turn (the rows alone when ``total`` is None): the additions, in the
+    same order, of numpy's sum over leading axes, without its buffered iterator; for a (axes x sets) array of
+    two axes, two contiguous additions."""
+    for row in x:
+        total = row if total is None else total + row
+    return total
 
 
 def fit_trend(s: Series, ceiling: float, confidence: float) -> TrendFit:
