@@ -112,8 +112,9 @@ model), and the configured walk itself while the window holds fewer than
 ``water_walk_min_blocks`` blocks. Read again as each block closes (once a
 minute), not at every fix: one pass over the window's blocks for every rate of
 the grid at once, the trend's (50 level walks x 5 slope walks x 7 scales) and,
-where its slope is not evident, the local level's: about 7 and 4 ms a minute
-over an hour's blocks (CPU, the build machine at a load of 2).
+where its slope is not evident, the local level's: about 6 and 3 ms a minute
+over an hour's blocks (CPU, the build machine at a load of 4 to 6; 7 and 6 ms
+before their arrays were all made contiguous, tools/bench/NOTES.md).
 """
 
 from __future__ import annotations
@@ -182,19 +183,18 @@ def level_loglik(q: np.ndarray, s: Series, noise_scale: np.ndarray | None = None
     summed (see the module doc: each block a flow, the first diffuse); with ``noise_scale`` (as many as ``q``,
     pairwise) the means' noise variances are ``h`` times it."""
     shape = (s.y.shape[0], np.shape(q)[0])
-    q = _per_axis(q, shape)                 # every operand (axes x rates) and contiguous: see trend_pass
+    q = _per_axis(q, shape)                 # the state's and the rates' arrays alike: see trend_pass
     scale = np.ones(shape) if noise_scale is None else _per_axis(noise_scale, shape)
     span = s.t1 - s.t0
     gaps = np.maximum(0.0, s.t0[1:] - s.t1[:-1])
-    h, y = _on_every_set(s.h, shape[1]), _on_every_set(s.y, shape[1])
-    mu = y[0] + 0.0 * q                                             # the level at the first block's end
-    P = q * (span[0] / 3.0) + h[0] * scale
+    mu = s.y[:, :1] + 0.0 * q                                       # the level at the first block's end
+    P = q * (span[0] / 3.0) + s.h[:, :1] * scale
     log_sum = z_sum = None              # summed block after block, axis after axis: np.sum's order over them
     for b in range(len(span) - 1):
         walk_span = span[b + 1] * q                                 # q T
         P = P + gaps[b] * q                                         # the gap to this block's start
-        F = P + (walk_span / 3.0 + h[b + 1] * scale)                # var(y): level + the walk's mean + noise
-        v = y[b + 1] - mu
+        F = P + (walk_span / 3.0 + s.h[:, b + 1:b + 2] * scale)     # var(y): level + the walk's mean + noise
+        v = s.y[:, b + 1:b + 2] - mu
         gain = (P + 0.5 * walk_span) / F                            # cov(level at the end, y) / F
         log_sum = _rows_added(log_sum, np.log(2.0 * math.pi * F))
         z_sum = _rows_added(z_sum, v * v / F)
@@ -292,15 +292,16 @@ def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale:
     place it, are left out of the likelihood (de Jong 1991, from memory).
     """
     shape = (s.y.shape[0], np.shape(q_level)[0])
-    # Every array an operation meets is (axes x sets) and contiguous, a parameter's row repeated on each axis:
-    # numpy takes a row broadcast against the state (or a column, or a block's strided row) through its
-    # buffered iterator, four or five times the instructions of the same operation on contiguous arrays of
-    # that shape. The numbers are the same (each element is the same product or sum of the same two floats).
+    # The state's arrays and the parameters' are (axes x sets) and contiguous, a parameter's row repeated on
+    # each axis: numpy takes a row broadcast against the state through its buffered iterator, four or five
+    # times the instructions of the same operation on contiguous arrays of that shape. A block's column of
+    # means and noise variances (axes x 1) is left a broadcast: repeated on every set beforehand (an hour's
+    # series 1.6 MB a copy) it took 30 % more CPU time for 2 % fewer instructions. The numbers are the same
+    # (each element the same product or sum of the same two floats).
     ql, qs = _per_axis(q_level, shape), _per_axis(q_slope, shape)
     scale = np.ones(shape) if noise_scale is None else _per_axis(noise_scale, shape)
-    h, y = _on_every_set(s.h, shape[1]), _on_every_set(s.y, shape[1])
     if prior is None:
-        m, b = y[0] + np.zeros(shape), np.zeros(shape)
+        m, b = s.y[:, :1] + np.zeros(shape), np.zeros(shape)
         p00, p01, p11 = np.full(shape, DIFFUSE_VAR[0]), np.zeros(shape), np.full(shape, DIFFUSE_VAR[1])
         skip = 2
     else:
@@ -322,10 +323,10 @@ def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale:
             flows[T] = (ql * (T / 3.0) + qs * (T ** 3 / 20.0), ql * (T / 2.0) + qs * (T ** 3 / 8.0),
                         qs * (T * T / 6.0), ql * T + qs * (T ** 3 / 3.0), qs * (T * T / 2.0), qs * T)
         w_mean, w_cross0, w_cross1, w00, w01, w11 = flows[T]
-        F = p00 + T * p01 + (T * T / 4.0) * p11 + w_mean + h[i] * scale
+        F = p00 + T * p01 + (T * T / 4.0) * p11 + w_mean + s.h[:, i:i + 1] * scale
         c0 = p00 + 1.5 * T * p01 + (T * T / 2.0) * p11 + w_cross0                 # cov(level_T, y)
         c1 = p01 + 0.5 * T * p11 + w_cross1                                        # cov(slope_T, y)
-        v = y[i] - (m + 0.5 * T * b)
+        v = s.y[:, i:i + 1] - (m + 0.5 * T * b)
         if i >= skip:
             ll = ll - 0.5 * _rows_added(None, np.log(2.0 * math.pi * F) + v * v / F)
         k0, k1 = c0 / F, c1 / F
@@ -341,12 +342,6 @@ def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale:
 def _per_axis(row: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     """A parameter per set (``row``) repeated on each axis: a contiguous array of ``shape`` (axes x sets)."""
     return np.repeat(np.asarray(row, dtype=float)[None, :], shape[0], axis=0)
-
-
-def _on_every_set(x: np.ndarray, sets: int) -> np.ndarray:
-    """A series' values (axes x blocks) as blocks x axes x ``sets``, each value repeated on every set: a block's
-    values as one contiguous (axes x sets) array (a copy, where numpy's arithmetic on a column would buffer)."""
-    return np.repeat(x.T[:, :, None], sets, axis=2)
 
 
 def _rows_added(total: np.ndarray | None, x: np.ndarray) -> np.ndarray:
