@@ -239,7 +239,7 @@ def test_the_walk_reads_sum_their_axes_and_blocks_as_numpys_sum_does_to_the_bit(
     total = None
     for block in terms:
         total = _rows_added(total, block)
-    # THEN the sums are numpy's over the leading axes bit for bit (numpy adds along an outer axis row after row,
-    # from its documented reduction semantics and observed here): the published sigmas do not move
+    # THEN the sums are numpy's over the leading axes bit for bit (numpy sums pairwise only along the fast axis
+    # and adds along a leading one row after row: from memory, and held here): the published sigmas do not move
     assert np.array_equal(total, np.sum(terms, axis=(0, 1)))
     assert np.array_equal(_rows_added(None, terms[0]), np.sum(terms[0], axis=0))
