@@ -226,3 +226,20 @@ def test_the_payload_says_no_trend_before_the_hour_has_enough_minutes():
     # 15 minutes: fewer blocks than water_walk_min_blocks (20), so no walk or trend read yet
     assert est.water_walk.trend is None
     assert payload["water_trend_east_kn_per_h"] is None and payload["water_trend_north_kn_per_h"] is None
+
+
+@pytest.mark.parametrize("rows", [1, 2, 3, 5])
+def test_the_walk_reads_sum_their_axes_and_blocks_as_numpys_sum_does_to_the_bit(rows):
+    # GIVEN terms of a likelihood per block, axis and parameter set, spread over many orders of magnitude
+    # (so that another order of the additions would round differently)
+    from estimators.current.walk import _rows_added
+    rng = np.random.default_rng(rows)
+    terms = rng.standard_normal((rows, 2, 997)) * 10.0 ** rng.integers(-8, 8, (rows, 2, 997))
+    # WHEN they are added row after row, as the walk's and the trend's passes add them
+    total = None
+    for block in terms:
+        total = _rows_added(total, block)
+    # THEN the sums are numpy's over the leading axes bit for bit (numpy sums pairwise only along the fast axis
+    # and adds along a leading one row after row: from memory, and held here): the published sigmas do not move
+    assert np.array_equal(total, np.sum(terms, axis=(0, 1)))
+    assert np.array_equal(_rows_added(None, terms[0]), np.sum(terms[0], axis=0))

@@ -56,6 +56,7 @@ class Pipeline:
         self.extra_status = extra_status  # callable -> dict, live health of inputs/outputs
         self.runner = Runner(self.estimators)
         self.ctx = self.runner.ctx
+        self._clock = self.runner.clock
         self._next_status_s = 0.0
         self._last_seen: dict[str, float] = {}
         self._commands: queue.SimpleQueue[tuple[str, Any]] = queue.SimpleQueue()
@@ -79,7 +80,9 @@ class Pipeline:
             return
         sample = item.sample
         t_s = sample.t_s
-        self._advance(t_s)
+        now_s = self._clock.now_s
+        if now_s is None or not t_s <= now_s:  # see _raw
+            self._advance(t_s)
         self._last_seen[KIND_NAMES[type(sample)]] = t_s  # kind_of, without the call
         self._handle(self.runner.step(sample))
 
@@ -88,7 +91,12 @@ class Pipeline:
             self.counters.take_line(item)
         for sink in self.sinks:
             sink.raw(item)
-        self._advance(item.t_s)
+        # Most items carry the time of the one before (a second's lines share their TAG block's time, a
+        # line's readings its time): the clock would not move, and _advance is not called for them.
+        # Any other time (later, the first, NaN) goes to _advance, whose clock judges it as before.
+        t_s, now_s = item.t_s, self._clock.now_s
+        if now_s is None or not t_s <= now_s:
+            self._advance(t_s)
 
     def feed_all(self, items: Iterable[RawLine | Reading]) -> None:
         for item in items:

@@ -112,8 +112,9 @@ model), and the configured walk itself while the window holds fewer than
 ``water_walk_min_blocks`` blocks. Read again as each block closes (once a
 minute), not at every fix: one pass over the window's blocks for every rate of
 the grid at once, the trend's (50 level walks x 5 slope walks x 7 scales) and,
-where its slope is not evident, the local level's: about 7 and 4 ms a minute
-over an hour's blocks (CPU, the build machine at a load of 2).
+where its slope is not evident, the local level's: about 6 and 3 ms a minute
+over an hour's blocks (CPU, the build machine at a load of 4 to 6; 7 and 6 ms
+before their arrays were all made contiguous, tools/bench/NOTES.md).
 """
 
 from __future__ import annotations
@@ -181,27 +182,27 @@ def level_loglik(q: np.ndarray, s: Series, noise_scale: np.ndarray | None = None
     """Log-likelihood of walks of rates ``q`` (kn^2/s, any number at once) given the block means ``s``, its axes'
     summed (see the module doc: each block a flow, the first diffuse); with ``noise_scale`` (as many as ``q``,
     pairwise) the means' noise variances are ``h`` times it."""
-    q = np.asarray(q, dtype=float)[None, :]
-    scale = np.ones_like(q) if noise_scale is None else np.asarray(noise_scale, dtype=float)[None, :]
+    shape = (s.y.shape[0], np.shape(q)[0])
+    q = _per_axis(q, shape)                 # the state's and the rates' arrays alike: see trend_pass
+    scale = np.ones(shape) if noise_scale is None else _per_axis(noise_scale, shape)
     span = s.t1 - s.t0
-    walk_gap = np.maximum(0.0, s.t0[1:] - s.t1[:-1])[:, None] * q   # per block: q gap, q T, q T / 3 + h
-    walk_span = span[1:, None] * q
-    walk_mean = [walk_span[b] / 3.0 + s.h[:, b + 1:b + 2] * scale for b in range(len(span) - 1)]
+    gaps = np.maximum(0.0, s.t0[1:] - s.t1[:-1])
     mu = s.y[:, :1] + 0.0 * q                                       # the level at the first block's end
     P = q * (span[0] / 3.0) + s.h[:, :1] * scale
-    F_all, z_all = [], []
+    log_sum = z_sum = None              # summed block after block, axis after axis: np.sum's order over them
     for b in range(len(span) - 1):
-        P = P + walk_gap[b]                                         # the gap to this block's start
-        F = P + walk_mean[b]                                        # var(y): level + the walk's mean + noise
+        walk_span = span[b + 1] * q                                 # q T
+        P = P + gaps[b] * q                                         # the gap to this block's start
+        F = P + (walk_span / 3.0 + s.h[:, b + 1:b + 2] * scale)     # var(y): level + the walk's mean + noise
         v = s.y[:, b + 1:b + 2] - mu
-        gain = (P + 0.5 * walk_span[b]) / F                         # cov(level at the end, y) / F
-        F_all.append(F)
-        z_all.append(v * v / F)
+        gain = (P + 0.5 * walk_span) / F                            # cov(level at the end, y) / F
+        log_sum = _rows_added(log_sum, np.log(2.0 * math.pi * F))
+        z_sum = _rows_added(z_sum, v * v / F)
         mu = mu + gain * v
-        P = P + walk_span[b] - gain * gain * F
-    if not F_all:
-        return np.zeros(q.shape[1])
-    return -0.5 * (np.sum(np.log(2.0 * math.pi * np.array(F_all)), axis=(0, 1)) + np.sum(z_all, axis=(0, 1)))
+        P = P + walk_span - gain * gain * F
+    if log_sum is None:
+        return np.zeros(shape[1])
+    return -0.5 * (log_sum + z_sum)
 
 
 def fit_walk(s: Series, ceiling: float, confidence: float, noise_scales: np.ndarray = np.ones(1)) -> WalkFit:
@@ -290,10 +291,15 @@ def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale:
     level at the first mean, both with ``DIFFUSE_VAR``'s variances) and the first two blocks' terms, which only
     place it, are left out of the likelihood (de Jong 1991, from memory).
     """
-    ql = np.asarray(q_level, dtype=float)[None, :]
-    qs = np.asarray(q_slope, dtype=float)[None, :]
-    scale = np.ones_like(ql) if noise_scale is None else np.asarray(noise_scale, dtype=float)[None, :]
-    shape = (s.y.shape[0], ql.shape[1])
+    shape = (s.y.shape[0], np.shape(q_level)[0])
+    # The state's arrays and the parameters' are (axes x sets) and contiguous, a parameter's row repeated on
+    # each axis: numpy takes a row broadcast against the state through its buffered iterator, four or five
+    # times the instructions of the same operation on contiguous arrays of that shape. A block's column of
+    # means and noise variances (axes x 1) is left a broadcast: repeated on every set beforehand (an hour's
+    # series 1.6 MB a copy) it took 30 % more CPU time for 2 % fewer instructions. The numbers are the same
+    # (each element the same product or sum of the same two floats).
+    ql, qs = _per_axis(q_level, shape), _per_axis(q_slope, shape)
+    scale = np.ones(shape) if noise_scale is None else _per_axis(noise_scale, shape)
     if prior is None:
         m, b = s.y[:, :1] + np.zeros(shape), np.zeros(shape)
         p00, p01, p11 = np.full(shape, DIFFUSE_VAR[0]), np.zeros(shape), np.full(shape, DIFFUSE_VAR[1])
@@ -322,14 +328,29 @@ def trend_pass(q_level: np.ndarray, q_slope: np.ndarray, s: Series, noise_scale:
         c1 = p01 + 0.5 * T * p11 + w_cross1                                        # cov(slope_T, y)
         v = s.y[:, i:i + 1] - (m + 0.5 * T * b)
         if i >= skip:
-            ll = ll - 0.5 * np.sum(np.log(2.0 * math.pi * F) + v * v / F, axis=0)
+            ll = ll - 0.5 * _rows_added(None, np.log(2.0 * math.pi * F) + v * v / F)
         k0, k1 = c0 / F, c1 / F
         m = m + T * b + k0 * v
         b = b + k1 * v
-        v00 = p00 + T * (2.0 * p01 + T * p11) + w00                                # the end's, before the mean
-        v01 = p01 + T * p11 + w01
+        tp11 = T * p11
+        v00 = p00 + T * (2.0 * p01 + tp11) + w00                                  # the end's, before the mean
+        v01 = p01 + tp11 + w01
         p00, p01, p11 = v00 - k0 * c0, v01 - k0 * c1, p11 + w11 - k1 * c1
     return TrendPass(ll, b, p11)
+
+
+def _per_axis(row: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """A parameter per set (``row``) repeated on each axis: a contiguous array of ``shape`` (axes x sets)."""
+    return np.repeat(np.asarray(row, dtype=float)[None, :], shape[0], axis=0)
+
+
+def _rows_added(total: np.ndarray | None, x: np.ndarray) -> np.ndarray:
+    """``total`` plus each row of ``x`` in turn (the rows alone when ``total`` is None): the additions, in the
+    same order, of numpy's sum over leading axes, without its buffered iterator; for a (axes x sets) array of
+    two axes, two contiguous additions."""
+    for row in x:
+        total = row if total is None else total + row
+    return total
 
 
 def fit_trend(s: Series, ceiling: float, confidence: float) -> TrendFit:
