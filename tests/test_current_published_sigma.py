@@ -248,9 +248,9 @@ def records_of(params: CurrentParams) -> tuple[list, list]:
 
 
 def test_the_estimates_are_the_same_with_and_without_the_published_covariance(monkeypatch):
-    # GIVEN one passage run as it is, with the walk read early and half as confident ...
+    # GIVEN one passage run as it is, with the walk read early and published at another confidence ...
     base, rows = records_of(CurrentParams(**WHITE))
-    other, rows_other = records_of(CurrentParams(**WHITE, water_walk_min_blocks=3, water_walk_confidence=0.5))
+    other, rows_other = records_of(CurrentParams(**WHITE, water_walk_min_blocks=3, published_walk_confidence=0.95))
     # ... and with P_pub never updated at all (the Joseph step with the filter's gain a no-op)
     monkeypatch.setattr(estimator, "joseph_with_gain_rows", lambda Pl, K, h0, h1, Rl: np.array(Pl))
     monkeypatch.setattr(control, "joseph_with_gain", lambda P, K, H, R: P)

@@ -74,7 +74,8 @@ carries P_pub, the error covariance of this same filter (its gain, its consider
 structure, Joseph form for any gain: ``fusion.joseph_with_gain``) if the water
 walks at the rate the last ``water_walk_window_h`` of measured current shows
 (``walk``: a local level model's likelihood, or a local linear trend's where the
-current changes steadily, the upper end of its interval, never above the
+current changes steadily, the upper end of its 50 % likelihood-ratio interval:
+a little above the likeliest, ``published_walk_confidence``; never above the
 configured walk), plus the change detector's inflation, and if the measurement
 noise is what the same blocks show of it (R times the scale read with the walk,
 between 1/4 and 1: a realistic seaway's minute means sit at about 0.75 of R's).

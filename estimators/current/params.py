@@ -81,7 +81,9 @@ class CurrentParams:
     water_walk_min_blocks: int = param(
         20, "blocks", 3, 10000, "with fewer blocks in the window the published sigma uses current_walk_kn_per_sqrt_h")
     water_walk_confidence: float = param(
-        0.95, "", 0.5, 0.9999, "the walk published is the upper end of its likelihood-ratio interval at this confidence, at most current_walk_kn_per_sqrt_h")
+        0.95, "", 0.5, 0.9999, "the calibration fit's walk of the water is the upper end of its likelihood-ratio interval at this confidence, and the water's slope counts where a test at it finds one")
+    published_walk_confidence: float = param(
+        0.5, "", 0.5, 0.9999, "the walk the published sigma assumes is the upper end of its likelihood-ratio interval at this confidence (0.5: a little above the likeliest), at most current_walk_kn_per_sqrt_h")
     noise_correlation_s: float = param(
         3.0, "s", 0.0, 120.0, "correlation time of the log's correlated noise (effective sample count)")
     heading_correlation_s: float = param(

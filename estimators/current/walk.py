@@ -105,11 +105,19 @@ counted in the mean square (Bar-Shalom et al. 2001 sect. 5.4 measure
 consistency by that mean square, from memory). It is 0 until the walk is read.
 
 Published: the upper end of the likelihood-ratio interval {q : 2 (l(q_hat) -
-l(q)) <= chi2_1(c)} at c = ``water_walk_confidence`` (Wilks, "The large-sample
+l(q)) <= chi2_1(c)} at c = ``published_walk_confidence`` (Wilks, "The large-sample
 distribution of the likelihood ratio for testing composite hypotheses", Ann.
 Math. Stat. 9, 1938), never more than the configured walk (the filter's own
 model), and the configured walk itself while the window holds fewer than
-``water_walk_min_blocks`` blocks. Read again as each block closes (once a
+``water_walk_min_blocks`` blocks. At c = 0.5 the end lies a quarter of a unit of
+log-likelihood below the maximum: a little above the likeliest walk, which keeps
+a window that reads no walk at all (q_hat = 0, a boundary) from publishing none.
+The sigma is a plug-in for an error covariance, so its rate is the one whose
+published sigmas cover the truth as often as they say over Monte-Carlo runs of
+the realistic sensor model (the README's table: at 0.95 the current's own part
+was 0.82-0.96 of what it published, the tidal box's drift within 2 sigma at
+0.974); the calibration fit's walk (``water_walk_confidence``, 0.95) keeps its
+margin, because the fit's sigma is what 'calibrated' is held to. Read again as each block closes (once a
 minute), not at every fix: one pass over the window's blocks for every rate of
 the grid at once, the trend's (50 level walks x 5 slope walks x 7 scales) and,
 where its slope is not evident, the local level's: about 6 and 3 ms a minute
@@ -465,13 +473,13 @@ class WaterWalk:
         series = Series(np.array([b.t0_s for b in blocks]), np.array([b.t1_s for b in blocks]),
                         np.array([b.g for b in blocks]).T - k * m,            # c = g - k R(d) m
                         np.array([b.h for b in blocks]).T)
-        confidence = self.params.water_walk_confidence
-        trend = self.trend = fit_trend(series, self.ceiling, confidence)
+        confidence, published = self.params.water_walk_confidence, self.params.published_walk_confidence
+        trend = self.trend = fit_trend(series, self.ceiling, published)
         (be, bn), (ve, vn) = trend.slope, trend.slope_var
         self.slope_moment = ((be * be + ve, be * bn), (be * bn, bn * bn + vn))   # E[b b'] = b_hat b_hat' + V
         # the walk from the trend where its slope is evident (Wald's test, both axes), else from the local level
         self.trending = ve > 0.0 and vn > 0.0 and be * be / ve + bn * bn / vn > chi2_quantile(confidence, 2)
-        fit = self.last = trend if self.trending else fit_walk(series, self.ceiling, confidence, NOISE_SCALES)
+        fit = self.last = trend if self.trending else fit_walk(series, self.ceiling, published, NOISE_SCALES)
         self.rate = min(self.ceiling, fit.upper)
         self.noise_scale = fit.noise_scale
 
