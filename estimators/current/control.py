@@ -112,10 +112,8 @@ class Control:
         if self._slow is None or dt > 10.0 * max(p.jacobian_smoothing_s, 1.0):
             self._slow = (t, *now)
             self._fast = (t, *now)
-        ema = lambda old, tau: tuple(o + (1.0 - math.exp(-dt / tau)) * (v - o) if tau > 0 else v
-                                     for o, v in zip(old[1:], now))
-        fast = ema(self._fast, 3.0)                                                # EMA, 3 s
-        slow = ema(self._slow, p.jacobian_smoothing_s)                             # EMA, jacobian_smoothing_s
+        fast = _ema(self._fast, now, dt, 3.0)                                      # EMA, 3 s
+        slow = _ema(self._slow, now, dt, p.jacobian_smoothing_s)                   # EMA, jacobian_smoothing_s
         fast_heading = from_east_north(fast[1], fast[2])[1]
         if 0.0 < dt <= 5.0:  # rates of the 3-s EMA: a turn or a speed change, not the readings' noise
             w.turn_rate_deg_s = wrap_180(fast_heading - from_east_north(self._fast[2], self._fast[3])[1]) / dt
@@ -371,6 +369,18 @@ class Control:
                     f"{wording.signed(self._log_values.get('sog_along_change_kn', 0))} kn: "
                     f"check the log's paddle wheel or transducer. The current estimate is held meanwhile.")
         return Condition(t, "log_suspect", CAUTION, True, text, dict(self._log_values))
+
+
+def _ema(old: tuple[float, float, float, float], now: tuple[float, float, float], dt: float,
+         tau: float) -> tuple[float, float, float]:
+    """One step of an exponential moving average of (speed, heading east, heading north) over ``dt`` s with
+    time constant ``tau`` (none: the readings); ``old`` is (t, speed, east, north). Its factor is worked out
+    once for the three, not once each: the same numbers."""
+    if not tau > 0:
+        return now[0], now[1], now[2]  # the readings, as a new tuple (``_slow_inputs`` tells a manoeuvre by `is now`)
+    a = 1.0 - math.exp(-dt / tau)
+    _, s, e, n = old
+    return s + a * (now[0] - s), e + a * (now[1] - e), n + a * (now[2] - n)
 
 
 def adopt_fit(x: np.ndarray, P: np.ndarray, y: np.ndarray, informed: np.ndarray) -> np.ndarray:
