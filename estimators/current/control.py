@@ -14,6 +14,7 @@ A mixin of ``CurrentEstimator``: it reads and sets the estimator's state.
 
 from __future__ import annotations
 
+import bisect
 import math
 from typing import Any
 
@@ -337,20 +338,19 @@ class Control:
 
     def _log_step(self, t: float) -> bool:
         p = self.params
-        cut = t - p.log_step_window_s
-        recent = [c for c in self._log_checks if c[0] > cut]
-        before = [c for c in self._log_checks if c[0] <= cut]
-        if len(recent) < 3 or len(before) < 3:
+        # the rows' columns transposed in C once, split where the recent rows begin and summed as they are:
+        # at every fix, about 90 rows, a comparison for each in Python was most of this check's cost (the rows
+        # are in time order, as fixes earlier than the last are duplicates: the same split, the same sums)
+        times, logs, alongs, headings = zip(*self._log_checks)
+        split = bisect.bisect_right(times, t - p.log_step_window_s)          # rows[:split] are the earlier
+        n_before, n_recent = split, len(times) - split
+        if n_recent < 3 or n_before < 3:
             return False
-        turn = abs(wrap_180(recent[-1][3] - before[0][3]))
+        turn = abs(wrap_180(headings[-1] - headings[0]))
         if turn > 20.0:
             return False  # a course change changes the speed along the heading by itself
-        # the columns transposed in C and summed as they are: at every fix, about 90 rows, a generator
-        # resumed for each was most of this check's cost (the sums, and so the figures, are the same)
-        _, log_now, along_now, _ = zip(*recent)
-        _, log_before, along_before, _ = zip(*before)
-        d_log = sum(log_now) / len(recent) - sum(log_before) / len(before)
-        d_along = sum(along_now) / len(recent) - sum(along_before) / len(before)
+        d_log = sum(logs[split:]) / n_recent - sum(logs[:split]) / n_before
+        d_along = sum(alongs[split:]) / n_recent - sum(alongs[:split]) / n_before
         if abs(d_log - d_along) > p.log_step_kn:
             self._log_values = {"log_change_kn": round(d_log, 2), "sog_along_change_kn": round(d_along, 2)}
             return True
