@@ -273,8 +273,9 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             ekf.x, ekf.P = up.x, up.P
             # the same step, the filter's gain, with the noise the water's blocks show (``walk``)
             scale = self.water_walk.noise_scale
+            (r00, r01), (r10, r11) = R                                      # R x scale, written out (2 x 2)
             ekf.P_pub = joseph_with_gain_rows(ekf.P_pub.tolist(), up.gain, h0, h1,
-                                              [[r * scale for r in row] for row in R])
+                                              [[r00 * scale, r01 * scale], [r10 * scale, r11 * scale]])
             ekf.lag = lag_updated(ekf.lag, up.gain)                          # H's current columns are I
             if not w.turning:
                 self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0][0], R[1][1],
