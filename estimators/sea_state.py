@@ -583,18 +583,8 @@ class SeaStateEstimator(EstimatorBase):
     def _waves(self, water: MeanWind, current: dict[str, Any] | None, depth_m: float | None) -> dict[str, Any]:
         """The opposing current, the wind sea, and each period's factors on that current."""
         p = self.params
-        empty = {"opposing_current_kn": None, "opposing_current_sigma_kn": None, "height_factor": None,
-                 "length_factor": None, "steepness_factor": None, "worst_period_s": None,
-                 "blocking_period_s": None, "blocked_periods_s": [], "periods_s": [],
-                 "swell_period_s": None, "swell_from_deg": None,
-                 "wind_sea_height_m": None, "wind_sea_period_s": None, "wind_sea_fully_developed": None,
-                 "peak_height_factor": None, "peak_length_factor": None, "peak_steepness_factor": None,
-                 "steepened_height_m": None, "breaking_fraction": None, "peak_blocked": None,
-                 "bounded_height_factor": None, "bounded_steepness_factor": None, "near_blocking": None,
-                 "peak_bounded_height_factor": None, "peak_bounded_steepness_factor": None,
-                 "depth_used_m": depth_m}
         if not _usable(current):
-            return empty
+            return _no_waves(depth_m)
         c = (float(current["east_kn"]), float(current["north_kn"]))
         opposing = _along(c, water.from_deg)  # the current's component into the wind: against the wind sea
         u10 = wind_at_10m(water.speed_kn * KN_TO_MPS, p.anemometer_height_m)
@@ -735,6 +725,21 @@ def _bounded(run: WaveOnCurrent | None, ceiling: float) -> tuple[float | None, f
 def _usable(current: dict[str, Any] | None) -> bool:
     return (current is not None and current.get("quality") in USABLE_CURRENT
             and current.get("east_kn") is not None and current.get("north_kn") is not None)
+
+
+def _no_waves(depth_m: float | None) -> dict[str, Any]:
+    """The wave fields without a usable current: each null (the lists empty). Made only then, not at every
+    publication to be thrown away."""
+    return {"opposing_current_kn": None, "opposing_current_sigma_kn": None, "height_factor": None,
+            "length_factor": None, "steepness_factor": None, "worst_period_s": None,
+            "blocking_period_s": None, "blocked_periods_s": [], "periods_s": [],
+            "swell_period_s": None, "swell_from_deg": None,
+            "wind_sea_height_m": None, "wind_sea_period_s": None, "wind_sea_fully_developed": None,
+            "peak_height_factor": None, "peak_length_factor": None, "peak_steepness_factor": None,
+            "steepened_height_m": None, "breaking_fraction": None, "peak_blocked": None,
+            "bounded_height_factor": None, "bounded_steepness_factor": None, "near_blocking": None,
+            "peak_bounded_height_factor": None, "peak_bounded_steepness_factor": None,
+            "depth_used_m": depth_m}
 
 
 def _opposing_sigma(current: dict[str, Any], wind_from_deg: float) -> float:
