@@ -155,13 +155,10 @@ def rising_root(f_and_slope, lo: float, hi: float, start: float, xtol: float = 0
     return 0.5 * (lo + hi)
 
 
-def _tanh_kh(k: float, h: float | None) -> float:
-    return 1.0 if h is None or k * h > DEEP_KH else math.tanh(k * h)
-
-
 def intrinsic_frequency(k: float, h: float | None) -> float:
     """sigma = sqrt(g k tanh kh), rad/s (linear dispersion in still water)."""
-    return math.sqrt(G * k * _tanh_kh(k, h))
+    tanh_kh = 1.0 if h is None or k * h > DEEP_KH else math.tanh(k * h)  # in line: asked some 40 000 times an hour
+    return math.sqrt(G * k * tanh_kh)
 
 
 def group_speed(k: float, h: float | None) -> float:
