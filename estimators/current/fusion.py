@@ -64,9 +64,14 @@ def nis2(y0: float, y1: float, S: tuple[float, float, float, float]) -> float:
 
 def _times_ht(rows: Rows, h0: list[float], h1: list[float]) -> list[tuple[float, float]]:
     """M H' for a 4 x 4 M (its rows) and H (its rows h0, h1): four rows of two."""
+    # written out, row by row (see ``_joseph``): asked for five times a fix
     a0, a1, a2, a3 = h0
     b0, b1, b2, b3 = h1
-    return [(m0 * a0 + m1 * a1 + m2 * a2 + m3 * a3, m0 * b0 + m1 * b1 + m2 * b2 + m3 * b3) for m0, m1, m2, m3 in rows]
+    (m00, m01, m02, m03), (m10, m11, m12, m13), (m20, m21, m22, m23), (m30, m31, m32, m33) = rows
+    return [(m00 * a0 + m01 * a1 + m02 * a2 + m03 * a3, m00 * b0 + m01 * b1 + m02 * b2 + m03 * b3),
+            (m10 * a0 + m11 * a1 + m12 * a2 + m13 * a3, m10 * b0 + m11 * b1 + m12 * b2 + m13 * b3),
+            (m20 * a0 + m21 * a1 + m22 * a2 + m23 * a3, m20 * b0 + m21 * b1 + m22 * b2 + m23 * b3),
+            (m30 * a0 + m31 * a1 + m32 * a2 + m33 * a3, m30 * b0 + m31 * b1 + m32 * b2 + m33 * b3)]
 
 
 def _h_times(h0: list[float], h1: list[float], PHt: list[tuple[float, float]],
@@ -114,7 +119,9 @@ def fuse_rows(x: np.ndarray, P: np.ndarray, xl: list[float], Pl: Rows, y0: float
         return Update(x, P, nis, svar, False, "gate")
     det = a * d - b * c
     i00, i01, i10, i11 = d / det, -b / det, -c / det, a / det               # S^-1, closed form
-    K = [(q0 * i00 + q1 * i10, q0 * i01 + q1 * i11) for q0, q1 in PHt]      # K = P H' S^-1
+    (q00, q01), (q10, q11), (q20, q21), (q30, q31) = PHt
+    K = [(q00 * i00 + q01 * i10, q00 * i01 + q01 * i11), (q10 * i00 + q11 * i10, q10 * i01 + q11 * i11),  # K = P H' S^-1
+         (q20 * i00 + q21 * i10, q20 * i01 + q21 * i11), (q30 * i00 + q31 * i10, q30 * i01 + q31 * i11)]
     if consider_from is not None:
         K[consider_from:] = [(0.0, 0.0)] * (4 - consider_from)
     x_new = [xi + (k0 * y0 + k1 * y1) for xi, (k0, k1) in zip(xl, K)]                  # x+ = x + K y
@@ -155,7 +162,8 @@ def _joseph(Pl: Rows, PHt: list[tuple[float, float]], K: Gain, h0: list[float], 
           p2 - (k0 * q20 + k1 * q21), p3 - (k0 * q30 + k1 * q31)]
          for (p0, p1, p2, p3), (k0, k1) in zip(Pl, K)]
     (r00, r01), (r10, r11) = Rl
-    KR = [(k0 * r00 + k1 * r10, k0 * r01 + k1 * r11) for k0, k1 in K]
+    KR = [(g00 * r00 + g01 * r10, g00 * r01 + g01 * r11), (g10 * r00 + g11 * r10, g10 * r01 + g11 * r11),
+          (g20 * r00 + g21 * r10, g20 * r01 + g21 * r11), (g30 * r00 + g31 * r10, g30 * r01 + g31 * r11)]
     P_new = [[a0 - (m0 * g00 + m1 * g01) + (s0 * g00 + s1 * g01),        # Joseph form: A - (A H') K' + (K R) K'
               a1 - (m0 * g10 + m1 * g11) + (s0 * g10 + s1 * g11),
               a2 - (m0 * g20 + m1 * g21) + (s0 * g20 + s1 * g21),
