@@ -90,6 +90,7 @@ taken from a published source.
 
 from __future__ import annotations
 
+import bisect
 import math
 import statistics
 from collections import deque
@@ -180,6 +181,19 @@ def step_distance_m(lat1: float, lon1: float, lat2: float, lon2: float) -> float
     if s <= _LOCAL_STEP_MAX_M:
         return s
     return _GEOD.Inverse(lat1, lon1, lat2, lon2, Geodesic.DISTANCE)["s12"]  # geodesic on WGS84
+
+
+def _nearest_bin(bins: Sequence[_Bin], d_nm: float) -> _Bin:
+    """The first of the bins whose centre is nearest ``d_nm`` (``min`` by |d - d_nm|, which keeps the first of
+    equals). The centres are in order along the track (the odometer only grows, and a restart clears the
+    bins), so |d - d_nm| falls to the first centre at or past ``d_nm`` and rises after it: the nearest is that
+    one or the run of equal centres just before it, found by bisection, not a key function called for each
+    of some hundred bins."""
+    centres = [b.d_nm for b in bins]
+    i = bisect.bisect_left(centres, d_nm)                # the first centre at or past d_nm
+    if i == len(centres) or (i > 0 and abs(centres[i - 1] - d_nm) <= abs(centres[i] - d_nm)):
+        i = bisect.bisect_left(centres, centres[i - 1])   # the first of the run of equal centres before it
+    return bins[i]
 
 
 class _Odometer:
@@ -433,7 +447,7 @@ class FrontDetector(EstimatorBase):
             return ()
         d_c, _, g = fit
         self._gradient = g
-        centre = min(self._bins, key=lambda b: abs(b.d_nm - d_c))
+        centre = _nearest_bin(self._bins, d_c)
         p = self.p
         out: list[Output] = []
         run = self._run

@@ -155,18 +155,20 @@ def rising_root(f_and_slope, lo: float, hi: float, start: float, xtol: float = 0
     return 0.5 * (lo + hi)
 
 
-def _tanh_kh(k: float, h: float | None) -> float:
-    return 1.0 if h is None or k * h > DEEP_KH else math.tanh(k * h)
-
-
 def intrinsic_frequency(k: float, h: float | None) -> float:
     """sigma = sqrt(g k tanh kh), rad/s (linear dispersion in still water)."""
-    return math.sqrt(G * k * _tanh_kh(k, h))
+    tanh_kh = 1.0 if h is None or k * h > DEEP_KH else math.tanh(k * h)  # in line: asked some 40 000 times an hour
+    return math.sqrt(G * k * tanh_kh)
 
 
 def group_speed(k: float, h: float | None) -> float:
     """c_g = d sigma / d k = (sigma / k) (1/2) (1 + 2kh / sinh 2kh), m/s, relative to the water."""
-    c = intrinsic_frequency(k, h) / k
+    return _group_speed_of(k, h, intrinsic_frequency(k, h))
+
+
+def _group_speed_of(k: float, h: float | None, sigma: float) -> float:
+    """``group_speed`` given sigma(k) (``intrinsic_frequency``), for a caller that has it already."""
+    c = sigma / k
     if h is None or k * h > DEEP_KH:
         return 0.5 * c
     return 0.5 * c * (1.0 + 2.0 * k * h / math.sinh(2.0 * k * h))
@@ -191,6 +193,13 @@ def still_water_wavenumber(period_s: float, h: float | None) -> float:
         return k_deep
     hi = k_deep / math.tanh(k_deep * h) * 1.001
     return rising_root(f_and_slope, k_deep, hi, k_deep, xtol=1e-14 * hi)
+
+
+@lru_cache(maxsize=32, typed=True)
+def _still_water_group_speed(period_s: float, h: float | None) -> float:
+    """c_g at still water's k0 (``still_water_wavenumber``): a function of the period and depth alone, asked
+    for with every wave on a current (its action in still water), so kept as k0 is."""
+    return group_speed(still_water_wavenumber(period_s, h), h)
 
 
 def wavelength_m(period_s: float, h: float | None = None) -> float:
@@ -273,11 +282,11 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
         lo, hi = k0, kb
     k = rising_root(f_and_slope, lo, hi, _deep_water_start(omega, u, lo, hi, k0))
     sigma = intrinsic_frequency(k, h)
-    cg_ground = group_speed(k, h) + u
+    cg_ground = _group_speed_of(k, h, sigma) + u
     if cg_ground <= 0.0:  # at the blocking point itself (within rounding)
         return WaveOnCurrent(period_s, u, h, True, None, None, None, None)
     length = k0 / k  # L / L0
-    height = math.sqrt((group_speed(k0, h) / omega) / (cg_ground / sigma))  # wave action E (c_g + U) / sigma kept
+    height = math.sqrt((_still_water_group_speed(period_s, h) / omega) / (cg_ground / sigma))  # wave action E (c_g + U) / sigma kept
     return WaveOnCurrent(period_s, u, h, False, k, length, height, height / length)
 
 

@@ -14,6 +14,7 @@ A mixin of ``CurrentEstimator``: it reads and sets the estimator's state.
 
 from __future__ import annotations
 
+import bisect
 import math
 from typing import Any
 
@@ -112,10 +113,8 @@ class Control:
         if self._slow is None or dt > 10.0 * max(p.jacobian_smoothing_s, 1.0):
             self._slow = (t, *now)
             self._fast = (t, *now)
-        ema = lambda old, tau: tuple(o + (1.0 - math.exp(-dt / tau)) * (v - o) if tau > 0 else v
-                                     for o, v in zip(old[1:], now))
-        fast = ema(self._fast, 3.0)                                                # EMA, 3 s
-        slow = ema(self._slow, p.jacobian_smoothing_s)                             # EMA, jacobian_smoothing_s
+        fast = _ema(self._fast, now, dt, 3.0)                                      # EMA, 3 s
+        slow = _ema(self._slow, now, dt, p.jacobian_smoothing_s)                   # EMA, jacobian_smoothing_s
         fast_heading = from_east_north(fast[1], fast[2])[1]
         if 0.0 < dt <= 5.0:  # rates of the 3-s EMA: a turn or a speed change, not the readings' noise
             w.turn_rate_deg_s = wrap_180(fast_heading - from_east_north(self._fast[2], self._fast[3])[1]) / dt
@@ -339,20 +338,19 @@ class Control:
 
     def _log_step(self, t: float) -> bool:
         p = self.params
-        cut = t - p.log_step_window_s
-        recent = [c for c in self._log_checks if c[0] > cut]
-        before = [c for c in self._log_checks if c[0] <= cut]
-        if len(recent) < 3 or len(before) < 3:
+        # the rows' columns transposed in C once, split where the recent rows begin and summed as they are:
+        # at every fix, about 90 rows, a comparison for each in Python was most of this check's cost (the rows
+        # are in time order, as fixes earlier than the last are duplicates: the same split, the same sums)
+        times, logs, alongs, headings = zip(*self._log_checks)
+        split = bisect.bisect_right(times, t - p.log_step_window_s)          # rows[:split] are the earlier
+        n_before, n_recent = split, len(times) - split
+        if n_recent < 3 or n_before < 3:
             return False
-        turn = abs(wrap_180(recent[-1][3] - before[0][3]))
+        turn = abs(wrap_180(headings[-1] - headings[0]))
         if turn > 20.0:
             return False  # a course change changes the speed along the heading by itself
-        # the columns transposed in C and summed as they are: at every fix, about 90 rows, a generator
-        # resumed for each was most of this check's cost (the sums, and so the figures, are the same)
-        _, log_now, along_now, _ = zip(*recent)
-        _, log_before, along_before, _ = zip(*before)
-        d_log = sum(log_now) / len(recent) - sum(log_before) / len(before)
-        d_along = sum(along_now) / len(recent) - sum(along_before) / len(before)
+        d_log = sum(logs[split:]) / n_recent - sum(logs[:split]) / n_before
+        d_along = sum(alongs[split:]) / n_recent - sum(alongs[:split]) / n_before
         if abs(d_log - d_along) > p.log_step_kn:
             self._log_values = {"log_change_kn": round(d_log, 2), "sog_along_change_kn": round(d_along, 2)}
             return True
@@ -371,6 +369,18 @@ class Control:
                     f"{wording.signed(self._log_values.get('sog_along_change_kn', 0))} kn: "
                     f"check the log's paddle wheel or transducer. The current estimate is held meanwhile.")
         return Condition(t, "log_suspect", CAUTION, True, text, dict(self._log_values))
+
+
+def _ema(old: tuple[float, float, float, float], now: tuple[float, float, float], dt: float,
+         tau: float) -> tuple[float, float, float]:
+    """One step of an exponential moving average of (speed, heading east, heading north) over ``dt`` s with
+    time constant ``tau`` (none: the readings); ``old`` is (t, speed, east, north). Its factor is worked out
+    once for the three, not once each: the same numbers."""
+    if not tau > 0:
+        return now[0], now[1], now[2]  # the readings, as a new tuple (``_slow_inputs`` tells a manoeuvre by `is now`)
+    a = 1.0 - math.exp(-dt / tau)
+    _, s, e, n = old
+    return s + a * (now[0] - s), e + a * (now[1] - e), n + a * (now[2] - n)
 
 
 def adopt_fit(x: np.ndarray, P: np.ndarray, y: np.ndarray, informed: np.ndarray) -> np.ndarray:

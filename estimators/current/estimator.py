@@ -24,8 +24,7 @@ from .control import Control
 from .fusion import fuse_rows, innovation_cov_rows, joseph_with_gain_rows, nis2
 from .model import (
     FilterState, WaterInputs, d_unit, ground_velocity_of, jacobian_rows, leeway_deg, measurement_cov,
-    measurement_rows,
-    process_noise, published_rate, unit,
+    measurement_rows, plus_diagonal, published_rate, unit, walk_variances,
 )
 from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
 from .publication import Publisher
@@ -225,8 +224,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
 
     def _predict(self, t: float) -> None:
         dt = max(0.0, t - self.t_filter)
-        self.ekf.P = self.ekf.P + process_noise(self.params, dt, self.q_inflation)                            # F = I: x = x, P = P + Q
-        self.ekf.P_pub = self.ekf.P_pub + process_noise(self.params, dt, current_rate=self.published_rate())
+        self.ekf.P = plus_diagonal(self.ekf.P, walk_variances(self.params, dt, self.q_inflation))  # F = I: x = x, P = P + Q
+        self.ekf.P_pub = plus_diagonal(self.ekf.P_pub, walk_variances(self.params, dt, current_rate=self.published_rate()))
         self.ekf.lag = lag_predicted(self.ekf.lag, dt)
         self.t_filter = t
 
@@ -274,8 +273,9 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             ekf.x, ekf.P = up.x, up.P
             # the same step, the filter's gain, with the noise the water's blocks show (``walk``)
             scale = self.water_walk.noise_scale
+            (r00, r01), (r10, r11) = R                                      # R x scale, written out (2 x 2)
             ekf.P_pub = joseph_with_gain_rows(ekf.P_pub.tolist(), up.gain, h0, h1,
-                                              [[r * scale for r in row] for row in R])
+                                              [[r00 * scale, r01 * scale], [r10 * scale, r11 * scale]])
             ekf.lag = lag_updated(ekf.lag, up.gain)                          # H's current columns are I
             if not w.turning:
                 self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0][0], R[1][1],

@@ -64,8 +64,14 @@ def nis2(y0: float, y1: float, S: tuple[float, float, float, float]) -> float:
 
 def _times_ht(rows: Rows, h0: list[float], h1: list[float]) -> list[tuple[float, float]]:
     """M H' for a 4 x 4 M (its rows) and H (its rows h0, h1): four rows of two."""
-    return [(m0 * h0[0] + m1 * h0[1] + m2 * h0[2] + m3 * h0[3], m0 * h1[0] + m1 * h1[1] + m2 * h1[2] + m3 * h1[3])
-            for m0, m1, m2, m3 in rows]
+    # written out, row by row (see ``_joseph``): asked for five times a fix
+    a0, a1, a2, a3 = h0
+    b0, b1, b2, b3 = h1
+    (m00, m01, m02, m03), (m10, m11, m12, m13), (m20, m21, m22, m23), (m30, m31, m32, m33) = rows
+    return [(m00 * a0 + m01 * a1 + m02 * a2 + m03 * a3, m00 * b0 + m01 * b1 + m02 * b2 + m03 * b3),
+            (m10 * a0 + m11 * a1 + m12 * a2 + m13 * a3, m10 * b0 + m11 * b1 + m12 * b2 + m13 * b3),
+            (m20 * a0 + m21 * a1 + m22 * a2 + m23 * a3, m20 * b0 + m21 * b1 + m22 * b2 + m23 * b3),
+            (m30 * a0 + m31 * a1 + m32 * a2 + m33 * a3, m30 * b0 + m31 * b1 + m32 * b2 + m33 * b3)]
 
 
 def _h_times(h0: list[float], h1: list[float], PHt: list[tuple[float, float]],
@@ -113,7 +119,9 @@ def fuse_rows(x: np.ndarray, P: np.ndarray, xl: list[float], Pl: Rows, y0: float
         return Update(x, P, nis, svar, False, "gate")
     det = a * d - b * c
     i00, i01, i10, i11 = d / det, -b / det, -c / det, a / det               # S^-1, closed form
-    K = [(q0 * i00 + q1 * i10, q0 * i01 + q1 * i11) for q0, q1 in PHt]      # K = P H' S^-1
+    (q00, q01), (q10, q11), (q20, q21), (q30, q31) = PHt
+    K = [(q00 * i00 + q01 * i10, q00 * i01 + q01 * i11), (q10 * i00 + q11 * i10, q10 * i01 + q11 * i11),  # K = P H' S^-1
+         (q20 * i00 + q21 * i10, q20 * i01 + q21 * i11), (q30 * i00 + q31 * i10, q30 * i01 + q31 * i11)]
     if consider_from is not None:
         K[consider_from:] = [(0.0, 0.0)] * (4 - consider_from)
     x_new = [xi + (k0 * y0 + k1 * y1) for xi, (k0, k1) in zip(xl, K)]                  # x+ = x + K y
@@ -142,11 +150,32 @@ def joseph_with_gain_rows(Pl: Rows, K: Gain, h0: list[float], h1: list[float], R
 
 def _joseph(Pl: Rows, PHt: list[tuple[float, float]], K: Gain, h0: list[float], h1: list[float],
             Rl: Rows) -> Rows:
-    """The Joseph form in rows (see the module doc), P H' given, symmetrised."""
-    A = [[pij - (k0 * q0 + k1 * q1) for pij, (q0, q1) in zip(Pi, PHt)]     # A = (I - K H) P
-         for Pi, (k0, k1) in zip(Pl, K)]
+    """The Joseph form in rows (see the module doc), P H' given, symmetrised.
+
+    Each row's four elements written out, not a comprehension within a comprehension: an inner one is a
+    function called for each row (Python 3.11), and those calls cost several times the arithmetic. The same
+    products and sums in the same order: element j of a row takes row j of P H' and of K.
+    """
+    (q00, q01), (q10, q11), (q20, q21), (q30, q31) = PHt
+    (g00, g01), (g10, g11), (g20, g21), (g30, g31) = K
+    A = [[p0 - (k0 * q00 + k1 * q01), p1 - (k0 * q10 + k1 * q11),          # A = (I - K H) P
+          p2 - (k0 * q20 + k1 * q21), p3 - (k0 * q30 + k1 * q31)]
+         for (p0, p1, p2, p3), (k0, k1) in zip(Pl, K)]
     (r00, r01), (r10, r11) = Rl
-    KR = [(k0 * r00 + k1 * r10, k0 * r01 + k1 * r11) for k0, k1 in K]
-    P_new = [[aij - (m0 * k0 + m1 * k1) + (s0 * k0 + s1 * k1) for aij, (k0, k1) in zip(Ai, K)]   # Joseph form
-             for Ai, (m0, m1), (s0, s1) in zip(A, _times_ht(A, h0, h1), KR)]
-    return [[0.5 * (P_new[i][j] + P_new[j][i]) for j in range(4)] for i in range(4)]
+    KR = [(g00 * r00 + g01 * r10, g00 * r01 + g01 * r11), (g10 * r00 + g11 * r10, g10 * r01 + g11 * r11),
+          (g20 * r00 + g21 * r10, g20 * r01 + g21 * r11), (g30 * r00 + g31 * r10, g30 * r01 + g31 * r11)]
+    P_new = [[a0 - (m0 * g00 + m1 * g01) + (s0 * g00 + s1 * g01),        # Joseph form: A - (A H') K' + (K R) K'
+              a1 - (m0 * g10 + m1 * g11) + (s0 * g10 + s1 * g11),
+              a2 - (m0 * g20 + m1 * g21) + (s0 * g20 + s1 * g21),
+              a3 - (m0 * g30 + m1 * g31) + (s0 * g30 + s1 * g31)]
+             for (a0, a1, a2, a3), (m0, m1), (s0, s1) in zip(A, _times_ht(A, h0, h1), KR)]
+    return _symmetrised(P_new)
+
+
+def _symmetrised(M: Rows) -> Rows:
+    """0.5 (M + M') of a 4 x 4 M's rows, each pair's mean worked out once (a + b is b + a, exactly)."""
+    (m00, m01, m02, m03), (m10, m11, m12, m13), (m20, m21, m22, m23), (m30, m31, m32, m33) = M
+    s01, s02, s03 = 0.5 * (m01 + m10), 0.5 * (m02 + m20), 0.5 * (m03 + m30)
+    s12, s13, s23 = 0.5 * (m12 + m21), 0.5 * (m13 + m31), 0.5 * (m23 + m32)
+    return [[0.5 * (m00 + m00), s01, s02, s03], [s01, 0.5 * (m11 + m11), s12, s13],
+            [s02, s12, 0.5 * (m22 + m22), s23], [s03, s13, s23, 0.5 * (m33 + m33)]]

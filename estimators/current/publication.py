@@ -47,14 +47,13 @@ class Publisher:
     def _stale_inputs(self, t: float) -> list[str]:
         return [k for k in ("fix", "heading", "water_speed") if t - self._seen.get(k, -math.inf) > self.params.stale_s]
 
-    def _quality(self, t: float, sigma_vec: float) -> tuple[str, str]:
+    def _quality(self, t: float, sigma_vec: float, stale: list[str]) -> tuple[str, str]:
         """(quality, why). 'valid' promises: sigma small, fresh inputs, a trusted log, and the filter's
         innovations over the last ``nis_check_fixes`` as large as its model says (the windowed NIS test), and no
         change of the current beyond its model still being caught up with (the CUSUM detector's inflation of Q back to 1)."""
         p = self.params
         if self.ekf is None or sigma_vec > p.unavailable_sigma_kn:
             return "unavailable", "no estimate yet" if self.ekf is None else "uncertainty too large"
-        stale = self._stale_inputs(t)
         if stale:
             return "degraded", "stale inputs: " + ", ".join(stale)
         if self._log_state == "suspect":
@@ -86,18 +85,18 @@ class Publisher:
         drift, set_deg = from_east_north(e, n)
         sig_drift, sig_set = polar_sigmas(e, n, Pc)
         sigma_vec = math.sqrt(Pc[0][0] + Pc[1][1])
-        quality, why = self._quality(t, sigma_vec)
-        cal = self.calibration()
+        stale = self._stale_inputs(t)
+        quality, why = self._quality(t, sigma_vec, stale)
+        k, d, sk, sd = self._learnt()  # ``calibration``'s figures, without its record made each second
         payload = {
             "set_deg": round(set_deg, 1), "drift_kn": round(drift, 3),
             "east_kn": round(e, 3), "north_kn": round(n, 3),
             "set_sigma_deg": round(sig_set, 1), "drift_sigma_kn": round(sig_drift, 3),
             "quality": quality, "quality_reason": why,
-            "stw_scale": round(cal.stw_scale, 4), "heading_offset_deg": round(cal.heading_offset_deg, 2),
-            "stw_scale_sigma": round(cal.stw_scale_sigma, 4),
-            "heading_offset_sigma_deg": round(cal.heading_offset_sigma_deg, 2),
+            "stw_scale": round(k, 4), "heading_offset_deg": round(wrap_180(math.degrees(d)), 2),
+            "stw_scale_sigma": round(sk, 4), "heading_offset_sigma_deg": round(math.degrees(sd), 2),
             "calibration": self._calibration_words(),
-            "stale_inputs": self._stale_inputs(t),
+            "stale_inputs": stale,
             "log": self._log_state,
             "q_inflation": round(self.q_inflation, 2),
             "water_walk_kn_per_sqrt_h": round(self.water_walk.walk_kn_per_sqrt_h, 3),
@@ -181,13 +180,19 @@ class Publisher:
             # before any sample there is no "now": the prior at its own age (none), else as first seen
             k, d, sk, sd = self._prior or self._prior_calibration(saved.t_s if saved.t_s is not None else 0.0)
             return Calibration(k, math.degrees(d), sk, math.degrees(sd), saved.t_s, saved.fixes_used)
+        k, d, sk, sd = self._learnt()
+        used = (self.saved.fixes_used if self.saved else 0) + self.health.fused
+        return Calibration(k, wrap_180(math.degrees(d)), sk, math.degrees(sd), self.t_filter, used)
+
+    def _learnt(self) -> tuple[float, float, float, float]:
+        """(k, d_rad, sigma_k, sigma_d_rad) earned so far, each part the filter's or the prior's (see
+        ``calibration``); the filter started."""
         log_ok, hdg_ok = self._earned()
         k0, d0, sk0, sd0 = self._prior
         x, P = self.ekf.x, self.ekf.P
         k, sk = (float(x[IK, 0]), math.sqrt(P[IK, IK])) if log_ok else (k0, sk0)
         d, sd = (float(x[ID, 0]), math.sqrt(P[ID, ID])) if hdg_ok else (d0, sd0)
-        used = (self.saved.fixes_used if self.saved else 0) + self.health.fused
-        return Calibration(k, wrap_180(math.degrees(d)), sk, math.degrees(sd), self.t_filter, used)
+        return k, d, sk, sd
 
 
 def polar_sigmas(e: float, n: float, Pc) -> tuple[float, float]:
