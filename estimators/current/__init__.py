@@ -142,7 +142,7 @@ _LAZY = {
     "CurrentEstimator": ".estimator", "FilterRecord": ".estimator",
     "FilterState": ".model", "WaterInputs": ".model", "d_unit": ".model",
     "ground_velocity_of": ".model", "jacobian": ".model", "measurement_cov": ".model",
-    "process_noise": ".model", "unit": ".model",
+    "unit": ".model",
     "polar_sigmas": ".publication",
 }
 
@@ -158,5 +158,5 @@ def __getattr__(name: str) -> Any:
 __all__ = [
     "Calibration", "CurrentEstimator", "FilterState", "CurrentParams", "FilterRecord", "FusionReport", "ID", "IE", "IK", "IN",
     "TOPIC", "WaterInputs", "d_unit", "ground_velocity_of", "jacobian", "leeway_deg",
-    "measurement_cov", "polar_sigmas", "process_noise", "unit",
+    "measurement_cov", "polar_sigmas", "unit",
 ]

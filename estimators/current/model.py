@@ -91,12 +91,6 @@ def ground_velocity_of(sample: Sample) -> tuple[float, float] | None:
     return to_east_north(sog, cog)
 
 
-def process_noise(p: CurrentParams, dt: float, q_inflation: float = 1.0, current_rate: float | None = None) -> np.ndarray:
-    """Q for a step of ``dt`` s: every state a random walk; the current's rate times ``q_inflation``, or
-    ``current_rate`` (kn^2/s per axis) where given (the published covariance's, ``published_rate``)."""
-    return np.diag(walk_variances(p, dt, q_inflation, current_rate))
-
-
 def plus_diagonal(M: np.ndarray, diagonal: tuple[float, float, float, float]) -> np.ndarray:
     """M + diag(``diagonal``) for a 4 x 4 M, as a new array (a caller holding M keeps it as it was).
 
@@ -119,8 +113,10 @@ def published_rate(p: CurrentParams, water_rate: float, q_inflation: float) -> f
 
 def walk_variances(p: CurrentParams, dt: float, q_inflation: float = 1.0,
                    current_rate: float | None = None) -> tuple[float, float, float, float]:
-    """Q's diagonal (c_e, c_n, k, d) as floats, for a publication that needs only the current's part;
-    ``current_rate`` (kn^2/s) in place of the configured walk times ``q_inflation`` where given."""
+    """Q for a step of ``dt`` s, its diagonal (c_e, c_n, k, d) as floats (every state a random walk; the
+    predict adds it with ``plus_diagonal``, a publication takes the current's part): the current's rate the
+    configured walk times ``q_inflation``, or ``current_rate`` (kn^2/s per axis) where given (the published
+    covariance's, ``published_rate``)."""
     qc = (p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H) * q_inflation if current_rate is None else current_rate
     qk = p.stw_scale_walk_per_sqrt_h ** 2 / S_PER_H
     qd = math.radians(p.heading_offset_walk_deg_per_sqrt_h) ** 2 / S_PER_H
