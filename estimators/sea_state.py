@@ -403,7 +403,8 @@ class SeaStateEstimator(EstimatorBase):
             # the heading's circular mean over the interval (as unit vectors), the log's mean, calibrated
             # (sin, cos) of each, summed by map in C: to_east_north(1.0, ...)'s figures and _mean's sums in
             # the same order, without two Python calls for each heading of each epoch
-            angles = [math.radians(h.true_deg + d) for h in heads if h.t_s > t0] or [math.radians(heads[-1].true_deg + d)]
+            angles = ([math.radians(h.true_deg + d) for h in heads if h.t_s > t0]
+                      or [math.radians(heads[-1].true_deg + d)])
             ue, un = sum(map(math.sin, angles)) / len(angles), sum(map(math.cos, angles)) / len(angles)
             in_interval = [w.speed_kn for w in logs if w.t_s > t0] or [logs[-1].speed_kn]
             stw = k * sum(in_interval) / len(in_interval)  # true STW = stw_scale x log

@@ -286,7 +286,8 @@ def wave_on_current(period_s: float, current_along_mps: float, depth_m: float | 
     if cg_ground <= 0.0:  # at the blocking point itself (within rounding)
         return WaveOnCurrent(period_s, u, h, True, None, None, None, None)
     length = k0 / k  # L / L0
-    height = math.sqrt((_still_water_group_speed(period_s, h) / omega) / (cg_ground / sigma))  # wave action E (c_g + U) / sigma kept
+    # wave action E (c_g + U) / sigma kept
+    height = math.sqrt((_still_water_group_speed(period_s, h) / omega) / (cg_ground / sigma))
     return WaveOnCurrent(period_s, u, h, False, k, length, height, height / length)
 
 

@@ -224,9 +224,10 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
 
     def _predict(self, t: float) -> None:
         dt = max(0.0, t - self.t_filter)
-        self.ekf.P = plus_diagonal(self.ekf.P, walk_variances(self.params, dt, self.q_inflation))  # F = I: x = x, P = P + Q
-        self.ekf.P_pub = plus_diagonal(self.ekf.P_pub, walk_variances(self.params, dt, current_rate=self.published_rate()))
-        self.ekf.lag = lag_predicted(self.ekf.lag, dt)
+        p, ekf = self.params, self.ekf
+        ekf.P = plus_diagonal(ekf.P, walk_variances(p, dt, self.q_inflation))                    # F = I: x = x, P = P + Q
+        ekf.P_pub = plus_diagonal(ekf.P_pub, walk_variances(p, dt, current_rate=self.published_rate()))
+        ekf.lag = lag_predicted(ekf.lag, dt)
         self.t_filter = t
 
     def published_rate(self) -> float:

@@ -114,13 +114,15 @@ log-likelihood below the maximum: a little above the likeliest walk, which keeps
 a window that reads no walk at all (q_hat = 0, a boundary) from publishing none.
 The sigma is a plug-in for an error covariance, so its rate is the one whose
 published sigmas cover the truth as often as they say over Monte-Carlo runs of
-the realistic sensor model (the README's table: at 0.95 the current's own part
-was 0.82-0.96 of what it published, the tidal box's drift within 2 sigma at
-0.974); the calibration fit's walk (``water_walk_confidence``, 0.95) keeps its
-margin, because the fit's sigma is what 'calibrated' is held to. Read again as each block closes (once a
-minute), not at every fix: one pass over the window's blocks for every rate of
-the grid at once, the trend's (50 level walks x 5 slope walks x 7 scales) and,
-where its slope is not evident, the local level's: about 6 and 3 ms a minute
+the realistic sensor model (the README's table: at 0.95 the current's own
+errors' variance was 0.81-0.96 of what it published, the tidal box's drift
+within 2 sigma at 0.974); the calibration fit's walk (``water_walk_confidence``,
+0.95) keeps its margin, because the fit's sigma is what 'calibrated' is held to.
+
+Read again as each block closes (once a minute), not at every fix: one pass
+over the window's blocks for every rate of the grid at once, the trend's (50
+level walks x 5 slope walks x 7 scales) and, where its slope is not evident,
+the local level's: about 6 and 3 ms a minute
 over an hour's blocks (CPU, the build machine at a load of 4 to 6; 7 and 6 ms
 before their arrays were all made contiguous, tools/bench/NOTES.md).
 """
