@@ -244,37 +244,74 @@ def split_tag(text: str) -> tuple[str, float | None, str | None, str]:
     return "ok", tag_time, tag_source, text[close + 1:]
 
 
-def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
-    """Check the frame of one line (no line ending) and sort it into one counter."""
+def open_line(text: str) -> tuple[str, str, float | None, str | None, str]:
+    """(status, key, c: time, s: source, sentence) of a line before its sentence is looked at: status ``ok``
+    with the sentence that follows any TAG block, or the counter and key of a line refused already."""
     if not text.isascii():  # the framer never lets one through; a recording or a caller might
-        return Line("not_sentence", "-")
-    if text[:1] == "\\":
-        status, tag_time, tag_source, sentence = split_tag(text)
-        if status != "ok":
-            return Line(status, "TAG")
-    else:  # no TAG block: most live lines
-        tag_time = tag_source = None
-        sentence = text
+        return "not_sentence", "-", None, None, ""
+    if text[:1] != "\\":  # no TAG block: most live lines
+        return "ok", "", None, None, text
+    status, tag_time, tag_source, sentence = split_tag(text)
+    if status != "ok":
+        return status, "TAG", None, None, ""
+    return "ok", "", tag_time, tag_source, sentence
+
+
+def check_sentence(sentence: str, allow_no_checksum: bool = False) -> tuple[str, str, str, list[str]]:
+    """(status, key, talker, fields) of a sentence without its TAG block; fields only when ``ok``."""
     if not sentence or sentence[0] not in "$!":
-        return Line("not_sentence", "-", tag_time=tag_time)
+        return "not_sentence", "-", "", []
     status, end = _check_star(sentence, 1, allow_no_checksum)
     body = sentence[1:end]
     address, _, rest = body.partition(",")
     if address[:1] == "P":  # "P" + a manufacturer's mnemonic; the rest is theirs to define
         key = address if address.isalnum() and len(address) <= 8 else address[:4]
-        return Line("proprietary" if status == "ok" else status, key, tag_time=tag_time)
+        return ("proprietary" if status == "ok" else status), key, "", []
     if not address.isalnum() or not address.isupper() and not address.isdigit():
-        return Line("unparseable" if status == "ok" else status, "-", tag_time=tag_time)
+        return ("unparseable" if status == "ok" else status), "-", "", []
     talker, key = address[:2], address[2:]
     if not key:
-        return Line("unparseable" if status == "ok" else status, "-", tag_time=tag_time)
+        return ("unparseable" if status == "ok" else status), "-", "", []
+    if status != "ok":
+        return status, key, talker, []
+    if sentence[0] == "!":
+        return "ais", key, talker, []
+    if key not in EXTRACTORS:
+        return "unknown", key, talker, []
+    return "ok", key, talker, rest.split(",")
+
+
+def parse_line(text: str, allow_no_checksum: bool = False) -> Line:
+    """Check the frame of one line (no line ending) and sort it into one counter."""
+    status, key, tag_time, tag_source, sentence = open_line(text)
+    if status != "ok":
+        return Line(status, key)
+    status, key, talker, fields = check_sentence(sentence, allow_no_checksum)
     if status != "ok":
         return Line(status, key, talker, tag_time=tag_time)
-    if sentence[0] == "!":
-        return Line("ais", key, talker, tag_time=tag_time)
-    if key not in EXTRACTORS:
-        return Line("unknown", key, talker, tag_time=tag_time)
-    return Line("ok", key, talker, rest.split(","), tag_time, tag_source, sentence)
+    return Line("ok", key, talker, fields, tag_time, tag_source, sentence)
+
+
+class ValuesFault(Exception):
+    """An extractor failed with something other than ``Unparseable`` (a bug): raised from it, with the key."""
+
+    def __init__(self, key: str) -> None:
+        super().__init__(key)
+        self.key = key
+
+
+def read_sentence(sentence: str, allow_no_checksum: bool = False) -> tuple[str, str, Extract | None]:
+    """(status, key, values) of a sentence without its TAG block: ``check_sentence``, then ``extract``
+    when the status is ``ok`` (values None: a field unparseable; a bug in an extractor raises
+    ``ValuesFault`` from it). The same text always gives the same answer, and nothing changes an
+    Extract once made, so a caller may keep the answers of texts that repeat (``Ingest`` does)."""
+    status, key, _talker, fields = check_sentence(sentence, allow_no_checksum)
+    if status != "ok":
+        return status, key, None
+    try:
+        return status, key, extract(key, fields)
+    except Exception as exc:
+        raise ValuesFault(key) from exc
 
 
 # --- step 2: typed values -----------------------------------------------------------
