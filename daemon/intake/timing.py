@@ -62,7 +62,6 @@ dates are taken as they come.
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from typing import Any
 
 DAY_S = 86400.0
@@ -175,12 +174,8 @@ class ReplayClock:
             return out
         if self._tag_jump:
             return self._tag_candidate(item, t_s)
-        return self._tag_in_gate(item, t_s)
-
-    def _tag_in_gate(self, item: Any, t_s: float) -> Released:
-        """The usual case, every tagged line: within the gate, released at once at the latest time."""
+        # the usual case, every tagged line: within the gate, released at once at the latest time
         last = self._tagged_t
-        assert last is not None
         t_out = t_s + self._tag_offset
         if not -self.behind_tolerance_s <= t_out - last <= self.max_gap_s:
             self._tag_jump = [(item, t_s)]
@@ -364,16 +359,3 @@ class ReplayClock:
             return self._tag_refuted()
         return self._release_all(None)
 
-
-def monotonic_guard(events: dict[str, int]) -> Callable[[float], float]:
-    """A filter that never lets output time go backwards (counted ``clamped``)."""
-    last = [float("-inf")]
-
-    def guard(t: float) -> float:
-        if t < last[0]:
-            events["clamped"] = events.get("clamped", 0) + 1
-            return last[0]
-        last[0] = t
-        return t
-
-    return guard
