@@ -394,6 +394,7 @@ class Unparseable(ValueError):
 
 
 def _get(fields: list[str], i: int) -> str:
+    """Field i, or "" past the end (XDR's repeating groups; every other sentence's fields come padded)."""
     return fields[i] if i < len(fields) else ""
 
 
@@ -517,15 +518,15 @@ def ext_rmc(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 RMC: 0 time, 1 status A/V, 2-3 lat, 4-5 lon, 6 SOG kn, 7 COG true,
     8 date ddmmyy, 9-10 variation E/W, 11 mode indicator (v2.3+), 12 navigational status (v4.1)."""
     ex = Extract()
-    if _get(f, _RMC.status) != "A" or _get(f, _RMC.mode) == "N":  # void, or mode N "data not valid" (v4.10 field 12)
+    if f[_RMC.status] != "A" or f[_RMC.mode] == "N":  # void, or mode N "data not valid" (v4.10 field 12)
         ex.drop()  # a void sentence's other fields are often junk (89 deg 60'): not looked at
         return ex
-    tod, day = time_of_day(_get(f, _RMC.time)), rmc_date(_get(f, _RMC.date))
-    lat = latlon(_get(f, _RMC.lat), _get(f, _RMC.lat_hemi), True)
-    lon = latlon(_get(f, _RMC.lon), _get(f, _RMC.lon_hemi), False)
-    sog, cog = _sog(num(_get(f, _RMC.sog_kn))), direction(_get(f, _RMC.cog_true))
+    tod, day = time_of_day(f[_RMC.time]), rmc_date(f[_RMC.date])
+    lat = latlon(f[_RMC.lat], f[_RMC.lat_hemi], True)
+    lon = latlon(f[_RMC.lon], f[_RMC.lon_hemi], False)
+    sog, cog = _sog(num(f[_RMC.sog_kn])), direction(f[_RMC.cog_true])
     # a variation without E/W is no variation (some receivers send "0" and no hemisphere)
-    var_text, var_hemi = _get(f, _RMC.variation), _get(f, _RMC.variation_hemi)
+    var_text, var_hemi = f[_RMC.variation], f[_RMC.variation_hemi]
     var = _east(num(var_text), var_hemi) if var_text and var_hemi in ("E", "W") else None
     ex.tod_s, ex.day = tod, day
     if var is not None:
@@ -547,13 +548,13 @@ def ext_gga(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 GGA: 0 time, 1-2 lat, 3-4 lon, 5 quality, 6 satellites, 7 HDOP,
     8-9 altitude M, 10-11 geoid separation M, 12 age of differential data, 13 station."""
     ex = Extract()
-    if _get(f, _GGA.quality) not in _GGA_FIX_QUALITIES:
+    if f[_GGA.quality] not in _GGA_FIX_QUALITIES:
         ex.drop()
         return ex
-    tod = time_of_day(_get(f, _GGA.time))
-    lat = latlon(_get(f, _GGA.lat), _get(f, _GGA.lat_hemi), True)
-    lon = latlon(_get(f, _GGA.lon), _get(f, _GGA.lon_hemi), False)
-    hdop = num(_get(f, _GGA.hdop))
+    tod = time_of_day(f[_GGA.time])
+    lat = latlon(f[_GGA.lat], f[_GGA.lat_hemi], True)
+    lon = latlon(f[_GGA.lon], f[_GGA.lon_hemi], False)
+    hdop = num(f[_GGA.hdop])
     ex.tod_s = tod
     if hdop is not None and not _in(hdop, 0.0, HDOP_MAX):
         hdop = None  # 99.9 and the like mean "unknown", not a bad fix
@@ -565,13 +566,13 @@ def ext_gll(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 GLL: 0-1 lat, 2-3 lon, 4 time, 5 status A/V, 6 mode (v2.3+).
     Older layouts without status (v1.5: four fields) are taken as valid positions."""
     ex = Extract()
-    status = _get(f, _GLL.status)
-    if status not in ("A", "") or _get(f, _GLL.mode) == "N":
+    status = f[_GLL.status]
+    if status not in ("A", "") or f[_GLL.mode] == "N":
         ex.drop()
         return ex
-    lat = latlon(_get(f, _GLL.lat), _get(f, _GLL.lat_hemi), True)
-    lon = latlon(_get(f, _GLL.lon), _get(f, _GLL.lon_hemi), False)
-    tod = time_of_day(_get(f, _GLL.time))
+    lat = latlon(f[_GLL.lat], f[_GLL.lat_hemi], True)
+    lon = latlon(f[_GLL.lon], f[_GLL.lon_hemi], False)
+    tod = time_of_day(f[_GLL.time])
     if status == "A":
         ex.tod_s = tod
     _fix(ex, lat, lon)
@@ -582,12 +583,12 @@ def ext_vtg(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 VTG: 0 COG true, 1 T, 2 COG magnetic, 3 M, 4 SOG kn, 5 N, 6 SOG km/h, 7 K,
     8 mode (v2.3+). The old layout without unit letters (COG T, COG M, SOG kn, SOG km/h) too."""
     ex = Extract()
-    if len(f) >= 2 and f[_VTG.true_mark] not in ("T", ""):  # old layout: four numbers
+    if f[_VTG.true_mark] not in ("T", ""):  # old layout: four numbers
         old = _VTG_UNLABELLED
-        cog, kn, kmh, mode = direction(_get(f, old.cog_true)), num(_get(f, old.sog_kn)), num(_get(f, old.sog_kmh)), ""
+        cog, kn, kmh, mode = direction(f[old.cog_true]), num(f[old.sog_kn]), num(f[old.sog_kmh]), ""
     else:
-        cog, kn, kmh = direction(_get(f, _VTG.cog_true)), num(_get(f, _VTG.sog_kn)), num(_get(f, _VTG.sog_kmh))
-        mode = _get(f, _VTG.mode)
+        cog, kn, kmh = direction(f[_VTG.cog_true]), num(f[_VTG.sog_kn]), num(f[_VTG.sog_kmh])
+        mode = f[_VTG.mode]
     if mode == "N":
         ex.drop()
         return ex
@@ -604,8 +605,8 @@ def ext_vtg(f: list[str]) -> Extract:
 def ext_zda(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 ZDA: 0 time, 1 day, 2 month, 3 year (four digits), 4-5 local zone."""
     ex = Extract()
-    tod = time_of_day(_get(f, _ZDA.time))
-    d, m, y = _get(f, _ZDA.day), _get(f, _ZDA.month), _get(f, _ZDA.year)
+    tod = time_of_day(f[_ZDA.time])
+    d, m, y = f[_ZDA.day], f[_ZDA.month], f[_ZDA.year]
     if not (d and m and y):
         return ex
     if not (d.isdigit() and m.isdigit() and y.isdigit() and len(y) == 4):
@@ -625,14 +626,14 @@ def _heading(ex: Extract, s: str, ref: str) -> None:
 def ext_hdt(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 HDT: 0 heading, 1 T."""
     ex = Extract()
-    _heading(ex, _get(f, _HDT.heading), "T")
+    _heading(ex, f[_HDT.heading], "T")
     return ex
 
 
 def ext_hdm(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 HDM: 0 heading, 1 M."""
     ex = Extract()
-    _heading(ex, _get(f, _HDM.heading), "M")
+    _heading(ex, f[_HDM.heading], "M")
     return ex
 
 
@@ -640,10 +641,10 @@ def ext_ths(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 THS: 0 true heading, 1 mode: A autonomous, E estimated (dead reckoning),
     M manual, S simulator, V not valid. Only A and E are headings of this boat now."""
     ex = Extract()
-    deg = direction(_get(f, _THS.heading))
+    deg = direction(f[_THS.heading])
     if deg is None:
         return ex
-    if deg is False or _get(f, _THS.mode) not in ("A", "E"):
+    if deg is False or f[_THS.mode] not in ("A", "E"):
         ex.drop()
         return ex
     ex.values.append(LabelledHeading(deg, "T"))
@@ -654,10 +655,10 @@ def ext_hdg(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 HDG: 0 magnetic sensor heading, 1-2 deviation E/W, 3-4 variation E/W.
     Magnetic heading = sensor + deviation (E positive); true = magnetic + variation."""
     ex = Extract()
-    deg = direction(_get(f, _HDG.heading))
-    dev_text, var_text = _get(f, _HDG.deviation), _get(f, _HDG.variation)
-    dev = _east(num(dev_text), _get(f, _HDG.deviation_hemi)) if dev_text else None
-    var = _east(num(var_text), _get(f, _HDG.variation_hemi)) if var_text else None
+    deg = direction(f[_HDG.heading])
+    dev_text, var_text = f[_HDG.deviation], f[_HDG.variation]
+    dev = _east(num(dev_text), f[_HDG.deviation_hemi]) if dev_text else None
+    var = _east(num(var_text), f[_HDG.variation_hemi]) if var_text else None
     if var is not None:
         if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
             ex.values.append(Variation(var))
@@ -684,7 +685,7 @@ def ext_vhw(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 VHW: 0 heading true, 1 T, 2 heading magnetic, 3 M, 4 STW kn, 5 N,
     6 STW km/h, 7 K. (Headings here are not used: HDx/THS carry them.)"""
     ex = Extract()
-    _stw(ex, num(_get(f, _VHW.stw_kn)), num(_get(f, _VHW.stw_kmh)))
+    _stw(ex, num(f[_VHW.stw_kn]), num(f[_VHW.stw_kmh]))
     return ex
 
 
@@ -692,10 +693,10 @@ def ext_vbw(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 VBW: 0 longitudinal water speed kn, 1 transverse water speed, 2 status
     A/V, 3 longitudinal ground speed, 4 transverse ground speed, 5 status, 6-9 stern speeds."""
     ex = Extract()
-    kn = num(_get(f, _VBW.water_long_kn))
+    kn = num(f[_VBW.water_long_kn])
     if kn is None:
         return ex
-    if _get(f, _VBW.water_status) != "A":
+    if f[_VBW.water_status] != "A":
         ex.drop()
         return ex
     _stw(ex, kn, None)
@@ -723,16 +724,16 @@ def _pressure(ex: Extract, hpa: float | None) -> None:
 def ext_mtw(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 MTW: 0 water temperature, 1 C."""
     ex = Extract()
-    unit = _get(f, _MTW.temp_unit)
+    unit = f[_MTW.temp_unit]
     if unit not in ("C", ""):
         raise Unparseable(unit)
-    _temp(ex, num(_get(f, _MTW.temp)), SeaTemperature, SEA_TEMP_C)
+    _temp(ex, num(f[_MTW.temp]), SeaTemperature, SEA_TEMP_C)
     return ex
 
 
 def _unit_value(f: list[str], i: int, unit: str) -> float | None:
     """The number at field i when field i+1 is the given unit letter."""
-    return num(_get(f, i)) if _get(f, i + 1) == unit else None
+    return num(f[i]) if f[i + 1] == unit else None
 
 
 def ext_mda(f: list[str]) -> Extract:
@@ -796,14 +797,14 @@ def ext_mwv(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 MWV: 0 wind angle 0..360 off the bow, 1 reference R relative /
     T theoretical, 2 speed, 3 unit K/M/N/S, 4 status A/V."""
     ex = Extract()
-    angle, speed, ref = direction(_get(f, _MWV.angle)), num(_get(f, _MWV.speed)), _get(f, _MWV.reference)
+    angle, speed, ref = direction(f[_MWV.angle]), num(f[_MWV.speed]), f[_MWV.reference]
     if angle is None or speed is None:
         return ex
-    factor = _WIND_UNITS.get(_get(f, _MWV.speed_unit))
+    factor = _WIND_UNITS.get(f[_MWV.speed_unit])
     if factor is None or ref not in ("R", "T"):
         raise Unparseable(",".join(f[:4]))
     kn = speed * factor
-    if _get(f, _MWV.status) != "A" or angle is False or not _in(kn, 0.0, WIND_MAX_KN):
+    if f[_MWV.status] != "A" or angle is False or not _in(kn, 0.0, WIND_MAX_KN):
         ex.drop()
         return ex
     if ref == "R":
@@ -817,8 +818,8 @@ def ext_mwd(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 MWD: 0 wind from, true, 1 T, 2 from, magnetic, 3 M, 4 speed kn, 5 N,
     6 speed m/s, 7 M."""
     ex = Extract()
-    true, mag = direction(_get(f, _MWD.from_true)), direction(_get(f, _MWD.from_magnetic))
-    kn, mps = num(_get(f, _MWD.speed_kn)), num(_get(f, _MWD.speed_mps))
+    true, mag = direction(f[_MWD.from_true]), direction(f[_MWD.from_magnetic])
+    kn, mps = num(f[_MWD.speed_kn]), num(f[_MWD.speed_mps])
     speed = kn if kn is not None else (mps * MPS_TO_KN if mps is not None else None)
     if speed is None or (true is None and mag is None):
         return ex
@@ -853,7 +854,7 @@ def ext_dpt(f: list[str]) -> Extract:
     """NMEA 0183 v4.10 DPT: 0 depth below transducer m, 1 offset m (positive: transducer to
     waterline, added; negative: transducer to keel, not added), 2 maximum range (v3.0+)."""
     ex = Extract()
-    d, off = num(_get(f, _DPT.depth_m)), num(_get(f, _DPT.offset_m))
+    d, off = num(f[_DPT.depth_m]), num(f[_DPT.offset_m])
     if d is not None and off is not None and off > 0 and math.isfinite(off):
         d += off
     _depth(ex, d)
@@ -880,8 +881,17 @@ STANDARD_FORMATTERS = frozenset(EXTRACTORS) | frozenset("""
 """.split())
 
 
+# Each sentence's fields, as its extractor reads them: a talker leaves off the fields after its last
+# (an older layout, a device that does not measure the rest), so they are padded with empty ones and the
+# extractors index them directly. XDR is read group by group as far as it goes: never padded.
+_FIELD_COUNTS = {key: 0 if key == "XDR" else len(LAYOUTS[key]) for key in EXTRACTORS}
+
+
 def extract(key: str, fields: list[str]) -> Extract | None:
     """Typed values of an understood sentence; None when a field is unparseable."""
+    short = _FIELD_COUNTS[key] - len(fields)
+    if short > 0:
+        fields = fields + [""] * short  # a new list: the caller's fields stay as they came
     try:
         return EXTRACTORS[key](fields)
     except Unparseable:
