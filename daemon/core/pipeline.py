@@ -71,7 +71,16 @@ class Pipeline:
 
     def _take(self, item: RawLine | Reading | Acknowledgement) -> None:
         if isinstance(item, RawLine):  # first: every line is one, half the items
-            self._raw(item)
+            if self.counters is not None:
+                self.counters.take_line(item)
+            for sink in self.sinks:
+                sink.raw(item)
+            # Most items carry the time of the one before (a second's lines share their TAG block's time, a
+            # line's readings its time): the clock would not move, and _advance is not called for them.
+            # Any other time (later, the first, NaN) goes to _advance, whose clock judges it as before.
+            t_s, now_s = item.t_s, self._clock.now_s
+            if now_s is None or not t_s <= now_s:
+                self._advance(t_s)
             return
         if isinstance(item, Acknowledgement):  # a recorded one, replayed: the alert manager's, as live
             self._emit_all(self.alerts.acknowledge(item.alert_id, item.t_s))
@@ -81,22 +90,10 @@ class Pipeline:
         sample = item.sample
         t_s = sample.t_s
         now_s = self._clock.now_s
-        if now_s is None or not t_s <= now_s:  # see _raw
+        if now_s is None or not t_s <= now_s:  # as for a line, above
             self._advance(t_s)
         self._last_seen[KIND_NAMES[type(sample)]] = t_s  # kind_of, without the call
         self._handle(self.runner.step(sample))
-
-    def _raw(self, item: RawLine) -> None:
-        if self.counters is not None:
-            self.counters.take_line(item)
-        for sink in self.sinks:
-            sink.raw(item)
-        # Most items carry the time of the one before (a second's lines share their TAG block's time, a
-        # line's readings its time): the clock would not move, and _advance is not called for them.
-        # Any other time (later, the first, NaN) goes to _advance, whose clock judges it as before.
-        t_s, now_s = item.t_s, self._clock.now_s
-        if now_s is None or not t_s <= now_s:
-            self._advance(t_s)
 
     def feed_all(self, items: Iterable[RawLine | Reading]) -> None:
         for item in items:

@@ -23,7 +23,8 @@ import sqlite3
 import sys
 import time
 import zlib
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from itertools import chain
 from pathlib import Path
 from typing import IO, Any
 
@@ -126,15 +127,15 @@ def _counting(items: Iterator[Item], bar: ProgressBar) -> Iterator[Item]:
 
 def _iter_one(index: int, path: Path, fmt: str, name: str, size: int,
               make_ingest: Callable[[str], Any], tracker: _Tracker) -> Iterator[Item]:
+    # the items come in lists (a chunk's, a recorded line's) and are handed on by chain in C: a generator
+    # that yielded each item would be resumed once an item, through two frames
     if fmt == "sqlite":
-        yield from _iter_recording(index, path, size, make_ingest, tracker)
-    else:
-        yield from _iter_text(index, path, fmt, name, make_ingest, tracker)
-    tracker.set(index, size)
+        return chain.from_iterable(_recording_lists(index, path, size, make_ingest, tracker))
+    return chain.from_iterable(_text_lists(index, path, fmt, name, size, make_ingest, tracker))
 
 
-def _iter_text(index: int, path: Path, fmt: str, name: str,
-               make_ingest: Callable[[str], Any], tracker: _Tracker) -> Iterator[Item]:
+def _text_lists(index: int, path: Path, fmt: str, name: str, size: int,
+                make_ingest: Callable[[str], Any], tracker: _Tracker) -> Iterator[list[Item]]:
     ingest = make_ingest(name)
     try:
         raw = open(path, "rb")
@@ -146,9 +147,10 @@ def _iter_text(index: int, path: Path, fmt: str, name: str,
             data = _read_chunk(stream, path)
             if not data:
                 break
-            yield from ingest.feed(data, FILE_RECV_UTC)
+            yield ingest.feed(data, FILE_RECV_UTC)
             tracker.set(index, raw.tell())
-    yield from ingest.flush()
+    yield ingest.flush()
+    tracker.set(index, size)
 
 
 def _read_chunk(stream: IO[bytes], path: Path) -> bytes:
@@ -163,8 +165,8 @@ def _read_chunk(stream: IO[bytes], path: Path) -> bytes:
     return b""
 
 
-def _iter_recording(index: int, path: Path, size: int,
-                    make_ingest: Callable[[str], Any], tracker: _Tracker) -> Iterator[Item]:
+def _recording_lists(index: int, path: Path, size: int,
+                     make_ingest: Callable[[str], Any], tracker: _Tracker) -> Iterator[Iterable[Item]]:
     from daemon.outlets.recorder import iter_raw  # only when a recording is replayed
 
     ingests: dict[str, Any] = {}
@@ -174,18 +176,19 @@ def _iter_recording(index: int, path: Path, size: int,
         for n, line in enumerate(iter_raw(path), start=1):
             crew = REPLAYERS.get(line.source)
             if crew is not None:  # the crew's swell report or acknowledgement: JSON, not NMEA (daemon.intake.crew)
-                yield from crew(line)
+                yield crew(line)
                 continue
             ingest = ingests.get(line.source)
             if ingest is None:
                 ingest = ingests[line.source] = make_ingest(line.source)
-            yield from ingest.feed_timed_line(line.text, line.t_s, line.recv_utc)
+            yield ingest.feed_timed_line(line.text, line.t_s, line.recv_utc)
             if n_total and n % step == 0:
                 tracker.set(index, min(size, size * n // n_total))
     except sqlite3.DatabaseError as e:
         raise InputError(f"replay file {path} is not a readable recording: {e}") from None
     for ingest in ingests.values():
-        yield from ingest.flush()
+        yield ingest.flush()
+    tracker.set(index, size)
 
 
 def _recorded_line_count(path: Path) -> int:
