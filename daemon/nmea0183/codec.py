@@ -47,7 +47,7 @@ from functools import lru_cache, reduce
 from operator import xor
 from typing import Any
 
-# Plausible ranges: one table for the parser and the estimators.
+# Plausible ranges: one table for the parser and the estimators. Each is checked as lo <= x <= hi, False for NaN.
 from estimators.limits import (
     AIR_TEMP_C, ATTITUDE_MAX_DEG, DATA_TIME_S, DEPTH_MAX_M, HDOP_MAX, LAT_MAX_DEG, LON_MAX_DEG,
     PRESSURE_HPA, SEA_TEMP_C, SOG_MAX_KN, STW_MAX_KN, VARIATION_MAX_DEG, WIND_MAX_KN,
@@ -408,16 +408,12 @@ def num(s: str) -> float | None:
         raise Unparseable(s) from None
 
 
-def _in(x: float, lo: float, hi: float) -> bool:
-    return lo <= x <= hi  # False for NaN
-
-
 def direction(s: str) -> float | None | bool:
     """A direction 0..360 (360 taken as 0); None when empty; False when implausible."""
     x = num(s)
     if x is None:
         return None
-    if not _in(x, 0.0, 360.0):
+    if not 0.0 <= x <= 360.0:
         return False
     return 0.0 if x == 360.0 else x
 
@@ -455,7 +451,7 @@ def time_of_day(s: str) -> float | None:
     h, m = int(s[0:2]), int(s[2:4])
     sec = num(s[4:])
     assert sec is not None
-    if h > 23 or m > 59 or not _in(sec, 0.0, 60.999):  # 60: a leap second
+    if h > 23 or m > 59 or not 0.0 <= sec <= 60.999:  # 60: a leap second
         raise Unparseable(s)
     return h * 3600.0 + m * 60.0 + sec
 
@@ -490,13 +486,14 @@ def _east(value: float | None, hemi: str) -> float | None:
     raise Unparseable(hemi)
 
 
-def _fix(ex: Extract, lat: float | None, lon: float | None, **extra: float | None) -> None:
+def _fix(ex: Extract, lat: float | None, lon: float | None, sog: float | None = None, cog: float | None = None,
+         hdop: float | None = None) -> None:
     if lat is None or lon is None:
         return
-    if not (_in(lat, -LAT_MAX_DEG, LAT_MAX_DEG) and _in(lon, -LON_MAX_DEG, LON_MAX_DEG)):
+    if not (-LAT_MAX_DEG <= lat <= LAT_MAX_DEG and -LON_MAX_DEG <= lon <= LON_MAX_DEG):
         ex.drop()
         return
-    ex.add(Fix, lat, lon, extra.get("sog"), extra.get("cog"), extra.get("hdop"))
+    ex.add(Fix, lat, lon, sog, cog, hdop)
 
 
 def _sog(x: float | None) -> float | None | bool:
@@ -530,7 +527,7 @@ def ext_rmc(f: list[str]) -> Extract:
     var = _east(num(var_text), var_hemi) if var_text and var_hemi in ("E", "W") else None
     ex.tod_s, ex.day = tod, day
     if var is not None:
-        if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
+        if -VARIATION_MAX_DEG <= var <= VARIATION_MAX_DEG:
             ex.values.append(Variation(var))
         else:
             ex.drop()
@@ -556,7 +553,7 @@ def ext_gga(f: list[str]) -> Extract:
     lon = latlon(f[_GGA.lon], f[_GGA.lon_hemi], False)
     hdop = num(f[_GGA.hdop])
     ex.tod_s = tod
-    if hdop is not None and not _in(hdop, 0.0, HDOP_MAX):
+    if hdop is not None and not 0.0 <= hdop <= HDOP_MAX:
         hdop = None  # 99.9 and the like mean "unknown", not a bad fix
     _fix(ex, lat, lon, hdop=hdop)
     return ex
@@ -660,11 +657,11 @@ def ext_hdg(f: list[str]) -> Extract:
     dev = _east(num(dev_text), f[_HDG.deviation_hemi]) if dev_text else None
     var = _east(num(var_text), f[_HDG.variation_hemi]) if var_text else None
     if var is not None:
-        if _in(var, -VARIATION_MAX_DEG, VARIATION_MAX_DEG):
+        if -VARIATION_MAX_DEG <= var <= VARIATION_MAX_DEG:
             ex.values.append(Variation(var))
         else:
             ex.drop()
-    if deg is False or (dev is not None and not _in(dev, -VARIATION_MAX_DEG, VARIATION_MAX_DEG)):
+    if deg is False or (dev is not None and not -VARIATION_MAX_DEG <= dev <= VARIATION_MAX_DEG):
         ex.drop()
     elif deg is not None:
         ex.values.append(SensorHeading(deg, dev))
@@ -706,7 +703,7 @@ def ext_vbw(f: list[str]) -> Extract:
 def _temp(ex: Extract, value: float | None, cls: type, lo_hi: tuple[float, float]) -> None:
     if value is None:
         return
-    if _in(value, *lo_hi):
+    if lo_hi[0] <= value <= lo_hi[1]:
         ex.add(cls, value)
     else:
         ex.drop()
@@ -715,7 +712,7 @@ def _temp(ex: Extract, value: float | None, cls: type, lo_hi: tuple[float, float
 def _pressure(ex: Extract, hpa: float | None) -> None:
     if hpa is None:
         return
-    if _in(hpa, *PRESSURE_HPA):
+    if PRESSURE_HPA[0] <= hpa <= PRESSURE_HPA[1]:
         ex.add(Pressure, hpa)
     else:
         ex.drop()
@@ -779,7 +776,7 @@ def ext_xdr(f: list[str]) -> Extract:
             is_roll, is_pitch = any(w in name for w in _ROLL_NAMES), any(w in name for w in _PITCH_NAMES)
             if not (is_roll or is_pitch):
                 continue
-            if not _in(value, -ATTITUDE_MAX_DEG, ATTITUDE_MAX_DEG):
+            if not -ATTITUDE_MAX_DEG <= value <= ATTITUDE_MAX_DEG:
                 ex.drop()
             elif is_roll:
                 heel = value
@@ -804,7 +801,7 @@ def ext_mwv(f: list[str]) -> Extract:
     if factor is None or ref not in ("R", "T"):
         raise Unparseable(",".join(f[:4]))
     kn = speed * factor
-    if f[_MWV.status] != "A" or angle is False or not _in(kn, 0.0, WIND_MAX_KN):
+    if f[_MWV.status] != "A" or angle is False or not 0.0 <= kn <= WIND_MAX_KN:
         ex.drop()
         return ex
     if ref == "R":
@@ -823,7 +820,7 @@ def ext_mwd(f: list[str]) -> Extract:
     speed = kn if kn is not None else (mps * MPS_TO_KN if mps is not None else None)
     if speed is None or (true is None and mag is None):
         return ex
-    if true is False or mag is False or not _in(speed, 0.0, WIND_MAX_KN):
+    if true is False or mag is False or not 0.0 <= speed <= WIND_MAX_KN:
         ex.drop()
     elif true is not None:
         ex.add(WaterWind, speed, true, None)
@@ -835,7 +832,7 @@ def ext_mwd(f: list[str]) -> Extract:
 def _depth(ex: Extract, metres: float | None) -> None:
     if metres is None:
         return
-    if _in(metres, 0.0, DEPTH_MAX_M):
+    if 0.0 <= metres <= DEPTH_MAX_M:
         ex.add(Depth, metres)
     else:
         ex.drop()
