@@ -20,7 +20,7 @@ from daemon.errors import ConfigError
 from daemon.intake.counters import Counters
 from daemon.intake.framer import LineFramer
 from daemon.intake.timing import GnssDate, ReplayClock
-from daemon.nmea0183.codec import EXTRACTORS, extract, parse_line, split_tag
+from daemon.nmea0183.codec import EXTRACTORS, extract, open_line, parse_line, read_sentence, split_tag
 from estimators.limits import DATA_TIME_S
 from tests.shared import REPO, shared_path
 from tools.fuzz.feed import run_ingest, seed_lines
@@ -72,6 +72,29 @@ def test_a_mutated_sentence_is_sorted_into_one_counter_and_values_stay_in_range(
                     assert math.isfinite(x)  # NaN and infinity never pass the plausibility table
         if ex.tod_s is not None:
             assert 0.0 <= ex.tod_s < 86401.0
+
+
+def _values(ex):
+    return None if ex is None else (repr(ex.values), ex.implausible, ex.tod_s, ex.day)
+
+
+@FUZZ
+@given(st.integers(0, 2**32 - 1))
+def test_a_sentence_read_in_one_step_reads_as_parse_line_and_extract(seed):
+    # GIVEN mutated lines; WHEN read as the Ingest reads them (open_line, then read_sentence, which it keeps)
+    # THEN status, key, TAG time and values are parse_line's and extract's
+    rng = random.Random(seed)
+    for _ in range(50):
+        text, allow = mutate(rng, rng.choice(seeds())), rng.random() < 0.5
+        line = parse_line(text, allow_no_checksum=allow)
+        status, key, tag_time, _source, sentence = open_line(text)
+        if status == "ok":
+            status, key, ex = read_sentence(sentence, allow)
+        else:
+            ex = None
+        assert (status, key) == (line.status, line.key)
+        assert tag_time == line.tag_time or line.status != "ok"
+        assert _values(ex) == _values(extract(line.key, line.fields) if line.status == "ok" else None)
 
 
 @FUZZ

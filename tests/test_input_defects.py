@@ -14,7 +14,7 @@ import pytest
 from daemon.core.pipeline import Pipeline
 from daemon.core.readings import RawLine, Reading
 from daemon.intake.counters import OTHER_SENTENCES, Counters
-from daemon.intake.ingest import Ingest
+from daemon.intake.ingest import SENTENCES_KEPT, Ingest
 from daemon.nmea0183 import codec
 from daemon.nmea0183.codec import checksum_hex, parse_line, parse_tag_block
 from estimators.limits import DATA_TIME_S
@@ -181,3 +181,40 @@ def test_made_up_proprietary_addresses_are_bounded_too():
     assert len(snap["sentences"]) <= Counters.MAX_OTHER_TYPES + 1
     assert snap["totals"]["proprietary"] == 500
     assert math.isclose(sum(r["proprietary"] for r in snap["sentences"].values()), 500)
+
+
+# --- 5. a sentence's reading is kept for its repeats: each repeat still counts, and what is kept is bounded ---
+
+def test_a_repeated_sentence_counts_every_time_it_comes():
+    # GIVEN an implausible temperature (dropped and counted) and a good one, each sent ten times
+    lines = [sentence("IIMTW,99.0,C"), sentence(MTW)] * 10
+    # WHEN replayed: every repeat is read from what the Ingest kept of the first
+    out, counters, ing = run_lines(lines)
+    # THEN each repeat counts as the first did and each good one gives its reading
+    assert counters.get("src", "MTW", "implausible") == 10
+    assert counters.get("src", "MTW", "good") == 20
+    assert sum(isinstance(x, Reading) for x in out) == 10
+    assert ing._read_sentence.cache_info().hits == 18
+
+
+def test_the_readings_kept_are_bounded():
+    # GIVEN more distinct sentences than an Ingest keeps the readings of
+    lines = [sentence(f"IIMTW,{10 + i / 100:.2f},C") for i in range(SENTENCES_KEPT + 100)]
+    # WHEN replayed THEN each is read and counted, and no more than SENTENCES_KEPT are kept
+    _, counters, ing = run_lines(lines)
+    assert counters.get("src", "MTW", "good") == len(lines)
+    assert ing._read_sentence.cache_info().currsize == SENTENCES_KEPT
+
+
+def test_a_line_whose_extractor_fails_keeps_its_tag_time(monkeypatch):
+    # GIVEN an extractor with a bug, between tagged lines one second apart
+    def broken(fields):
+        raise ZeroDivisionError("a bug in a parser")
+
+    monkeypatch.setitem(codec.EXTRACTORS, "MTW", broken)
+    lines = [tagged(T0 + i, body) for i, body in enumerate(("APHDT,10.0,T", MTW, "APHDT,11.0,T"))]
+    # WHEN replayed THEN the broken line is unparseable under its own type and keeps its TAG time
+    out, counters, _ = run_lines(lines)
+    assert counters.get("src", "MTW", "unparseable") == 1
+    assert [(x.sentence, x.t_s) for x in out if isinstance(x, RawLine)] == [
+        ("HDT", T0), ("MTW", T0 + 1), ("HDT", T0 + 2)]

@@ -414,3 +414,20 @@ def test_real_receiver_quirks_from_the_gpsd_corpus():
     # blumax-gps009: a proprietary text with spaces in its "address" is still proprietary
     line = parse_line("$PSRFTXTBaud rate: 57600 *51")
     assert (line.status, line.key) == ("proprietary", "PSRF")
+
+
+def test_fields_a_talker_leaves_off_read_as_empty_ones():
+    # A talker may stop after its last field with data (older layouts, an instrument that does not
+    # measure the rest; common practice in real devices): what is left off reads as empty fields
+    for key, fields in (("RMC", "040000.00,A,4112.00131,N,03229.99806,W,5.61,141.7,040526,9.5,W,A"),
+                        ("GGA", "040000.00,4112.00131,N,03229.99806,W,1,09,0.9,2.5,M,,M,,"),
+                        ("HDG", "147.6,1.5,E,9.5,W"), ("MWV", "285.4,R,14.0,N,A"),
+                        ("MDA", "30.0349,I,1.0171,B,14.0,C,15.1,C"), ("DBT", "261.0,f,79.5,M,43.5,F")):
+        full = fields.split(",")
+        for n in range(len(full) + 1):
+            short = extract(key, full[:n])
+            padded = extract(key, full[:n] + [""] * (len(full) - n))
+            assert (short is None) == (padded is None), (key, n)
+            if short is not None:
+                assert (repr(short.values), short.implausible, short.tod_s) == (
+                    repr(padded.values), padded.implausible, padded.tod_s), (key, n)
