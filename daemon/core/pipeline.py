@@ -93,7 +93,9 @@ class Pipeline:
         if now_s is None or not t_s <= now_s:  # as for a line, above
             self._advance(t_s)
         self._last_seen[KIND_NAMES[type(sample)]] = t_s  # kind_of, without the call
-        self._handle(self.runner.step(sample))
+        outputs = self.runner.step(sample)
+        if outputs:  # most samples make none: no _handle call for them
+            self._handle(outputs)
 
     def feed_all(self, items: Iterable[RawLine | Reading]) -> None:
         for item in items:
