@@ -175,19 +175,20 @@ def tag_block(t_s: float, source: str) -> str:
 
 
 def _check_star(text: str, start: int, allow_no_checksum: bool) -> tuple[str, int]:
-    """(status, end of body) for the text from ``start`` (after the start char)."""
-    star = text.rfind("*", start)
-    if star < 0:
+    """(status, end of body) for the text from ``start`` (after the start char, which is never a star)."""
+    body, star, digits = text.rpartition("*")  # one call where a search and two slices were three
+    if not star:
         return ("ok" if allow_no_checksum else "no_checksum"), len(text)
-    if len(text) - star != 3:  # two hex digits after the star, nothing more
-        return "bad_checksum", star
+    end = len(body)
+    if len(digits) != 2:  # two hex digits after the star, nothing more
+        return "bad_checksum", end
     try:
-        want = int(text[star + 1:], 16)
+        want = int(digits, 16)
     except ValueError:
-        return "bad_checksum", star
-    if reduce(xor, text[start:star].encode("ascii", "replace"), 0) != want:  # non-ASCII: never equal
-        return "bad_checksum", star
-    return "ok", star
+        return "bad_checksum", end
+    if reduce(xor, body[start:].encode("ascii", "replace"), 0) != want:  # non-ASCII: never equal
+        return "bad_checksum", end
+    return "ok", end
 
 
 @lru_cache(maxsize=64)  # the lines of one second share a TAG block: each is read once
@@ -233,15 +234,15 @@ def split_tag(text: str) -> tuple[str, float | None, str | None, str]:
     A line with no TAG block is ``("ok", None, None, text)``; one whose TAG block
     fails gives that block's status and the whole line.
     """
-    if not text.startswith("\\"):
+    if text[:1] != "\\":
         return "ok", None, None, text
-    close = text.find("\\", 1)
-    if close < 0:
+    parts = text.split("\\", 2)  # "", the block, what follows: one call where a find and two slices were three
+    if len(parts) < 3:
         return "unparseable", None, None, text
-    status, tag_time, tag_source = parse_tag_block(text[1:close])
+    status, tag_time, tag_source = parse_tag_block(parts[1])
     if status != "ok":
         return status, None, None, text
-    return "ok", tag_time, tag_source, text[close + 1:]
+    return "ok", tag_time, tag_source, parts[2]
 
 
 def open_line(text: str) -> tuple[str, str, float | None, str | None, str]:
