@@ -63,9 +63,9 @@ log = logging.getLogger(__name__)
 HEADING_SENSORS = ("auto", "magnetic", "true")
 HEADING_FOR_WIND_MAX_AGE_S = 10.0
 # Sentences whose reading an Ingest keeps (the latest distinct ones). A steady heading, depth or temperature
-# sends the same sentence word for word again and again: of the real captures' lines 59-71 % repeat one of
-# the 256 sentences before them, of the demo's first hour 38 % (49 % within 1 024). A repeat costs a lookup,
-# not its checksum, fields and values; each kept one is a few hundred bytes.
+# sends the same sentence word for word again and again: of the real captures' lines 64-72 % repeat one of
+# the latest 1 024 distinct sentences, of the demo's first hour 49 %. A repeat costs a lookup, not its checksum,
+# fields and values; each kept one is about 500 bytes.
 SENTENCES_KEPT = 1024
 
 Item = RawLine | Reading
