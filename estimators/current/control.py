@@ -105,6 +105,18 @@ class Control:
         and a low-pass restarted at the slowest moment lagged it by half a knot,
         just when the first fixes on the new heading tell k and d from the current
         (a beat: the current's sigma halved at once while it stayed 0.4 kn off).
+
+        Why longer still on a steady course: that difference of two large terms
+        (the Schmidt consider gain, P_c,kd following -H_kd P_kd only at the
+        filter's own pace) amplifies any wander of the Jacobian. A 120-s mean
+        of the log still wanders about 0.5 % with its noise (the straight leg of the
+        current bench), which moved the along-track gain by 12 % (sd), in step
+        with the along-track error (correlation +0.14 to +0.18): a gain-weighted
+        mean 0.0017 kn above the triangle's, the same sign on every seed. So
+        the memory grows with the time since the low-pass (re)started, from
+        ``jacobian_smoothing_s`` to ``jacobian_steady_s`` (a running mean at
+        first, then an EMA), and an outage does not end it (a gap counts as one
+        interval: a course or speed changed across it is a manoeuvre).
         """
         p = self.params
         he, hn = to_east_north(1.0, w.heading_deg)
