@@ -290,3 +290,24 @@ def test_a_calibration_step_holds_valid_back_while_the_current_settles():
     assert any("relearnt" in q.payload["quality_reason"] for q in settling)
     # ... and 'valid' is said again once it has passed (the step does not hold the quality back for good)
     assert pubs[-1].payload["quality"] == "valid"
+
+
+def test_the_jacobians_low_pass_keeps_its_memory_across_an_outage():
+    # GIVEN 20 min of one steady course whose log reads 5.4 and 5.6 kn in turn (mean 5.5), then no fix for
+    # 30 min, then a reading of 5.8 kn (within the log's noise: no manoeuvre)
+    from estimators.current.model import WaterInputs
+    est = CurrentEstimator(CurrentParams())
+
+    def jacobian_speed(t, speed):
+        w = WaterInputs(speed_kn=speed, heading_deg=140.0, heel_deg=None)
+        est._slow_inputs(t, w)
+        return w.slow_speed_kn
+
+    for i in range(1200):
+        jacobian_speed(T0 + i, 5.4 if i % 2 else 5.6)
+    # WHEN the fixes come back
+    after = [jacobian_speed(T0 + 1200 + 1800 + i, 5.8) for i in range(2)]
+    # THEN the Jacobian's speed is still the mean before the gap: one reading is not the boat's speed
+    # (a low-pass restarted from it, as before, held its noise: 5.8 here), and the next moves by a step's share
+    assert after[0] == pytest.approx(5.5, abs=0.01)
+    assert after[1] == pytest.approx(5.5, abs=0.01)

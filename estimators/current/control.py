@@ -105,16 +105,33 @@ class Control:
         and a low-pass restarted at the slowest moment lagged it by half a knot,
         just when the first fixes on the new heading tell k and d from the current
         (a beat: the current's sigma halved at once while it stayed 0.4 kn off).
+
+        Why longer still on a steady course: that difference of two large terms
+        (the Schmidt consider gain, P_c,kd following -H_kd P_kd only at the
+        filter's own pace) amplifies any wander of the Jacobian. A 120-s mean
+        of the log still wanders about 0.5 % with its noise (the straight leg of the
+        current bench), which moved the along-track gain by 12 % (sd), in step
+        with the along-track error (correlation +0.14 to +0.18): a gain-weighted
+        mean 0.0017 kn above the triangle's, the same sign on every seed. So
+        the memory grows with the time since the low-pass (re)started, from
+        ``jacobian_smoothing_s`` to ``jacobian_steady_s`` (a running mean at
+        first, then an EMA), and an outage does not end it (a gap counts as one
+        interval: a course or speed changed across it is a manoeuvre).
         """
         p = self.params
         he, hn = to_east_north(1.0, w.heading_deg)
         now = (w.speed_kn, he, hn)
         dt = math.inf if self._slow is None else t - self._slow[0]
-        if self._slow is None or dt > 10.0 * max(p.jacobian_smoothing_s, 1.0):
+        if self._slow is None or dt > 10.0 * max(p.jacobian_steady_s, p.jacobian_smoothing_s, 1.0):
             self._slow = (t, *now)
             self._fast = (t, *now)
+            self._settled_from = t                                                 # the low-pass starts here
         fast = _ema(self._fast, now, dt, 3.0)                                      # EMA, 3 s
-        slow = _ema(self._slow, now, dt, p.jacobian_smoothing_s)                   # EMA, jacobian_smoothing_s
+        # the low-pass's memory: the readings since it (re)started, at least jacobian_smoothing_s, at most
+        # jacobian_steady_s; a gap in the fixes (an outage) is no reason to forget the readings before it (a
+        # change across it is a manoeuvre, below), so it counts as one interval of at most stale_s
+        memory = min(p.jacobian_steady_s, max(p.jacobian_smoothing_s, t - self._settled_from))
+        slow = _ema(self._slow, now, min(dt, p.stale_s), memory)                   # EMA over that memory
         fast_heading = from_east_north(fast[1], fast[2])[1]
         if 0.0 < dt <= 5.0:  # rates of the 3-s EMA: a turn or a speed change, not the readings' noise
             w.turn_rate_deg_s = wrap_180(fast_heading - from_east_north(self._fast[2], self._fast[3])[1]) / dt

@@ -116,6 +116,9 @@ class CurrentParams:
         "sigma, the current is 'converging' this long while the fixes bring it to the new calibration")
     jacobian_smoothing_s: float = param(
         120.0, "s", 0.0, 600.0, "time constant of the low-passed log speed and heading used in the Jacobian")
+    jacobian_steady_s: float = param(
+        600.0, "s", 0.0, 3600.0, "on a steady course that low-pass's memory grows from jacobian_smoothing_s to this "
+        "(the readings since the last manoeuvre): the current's gain steadies with it")
     manoeuvre_heading_deg: float = param(8.0, "deg", 0.5, 90.0, "a heading change beyond this is a manoeuvre (Jacobian follows)")
     manoeuvre_speed_kn: float = param(0.5, "kn", 0.05, 10.0, "a log speed change beyond this is a manoeuvre")
     stale_s: float = param(5.0, "s", 0.5, 600.0, "an input older than this makes the estimate degraded")
