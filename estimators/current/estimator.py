@@ -76,6 +76,9 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.consecutive_rejects = 0
         self.last_report: FusionReport | None = None
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
+        # False where nobody reads the publication (the smoother): the water's walk, read once a minute for the
+        # published sigma only, is not read; x, P and every decision are the same without it
+        self.publishes = True
         self._seen: dict[str, float] = {}
         self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
         self._gate = chi2_quantile(self.params.gate_probability, 2)  # chi-square, 2 dof
@@ -278,7 +281,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             ekf.P_pub = joseph_with_gain_rows(ekf.P_pub.tolist(), up.gain, h0, h1,
                                               [[r00 * scale, r01 * scale], [r10 * scale, r11 * scale]])
             ekf.lag = lag_updated(ekf.lag, up.gain)                          # H's current columns are I
-            if not w.turning:
+            if self.publishes and not w.turning:
                 self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0][0], R[1][1],
                                     float(up.x[IK, 0]), float(up.x[ID, 0]))
         return self._report(t, (y0, y1), nis, up, x_prior, P_prior)
