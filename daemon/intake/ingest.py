@@ -139,7 +139,7 @@ class Ingest:
         self._read_sentence = lru_cache(maxsize=SENTENCES_KEPT)(
             lambda sentence: read_sentence(sentence, allow_no_checksum))
         self._to_sample = {
-            Measured: self._measured, LabelledHeading: self._labelled_heading,
+            Measured: self._measured_fix, LabelledHeading: self._labelled_heading,
             SensorHeading: self._sensor_heading, Variation: self._sentence_variation,
             WindOffBow: self._wind_off_bow, WindFromMagnetic: self._wind_from_magnetic,
         }
@@ -250,9 +250,9 @@ class Ingest:
         gnss = item.gnss_utc
         for v in ex.values:
             try:
-                if type(v) is Measured and v.kind is not Fix:  # most values: _measured's first case, without the call
+                if type(v) is Measured and v.kind is not Fix:  # most values: taken as they are, without a call
                     sample = v.kind(t, *v.args)
-                else:
+                else:  # a fix, a heading, a variation, a wind: each its own handling
                     sample = self._to_sample[type(v)](v, t, key, counts, gnss)
             except Exception as exc:  # as in _parse: one value is never fatal
                 self._note_parser_fault(exc)
@@ -266,9 +266,8 @@ class Ingest:
 
     # --- each kind of value to a sample at its data time ---------------------------------------
 
-    def _measured(self, v: Measured, t: float, key: str, counts: list, gnss: float | None) -> Sample:
-        if v.kind is not Fix:
-            return v.kind(t, *v.args)
+    def _measured_fix(self, v: Measured, t: float, key: str, counts: list, gnss: float | None) -> Sample:
+        """A fix (``_emit`` makes every other measured value as it is)."""
         sample = Fix(t, *v.args, gnss_time_s=gnss)  # its receiver's own time: a receiver clock that stops shows
         self.variation.note_position(sample.lat_deg, sample.lon_deg, t)
         return sample
