@@ -151,12 +151,10 @@ class PrioritySelector:
     def _compare_fixes(self, source: str, fix: Fix, followed: str) -> None:
         """Measure the followed receiver against every other fresh one (geodesic distance, WGS84)."""
         self._fixes[source] = fix
-        if len(self._fixes) < 2:  # one receiver (the common case): nothing to compare with, as below
-            self._apart_since, self._apart = None, None
-            return
         ours = self._fixes.get(followed)
+        # one receiver (the common case) has nothing to compare with: no comprehension for its every fix
         fresh = {other: theirs for other, theirs in self._fixes.items()
-                 if self._now - theirs.t_s <= self.stale_after_s("fix")}
+                 if self._now - theirs.t_s <= self.stale_after_s("fix")} if len(self._fixes) > 1 else {}
         if followed not in fresh or len(fresh) < 2:
             self._apart_since, self._apart = None, None  # nothing left to compare with
             return
