@@ -14,6 +14,7 @@ import pytest
 from daemon.core.pipeline import Pipeline
 from daemon.core.readings import RawLine, Reading
 from daemon.intake.counters import OTHER_SENTENCES, Counters
+from daemon.intake.framer import MAX_LINE
 from daemon.intake.ingest import SENTENCES_KEPT, Ingest
 from daemon.nmea0183 import codec
 from daemon.nmea0183.codec import checksum_hex, parse_line, parse_tag_block
@@ -218,3 +219,15 @@ def test_a_line_whose_extractor_fails_keeps_its_tag_time(monkeypatch):
     assert counters.get("src", "MTW", "unparseable") == 1
     assert [(x.sentence, x.t_s) for x in out if isinstance(x, RawLine)] == [
         ("HDT", T0), ("MTW", T0 + 1), ("HDT", T0 + 2)]
+
+
+def test_an_overlong_recorded_line_is_read_but_not_kept():
+    # GIVEN a foreign recording's line far longer than any framed line (the framer drops those live)
+    ing = Ingest("src", counters=Counters(), variation=StandInVariation(), live=False)
+    long_line = sentence("IIMTW,16.5,C" + "," * (4 * MAX_LINE))
+    # WHEN it comes twice, as a recording's line comes
+    for _ in range(2):
+        out = ing.feed_timed_line(long_line, T0, T0)
+    # THEN it is read and counted each time, and nothing of it is kept: what is kept stays bounded in bytes
+    assert [x.counts for x in out if isinstance(x, RawLine)] == [(("good", 1),)]
+    assert ing._read_sentence.cache_info().currsize == 0

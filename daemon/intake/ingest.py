@@ -48,7 +48,7 @@ from typing import Protocol
 
 from daemon.intake.counters import Counters
 from daemon.errors import ConfigError
-from daemon.intake.framer import LineFramer
+from daemon.intake.framer import MAX_LINE, LineFramer
 from daemon.nmea0183.codec import (
     Extract, LabelledHeading, Measured, SensorHeading, ValuesFault, Variation, WindFromMagnetic, WindOffBow,
     open_line, read_sentence,
@@ -187,7 +187,12 @@ class Ingest:
             ex: Extract | None = None
             if status == "ok":
                 try:
-                    status, key, ex = self._read_sentence(sentence)
+                    # a framed line is at most MAX_LINE long; a line of a foreign recording may be any length,
+                    # and is read without being kept (what is kept stays bounded in bytes, not only in count)
+                    if len(sentence) <= MAX_LINE:
+                        status, key, ex = self._read_sentence(sentence)
+                    else:
+                        status, key, ex = read_sentence(sentence, self.allow_no_checksum)
                 except ValuesFault as fault:  # an extractor's bug: the line's key is known, its values are not
                     self._note_parser_fault(fault.__cause__)
                     key = fault.key
