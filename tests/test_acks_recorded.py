@@ -14,7 +14,9 @@ from daemon.core.config import load_config
 from daemon.core.readings import Acknowledgement, RawLine
 from daemon.intake.acks import ACK_SOURCE, ack_items, replayed, valid_alert_id
 from daemon.intake.replayfiles import item_time, iter_replay
-from daemon.outlets.recorder import Recorder, export_tag_nmea, iter_raw
+from daemon.outlets.recording.reading import iter_raw
+from daemon.outlets.recording.recorder import Recorder
+from daemon.outlets.recording.tag_nmea import export_tag_nmea
 from tests.helpers import Keep
 
 

@@ -22,7 +22,7 @@ import pytest
 
 from daemon.core.config import load_config
 from daemon.outlets.jsonl import encode_line
-from daemon.outlets.recorder import export_tag_nmea, parse_tag_line
+from daemon.outlets.recording.tag_nmea import export_tag_nmea, parse_tag_line
 from daemon.commands.replay import run_replay
 from tools.simulator import scenarios, simulate
 from tools.simulator.nmea_writer import WriterOptions, write_nmea

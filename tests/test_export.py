@@ -25,7 +25,7 @@ import pytest
 from daemon.core.config import load_config
 from daemon.outlets.export import COLUMN_NAMES, LOGBOOK_COLUMNS, logbook_paths, parse_every
 from daemon.outlets.passage import iter_passage
-from daemon.outlets.recorder import iter_messages
+from daemon.outlets.recording.reading import iter_messages
 from daemon.errors import ConfigError
 from tests.shared import REPO
 
@@ -177,7 +177,7 @@ def test_every_takes_units_and_names_the_fix_when_wrong():
 
 def test_a_thinned_read_decodes_the_same_messages_it_keeps(passage, messages):
     from daemon.outlets.passage import Thinner
-    from daemon.outlets.recorder import iter_message_blocks
+    from daemon.outlets.recording.reading import iter_message_blocks
 
     kept = [m for block in iter_message_blocks(passage["db"], Thinner(every_s=300.0, status_every_s=60.0))
             for m in block]

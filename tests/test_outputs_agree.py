@@ -2,7 +2,7 @@
 
 interface.md: the JSONL holds every message a replay publishes, in order, one
 ``{"t": ..., "topic": ..., "payload": {...}}`` a line; MQTT sends the payload
-as compact UTF-8 JSON; the recording (schema in daemon/outlets/recorder.py)
+as compact UTF-8 JSON; the recording (schema in daemon/outlets/recording/)
 keeps each payload as compact ASCII JSON inside its block's row. The three are
 made from one encoding of each payload (``Message.payload_json``); here they
 are compared as bytes on a real capture (recording, MQTT outbox, JSONL) and on
@@ -33,7 +33,7 @@ from daemon.core.payloads import ascii_json, encode_json
 from daemon.core.readings import Message
 from daemon.outlets.mqtt import MqttSink
 from daemon.outlets.outbox import Outbox
-from daemon.outlets.recorder import iter_messages
+from daemon.outlets.recording.reading import iter_messages
 from tests.helpers import free_port
 from tests.shared import REPO, shared_path
 

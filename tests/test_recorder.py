@@ -13,12 +13,15 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from daemon.outlets import recorder
+from daemon.outlets.recording import reading, schema
 from daemon.nmea0183 import codec
 from daemon.errors import InputError
 from daemon.core.readings import Message, RawLine
-from daemon.outlets.recorder import (Recorder, RecordingParams, RecordingPolicy, RecordingWriter, export_tag_nmea,
-                             iter_messages, iter_raw, read_meta, read_tag_nmea, recording_name)
+from daemon.outlets.recording.files import RecordingParams, RecordingPolicy, recording_name
+from daemon.outlets.recording.reading import iter_messages, iter_raw, read_meta
+from daemon.outlets.recording.recorder import Recorder
+from daemon.outlets.recording.tag_nmea import export_tag_nmea, parse_tag_line, read_tag_nmea
+from daemon.outlets.recording.writer import RecordingWriter
 from estimators.params import check
 from tests.helpers import nmea_checksum
 
@@ -144,8 +147,8 @@ def test_a_lazy_and_thinned_read_gives_what_the_full_read_gives(tmp_path_factory
         return not topic.endswith("/status")
 
     # WHEN read lazily, and lazily and thinned
-    lazy = [m for block in recorder.iter_message_blocks(path, lazy=True) for m in block]
-    thin = [m for block in recorder.iter_message_blocks(path, not_status, lazy=True) for m in block]
+    lazy = [m for block in reading.iter_message_blocks(path, lazy=True) for m in block]
+    thin = [m for block in reading.iter_message_blocks(path, not_status, lazy=True) for m in block]
     # THEN the same messages come back, times bit for bit and payloads in their order
     assert lazy == full
     assert [list(m.payload.items()) for m in lazy] == [list(m.payload.items()) for m in full]
@@ -167,11 +170,11 @@ def test_an_alert_payload_with_odd_types_is_recorded_whole(tmp_path):
 
 
 def test_a_lazy_payload_that_cannot_be_decoded_is_an_input_error_when_read():
-    payload = recorder.LazyPayload('{"lat": 41.2, "lon": ')  # cut off
+    payload = reading.LazyPayload('{"lat": 41.2, "lon": ')  # cut off
     with pytest.raises(InputError, match="cannot be decoded"):
         payload.get("lat")
     with pytest.raises(InputError, match="not a JSON object"):
-        recorder.LazyPayload("[1, 2]")["lat"]
+        reading.LazyPayload("[1, 2]")["lat"]
 
 
 def test_effective_config_and_schema_version_in_meta(tmp_path):
@@ -180,7 +183,7 @@ def test_effective_config_and_schema_version_in_meta(tmp_path):
     rec.record_config({"current": {"q_current": 0.01}, "recording": {"per": "day"}})
     rec.close()
     meta = read_meta(path)
-    assert meta["schema_version"] == recorder.SCHEMA_VERSION == 2  # 2: the gap table (README, recording)
+    assert meta["schema_version"] == schema.SCHEMA_VERSION == 2  # 2: the gap table (README, recording)
     assert meta["config"] == {"current": {"q_current": 0.01}, "recording": {"per": "day"}}
     assert meta["software"].startswith("offwatch ")
 
@@ -207,7 +210,7 @@ def lax_sqlite(monkeypatch):
         conn.execute("PRAGMA synchronous=OFF")
         return conn
 
-    monkeypatch.setattr(recorder.sqlite3, "connect", lax_connect)
+    monkeypatch.setattr(schema.sqlite3, "connect", lax_connect)
     return real
 
 
@@ -230,11 +233,11 @@ def test_iter_raw_connection_runs_wal_and_synchronous_full(tmp_path, lax_sqlite,
     writer.add_raw(RawLine("s", T0 + 1, T0 + 1, "$B"))
     writer.close()
     opened = []
-    real_connect = recorder.connect
-    monkeypatch.setattr(recorder, "connect", lambda p: opened.append(real_connect(p)) or opened[-1])
+    real_connect = schema.connect
+    monkeypatch.setattr(reading, "connect", lambda p: opened.append(real_connect(p)) or opened[-1])
     lines = iter_raw(path)
     next(lines)  # the reading connection is open now
-    assert [recorder.connection_pragmas(c) for c in opened] == [{"journal_mode": "wal", "synchronous": 2}]
+    assert [schema.connection_pragmas(c) for c in opened] == [{"journal_mode": "wal", "synchronous": 2}]
     lines.close()
 
 
@@ -478,8 +481,8 @@ def test_export_tag_nmea_round_trips_byte_for_byte(tmp_path):
 def test_parse_tag_line_reads_seconds_and_milliseconds():
     # Interface: c: is UNIX seconds, or milliseconds when larger than 10^11.
     seconds = "\\s:r3669,c:1241544035*" + nmea_checksum("s:r3669,c:1241544035") + "\\!AIVDM,1,1,,B,x,0*00"
-    line = recorder.parse_tag_line(seconds)
+    line = parse_tag_line(seconds)
     assert (line.t_s, line.source, line.text) == (1241544035.0, "r3669", "!AIVDM,1,1,,B,x,0*00")
-    assert recorder.parse_tag_line(recorder.tag_block(T0 + 0.25, "gnss") + "$A").t_s == T0 + 0.25
+    assert parse_tag_line(codec.tag_block(T0 + 0.25, "gnss") + "$A").t_s == T0 + 0.25
     broken = "\\c:1241544035*00\\$A"  # wrong TAG checksum: not taken apart
-    assert recorder.parse_tag_line(broken).text == broken
+    assert parse_tag_line(broken).text == broken

@@ -27,14 +27,14 @@ from pathlib import Path
 
 import pytest
 
-from daemon.outlets.recorder import iter_messages, iter_raw
+from daemon.outlets.recording.reading import iter_messages, iter_raw
 
 REPO = Path(__file__).resolve().parents[1]
 
 WRITER = r"""
 import sys, time
 from daemon.core.readings import Message, RawLine
-from daemon.outlets.recorder import Recorder
+from daemon.outlets.recording.recorder import Recorder
 
 path, start = sys.argv[1], int(sys.argv[2])
 

@@ -22,8 +22,9 @@ import pytest
 
 from daemon.core.readings import Message, RawLine
 from daemon.errors import OutputError
-from daemon.outlets.recorder import (Gap, Recorder, RecordingWriter, iter_messages, iter_raw, read_meta,
-                                     recording_gaps)
+from daemon.outlets.recording.reading import Gap, iter_messages, iter_raw, read_meta, recording_gaps
+from daemon.outlets.recording.recorder import Recorder
+from daemon.outlets.recording.writer import RecordingWriter
 
 REPO = Path(__file__).resolve().parents[1]
 T0 = 1_780_000_000.0

@@ -116,7 +116,7 @@ def test_missing_or_unreadable_file_is_one_clear_input_error(tmp_path):
 
 
 def test_a_recording_replays_each_stored_source_with_its_stored_times(tmp_path):
-    from daemon.outlets.recorder import RecordingWriter
+    from daemon.outlets.recording.writer import RecordingWriter
 
     db = tmp_path / "passage-copy"  # no suffix: told by the SQLite header
     writer = RecordingWriter(db, now_utc=1000.0)

@@ -24,7 +24,7 @@ pytest.importorskip("matplotlib", reason="matplotlib (the report extra) draws th
 from geographiclib.geodesic import Geodesic  # noqa: E402
 
 from daemon.core.config import load_config  # noqa: E402
-from daemon.outlets.recorder import iter_messages  # noqa: E402
+from daemon.outlets.recording.reading import iter_messages  # noqa: E402
 from report.command import make_report  # noqa: E402
 from report.plots import PLOTS  # noqa: E402
 from tests.shared import REPO  # noqa: E402
@@ -117,7 +117,7 @@ def test_wind_against_current_gets_its_own_panel_once_sea_state_is_recorded(tmp_
     """offwatch/sea_state (interface.md) in a recording: the wind plot adds the opposing current and the
     steepness factor, and shades the wind_against_current alert; without it, the plot says so."""
     from daemon.core.readings import Message
-    from daemon.outlets.recorder import RecordingWriter
+    from daemon.outlets.recording.writer import RecordingWriter
     from report.collect import collect
     from report.plots import plot_wind
     from tools.bench.report import synthetic_messages

@@ -360,7 +360,7 @@ def test_kill9_leaves_the_last_will_and_a_sound_recording(live, tmp_path):
     recordings = sorted((live["state"] / "recordings").glob("offwatch-*.sqlite"))
     assert len(recordings) == 1
     assert integrity(recordings[0]) == "ok"
-    from daemon.outlets.recorder import iter_raw
+    from daemon.outlets.recording.reading import iter_raw
     assert sum(1 for _ in iter_raw(recordings[0])) > 20
     out = tmp_path / "killed.jsonl"
     replay = run_cli("replay", str(recordings[0]), "--jsonl", str(out))

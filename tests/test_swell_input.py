@@ -17,7 +17,9 @@ from daemon.core.readings import RawLine, Reading
 from daemon.intake.replayfiles import item_time, iter_replay
 from daemon.intake.swell import MAX_SWELL_BYTES, SWELL_SOURCE, SwellReport, parse_swell
 from daemon.outlets.mqtt import MqttSettings, MqttSink
-from daemon.outlets.recorder import Recorder, export_tag_nmea, iter_raw
+from daemon.outlets.recording.reading import iter_raw
+from daemon.outlets.recording.recorder import Recorder
+from daemon.outlets.recording.tag_nmea import export_tag_nmea
 from estimators.samples import Depth, Swell
 from estimators.sea_state import SeaStateEstimator
 from tests.helpers import Keep

@@ -31,7 +31,7 @@ def open_outputs(cfg: Config, *, jsonl: str | None, record: str | None, mqtt_url
     if jsonl:
         sinks.append(JsonlSink(jsonl))
     if record:
-        from daemon.outlets.recorder import Recorder
+        from daemon.outlets.recording.recorder import Recorder
         rec = Recorder.open_file(record)
         rec.record_config(cfg.effective())
         sinks.append(rec)

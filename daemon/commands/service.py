@@ -65,7 +65,7 @@ class Service:
         self.source_threads: list = []
 
     def _open_outputs(self, url: str) -> None:
-        from daemon.outlets.recorder import Recorder
+        from daemon.outlets.recording.recorder import Recorder
         self.recorder = Recorder.open_passage(self.cfg.section("recording"), self.state_dir / "recordings")
         self.recorder.record_config(self.cfg.effective())
         if self.cfg.section("nmea_out").enabled:

@@ -160,7 +160,7 @@ def parameter_sections() -> dict[str, type]:
     """Section name -> parameter class, for the estimators and service parts."""
     from daemon.core.alerts import AlertParams
     from daemon.outlets.nmea_tcp import NmeaOutParams
-    from daemon.outlets.recorder import RecordingParams
+    from daemon.outlets.recording.files import RecordingParams
     from estimators.current import CurrentParams
     from estimators.fronts import FrontParams
     from estimators.integrity import IntegrityParams

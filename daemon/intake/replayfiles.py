@@ -29,7 +29,8 @@ from pathlib import Path
 from typing import IO, Any
 
 from daemon.errors import InputError
-from daemon.outlets.recorder import SQLITE_MAGIC, is_recording_header
+from daemon.outlets.recording.reading import is_recording_header
+from daemon.outlets.recording.schema import SQLITE_MAGIC
 from daemon.core.readings import Acknowledgement, RawLine, Reading
 from daemon.intake.crew import REPLAYERS
 
@@ -167,7 +168,7 @@ def _read_chunk(stream: IO[bytes], path: Path) -> bytes:
 
 def _recording_lists(index: int, path: Path, size: int,
                      make_ingest: Callable[[str], Any], tracker: _Tracker) -> Iterator[Iterable[Item]]:
-    from daemon.outlets.recorder import iter_raw  # only when a recording is replayed
+    from daemon.outlets.recording.reading import iter_raw  # only when a recording is replayed
 
     ingests: dict[str, Any] = {}
     n_total = _recorded_line_count(path)

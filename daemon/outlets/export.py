@@ -481,7 +481,8 @@ def _item_time(item: Message | Reading) -> float:
 
 def export_raw_nmea(source: str, out: Path) -> int:
     """A recording's raw sentences as TAG-block NMEA text (lines with a TAG block stay as stored)."""
-    from daemon.outlets.recorder import export_tag_nmea, is_recording
+    from daemon.outlets.recording.reading import is_recording
+    from daemon.outlets.recording.tag_nmea import export_tag_nmea
 
     if not is_recording(source):
         raise InputError(f"{source} is not an offwatch recording: --format nmea exports a recording's raw sentences")

@@ -86,7 +86,7 @@ def iter_passage(source: str | Path, cfg: Config, *, progress: Progress | None =
 
 def _recorded_messages(source: Path, progress: Progress | None,
                        keep: Callable[[str, float], bool] | None, lazy: bool) -> Iterator[Message]:
-    from daemon.outlets.recorder import count_message_blocks, iter_message_blocks
+    from daemon.outlets.recording.reading import count_message_blocks, iter_message_blocks
 
     total = count_message_blocks(source)
     for done, block in enumerate(iter_message_blocks(source, keep, lazy=lazy), start=1):
@@ -110,7 +110,7 @@ def passage_span_s(source: str | Path) -> float | None:
     """A recording's length in seconds from its block index; None for a text file (not known before reading)."""
     if not is_recording_file(source):
         return None
-    from daemon.outlets.recorder import message_time_span
+    from daemon.outlets.recording.reading import message_time_span
     span = message_time_span(source)
     return None if span is None else span[1] - span[0]
 

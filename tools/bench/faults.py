@@ -78,7 +78,7 @@ def last_jsonl_time(path: Path) -> float | None:
 
 
 def bench_kills(passage: Path, cfg: Path, work: Path, kills: int, rng: random.Random) -> dict:
-    from daemon.outlets.recorder import iter_raw
+    from daemon.outlets.recording.reading import iter_raw
     sound, replayed, lost_s, no_file = 0, 0, [], 0
     for k in range(kills):
         rec, jsonl = work / f"kill{k}.sqlite", work / f"kill{k}.jsonl"

@@ -27,7 +27,7 @@ from daemon.core.config import MqttSettings
 from daemon.core.readings import Message, RawLine
 from daemon.outlets.broker import broker_answers
 from daemon.outlets.mqtt import MqttSink
-from daemon.outlets.recorder import Recorder
+from daemon.outlets.recording.recorder import Recorder
 
 T0 = 1_777_000_000.0
 

@@ -31,7 +31,9 @@ import time
 from pathlib import Path
 
 from daemon.core.readings import Message, RawLine
-from daemon.outlets.recorder import RecordingWriter, iter_raw, parse_tag_line
+from daemon.outlets.recording.reading import iter_raw
+from daemon.outlets.recording.tag_nmea import parse_tag_line
+from daemon.outlets.recording.writer import RecordingWriter
 
 REPO = Path(__file__).resolve().parents[2]
 CAPTURE_NAMES = ("under-way-94min-hdg-hdt-rmc.nmea", "sounder-survey-43min-dpt-mtw.nmea",

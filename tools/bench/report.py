@@ -29,7 +29,7 @@ from pathlib import Path
 from daemon.core.config import load_config
 from daemon.core.readings import Message
 from daemon.outlets.export import read_track, write_csv
-from daemon.outlets.recorder import RecordingWriter
+from daemon.outlets.recording.writer import RecordingWriter
 from daemon.core.payloads import iso_utc
 
 T0 = 1777867200.0  # 2026-05-04 04:00 UTC, as the invented demo passage
