@@ -39,10 +39,10 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
                   fix_gap: tuple[float, float] | None = None, log_override=None,
                   current_steps: tuple[tuple[float, tuple[float, float]], ...] = (),
                   heading_hz: int = 1, turn_speed_loss: float = 0.0,
-                  current_slope_kn_per_h: tuple[float, float] = (0.0, 0.0)) -> Synth:
+                  current_slope_kn_per_h: tuple[float, float] = (0.0, 0.0), slope_from_s: int = 0) -> Synth:
     """``legs``: (start time s from T0, true heading deg), sorted. ``log_override(t_rel, reading) -> reading``;
     ``current_steps``: (time s from T0, new (east, north)) where the current jumps; ``current_slope_kn_per_h``:
-    a steady change of the current (east, north), on top of its walk."""
+    a steady change of the current (east, north), on top of its walk, from ``slope_from_s`` s on (a ramp)."""
     rng = np.random.default_rng(seed)
     out = Synth(k=k, offset_deg=offset_deg)
     ce, cn = current_en
@@ -59,8 +59,9 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
         for ts, new in current_steps:
             if i == ts:
                 ce, cn = new
-        ce += q * rng.standard_normal() + current_slope_kn_per_h[0] / 3600.0
-        cn += q * rng.standard_normal() + current_slope_kn_per_h[1] / 3600.0
+        ramping = i > slope_from_s
+        ce += q * rng.standard_normal() + (current_slope_kn_per_h[0] / 3600.0 if ramping else 0.0)
+        cn += q * rng.standard_normal() + (current_slope_kn_per_h[1] / 3600.0 if ramping else 0.0)
         t = T0 + i
         reading = stw / k + log_sigma * rng.standard_normal()
         if log_override is not None:

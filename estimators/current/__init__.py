@@ -19,8 +19,18 @@ against that fix's own noise above its expectation less a reference value; while
 the sum is above its threshold it inflates the current's process noise step by
 step, and the inflation decays back once the sum falls (see ``control._adapt``).
 Its threshold sets how rarely it fires on steady water (about once in
-exp(0.4 h) fixes), so the steady legs keep the filter's full averaging. k and d
-walk very slowly (fouling, a compass swung again).
+exp(0.4 h) fixes), so the steady legs keep the filter's full averaging. A slow
+ramp (the first minutes of a current's edge) hardly moves each fix's NIS, so a
+mean-shift test reads the last minute's innovations as well: the generalized
+likelihood ratio for a constant bias, (sum y)' (sum S)^-1 (sum y) against
+chi-square with 2 degrees of freedom (A. S. Willsky and H. L. Jones, "A
+generalized likelihood ratio approach to the detection and estimation of jumps
+in linear systems", IEEE Trans. Automatic Control 21, 1976;
+``fusion.WindowedMeanShift``); while it alarms Q is inflated as while the sum is
+above its threshold. It is quiet for ``ramp_quiet_after_turn_s`` after a turn,
+where the calibration's error shows as a step of the apparent current that the
+calibration fit, not the current's Q, is to take. k and d walk very slowly
+(fouling, a compass swung again).
 
 Measurement (one fusion step per ground-velocity epoch, from ``Fix`` SOG/COG or
 ``GroundVelocity``)::

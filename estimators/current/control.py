@@ -287,8 +287,9 @@ class Control:
         if np.any(np.abs(step) > sigma):
             self._calibration_stepped = t
 
-    def _adapt(self, nis_fix: float, nis: float) -> None:
-        """A change of the current that Q does not describe: a CUSUM on the innovations inflates Q.
+    def _adapt(self, nis_fix: float, nis: float, ramp: bool) -> None:
+        """A change of the current that Q does not describe: a CUSUM on the innovations, or the mean-shift test
+        on them (``ramp``), inflates Q.
 
         ``nis_fix`` is the innovation against one fix's own noise (the detector),
         ``nis`` against the covariance the filter uses, which feeds the consistency
@@ -311,11 +312,17 @@ class Control:
         that a quickly decaying Q would leave behind (the demo's 0.8-nm edge: a
         second alarm and a 0.35-kn lag over the next five minutes with a decay of
         0.9 per fix). While Q is inflated the quality is 'degraded' (publication).
+
+        A slow ramp hardly moves the NIS (a lag of a third of one fix's sigma adds a tenth to it, far below
+        nu): the sum piled up only once the edge was steep and the lag large. Its
+        mean over ``ramp_window_s`` shows it much sooner (``WindowedMeanShift``: a bias the size of the
+        fixes' sigma over a minute's sixty fixes); while that test alarms (``ramp``) Q is inflated as while
+        the sum is above h.
         """
         p = self.params
         self.nis_check.add(nis)
         self.cusum = max(0.0, self.cusum + nis_fix - 2.0 - p.change_reference_nis)   # g = max(0, g + NIS - 2 - nu)
-        if self.cusum > p.change_threshold:
+        if self.cusum > p.change_threshold or ramp:
             self.q_inflation = min(p.q_inflation_max, self.q_inflation * p.q_inflation_step)
         else:
             self.q_inflation = max(1.0, self.q_inflation * p.q_inflation_decay)

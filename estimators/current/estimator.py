@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from estimators.base import EstimatorBase, Output
-from estimators.fusion import FusionHealth, FusionReport, WindowedNis, chi2_quantile
+from estimators.fusion import FusionHealth, FusionReport, WindowedMeanShift, WindowedNis, chi2_quantile
 from estimators.limits import ATTITUDE_MAX_DEG, DIRECTION_DEG, STW_MAX_KN
 from estimators.samples import Attitude, Fix, GroundVelocity, Heading, Sample, WaterSpeed
 from estimators.thresholds import Hysteresis
@@ -108,6 +108,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._cal_gate = chi2_quantile(self.params.calibration_fit_probability, 2)
         self.cal_health = FusionHealth()  # the calibration fit's fusion step
         self.nis_check = WindowedNis(self.params.nis_check_fixes, 2, self.params.nis_check_probability)
+        self.ramp_check = WindowedMeanShift(self.params.ramp_window_s, self.params.ramp_probability)  # see _adapt
 
     # -- the protocol ---------------------------------------------------------------
 
@@ -221,6 +222,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.consecutive_rejects = 0
         self.q_inflation, self.cusum = 1.0, 0.0
         self.nis_check.reset()
+        self.ramp_check.reset()
         self._calfit = CalibrationFit(self.params, (k, d, sk, sd))  # blocks of a log trusted again start afresh
         self.water_walk = WaterWalk(self.params)                     # and so does the water's walk
         self._record(t, restart=True)
@@ -263,7 +265,18 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             # the change detector reads the innovation against one fix's own noise (no allowance for
             # correlation: that would blunt it), the gate and the model check the covariance the filter uses
             S_fix = innovation_cov_rows(Pl, h0, h1, measurement_rows(p, g, w, k, theta, correlated=False))
-            self._adapt(min(nis2(y0, y1, S_fix), self._gate), nis)  # one outlier alone cannot raise the alarm
+            # the mean-shift test reads the innovations against the covariance the filter uses (R's long-run
+            # variance: a window's sum of correlated noise), an outlier beyond the gate left out of its mean;
+            # after a turn the calibration's error is a step of the apparent current, for the calibration fit
+            # to take, not the current's Q: the test is quiet for ``ramp_quiet_after_turn_s``
+            ramp = self.ramp_check.alarm
+            if t - self._turn_ended < p.ramp_quiet_after_turn_s:
+                self.ramp_check.reset()
+                ramp = False
+            elif nis <= self._gate:
+                s00, s01, _, s11 = innovation_cov_rows(Pl, h0, h1, R)
+                ramp = self.ramp_check.add(t, y0, y1, s00, s01, s11)
+            self._adapt(min(nis2(y0, y1, S_fix), self._gate), nis, ramp)  # one outlier alone cannot raise the alarm
         if up.reason == "gate":
             self.consecutive_rejects += 1
             if self.consecutive_rejects >= p.rejections_before_reset:

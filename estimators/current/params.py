@@ -102,6 +102,12 @@ class CurrentParams:
         0.985, "", 0.1, 1.0, "factor per fix back towards 1 once the NIS is normal (0.985: from the largest factor to 1 in about 7 minutes, "
         "the span of a sharp current edge's rise)")
     q_inflation_max: float = param(400.0, "", 1.0, 1e6, "largest factor on the current's process noise")
+    ramp_window_s: float = param(
+        60.0, "s", 5.0, 1800.0, "window of the mean-shift test on the innovations: a mean away from zero (a slow ramp of the current) inflates the process noise as the CUSUM does")
+    ramp_probability: float = param(
+        0.999, "", 0.9, 0.999999, "that test's chi-square quantile (2 degrees of freedom): the window's mean innovation beyond it is a ramp")
+    ramp_quiet_after_turn_s: float = param(
+        600.0, "s", 0.0, 7200.0, "that test is quiet this long after a turn (the calibration's error, a step of the apparent current there, is the calibration fit's to take)")
     min_fix_interval_s: float = param(0.5, "s", 0.0, 60.0, "a ground velocity closer than this to the last one is a duplicate")
     averaging_window_s: float = param(2.0, "s", 0.1, 60.0, "longest window for the mean heading and log speed before a fix")
     input_timing_sigma_s: float = param(
