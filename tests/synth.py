@@ -59,7 +59,7 @@ def synth_passage(seed: int, duration_s: int, legs: list[tuple[float, float]], *
         for ts, new in current_steps:
             if i == ts:
                 ce, cn = new
-        ramping = i > slope_from_s
+        ramping = i >= slope_from_s  # from the start by default, as before
         ce += q * rng.standard_normal() + (current_slope_kn_per_h[0] / 3600.0 if ramping else 0.0)
         cn += q * rng.standard_normal() + (current_slope_kn_per_h[1] / 3600.0 if ramping else 0.0)
         t = T0 + i

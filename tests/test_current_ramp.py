@@ -20,6 +20,7 @@ from estimators.runner import run
 from estimators.samples import Fix
 from tests.synth import synth_passage
 
+
 def test_the_statistic_is_the_windows_summed_innovation_against_its_summed_covariance():
     rng = np.random.default_rng(11)
     test = WindowedMeanShift(30.0, 0.999)
@@ -58,12 +59,12 @@ def test_without_a_bias_the_statistic_is_chi_square_with_two_degrees_of_freedom(
     assert sum(s > test.threshold for s in stats) <= 3
 
 
-def ramp_run(seed: int, slope_kn_per_h: float, params: CurrentParams) -> float | None:
+def ramp_run(seed: int, slope_kn_per_h: float) -> float | None:
     """A 2-h leg on one heading, the water steady for the first hour, then rising at ``slope_kn_per_h`` east: the
     seconds from the ramp's start to the first fix with the process noise raised (None: never). Over the ten
     minutes before the ramp, the steady water, no fix may have it raised."""
     syn = synth_passage(seed, 7200, [(0.0, 60.0)], current_slope_kn_per_h=(slope_kn_per_h, 0.0), slope_from_s=3600)
-    est = CurrentEstimator(params)
+    est = CurrentEstimator(CurrentParams())
     raised = None
     for s, _ in run(est, syn.samples, tick=False):
         if not isinstance(s, Fix) or est.ekf is None:
@@ -80,7 +81,8 @@ def ramp_run(seed: int, slope_kn_per_h: float, params: CurrentParams) -> float |
 def test_a_slow_ramp_raises_the_process_noise_within_minutes(seed):
     # GIVEN a steady leg whose current, steady for an hour, then rises at 6 kn/h (0.1 kn a minute: the filter's
     # lag behind it, about its time constant times the slope, a tenth of a knot, well inside one fix's noise)
-    raised = ramp_run(seed, 6.0, CurrentParams())
-    # THEN the process noise is raised within five minutes of the ramp's start (the NIS's CUSUM alone did
-    # not raise it within the hour: each fix's NIS about a tenth above its mean, far below the reference 2)
+    raised = ramp_run(seed, 6.0)
+    # THEN the process noise is raised within five minutes of the ramp's start (the NIS's CUSUM alone, measured
+    # when the test was added, did not raise it within the hour: each fix's NIS a tenth above its mean, far
+    # below the reference 2)
     assert raised is not None and raised <= 300.0, raised

@@ -274,7 +274,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
                 self.ramp_check.reset()
                 ramp = False
             elif nis <= self._gate:
-                s00, s01, _, s11 = innovation_cov_rows(Pl, h0, h1, R)
+                s00, s01, _, s11 = up.innovation_cov   # the fusion step's own S
                 ramp = self.ramp_check.add(t, y0, y1, s00, s01, s11)
             self._adapt(min(nis2(y0, y1, S_fix), self._gate), nis, ramp)  # one outlier alone cannot raise the alarm
         if up.reason == "gate":

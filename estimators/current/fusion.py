@@ -50,6 +50,7 @@ class Update:
     fused: bool
     reason: str = ""
     gain: Gain | None = None   # K (four rows of two) of a fused step; None when not fused
+    innovation_cov: tuple[float, float, float, float] | None = None  # S = H P H' + R as (S00, S01, S10, S11)
 
 
 def nis2(y0: float, y1: float, S: tuple[float, float, float, float]) -> float:
@@ -114,9 +115,9 @@ def fuse_rows(x: np.ndarray, P: np.ndarray, xl: list[float], Pl: Rows, y0: float
     a, b, c, d = S
     svar = (a, d)
     if not math.isfinite(nis):
-        return Update(x, P, math.nan, svar, False, "numerical guard")
+        return Update(x, P, math.nan, svar, False, "numerical guard", innovation_cov=S)
     if nis > gate:
-        return Update(x, P, nis, svar, False, "gate")
+        return Update(x, P, nis, svar, False, "gate", innovation_cov=S)
     det = a * d - b * c
     i00, i01, i10, i11 = d / det, -b / det, -c / det, a / det               # S^-1, closed form
     (q00, q01), (q10, q11), (q20, q21), (q30, q31) = PHt
@@ -128,8 +129,8 @@ def fuse_rows(x: np.ndarray, P: np.ndarray, xl: list[float], Pl: Rows, y0: float
     P_new = _joseph(Pl, PHt, K, h0, h1, Rl)
     if not (math.isfinite(sum(x_new)) and math.isfinite(sum(map(sum, P_new)))
             and min(P_new[0][0], P_new[1][1], P_new[2][2], P_new[3][3]) > 0.0):
-        return Update(x, P, nis, svar, False, "numerical guard after update")
-    return Update(np.array(x_new).reshape(4, 1), np.array(P_new), nis, svar, True, gain=K)
+        return Update(x, P, nis, svar, False, "numerical guard after update", innovation_cov=S)
+    return Update(np.array(x_new).reshape(4, 1), np.array(P_new), nis, svar, True, gain=K, innovation_cov=S)
 
 
 def joseph_with_gain(P: np.ndarray, K: Gain, H: np.ndarray, R: np.ndarray) -> np.ndarray:
