@@ -104,8 +104,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from estimators.angles import turned
-
 from .params import CurrentParams
 from .walk import NOISE_SCALES, Series, WalkFit, fit_walk
 
