@@ -48,7 +48,6 @@ def smooth_current(samples: Iterable[Sample], params: CurrentParams | None = Non
     """Forward filter over ``samples`` (time order), then RTS backward: one row per filter epoch."""
     est = CurrentEstimator(params or CurrentParams(), calibration)
     est.records = []
-    est.publishes = False  # its own records are what it reads: no published sigma to keep
     for _ in run(est, samples, tick=False):
         pass
     out: list[SmoothedCurrent] = []

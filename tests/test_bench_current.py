@@ -1,6 +1,7 @@
 """The current benchmark's ``--set``: a trial parameter is filled and checked as the config file's would be;
 ``--calibration-from-prior``: the true calibration drawn per seed from the estimator's prior reaches the
-simulated sensors (coverage over the prior: Bar-Shalom, Li & Kirubarajan 2001, ch. 5, from memory)."""
+simulated sensors (coverage over the prior: Bar-Shalom, Li & Kirubarajan 2001, ch. 5, from memory); coverage is
+judged against its band by the seeds' scatter."""
 
 from __future__ import annotations
 
@@ -15,7 +16,7 @@ from scipy.stats import chi2
 from daemon.core.config import ConfigError
 from estimators.current import CurrentParams
 from estimators.samples import Heading, WaterSpeed
-from tools.bench.current import prior_draw, trial_params, true_calibration, with_true_calibration
+from tools.bench.current import Pooled, coverage_row, prior_draw, trial_params, true_calibration, with_true_calibration
 from tools.simulator import simulate
 from tools.simulator.scenarios import jet_crossing
 
@@ -73,3 +74,19 @@ def test_a_trial_the_config_would_refuse_is_refused(setting):
     # an unknown key, a value out of its range, no value, not a number, a fraction for a count
     with pytest.raises(ConfigError):
         trial_params([setting])
+
+
+@pytest.mark.parametrize("shares, verdict", [
+    ([0.95, 0.94, 0.96, 0.95], "in the band"),
+    ([0.99, 0.995, 0.99, 0.985], "above the band"),
+    ([0.90, 0.91, 0.90, 0.92], "below the band"),
+    ([1.0, 0.96, 0.99, 0.97], "within 2 standard errors of the band"),
+])
+def test_coverage_is_judged_against_its_band_by_the_seeds_scatter(shares, verdict):
+    # GIVEN each run's share of fixes within 2 sigma
+    pooled = Pooled(seed_coverage=shares)
+    # THEN the row gives their mean and its standard error (sample sd / sqrt(n), numpy's) and the verdict
+    mean, se = np.mean(shares), np.std(shares, ddof=1) / math.sqrt(len(shares))
+    row = coverage_row("s", pooled)
+    assert f"{mean:.3f} ± {se:.3f}" in row
+    assert row.endswith(f"| {verdict} |")

@@ -208,11 +208,11 @@ def test_quality_is_degraded_while_the_change_detector_has_raised_the_process_no
     # THEN before the jump nothing says the current changes faster than its model
     assert before and not any(p["q_inflation"] > 1.0 or p["quality"] == "degraded" for p in before)
     # ... and within 100 s after it the quality is 'degraded', saying why, with the process noise raised
-    raised = [p for p in after if p["quality"] == "degraded" and "changing faster" in p["quality_reason"]]
+    raised = [p for p in after if p["quality"] == "degraded" and "the current is changing fast" in p["quality_reason"]]
     assert raised and all(p["q_inflation"] > 1.0 for p in raised)
     # ... until the inflation has decayed back to 1 (minutes later), when it no longer says so
     last = pubs[-1][1]
-    assert last["q_inflation"] == 1.0 and "changing faster" not in last["quality_reason"]
+    assert last["q_inflation"] == 1.0 and "the current is changing fast" not in last["quality_reason"]
 
 
 def test_the_jacobian_is_the_measurement_functions_derivative():

@@ -248,9 +248,13 @@ def records_of(params: CurrentParams) -> tuple[list, list]:
 
 
 def test_the_estimates_are_the_same_with_and_without_the_published_covariance(monkeypatch):
-    # GIVEN one passage run as it is, with the walk read early and published at another confidence ...
-    base, rows = records_of(CurrentParams(**WHITE))
-    other, rows_other = records_of(CurrentParams(**WHITE, water_walk_min_blocks=3, published_walk_confidence=0.95))
+    # GIVEN one passage run as it is ...
+    base, _ = records_of(CurrentParams(**WHITE))
+    # ... and, with the filter's own walk held at the configured one (the floor at it: the water's walk read
+    # then sets only what is published), with the walk read early and published at another confidence
+    held = dict(WHITE, current_walk_floor_kn_per_sqrt_h=CurrentParams().current_walk_kn_per_sqrt_h)
+    held_base, rows = records_of(CurrentParams(**held))
+    other, rows_other = records_of(CurrentParams(**held, water_walk_min_blocks=3, published_walk_confidence=0.95))
     # ... and with P_pub never updated at all (the Joseph step with the filter's gain a no-op)
     monkeypatch.setattr(estimator, "joseph_with_gain_rows", lambda Pl, K, h0, h1, Rl: np.array(Pl))
     monkeypatch.setattr(control, "joseph_with_gain", lambda P, K, H, R: P)
@@ -258,7 +262,8 @@ def test_the_estimates_are_the_same_with_and_without_the_published_covariance(mo
     monkeypatch.setattr(estimator, "lag_updated", lambda lag, K: lag)
     monkeypatch.setattr(estimator, "lag_predicted", lambda lag, dt: lag)
     without, _ = records_of(CurrentParams(**WHITE))
-    # THEN every state and the filter's own covariance are identical to the bit
-    assert base == other == without
-    # ... while what is published differed
+    # THEN every state and the filter's own covariance are identical to the bit: P_pub and the lag never
+    # reach the estimates, nor does the published walk's confidence where the filter's walk is held
+    assert base == without
+    assert held_base == other
     assert any(not np.allclose(a[3], b[3]) for a, b in zip(rows, rows_other))

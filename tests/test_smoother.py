@@ -35,26 +35,3 @@ def test_smoothed_error_is_lower_than_filtered():
     assert rms(smoothed) < 0.8 * rms(filtered)
     # ... and the last smoothed state is the filtered one (no future data after it)
     assert smoothed[common[-1]] == filtered[common[-1]]
-
-
-def test_a_filter_that_does_not_publish_keeps_the_same_states():
-    # GIVEN a seeded tacking run, and a walk read after every few blocks (so the published sigma's reads run)
-    p = CurrentParams(water_walk_min_blocks=3)
-    syn = synth_passage(12, 1500, tacking_legs(1500, 300), walk_kn_per_sqrt_h=1.0)
-    # WHEN the filter keeps its records publishing (the live service) and not publishing (the smoother)
-    runs = []
-    for publishes in (True, False):
-        est = CurrentEstimator(p)
-        est.records, est.publishes = [], publishes
-        for _ in run(est, syn.samples, tick=False):
-            pass
-        runs.append(est)
-    live, quiet = runs
-    # THEN the walk was read only where it publishes, and every state and covariance is the same to the bit:
-    # the smoother may skip the reads that only the published sigma uses
-    assert live.water_walk.last is not None and quiet.water_walk.last is None
-    assert len(live.records) == len(quiet.records) > 100
-    for a, b in zip(live.records, quiet.records):
-        assert a.t_s == b.t_s and a.restart == b.restart
-        for x, y in ((a.x_prior, b.x_prior), (a.P_prior, b.P_prior), (a.x_post, b.x_post), (a.P_post, b.P_post)):
-            assert np.array_equal(x, y)

@@ -12,7 +12,11 @@ update are written out here, cheaper than the generic ones)::
         d         heading offset, rad: true heading = heading reading + d
 
 Process model: every state is a random walk (F = I). The current walks at
-``current_walk_kn_per_sqrt_h`` per axis (tidal streams turn over hours). Fast
+``current_walk_kn_per_sqrt_h`` per axis (tidal streams turn over hours), or,
+where the last hour's measured current shows the water walking slower and no
+steady slope, at the walk it shows, down to ``current_walk_floor_kn_per_sqrt_h``
+(``CurrentEstimator.filter_rate``): steady water is averaged longer, and the
+floor and the change detectors below keep the filter following a change. Fast
 at an edge, steady in between: a CUSUM change detector (E. S. Page,
 "Continuous inspection schemes", Biometrika 41, 1954) sums each fix's NIS
 against that fix's own noise above its expectation less a reference value; while
@@ -78,8 +82,8 @@ variance, and the current's sigma holds under that noise without counting the
 white part as correlated.
 
 Published sigma: the filter's Q lets the current walk as a strong tidal stream
-turns; where the water walks slower, P (rightly the filter's own, for its gain)
-is about twice the error variance the filter makes. So beside P the estimator
+turns, or at the floor; where the water walks slower, P (rightly the filter's
+own, for its gain) is larger than the error variance the filter makes. So beside P the estimator
 carries P_pub, the error covariance of this same filter (its gain, its consider
 structure, Joseph form for any gain: ``fusion.joseph_with_gain``) if the water
 walks at the rate the last ``water_walk_window_h`` of measured current shows
@@ -97,7 +101,8 @@ P_pub's plus that lag's mean square for the slope the trend reads.
 ``set_sigma_deg``, ``drift_sigma_kn`` and the vector sigma that ``quality`` holds
 against its thresholds come from it; the gate, the NIS test, the change
 detector, the calibration and the smoother keep P, so every estimate is the same
-as without it.
+as without it. The water's walk read for it also sets the filter's own walk
+(above, down to the floor), so the smoother's forward pass reads it too.
 
 Honest quality: the NIS of the last ``nis_check_fixes`` fixes against the
 covariance the filter uses is tested against its two-sided chi-square bounds

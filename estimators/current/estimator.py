@@ -26,7 +26,7 @@ from .model import (
     FilterState, WaterInputs, d_unit, ground_velocity_of, jacobian_rows, leeway_deg, measurement_cov,
     measurement_rows, plus_diagonal, published_rate, unit, walk_variances,
 )
-from .params import ID, IE, IK, IN, S_PER_DAY, Calibration, CurrentParams
+from .params import ID, IE, IK, IN, S_PER_DAY, S_PER_H, Calibration, CurrentParams
 from .publication import Publisher
 from .walk import WaterWalk, lag_predicted, lag_updated
 
@@ -76,9 +76,6 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self.consecutive_rejects = 0
         self.last_report: FusionReport | None = None
         self.records: list[FilterRecord] | None = None  # set to [] to keep them (smoother)
-        # False where nobody reads the publication (the smoother): the water's walk, read once a minute for the
-        # published sigma only, is not read; x, P and every decision are the same without it
-        self.publishes = True
         self._seen: dict[str, float] = {}
         self._buf: dict[str, deque[tuple[float, float]]] = {k: deque() for k in ("heading", "water_speed", "heel")}
         self._gate = chi2_quantile(self.params.gate_probability, 2)  # chi-square, 2 dof
@@ -230,10 +227,24 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
     def _predict(self, t: float) -> None:
         dt = max(0.0, t - self.t_filter)
         p, ekf = self.params, self.ekf
-        ekf.P = plus_diagonal(ekf.P, walk_variances(p, dt, self.q_inflation))                    # F = I: x = x, P = P + Q
+        ekf.P = plus_diagonal(ekf.P, walk_variances(p, dt, current_rate=self.filter_rate()))    # F = I: x = x, P = P + Q
         ekf.P_pub = plus_diagonal(ekf.P_pub, walk_variances(p, dt, current_rate=self.published_rate()))
         ekf.lag = lag_predicted(ekf.lag, dt)
         self.t_filter = t
+
+    def filter_rate(self) -> float:
+        """The current's walk (kn^2/s per axis) the filter's own Q assumes: the water's, as the published sigma
+        reads it (``walk``), but not below ``current_walk_floor_kn_per_sqrt_h`` (a reading of still water must
+        not stop the filter following a change), the configured walk where the water's slope is evident, and
+        the change detector's inflation of the configured walk on top. On steady water the filter averages
+        longer than the configured walk allows; at an edge the detectors raise it as before. Adaptive Q by
+        covariance matching in spirit (R. K. Mehra, "Approaches to adaptive filtering", IEEE Trans.
+        Automatic Control 17, 1972)."""
+        p, water = self.params, self.water_walk
+        if water.trending:                     # a steadily changing current: the configured walk to follow it
+            return published_rate(p, water.ceiling, self.q_inflation)
+        floor = min(p.current_walk_floor_kn_per_sqrt_h, p.current_walk_kn_per_sqrt_h) ** 2 / S_PER_H
+        return published_rate(p, max(floor, water.rate), self.q_inflation)
 
     def published_rate(self) -> float:
         """The current's walk (kn^2/s per axis) the published covariance P_pub assumes: the water's, read from
@@ -294,7 +305,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
             ekf.P_pub = joseph_with_gain_rows(ekf.P_pub.tolist(), up.gain, h0, h1,
                                               [[r00 * scale, r01 * scale], [r10 * scale, r11 * scale]])
             ekf.lag = lag_updated(ekf.lag, up.gain)                          # H's current columns are I
-            if self.publishes and not w.turning:
+            if not w.turning:
                 self.water_walk.add(t, w.interval_s, g, s, math.degrees(theta - d), R[0][0], R[1][1],
                                     float(up.x[IK, 0]), float(up.x[ID, 0]))
         return self._report(t, (y0, y1), nis, up, x_prior, P_prior)

@@ -82,6 +82,8 @@ class CurrentParams:
         20, "blocks", 3, 10000, "with fewer blocks in the window the published sigma uses current_walk_kn_per_sqrt_h")
     water_walk_confidence: float = param(
         0.95, "", 0.5, 0.9999, "the calibration fit's walk of the water is the upper end of its likelihood-ratio interval at this confidence, and the water's slope counts where a test at it finds one")
+    current_walk_floor_kn_per_sqrt_h: float = param(
+        0.2, "kn/sqrt(h)", 0.0, 10.0, "the filter's own walk follows the water's, read as for the published sigma, down to this floor (at or above current_walk_kn_per_sqrt_h: always the configured walk)")
     published_walk_confidence: float = param(
         0.5, "", 0.5, 0.9999, "the walk the published sigma assumes is the upper end of its likelihood-ratio interval at this confidence (0.5: a little above the likeliest), at most current_walk_kn_per_sqrt_h")
     noise_correlation_s: float = param(

@@ -65,8 +65,9 @@ class Publisher:
         if self.q_inflation > 1.0:
             # the change detector's own evidence: the current changed faster than the model's walk, and the
             # filter is still catching up with it (at a sharp edge its estimate lags the truth by more than sigma)
-            return "degraded", (f"the current is changing faster than the filter's model allows: its process noise "
-                                f"is raised {self.q_inflation:.0f} x until the innovations settle")
+            # words for the crew at the chart table; how far Q is raised is the payload's q_inflation
+            return "degraded", ("the current is changing fast (a stream's edge, or the tide turning): the figures "
+                                "are catching up and may lag it for some minutes")
         if sigma_vec > p.valid_sigma_kn:
             return "converging", "uncertainty above the valid threshold"
         if t < self._calibration_stepped + p.calibration_settle_s:
