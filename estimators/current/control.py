@@ -31,6 +31,8 @@ from .fusion import fuse, joseph_with_gain
 from .model import WaterInputs, leeway_deg
 from .params import ID, IK
 
+SETTLE_NARROWING = 2.0 / 3.0  # a fit narrowing the current's published sigma below this holds 'valid' back
+
 
 class Control:
     """Inputs, turn hold, the calibration window, the log's health and adaptation (see the module doc)."""
@@ -243,10 +245,11 @@ class Control:
                               up.fused, up.reason)
         self.cal_health.count(report)
         if up.fused:
+            pub_before = self.ekf.P_pub
             self.ekf.x, self.ekf.P = adopt_fit(x, P, y, V[:, lam > 0.0]), up.P
             self.ekf.P_pub = joseph_with_gain(self.ekf.P_pub, up.gain, H, R)     # the same step, the filter's gain
             self._record_update(t, x, P)
-            self._note_calibration_step(t, x)
+            self._note_calibration_step(t, x, pub_before)
 
     def _take_whole_fit(self, t: float, result: FitResult) -> None:
         """A fit whose window holds every block since the filter started: it replaces the filter's (k, d).
@@ -271,20 +274,24 @@ class Control:
                                            "" if fused else "gate"))
         if not fused:
             return
+        pub_before = self.ekf.P_pub
         self.ekf.x = adopt_fit(x, P, y, np.eye(2))
         self.ekf.P = replaced_calibration(P, result.cov)
-        self.ekf.P_pub = replaced_calibration(self.ekf.P_pub, result.cov)
+        self.ekf.P_pub = replaced_calibration(pub_before, result.cov)
         self._record_update(t, x, P)
-        self._note_calibration_step(t, x)
+        self._note_calibration_step(t, x, pub_before)
 
-    def _note_calibration_step(self, t: float, x_before: np.ndarray) -> None:
-        """A fit that moved k or d by more than its new sigma: the current follows it only through its regression
-        on them, and the fixes of the next seconds bring it the rest of the way (the ordinary passage's first fit
-        after a 25-deg course change: 0.4 kn off for 3 s under a sigma of 0.12 kn). Until
-        ``calibration_settle_s`` has passed the quality is 'converging' (``publication``)."""
+    def _note_calibration_step(self, t: float, x_before: np.ndarray, pub_before: np.ndarray) -> None:
+        """A fit that moved k or d by more than its new sigma, or narrowed the current's published sigma below
+        ``SETTLE_NARROWING`` of what it was: the current follows the fit only through its regression on k and
+        d, and the fixes of the next seconds bring it the rest of the way (the ordinary passage's first fit
+        after a 25-deg course change: 0.4 kn off for 3 s under a sigma of 0.12 kn). An error the old sigma
+        allowed, 2 of them, is more than 3 of the new ones below 2/3 of it. Until ``calibration_settle_s``
+        has passed the quality is 'converging' (``publication``)."""
         step = self.ekf.x[IK:, 0] - x_before[IK:, 0]
         sigma = np.sqrt(np.diag(self.ekf.P)[IK:])
-        if np.any(np.abs(step) > sigma):
+        narrowed = np.trace(self.ekf.P_pub[:IK, :IK]) < SETTLE_NARROWING ** 2 * np.trace(pub_before[:IK, :IK])
+        if narrowed or np.any(np.abs(step) > sigma):
             self._calibration_stepped = t
 
     def _adapt(self, nis_fix: float, nis: float, ramp: bool) -> None:

@@ -121,7 +121,8 @@ class CurrentParams:
         30.0, "s", 0.0, 300.0, "the hold lasts this long after a turn ends: the boat regains the speed a tack cost")
     calibration_settle_s: float = param(
         30.0, "s", 0.0, 600.0, "after a calibration fit moves the log scale or the compass offset by more than its new "
-        "sigma, the current is 'converging' this long while the fixes bring it to the new calibration")
+        "sigma, or narrows the current's sigma below 2/3, the current is 'converging' this long while the fixes bring "
+        "it to the new calibration")
     jacobian_smoothing_s: float = param(
         120.0, "s", 0.0, 600.0, "time constant of the low-passed log speed and heading used in the Jacobian")
     jacobian_steady_s: float = param(
