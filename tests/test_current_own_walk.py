@@ -17,11 +17,10 @@ import numpy as np
 import pytest
 
 from estimators.current import CurrentEstimator, CurrentParams
+from estimators.current.params import S_PER_H
 from estimators.runner import run
 from estimators.samples import Fix
 from tests.synth import synth_passage
-
-S_PER_H = 3600.0
 
 
 def walk_kn_per_sqrt_h(est: CurrentEstimator) -> float:
@@ -56,9 +55,8 @@ def test_on_steady_water_the_walk_falls_to_the_floor_and_the_error_with_it(seed)
     # ... the floor at the configured walk leaves the configured one (the filter as before the floor) ...
     assert walk_kn_per_sqrt_h(without) == pytest.approx(off_p.current_walk_kn_per_sqrt_h)
     # ... and over the last hour the filter with the floor errs less (the same samples: a paired comparison)
-    last = [i for i, ti in enumerate(t) if ti >= 3600.0]
-    mse = lambda e: float(np.mean([e[i] ** 2 for i in last]))  # noqa: E731
-    assert mse(err_floor) < mse(err_off)
+    last_hour = np.array(t) >= 3600.0
+    assert np.mean(np.square(err_floor)[last_hour]) < np.mean(np.square(err_off)[last_hour])
 
 
 def test_a_steadily_rising_current_keeps_the_configured_walk():

@@ -23,8 +23,8 @@ from .calibration import CalibrationFit
 from .control import Control
 from .fusion import fuse_rows, innovation_cov_rows, joseph_with_gain_rows, nis2
 from .model import (
-    FilterState, WaterInputs, d_unit, ground_velocity_of, jacobian_rows, leeway_deg, measurement_cov,
-    measurement_rows, plus_diagonal, published_rate, unit, walk_variances,
+    FilterState, WaterInputs, d_unit, ground_velocity_of, inflated_rate, jacobian_rows, leeway_deg,
+    measurement_cov, measurement_rows, plus_diagonal, unit, walk_variances,
 )
 from .params import ID, IE, IK, IN, S_PER_DAY, S_PER_H, Calibration, CurrentParams
 from .publication import Publisher
@@ -103,6 +103,8 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._calfit: CalibrationFit | None = None
         self.water_walk: WaterWalk | None = None  # the walk the published covariance P_pub assumes (see walk)
         self._cal_gate = chi2_quantile(self.params.calibration_fit_probability, 2)
+        self._walk_floor = min(self.params.current_walk_floor_kn_per_sqrt_h,   # kn^2/s: filter_rate's floor
+                               self.params.current_walk_kn_per_sqrt_h) ** 2 / S_PER_H
         self.cal_health = FusionHealth()  # the calibration fit's fusion step
         self.nis_check = WindowedNis(self.params.nis_check_fixes, 2, self.params.nis_check_probability)
         self.ramp_check = WindowedMeanShift(self.params.ramp_window_s, self.params.ramp_probability)  # see _adapt
@@ -240,16 +242,15 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         longer than the configured walk allows; at an edge the detectors raise it as before. Adaptive Q by
         covariance matching in spirit (R. K. Mehra, "Approaches to adaptive filtering", IEEE Trans.
         Automatic Control 17, 1972)."""
-        p, water = self.params, self.water_walk
-        if water.trending:                     # a steadily changing current: the configured walk to follow it
-            return published_rate(p, water.ceiling, self.q_inflation)
-        floor = min(p.current_walk_floor_kn_per_sqrt_h, p.current_walk_kn_per_sqrt_h) ** 2 / S_PER_H
-        return published_rate(p, max(floor, water.rate), self.q_inflation)
+        water = self.water_walk
+        # a steadily changing current: the configured walk (the ceiling), for a filter with no slope to follow it
+        rate = water.ceiling if water.trending else max(self._walk_floor, water.rate)
+        return inflated_rate(self.params, rate, self.q_inflation)
 
     def published_rate(self) -> float:
         """The current's walk (kn^2/s per axis) the published covariance P_pub assumes: the water's, read from
         the data (``walk``), with the change detector's inflation of the configured walk on top."""
-        return published_rate(self.params, self.water_walk.rate, self.q_inflation)
+        return inflated_rate(self.params, self.water_walk.rate, self.q_inflation)
 
     def _fuse_ground_velocity(self, t: float, g: tuple[float, float], w: WaterInputs) -> FusionReport:
         """Observation, its covariance and the innovation; the fusion step (``fusion.fuse``); a run of rejections.

@@ -105,19 +105,18 @@ def plus_diagonal(M: np.ndarray, diagonal: tuple[float, float, float, float]) ->
     return out
 
 
-def published_rate(p: CurrentParams, water_rate: float, q_inflation: float) -> float:
-    """The current's walk (kn^2/s per axis) of the published covariance: the water's (``walk``) and what the
-    change detector adds to the configured walk on top of it (a change beyond the model is news to both)."""
+def inflated_rate(p: CurrentParams, water_rate: float, q_inflation: float) -> float:
+    """The current's walk (kn^2/s per axis) from the water's (``walk``) and what the change detectors add to the
+    configured walk on top of it (a change beyond the model is news to the filter's Q and the published
+    covariance alike: ``CurrentEstimator.filter_rate`` and ``published_rate``)."""
     return water_rate + (q_inflation - 1.0) * p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H
 
 
-def walk_variances(p: CurrentParams, dt: float, q_inflation: float = 1.0,
-                   current_rate: float | None = None) -> tuple[float, float, float, float]:
+def walk_variances(p: CurrentParams, dt: float, current_rate: float) -> tuple[float, float, float, float]:
     """Q for a step of ``dt`` s, its diagonal (c_e, c_n, k, d) as floats (every state a random walk; the
-    predict adds it with ``plus_diagonal``, a publication takes the current's part): the current's rate the
-    configured walk times ``q_inflation``, or ``current_rate`` (kn^2/s per axis) where given (the published
-    covariance's, ``published_rate``)."""
-    qc = (p.current_walk_kn_per_sqrt_h ** 2 / S_PER_H) * q_inflation if current_rate is None else current_rate
+    predict adds it with ``plus_diagonal``, a publication takes the current's part): the current at
+    ``current_rate`` (kn^2/s per axis: the filter's own, or the published covariance's; ``inflated_rate``)."""
+    qc = current_rate
     qk = p.stw_scale_walk_per_sqrt_h ** 2 / S_PER_H
     qd = math.radians(p.heading_offset_walk_deg_per_sqrt_h) ** 2 / S_PER_H
     return (qc * dt, qc * dt, qk * dt, qd * dt)                                     # random walk: Q = q dt

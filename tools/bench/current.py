@@ -319,6 +319,11 @@ def run_mse(offwatch: list[float], plain: list[float]) -> tuple[float, float]:
     return float(np.mean(a[both] ** 2)), float(np.mean(b[both] ** 2))
 
 
+def mean_and_se(values: np.ndarray) -> tuple[float, float]:
+    """The mean of independent values (one a seed) and its standard error, sample standard deviation / sqrt(n)."""
+    return float(values.mean()), float(values.std(ddof=1) / math.sqrt(values.size))
+
+
 def paired_row(name: str, r: Pooled) -> str:
     """Seed by seed against the plain triangle: each run's mean squared error, offwatch's less the triangle's.
 
@@ -330,7 +335,7 @@ def paired_row(name: str, r: Pooled) -> str:
     d = np.array([ow - pl for ow, pl in r.seed_mse])
     if d.size < 2:
         return f"| {name} | – | – | – |"
-    mean, se = float(d.mean()), float(d.std(ddof=1) / math.sqrt(d.size))
+    mean, se = mean_and_se(d)
     verdict = "better" if mean + 2.0 * se < 0.0 else "worse" if mean - 2.0 * se > 0.0 else "level"
     return (f"| {name} | {mean * 1e4:+.1f} ± {se * 1e4:.1f} | {int((d < 0.0).sum())} of {d.size} | {verdict} |")
 
@@ -345,7 +350,7 @@ def coverage_row(name: str, r: Pooled) -> str:
     c = np.array(r.seed_coverage)
     if c.size < 2:
         return f"| {name} | – | – | – |"
-    mean, se = float(c.mean()), float(c.std(ddof=1) / math.sqrt(c.size))
+    mean, se = mean_and_se(c)
     low, high = COVERAGE_BAND
     verdict = ("in the band" if low <= mean <= high else
                "above the band" if mean - 2.0 * se > high else
