@@ -57,23 +57,35 @@ def test_small_course_changes_keep_the_calibration_at_its_prior_or_within_two_si
             (pub.t_s, c["heading_offset_deg"])
 
 
+TACK_SEEDS = range(1, 7)
+
+
 def test_a_tack_sequence_converges_to_a_calibration_within_two_sigma():
-    # GIVEN a beat with tacks every 25-35 min, log 6 % slow, compass 3 deg low, 1.2 kn current (2.5 hours)
-    sim = simulate(replace(beat(), duration_s=2.5 * H), 2)
-    k_true, d_true = true_calibration(sim)
-    # WHEN the estimator runs
-    est, pubs = publications(sim)
-    # THEN it says 'calibrated' before the end, and whenever it says so the values are within 2 sigma
-    calibrated = [p for p in pubs if p.payload["calibration"]["status"] == "calibrated"]
-    assert calibrated, "never calibrated on a beat"
-    for pub in calibrated:
-        c = pub.payload
-        assert abs(c["stw_scale"] - k_true) <= 2.0 * c["stw_scale_sigma"] + 5e-4, (pub.t_s, c["stw_scale"], k_true)
-        assert abs(c["heading_offset_deg"] - d_true) <= 2.0 * c["heading_offset_sigma_deg"] + 0.01
-    # and the current at the end is within 0.15 kn of the truth
-    end = pubs[-1]
-    truth = sim.truth_at(end.t_s)
-    assert math.hypot(end.payload["east_kn"] - truth.current_east_kn, end.payload["north_kn"] - truth.current_north_kn) < 0.15
+    # GIVEN beats with tacks every 25-35 min, log 6 % slow, compass 3 deg low, 1.2 kn current (2.5 hours, six seeds)
+    within = {"k": [], "d": []}
+    for seed in TACK_SEEDS:
+        sim = simulate(replace(beat(), duration_s=2.5 * H), seed)
+        k_true, d_true = true_calibration(sim)
+        # WHEN the estimator runs
+        est, pubs = publications(sim)
+        # THEN it says 'calibrated' before the end, and then at the end the values are within 2 sigma
+        calibrated = [p.payload for p in pubs if p.payload["calibration"]["status"] == "calibrated"]
+        assert calibrated, f"never calibrated on a beat (seed {seed})"
+        zk = np.array([(c["stw_scale"] - k_true) / c["stw_scale_sigma"] for c in calibrated])
+        zd = np.array([(c["heading_offset_deg"] - d_true) / c["heading_offset_sigma_deg"] for c in calibrated])
+        assert abs(zk[-1]) <= 2.0 and abs(zd[-1]) <= 2.0, (seed, zk[-1], zd[-1])
+        # ... never 3 sigma off while it says 'calibrated'
+        assert np.abs(zk).max() <= 3.0 and np.abs(zd).max() <= 3.0, (seed, np.abs(zk).max(), np.abs(zd).max())
+        within["k"].append(np.mean(np.abs(zk) <= 2.0))
+        within["d"].append(np.mean(np.abs(zd) <= 2.0))
+        # ... and the current at the end is within 0.15 kn of the truth
+        end = pubs[-1]
+        truth = sim.truth_at(end.t_s)
+        assert math.hypot(end.payload["east_kn"] - truth.current_east_kn,
+                          end.payload["north_kn"] - truth.current_north_kn) < 0.15, seed
+    # ... and 'calibrated' is within 2 sigma of the truth as often as a fair estimate is: 95 % of the time for a
+    # Gaussian error; a run's error lasts for hours (one fit's data), so over six runs at least 90 %
+    assert np.mean(within["k"]) >= 0.9 and np.mean(within["d"]) >= 0.9, within
 
 
 M_RUNS = 6

@@ -63,7 +63,8 @@ their uncertainty and cross-correlation are carried into the current's, their
 estimates never moved by a fix. They are learnt by a batch least-squares fit
 over the steady legs of a sliding window (``calibration``: one-minute blocks
 with effective sample counts for correlated noise, the current as a slowly
-varying polynomial, the prior as two observations), fused into the filter with
+varying polynomial, the prior as two observations, the least squares corrected
+for the instruments' noise in the readings it regresses on), fused into the filter with
 only the information the filter lacks. The filter reports stw_scale and
 heading_offset_deg as the prior values until it knows them better than the
 prior, and the status "calibrated" only once their sigmas fall below the

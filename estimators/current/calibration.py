@@ -77,10 +77,27 @@ current band's edge) reads small in time order and large in the sum of squares:
 where the residuals' excess over the sensors is significant (``EXCESS_SIGMAS``)
 the larger of the two walks is counted. The sensors'
 part keeps their modelled width even where the residuals show them quieter
-(their reduced chi-square is about 0.4 on the simulator's realistic seaway): a
+(their reduced chi-square is about 0.7 on the simulator's realistic seaway): a
 leg's systematic errors, leeway and a yawing compass's bias, move k and d
 without showing in the residuals either (a beat's first tacks put the offset
-2.5-2.9 sigma off with the sensors' part scaled to the residuals).
+2.5-2.9 sigma off with the sensors' part scaled to the residuals). Each axis
+carries half of the log's and the compass's variance (the log's lies along the
+water track, the compass's across it); each once carried their sum, a margin
+that hid the pull below (tools/bench/NOTES.md).
+
+The readings' own noise. m is measured, not known: the log's noise lies in it
+along the water track and the compass's across it, tr(M) per block. Noise in a
+regressor pulls its coefficient toward zero (regression dilution): the sum of
+squares grows with k^2 sum w tr(M), so plain least squares trades a little of k
+for it. Where only a small course change separates k from the current, that
+pull is of the order of k's own sigma (three hours of legs 20 deg apart: 0.003
+low at a sigma of 0.003, tests/test_current_calibration_fit.py). The fit takes
+the noise's expected share off its objective, k^2 sum w tr(M) with tr(M) the
+params' block model scaled down to the residuals where they show the sensors
+quieter (corrected least squares: Fuller, "Measurement Error Models", 1987,
+sect. 1.1 and 3.1; Nakamura, "Corrected score function for errors-in-variables
+models", Biometrika 77, 1990; from memory). Neither d nor the current is
+pulled: a rotation keeps |R(d) dm|, and the current does not multiply m.
 
 Feeding the filter. A fit whose (k, d) covariance Sigma is smaller than the
 filter's own marginal P_kd is fused as a measurement of (k, d) with
@@ -222,23 +239,25 @@ class CalibrationFit:
         sensor = np.tile(self.sensor_variances(blocks, k_start), 2)        # per residual: east, then north
         dof = max(1, len(sensor) - n_cur - 2)
         walk0 = self.params.current_walk_kn_per_sqrt_h ** 2                 # the params' walk, kn^2/h
-        settled, k, d = walk0, k_start, d_start
+        settled, k, d, readings_scale = walk0, k_start, d_start, 1.0
         for _ in range(MODEL_ERROR_ITERATIONS):
-            walk = settled
+            walk, scale_was = settled, readings_scale
             v = sensor + quadratic_residual_var(walk, span_s)
             trend_w = self._walk_weights(max(walk, walk0), span_s)            # never tighter than the params'
-            solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], trend_w, k, d)
+            solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], trend_w, k, d, readings_scale)
             if solved is None:
                 return None
             k, d, A, res, J, c = solved
             read = excess_variance(res, sensor, dof) / quadratic_residual_var(1.0, span_s)
             settled = shrunk_walk(walk0, self.params.calibration_walk_prior_dof, read, dof)
-            if abs(settled - walk) <= 0.01 * walk + 1e-9:
+            readings_scale = min(1.0, float(np.sum(res ** 2 / v)) / dof)   # the readings as noisy as the residuals show
+            if abs(settled - walk) <= 0.01 * walk + 1e-9 and abs(readings_scale - scale_was) <= 0.01:
                 break
         chi2_red = float(np.sum(res ** 2 / v)) / dof
         walk_shown = self._covariance_walk(blocks, res, sensor, walk, dof)
         # the sensors' part keeps their model's width, quieter as the residuals may show them: what a leg's
-        # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either
+        # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either.
+        # A (for the sandwich) is J'WJ without the readings' correction (a small term on k's diagonal)
         cov = walk_consider_cov(A, J, v, sensor, walk_shown, blocks, tidal_remainder(blocks, c))
         self.last = FitResult(k, d, cov[n_cur:, n_cur:] * max(1.0, chi2_red), chi2_red, len(blocks),
                               spread_deg(blocks), math.sqrt(walk), not self.dropped, math.sqrt(walk_shown))
@@ -277,10 +296,11 @@ class CalibrationFit:
         ceiling = RESIDUAL_WALK_CEILING * self.params.current_walk_kn_per_sqrt_h ** 2 / S_PER_H
         return fit_walk(series, ceiling, self.params.water_walk_confidence, NOISE_SCALES)
 
-    def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float
-                      ) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
+    def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float,
+                      readings_scale: float = 1.0) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
         """(k, d, the normal matrix J'WJ, the blocks' residuals east then north, the blocks' rows of J) at the
-        solution; None if singular."""
+        solution; None if singular. ``readings_scale``: the readings' noise over the params' model of it (see
+        the module doc, "The readings' own noise")."""
         n_cur = 2 * CURRENT_TERMS
         t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
         tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
@@ -289,6 +309,7 @@ class CalibrationFit:
         k0, d0, sk0, sd0 = self.prior
         nb = len(blocks)
         n_walk = len(walk_w)
+        dilution = readings_scale * float(np.sum(w * self.reading_variances(blocks)))  # sum w tr(M), both axes
         for _ in range(4):
             cd, sd = math.cos(d), math.sin(d)
             Re = M[:, 0] * cd + M[:, 1] * sd                                # R(d) m, east
@@ -311,8 +332,13 @@ class CalibrationFit:
             # the current columns enter with the full coefficients (r excludes c): solve for [c, dk, dd]
             A = J.T @ (W[:, None] * J)
             b = J.T @ (W * r)
+            # corrected least squares: m carries its own noise, which makes sum w |g - c - k R m|^2 grow with k^2
+            # by k^2 sum w tr(M); taking it off the objective takes the pull toward a smaller k off the estimate
+            A_corr = A.copy()
+            A_corr[n_cur, n_cur] -= dilution
+            b[n_cur] += dilution * k
             try:
-                sol = np.linalg.solve(A, b)
+                sol = np.linalg.solve(A_corr, b)
             except np.linalg.LinAlgError:
                 return None
             k, d = k + float(sol[n_cur]), d + float(sol[n_cur + 1])
@@ -343,23 +369,26 @@ class CalibrationFit:
     def sensor_variances(self, blocks: list[Block], k: float) -> np.ndarray:
         """The nominal variance per axis of each block's triangle from the sensors alone, with the effective sample count.
 
-        The log's (along the water track) and the compass's (across it) are both counted on each axis:
-        wider than either axis's own share, which keeps a fit from one course change wide enough for what
-        a leg's systematic errors do to it (along and across apart, the beat's first tack left the offset
-        2.2 sigma off).
+        The GNSS's per axis, and half of k^2 tr(M): the log's error lies along the water track and the
+        compass's across it, so averaged over the two axes each carries half of their sum.
         """
+        p = self.params
+        gnss = np.array([p.gnss_velocity_sigma_kn ** 2 / b.fixes for b in blocks])
+        return gnss + 0.5 * k * k * self.reading_variances(blocks)
+
+    def reading_variances(self, blocks: list[Block]) -> np.ndarray:
+        """tr(M) of each block: the variance of its mean water-velocity reading m (kn^2, along plus across),
+        the log's along the water track and the compass's across it, with the effective sample count."""
         p = self.params
         out = np.empty(len(blocks))
         for i, b in enumerate(blocks):
             span = max(p.calibration_block_s, b.fixes * 1e-3)
-            ks = k * b.speed_kn
             # the mean of n fixes: the independent part / n; a Gauss-Markov part sigma^2 2 tau / T (N_eff = T / 2 tau)
-            white = (p.gnss_velocity_sigma_kn ** 2 + k * k * p.log_sigma_kn ** 2
-                     + (ks * math.radians(p.heading_sigma_deg)) ** 2) / b.fixes
-            corr = (k * k * p.log_correlated_sigma_kn ** 2 * min(1.0, 2.0 * p.noise_correlation_s / span)
-                    + (ks * math.radians(p.heading_correlated_sigma_deg)) ** 2
-                    * min(1.0, 2.0 * p.heading_correlation_s / span))
-            out[i] = white + corr                                           # per axis (about: along and across mixed)
+            log = (p.log_sigma_kn ** 2 / b.fixes
+                   + p.log_correlated_sigma_kn ** 2 * min(1.0, 2.0 * p.noise_correlation_s / span))
+            compass = (math.radians(p.heading_sigma_deg) ** 2 / b.fixes
+                       + math.radians(p.heading_correlated_sigma_deg) ** 2 * min(1.0, 2.0 * p.heading_correlation_s / span))
+            out[i] = log + b.speed_kn ** 2 * compass
         return out
 
 
