@@ -172,7 +172,7 @@ def test_a_turning_stream_stays_within_the_fits_sigma():
 class _Uncorrected(CalibrationFit):
     """The fit without the correction for the readings' own noise (to show the pull it takes away)."""
 
-    def _gauss_newton(self, blocks, w, walk_w, k, d, readings_scale=1.0):
+    def _gauss_newton(self, blocks, w, walk_w, k, d, dilution):
         return super()._gauss_newton(blocks, w, walk_w, k, d, 0.0)
 
 
@@ -183,11 +183,10 @@ def noisy_reading_blocks(seed: int, courses: tuple[float, ...], leg_s: float, ho
     rng = np.random.default_rng(seed)
     speed = STW_KN / K_TRUE
     fit = CalibrationFit(PARAMS, (1.0, 0.0, 0.05, 0.05))
-    probe = Block(0.0, (0.0, 0.0), (0.0, speed), speed, 60)
-    p = PARAMS
-    log_var = p.log_sigma_kn ** 2 / 60 + p.log_correlated_sigma_kn ** 2 * 2.0 * p.noise_correlation_s / BLOCK_S
-    across_var = fit.reading_variances([probe])[0] - log_var
-    gnss_sd = p.gnss_velocity_sigma_kn / math.sqrt(60)
+    moving, still = Block(0.0, (0.0, 0.0), (0.0, speed), speed, 60), Block(0.0, (0.0, 0.0), (0.0, 0.0), 0.0, 60)
+    log_var = fit.reading_variances([still])[0]                 # at no speed the compass adds nothing: the log's
+    across_var = fit.reading_variances([moving])[0] - log_var
+    gnss_sd = math.sqrt(fit.gnss_variances([moving])[0])
     ce, cn = 0.6, -0.8
     out = []
     for i in range(int(hours * 3600 / BLOCK_S)):

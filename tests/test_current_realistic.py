@@ -83,8 +83,9 @@ def test_a_tack_sequence_converges_to_a_calibration_within_two_sigma():
         truth = sim.truth_at(end.t_s)
         assert math.hypot(end.payload["east_kn"] - truth.current_east_kn,
                           end.payload["north_kn"] - truth.current_north_kn) < 0.15, seed
-    # ... and 'calibrated' is within 2 sigma of the truth as often as a fair estimate is: 95 % of the time for a
-    # Gaussian error; a run's error lasts for hours (one fit's data), so over six runs at least 90 %
+    # ... and 'calibrated' is within 2 sigma of the truth as often as a fair estimate is: 95.4 % of the time for a
+    # Gaussian error (the normal distribution's two-sided 2-sigma share); a run's error lasts for hours (one
+    # fit's data), so over six runs at least 90 %
     assert np.mean(within["k"]) >= 0.9 and np.mean(within["d"]) >= 0.9, within
 
 

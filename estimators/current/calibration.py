@@ -236,7 +236,8 @@ class CalibrationFit:
         if len(blocks) < n_cur or spread_deg(blocks) < self.params.calibration_min_spread_deg:
             return None  # on one course k and d are not observable: the fit would only trade them for the current
         span_s = blocks[-1].t_s - blocks[0].t_s
-        sensor = np.tile(self.sensor_variances(blocks, k_start), 2)        # per residual: east, then north
+        readings = self.reading_variances(blocks)                           # tr(M) of each block
+        sensor = np.tile(self.sensor_variances(blocks, k_start, readings), 2)  # per residual: east, then north
         dof = max(1, len(sensor) - n_cur - 2)
         walk0 = self.params.current_walk_kn_per_sqrt_h ** 2                 # the params' walk, kn^2/h
         settled, k, d, readings_scale = walk0, k_start, d_start, 1.0
@@ -244,16 +245,17 @@ class CalibrationFit:
             walk, scale_was = settled, readings_scale
             v = sensor + quadratic_residual_var(walk, span_s)
             trend_w = self._walk_weights(max(walk, walk0), span_s)            # never tighter than the params'
-            solved = self._gauss_newton(blocks, 1.0 / v[:len(blocks)], trend_w, k, d, readings_scale)
+            w = 1.0 / v[:len(blocks)]
+            solved = self._gauss_newton(blocks, w, trend_w, k, d, readings_scale * float(np.sum(w * readings)))
             if solved is None:
                 return None
             k, d, A, res, J, c = solved
             read = excess_variance(res, sensor, dof) / quadratic_residual_var(1.0, span_s)
             settled = shrunk_walk(walk0, self.params.calibration_walk_prior_dof, read, dof)
-            readings_scale = min(1.0, float(np.sum(res ** 2 / v)) / dof)   # the readings as noisy as the residuals show
+            chi2_red = float(np.sum(res ** 2 / v)) / dof
+            readings_scale = min(1.0, chi2_red)                               # the readings as noisy as the residuals show
             if abs(settled - walk) <= 0.01 * walk + 1e-9 and abs(readings_scale - scale_was) <= 0.01:
                 break
-        chi2_red = float(np.sum(res ** 2 / v)) / dof
         walk_shown = self._covariance_walk(blocks, res, sensor, walk, dof)
         # the sensors' part keeps their model's width, quieter as the residuals may show them: what a leg's
         # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either.
@@ -297,10 +299,10 @@ class CalibrationFit:
         return fit_walk(series, ceiling, self.params.water_walk_confidence, NOISE_SCALES)
 
     def _gauss_newton(self, blocks: list[Block], w: np.ndarray, walk_w: np.ndarray, k: float, d: float,
-                      readings_scale: float = 1.0) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
+                      dilution: float) -> tuple[float, float, np.ndarray, np.ndarray, np.ndarray] | None:
         """(k, d, the normal matrix J'WJ, the blocks' residuals east then north, the blocks' rows of J) at the
-        solution; None if singular. ``readings_scale``: the readings' noise over the params' model of it (see
-        the module doc, "The readings' own noise")."""
+        solution; None if singular. ``dilution``: sum w tr(M) over both axes of every block, the readings' noise
+        in the sum of squares per unit k^2 (the module doc, "The readings' own noise"); 0: plain least squares."""
         n_cur = 2 * CURRENT_TERMS
         t_mid = 0.5 * (blocks[0].t_s + blocks[-1].t_s)
         tau = np.array([(b.t_s - t_mid) / S_PER_H for b in blocks])
@@ -309,7 +311,6 @@ class CalibrationFit:
         k0, d0, sk0, sd0 = self.prior
         nb = len(blocks)
         n_walk = len(walk_w)
-        dilution = readings_scale * float(np.sum(w * self.reading_variances(blocks)))  # sum w tr(M), both axes
         for _ in range(4):
             cd, sd = math.cos(d), math.sin(d)
             Re = M[:, 0] * cd + M[:, 1] * sd                                # R(d) m, east
@@ -366,15 +367,20 @@ class CalibrationFit:
         s1, s2 = sw / math.sqrt(span_h), 4.0 * sw / span_h ** 1.5
         return np.array([1.0 / s1 ** 2, 1.0 / s1 ** 2, 1.0 / s2 ** 2, 1.0 / s2 ** 2])  # c1e, c1n, c2e, c2n
 
-    def sensor_variances(self, blocks: list[Block], k: float) -> np.ndarray:
+    def sensor_variances(self, blocks: list[Block], k: float, readings: np.ndarray | None = None) -> np.ndarray:
         """The nominal variance per axis of each block's triangle from the sensors alone, with the effective sample count.
 
-        The GNSS's per axis, and half of k^2 tr(M): the log's error lies along the water track and the
-        compass's across it, so averaged over the two axes each carries half of their sum.
+        The GNSS's per axis, and half of k^2 tr(M) (``readings``, the blocks' ``reading_variances``): the log's
+        error lies along the water track and the compass's across it, so averaged over the two axes each carries
+        half of their sum.
         """
-        p = self.params
-        gnss = np.array([p.gnss_velocity_sigma_kn ** 2 / b.fixes for b in blocks])
-        return gnss + 0.5 * k * k * self.reading_variances(blocks)
+        if readings is None:
+            readings = self.reading_variances(blocks)
+        return self.gnss_variances(blocks) + 0.5 * k * k * readings
+
+    def gnss_variances(self, blocks: list[Block]) -> np.ndarray:
+        """The variance per axis of each block's mean ground velocity (kn^2): the GNSS's, independent from fix to fix."""
+        return np.array([self.params.gnss_velocity_sigma_kn ** 2 / b.fixes for b in blocks])
 
     def reading_variances(self, blocks: list[Block]) -> np.ndarray:
         """tr(M) of each block: the variance of its mean water-velocity reading m (kn^2, along plus across),
