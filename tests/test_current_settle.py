@@ -13,7 +13,7 @@ import numpy as np
 from estimators.current import CurrentEstimator, CurrentParams
 from estimators.runner import run
 from estimators.samples import Fix
-from tests.synth import synth_passage
+from tests.synth import T0, synth_passage
 
 NARROWING = 2.0 / 3.0
 
@@ -48,3 +48,32 @@ def test_a_fit_that_narrows_the_sigma_holds_valid_back_while_the_current_settles
     for t_fit in narrowing_fits:
         held = [q for t, q in quality_at.items() if t_fit <= t < t_fit + params.calibration_settle_s]
         assert held and "valid" not in held, (t_fit, held)
+
+
+def test_a_course_change_is_not_valid_before_the_calibration_fit_has_weighed_it():
+    # GIVEN 90 minutes on one heading with a log 11 % slow and the compass 3 deg off (about 2.2 and 1 sigma of the
+    # prior: the calibration is not yet learnt), then a course change of 25 deg. Across the change the consider
+    # states' cross-covariance narrows the current's sigma on the first fixes of the new heading, the fit's blocks
+    # come only minutes later
+    params = CurrentParams()
+    syn = synth_passage(8, 2 * 3600, [(0.0, 80.0), (5400.0, 105.0)], k=1.112, offset_deg=3.0,
+                        current_en=(0.59, 0.10))
+    est = CurrentEstimator(params)
+    quality_at, sigma_at, first_fit_after = {}, {}, None
+    fused = 0
+    for s, outs in run(est, syn.samples, tick=False):
+        for o in outs:
+            if getattr(o, "topic", None) == "current":
+                quality_at[o.t_s] = o.payload["quality"]
+                sigma_at[o.t_s] = o.payload["drift_sigma_kn"]
+        if isinstance(s, Fix) and est.ekf is not None:
+            if s.t_s - T0 > 5400.0 and est.cal_health.fused > fused and first_fit_after is None:
+                first_fit_after = s.t_s
+            fused = est.cal_health.fused
+    # WHEN the published sigma has narrowed below its one-course value after the change, before the first fit
+    before = [sigma_at[t] for t in sigma_at if 5000.0 < t - T0 < 5400.0]
+    assert first_fit_after is not None
+    gap = [t for t in quality_at if 5400.0 < t - T0 and t < first_fit_after]
+    assert min(sigma_at[t] for t in gap) < 0.85 * min(before)
+    # THEN none of it is called 'valid': the calibration's error is not yet told from the current
+    assert "valid" not in {quality_at[t] for t in gap}

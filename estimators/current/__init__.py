@@ -109,7 +109,10 @@ Honest quality: the NIS of the last ``nis_check_fixes`` fixes against the
 covariance the filter uses is tested against its two-sided chi-square bounds
 (``estimators.fusion.WindowedNis``, Bar-Shalom et al. 2001, sect. 5.4.2); above
 them the quality is 'degraded' with the reason, so 'valid' is said only while
-the filter's own statistics say its model fits.
+the filter's own statistics say its model fits. Nor while a course change has
+narrowed the current's sigma through the consider states' cross-covariance
+before the calibration fit has weighed it: 'valid' is also held against the
+sigma the present heading alone would give (``publication._sigma_on_this_heading``).
 
 Turns: in a turn the fix's ground velocity and the fix interval's mean
 heading and log speed belong to instants up to a second apart (sample times,

@@ -101,6 +101,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         self._calibration_stepped = -math.inf  # the last fit that moved k or d beyond its new sigma (publication)
         self._settled_from = -math.inf  # the Jacobian's low-pass resumes here after a manoeuvre (_slow_inputs)
         self._calfit: CalibrationFit | None = None
+        self._h_kd: tuple[float, float, float, float] | None = None  # H's k and d columns at the last fused fix (publication)
         self.water_walk: WaterWalk | None = None  # the walk the published covariance P_pub assumes (see walk)
         self._cal_gate = chi2_quantile(self.params.calibration_fit_probability, 2)
         self._walk_floor = min(self.params.current_walk_floor_kn_per_sqrt_h,   # kn^2/s: filter_rate's floor
@@ -300,6 +301,7 @@ class CurrentEstimator(Control, Publisher, EstimatorBase):
         if up.fused:
             self.consecutive_rejects = 0
             ekf.x, ekf.P = up.x, up.P
+            self._h_kd = (h0[IK], h0[ID], h1[IK], h1[ID])
             # the same step, the filter's gain, with the noise the water's blocks show (``walk``)
             scale = self.water_walk.noise_scale
             (r00, r01), (r10, r11) = R                                      # R x scale, written out (2 x 2)

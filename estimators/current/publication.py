@@ -44,6 +44,36 @@ class Publisher:
         (le, len_), (_, ln) = lag_covariance(self.ekf.lag, self.water_walk.slope_moment)
         return self.ekf.P_pub + np.array([[le, len_, 0.0, 0.0], [len_, ln, 0.0, 0.0], [0.0] * 4, [0.0] * 4])
 
+    def _sigma_on_this_heading(self) -> float:
+        """The current's vector sigma without the credit a course change gives it before the calibration fit has
+        weighed that change: the part of P_pub that k and d do not explain (the Schur complement) plus what the
+        calibration's own covariance makes of the present heading's triangle, H_kd P_kd H_kd'.
+
+        Why: k and d are consider states, so across a course change the filter's cross-covariance lets the first
+        fixes on the new heading tell the current from the calibration's error and narrow its sigma at once. Those
+        few fixes carry the log's correlated noise and the wave surge the fit averages over its blocks: with a
+        log 11 % slow (a draw 2.2 sigma out in the prior) and a 25-degree course change the current read 0.6-0.8
+        kn off under a sigma of 0.2, 'valid', for the four minutes until the fit came (tools/bench/NOTES.md, "A
+        course change's credit"). Where the calibration is learnt, H_kd P_kd H_kd' is small and this is the
+        published sigma; on one course the two are the same.
+        """
+        if self._h_kd is None:
+            return 0.0
+        P = self.ekf.P_pub.tolist()
+        (a, b), (c, d) = (P[IK][IK], P[IK][ID]), (P[ID][IK], P[ID][ID])   # P_kd
+        det = a * d - b * c
+        if not det > 0.0:
+            return 0.0
+        i00, i01, i10, i11 = d / det, -b / det, -c / det, a / det          # P_kd^-1
+        h00, h01, h10, h11 = self._h_kd                                    # H_kd: rows east, north
+        total = 0.0
+        for row, (g0, g1) in ((IE, (h00, h01)), (IN, (h10, h11))):
+            p0, p1 = P[row][IK], P[row][ID]                                # this axis's P_c,kd
+            explained = p0 * (i00 * p0 + i01 * p1) + p1 * (i10 * p0 + i11 * p1)
+            on_heading = g0 * (a * g0 + b * g1) + g1 * (c * g0 + d * g1)
+            total += P[row][row] - explained + on_heading
+        return math.sqrt(max(0.0, total))
+
     def _stale_inputs(self, t: float) -> list[str]:
         return [k for k in ("fix", "heading", "water_speed") if t - self._seen.get(k, -math.inf) > self.params.stale_s]
 
@@ -70,6 +100,9 @@ class Publisher:
                                 "are catching up and may lag it for some minutes")
         if sigma_vec > p.valid_sigma_kn:
             return "converging", "uncertainty above the valid threshold"
+        if self._sigma_on_this_heading() > p.valid_sigma_kn:
+            return "converging", ("a course change not yet weighed against the log and compass: the current is "
+                                  "settling while the calibration is relearnt")
         if t < self._calibration_stepped + p.calibration_settle_s:
             return "converging", "the log scale or the compass offset has just been relearnt: the current is settling"
         return "valid", ""
