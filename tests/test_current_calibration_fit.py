@@ -176,16 +176,17 @@ class _Uncorrected(CalibrationFit):
         return super()._gauss_newton(blocks, w, walk_w, k, d, 0.0)
 
 
-def noisy_reading_blocks(seed: int, courses: tuple[float, ...], leg_s: float, hours: float) -> list[Block]:
+def noisy_reading_blocks(seed: int, courses: tuple[float, ...], leg_s: float, hours: float,
+                         compass_over_model: float = 1.0) -> list[Block]:
     """Steady water seen on gentle course changes, the noise where the instruments put it: the log's along the
     water track and the compass's across it in the reading m, the GNSS's in the ground velocity g (each with
-    the variance of the fit's own block model)."""
+    the variance of the fit's own block model, the compass's ``compass_over_model`` times it)."""
     rng = np.random.default_rng(seed)
     speed = STW_KN / K_TRUE
     fit = CalibrationFit(PARAMS, (1.0, 0.0, 0.05, 0.05))
     moving, still = Block(0.0, (0.0, 0.0), (0.0, speed), speed, 60), Block(0.0, (0.0, 0.0), (0.0, 0.0), 0.0, 60)
     log_var = fit.reading_variances([still])[0]                 # at no speed the compass adds nothing: the log's
-    across_var = fit.reading_variances([moving])[0] - log_var
+    across_var = compass_over_model * (fit.reading_variances([moving])[0] - log_var)
     gnss_sd = math.sqrt(fit.gnss_variances([moving])[0])
     ce, cn = 0.6, -0.8
     out = []
@@ -221,3 +222,36 @@ def test_the_readings_own_noise_does_not_pull_the_log_scale_low():
     # ... and with it the mean error is within 3 standard errors of zero (corrected least squares: the noise's
     # expected share of the sum of squares, k^2 sum w tr(M), taken off the objective)
     assert abs(np.mean(k_fit)) < 3.0 * se, (np.mean(k_fit), se)
+
+
+class _EvenlyShared(CalibrationFit):
+    """The fit with its instruments' scales held at their model (the covariance before they were read)."""
+
+    def _instrument_scales(self, *args) -> tuple[float, float]:
+        return 1.0, 1.0
+
+
+def test_a_compass_quieter_than_its_model_does_not_widen_the_log_scales_sigma():
+    # GIVEN three hours of steady water on legs 20 deg apart, the compass's block noise half its model's (wave
+    # yaw, a swing of a few seconds, averages out over a minute's block faster than the white noise the model
+    # takes it for), the log's as modelled, 80 seeds
+    n = 80
+    zk, zd, zk_even = [], [], []
+    for seed in range(n):
+        bl = noisy_reading_blocks(4000 + seed, (80.0, 100.0), 1800.0, 3.0, compass_over_model=0.5)
+        # WHEN the fit runs, reading each instrument's scale from the residuals on its own axis, and without
+        r = fitted(bl)
+        zk.append((r.k - K_TRUE) ** 2 / r.cov[0, 0])
+        zd.append((math.degrees(r.d_rad) - D_TRUE_DEG) ** 2 / math.degrees(math.sqrt(r.cov[1, 1])) ** 2)
+        even = _EvenlyShared(PARAMS, (1.0, 0.0, 0.05, math.radians(3.0)))
+        even.blocks.extend(bl)
+        e = even.fit(bl[-1].t_s, 1.0, 0.0)
+        zk_even.append((e.k - K_TRUE) ** 2 / e.cov[0, 0])
+    lo, hi = chi2.ppf(0.005, n) / n, chi2.ppf(0.995, n) / n
+    # THEN on gentle course changes the log scale is read from the legs' difference across the water track (the
+    # compass's axis): with the compass's model width its sigma is too wide (mean z^2 below the chi-square band
+    # of 80 draws, 99 %: scipy)
+    assert np.mean(zk_even) < lo, np.mean(zk_even)
+    # ... and with the compass's scale read from the residuals both sigmas are honest, in the band
+    assert lo < np.mean(zk) < hi, np.mean(zk)
+    assert lo < np.mean(zd) < hi, np.mean(zd)

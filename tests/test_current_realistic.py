@@ -37,24 +37,40 @@ def publications(sim, params: CurrentParams | None = None):
     return est, pubs
 
 
-def test_small_course_changes_keep_the_calibration_at_its_prior_or_within_two_sigma_of_the_truth():
-    # GIVEN five hours of 1-hour legs whose headings differ by 15-30 deg (log 2 % slow, compass 1 deg off)
+SMALL_CHANGE_SEEDS = range(1, 7)
+
+
+def test_small_course_changes_keep_the_calibration_at_its_prior_or_within_its_sigma_of_the_truth():
+    # GIVEN five hours of 1-hour legs whose headings differ by 15-30 deg (log 2 % slow, compass 1 deg off), six seeds
     legs = tuple(Steer(h, 6.0, 1 * H) for h in (80.0, 105.0, 90.0, 60.0, 85.0))
-    sim = simulate(replace(ordinary_passage(), duration_s=5 * H, helm=legs), 3)
-    k_true, d_true = true_calibration(sim)
-    # WHEN the estimator runs over it
-    est, pubs = publications(sim)
-    # THEN at every publication each half of the calibration is the prior (1, 0 with the prior's sigma)
-    # or within 2 of its own sigmas of the truth: small course changes never walk it away
     p = CurrentParams()
-    for pub in pubs:
-        c = pub.payload
-        at_prior_k = c["stw_scale"] == 1.0 and c["stw_scale_sigma"] == pytest.approx(p.initial_stw_scale_sigma)
-        at_prior_d = c["heading_offset_deg"] == 0.0 and c["heading_offset_sigma_deg"] == pytest.approx(
-            p.initial_heading_offset_sigma_deg)
-        assert at_prior_k or abs(c["stw_scale"] - k_true) <= 2.0 * c["stw_scale_sigma"] + 5e-4, (pub.t_s, c["stw_scale"])
-        assert at_prior_d or abs(c["heading_offset_deg"] - d_true) <= 2.0 * c["heading_offset_sigma_deg"] + 0.01, \
-            (pub.t_s, c["heading_offset_deg"])
+    z = {"k": [], "d": []}
+    for seed in SMALL_CHANGE_SEEDS:
+        sim = simulate(replace(ordinary_passage(), duration_s=5 * H, helm=legs), seed)
+        k_true, d_true = true_calibration(sim)
+        # WHEN the estimator runs over it
+        est, pubs = publications(sim)
+        for pub in pubs:
+            c = pub.payload
+            at_prior_k = c["stw_scale"] == 1.0 and c["stw_scale_sigma"] == pytest.approx(p.initial_stw_scale_sigma)
+            at_prior_d = c["heading_offset_deg"] == 0.0 and c["heading_offset_sigma_deg"] == pytest.approx(
+                p.initial_heading_offset_sigma_deg)
+            if not at_prior_k:
+                z["k"].append(abs(c["stw_scale"] - k_true) / c["stw_scale_sigma"])
+            if not at_prior_d:
+                z["d"].append(abs(c["heading_offset_deg"] - d_true) / c["heading_offset_sigma_deg"])
+    # THEN each half of the calibration is the prior (1, 0 with the prior's sigma) or near the truth as its
+    # sigma says: small course changes never walk it away (the failure this guards against ran the log scale
+    # 8 % from the truth over half an hour). Never beyond 3 of its sigmas; within 2 at 90 % of the moments or
+    # more (an honest sigma: 95.4 %, the normal distribution's two-sided 2-sigma share; a run's moments share
+    # their errors, so the pooled share of six runs scatters). "Within 2 sigma at every moment" holds only for
+    # a sigma wider than its errors: before each instrument's noise was read on its own axis the log scale
+    # never passed 1.8 sigma here while its errors' mean z^2 was about 0.6, and even then one seed of eight
+    # put the offset 2.2 sigma off (tools/bench/NOTES.md, "Each instrument on its own axis")
+    for name, values in z.items():
+        assert values, name
+        assert max(values) <= 3.0, (name, max(values))
+        assert np.mean(np.array(values) <= 2.0) >= 0.90, (name, np.mean(np.array(values) <= 2.0))
 
 
 TACK_SEEDS = range(1, 7)

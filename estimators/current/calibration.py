@@ -75,15 +75,25 @@ covariance also counts the cubic and quartic terms a semidiurnal stream with
 the fitted slope and curvature would have (``tidal_remainder``). A step (a
 current band's edge) reads small in time order and large in the sum of squares:
 where the residuals' excess over the sensors is significant (``EXCESS_SIGMAS``)
-the larger of the two walks is counted. The sensors'
-part keeps their modelled width even where the residuals show them quieter
-(their reduced chi-square is about 0.7 on the simulator's realistic seaway): a
-leg's systematic errors, leeway and a yawing compass's bias, move k and d
-without showing in the residuals either (a beat's first tacks put the offset
-2.5-2.9 sigma off with the sensors' part scaled to the residuals). Each axis
-carries half of the log's and the compass's variance (the log's lies along the
-water track, the compass's across it); each once carried their sum, a margin
-that hid the pull below (tools/bench/NOTES.md).
+the larger of the two walks is counted.
+
+The sensors' part, each instrument on its own axis. A block's triangle carries
+the GNSS's noise on both axes, the log's along the water track and the
+compass's across it (``sensor_covariances``). The weights share the two evenly
+between the axes; the covariance keeps each where it lies, because on gentle
+course changes k is read from the legs' difference across the water track (the
+compass's axis) and d from their difference along it (the log's). Each part is
+scaled to what the residuals show on its own axis where that is quieter than
+its model, never wider (``_instrument_scales``): the params' compass noise per
+fix is mostly wave yaw, a swing of a few seconds that a minute's block averages
+out faster than the white noise the model takes it for (on the simulator's
+realistic seaway the residuals' reduced chi-square is about 0.57 across the
+water track and 0.83 along it), and with the compass's model width k's sigma was
+about 1.3 times its errors on the ordinary passage. The whole sensors' part
+scaled to the residuals' chi-square over both axes had put a beat's first tacks'
+offset 2.5-2.9 sigma off: one scale for both axes narrows the log's part by the
+compass's quietness. Each axis once carried the log's and the compass's
+variance summed, a margin that hid the pull below (tools/bench/NOTES.md).
 
 The readings' own noise. m is measured, not known: the log's noise lies in it
 along the water track and the compass's across it, tr(M) per block. Noise in a
@@ -257,13 +267,32 @@ class CalibrationFit:
             if abs(settled - walk) <= 0.01 * walk + 1e-9 and abs(readings_scale - scale_was) <= 0.01:
                 break
         walk_shown = self._covariance_walk(blocks, res, sensor, walk, dof)
-        # the sensors' part keeps their model's width, quieter as the residuals may show them: what a leg's
-        # systematic errors (leeway, a yawing compass's bias) do to k and d is not in the residuals either.
-        # A (for the sandwich) is J'WJ without the readings' correction (a small term on k's diagonal)
-        cov = walk_consider_cov(A, J, v, sensor, walk_shown, blocks, tidal_remainder(blocks, c))
+        # the sensors' part: each instrument on its own axis, quieter where the residuals on that axis show it
+        # (see the module doc). A (for the sandwich) is J'WJ without the readings' correction (a small term on
+        # k's diagonal)
+        scales = self._instrument_scales(blocks, res, k_start, quadratic_residual_var(walk, span_s), dof)
+        cov = walk_consider_cov(A, J, v, self.sensor_covariances(blocks, k_start, scales), walk_shown, blocks,
+                                tidal_remainder(blocks, c))
         self.last = FitResult(k, d, cov[n_cur:, n_cur:] * max(1.0, chi2_red), chi2_red, len(blocks),
                               spread_deg(blocks), math.sqrt(walk), not self.dropped, math.sqrt(walk_shown))
         return self.last
+
+    def _instrument_scales(self, blocks: list[Block], res: np.ndarray, k: float, model_error: float, dof: int
+                           ) -> tuple[float, float]:
+        """How noisy the log and the compass were over the window against their model, at most 1: the residuals'
+        reduced chi-square along each block's water track (the log's axis) and across it (the compass's), each
+        against the GNSS's variance, the model error's and that instrument's. The degrees of freedom are shared
+        evenly between the axes. Never above 1: where the residuals are noisier than the model the whole
+        covariance is widened by their chi-square (``fit``), and a leg's systematic errors are not in them."""
+        nb = len(blocks)
+        ue, un = water_track_units(blocks)
+        re, rn = res[:nb], res[nb:2 * nb]
+        gnss = self.gnss_variances(blocks) + model_error
+        along, across = self.reading_parts(blocks)
+        half = max(1.0, 0.5 * dof)
+        chi_along = float(np.sum((re * ue + rn * un) ** 2 / (gnss + k * k * along))) / half
+        chi_across = float(np.sum((re * un - rn * ue) ** 2 / (gnss + k * k * across))) / half
+        return min(1.0, chi_along), min(1.0, chi_across)
 
     def _covariance_walk(self, blocks: list[Block], res: np.ndarray, sensor: np.ndarray, walk: float, dof: int
                          ) -> float:
@@ -385,8 +414,30 @@ class CalibrationFit:
     def reading_variances(self, blocks: list[Block]) -> np.ndarray:
         """tr(M) of each block: the variance of its mean water-velocity reading m (kn^2, along plus across),
         the log's along the water track and the compass's across it, with the effective sample count."""
+        along, across = self.reading_parts(blocks)
+        return along + across
+
+    def sensor_covariances(self, blocks: list[Block], k: float, scales: tuple[float, float] = (1.0, 1.0)
+                           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Each block's 2 x 2 covariance of its triangle from the sensors alone, as (east, north, east-north):
+        the GNSS's on both axes, k^2 times the log's along the block's water track and the compass's across it.
+
+        The weights share them out evenly between the axes (``sensor_variances``); the covariance keeps each on
+        its own axis, because on small course changes k is read from the legs' difference across the water
+        track (the compass's axis) and d from the difference along it (the log's): the even share gave k the
+        mean of the two noises and d the same (tools/bench/NOTES.md, "Each instrument on its own axis")."""
+        gnss = self.gnss_variances(blocks)
+        along, across = self.reading_parts(blocks)
+        along, across = scales[0] * k * k * along, scales[1] * k * k * across
+        ue, un = water_track_units(blocks)
+        return (gnss + along * ue * ue + across * un * un, gnss + along * un * un + across * ue * ue,
+                (along - across) * ue * un)
+
+    def reading_parts(self, blocks: list[Block]) -> tuple[np.ndarray, np.ndarray]:
+        """Each block's variance of its mean water-velocity reading (kn^2) along the water track (the log's) and
+        across it (the compass's, times the speed squared), with the effective sample count."""
         p = self.params
-        out = np.empty(len(blocks))
+        along, across = np.empty(len(blocks)), np.empty(len(blocks))
         for i, b in enumerate(blocks):
             span = max(p.calibration_block_s, b.fixes * 1e-3)
             # the mean of n fixes: the independent part / n; a Gauss-Markov part sigma^2 2 tau / T (N_eff = T / 2 tau)
@@ -394,8 +445,15 @@ class CalibrationFit:
                    + p.log_correlated_sigma_kn ** 2 * min(1.0, 2.0 * p.noise_correlation_s / span))
             compass = (math.radians(p.heading_sigma_deg) ** 2 / b.fixes
                        + math.radians(p.heading_correlated_sigma_deg) ** 2 * min(1.0, 2.0 * p.heading_correlation_s / span))
-            out[i] = log + b.speed_kn ** 2 * compass
-        return out
+            along[i], across[i] = log, b.speed_kn ** 2 * compass
+        return along, across
+
+
+def water_track_units(blocks: list[Block]) -> tuple[np.ndarray, np.ndarray]:
+    """Each block's unit vector (east, north) along its mean water-velocity reading."""
+    m = np.array([b.m for b in blocks])
+    norm = np.maximum(np.hypot(m[:, 0], m[:, 1]), 1e-9)
+    return m[:, 0] / norm, m[:, 1] / norm
 
 
 def quadratic_residual_var(walk: float, span_s: float) -> float:
@@ -409,7 +467,8 @@ def quadratic_residual_var(walk: float, span_s: float) -> float:
     return walk * (span_s / S_PER_H) / 23.0
 
 
-def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray, sensor: np.ndarray, walk: float,
+def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray,
+                      sensor: tuple[np.ndarray, np.ndarray, np.ndarray], walk: float,
                       blocks: list[Block], unmodelled: np.ndarray | None = None) -> np.ndarray:
     """The fit's covariance with the current's walk counted as what it is: one path shared by all blocks.
 
@@ -432,7 +491,10 @@ def walk_consider_cov(A: np.ndarray, J: np.ndarray, v: np.ndarray, sensor: np.nd
     H = Ai @ WJ.T                                                           # p x 2nb: d estimate / d residual
     prior_info = np.zeros_like(A)                                           # the prior on k and d: its own error;
     prior_info[-2:, -2:] = (A - J.T @ WJ)[-2:, -2:]                         # the slope's and curvature's is the walk's
-    cov = Ai @ prior_info @ Ai + (H * sensor) @ H.T                         # the prior's part, the sensors'
+    He, Hn = H[:, :nb], H[:, nb:]                                           # the east residuals', the north's
+    ee, nn, en = sensor                                                     # each block's 2 x 2 (sensor_covariances)
+    cov = (Ai @ prior_info @ Ai                                             # the prior's part, the sensors'
+           + (He * ee) @ He.T + (Hn * nn) @ Hn.T + (He * en) @ Hn.T + (Hn * en) @ He.T)
     t_h = np.array([b.t_s for b in blocks]) / S_PER_H
     steps = np.diff(t_h, prepend=t_h[0])                                    # the walk's step before each block
     for axis in (slice(0, nb), slice(nb, 2 * nb)):
